@@ -1,0 +1,2 @@
+// Public surface of the benchmark suite, used by the CLI's `bench` and `tune` commands.
+export {};

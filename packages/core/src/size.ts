@@ -1,0 +1,40 @@
+/**
+ * The default size estimator: a rough count of the bytes a record adds to a write, cheap enough
+ * for the hot path (no serialisation). Adapters that know their wire format supply their own.
+ */
+export function estimateJsonBytes(value: unknown): number {
+  return estimate(value, 0);
+}
+
+function estimate(value: unknown, depth: number): number {
+  switch (typeof value) {
+    case 'string':
+      // UTF-16 length is a lower bound of UTF-8 bytes; good enough for a flush threshold.
+      return value.length + 2;
+    case 'number':
+      return 8;
+    case 'bigint':
+      return 20;
+    case 'boolean':
+      return 5;
+    case 'undefined':
+      return 0;
+    case 'object': {
+      if (value === null) return 4;
+      if (value instanceof Uint8Array) return value.byteLength;
+      if (value instanceof Date) return 26;
+      if (depth >= 4) return 64;
+      let n = 2;
+      if (Array.isArray(value)) {
+        for (const v of value) n += estimate(v, depth + 1) + 1;
+        return n;
+      }
+      for (const k in value as Record<string, unknown>) {
+        n += k.length + 4 + estimate((value as Record<string, unknown>)[k], depth + 1);
+      }
+      return n;
+    }
+    default:
+      return 16;
+  }
+}

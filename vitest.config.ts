@@ -1,0 +1,44 @@
+import { fileURLToPath } from 'node:url';
+import { defineConfig } from 'vitest/config';
+
+// Tests import the workspace packages by name; point those names at the TypeScript sources so a
+// test run needs no build, while `npm test` still builds first to type-check every package.
+const pkg = (name: string) => fileURLToPath(new URL(`./packages/${name}/src/index.ts`, import.meta.url));
+const alias = {
+  '@spillway/core': pkg('core'),
+  '@spillway/postgres': pkg('postgres'),
+  '@spillway/redis': pkg('redis'),
+  '@spillway/kafka': pkg('kafka'),
+  '@spillway/ingest': pkg('ingest'),
+  '@spillway/prometheus': pkg('prometheus'),
+  '@spillway/otel': pkg('otel'),
+  '@spillway/benchmarks': fileURLToPath(new URL('./benchmarks/src/index.ts', import.meta.url)),
+};
+
+export default defineConfig({
+  resolve: { alias },
+  test: {
+    projects: [
+      {
+        extends: true,
+        test: {
+          name: 'unit',
+          include: ['packages/*/test/**/*.test.ts', 'benchmarks/test/**/*.test.ts'],
+          testTimeout: 20_000,
+        },
+      },
+      {
+        extends: true,
+        test: {
+          name: 'integration',
+          include: ['test/**/*.test.ts'],
+          globalSetup: ['test/harness/global-setup.ts'],
+          testTimeout: 180_000,
+          hookTimeout: 180_000,
+          // Two cores: more workers only make the servers' own work slower.
+          maxWorkers: 2,
+        },
+      },
+    ],
+  },
+});
