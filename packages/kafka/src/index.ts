@@ -1,1 +1,2 @@
-export {};
+export { classifyKafkaError, kafkaErrorType } from './classify.js';
+export type { KafkaClassifyOptions } from './classify.js';
