@@ -138,6 +138,7 @@ function show(value: unknown): string {
   if (typeof value === 'string') return JSON.stringify(value);
   if (typeof value === 'function') return 'function';
   if (typeof value === 'bigint') return `${value}n`;
+  if (typeof value === 'number') return String(value);
   try {
     return String(JSON.stringify(value) ?? value);
   } catch {
@@ -200,7 +201,7 @@ export function resolveOptions<T>(options: SinkOptions<T> | undefined, adapterKi
   const o = (options ?? {}) as Record<string, unknown>;
   if (typeof o !== 'object' || o === null) throw invalidOption('options', 'an object', options);
   for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+    if (!KNOWN.has(key) && o[key] !== undefined) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
   }
   const name = o.name === undefined ? adapterKind : o.name;
   if (typeof name !== 'string' || name.length === 0) throw invalidOption('name', 'a non-empty string', o.name);

@@ -1,0 +1,85 @@
+import { describe, expect, it } from 'vitest';
+import { ManualClock, Sink, settle } from '../src/index.js';
+import { FakeAdapter, deferred } from './fakes.js';
+
+function gatedSink(options: Record<string, unknown> = {}) {
+  const clock = new ManualClock();
+  const adapter = new FakeAdapter<number>();
+  const gates: Array<ReturnType<typeof deferred>> = [];
+  adapter.behave = () => {
+    const g = deferred();
+    gates.push(g);
+    return g.promise;
+  };
+  const sink = new Sink(adapter, { maxRecords: 2, maxPendingRecords: 4, maxAgeMs: 100, idleMs: 0, clock, ...options });
+  return { clock, adapter, sink, gates };
+}
+
+describe('backpressure', () => {
+  it('resolves write() at once while there is room and waits when the pending bound is reached', async () => {
+    const { sink, gates } = gatedSink();
+    for (let i = 0; i < 4; i++) await sink.write(i); // two batches in flight or buffered: 4 pending
+    let fifthAccepted = false;
+    const fifth = sink.write(4).then(() => {
+      fifthAccepted = true;
+    });
+    await settle();
+    expect(fifthAccepted).toBe(false);
+    expect(sink.snapshot()).toMatchObject({ pendingRecords: 4, waitingWriters: 1 });
+    gates[0]!.resolve();
+    await fifth;
+    expect(fifthAccepted).toBe(true);
+    expect(sink.snapshot().backpressureWaits).toBe(1);
+  });
+
+  it('never holds more than the bound, whatever the producer does', async () => {
+    const { sink, gates } = gatedSink();
+    const writes = Array.from({ length: 20 }, (_, i) => sink.write(i));
+    let maxPending = 0;
+    for (let round = 0; round < 20; round++) {
+      await settle();
+      maxPending = Math.max(maxPending, sink.snapshot().pendingRecords);
+      for (const g of gates.splice(0)) g.resolve();
+    }
+    await Promise.all(writes);
+    await sink.flush();
+    expect(maxPending).toBeLessThanOrEqual(4);
+    expect(sink.snapshot().written).toBe(20);
+  });
+
+  it('tryWrite() is the synchronous fast path: true while there is room, false when full', async () => {
+    const { sink } = gatedSink();
+    const results = Array.from({ length: 6 }, (_, i) => sink.tryWrite(i));
+    expect(results).toEqual([true, true, true, true, false, false]);
+  });
+
+  it('cancels a waiting write with an AbortSignal', async () => {
+    const { sink } = gatedSink();
+    for (let i = 0; i < 4; i++) await sink.write(i);
+    const controller = new AbortController();
+    const waiting = sink.write(99, undefined, { signal: controller.signal });
+    controller.abort();
+    await expect(waiting).rejects.toMatchObject({ code: 'SPILLWAY_ABORTED' });
+    expect(sink.snapshot()).toMatchObject({ waitingWriters: 0, accepted: 4 });
+  });
+
+  it('lets waiting writers in first-come first-served', async () => {
+    const { sink, gates } = gatedSink();
+    for (let i = 0; i < 4; i++) await sink.write(i);
+    const order: number[] = [];
+    const a = sink.write(10).then(() => order.push(10));
+    const b = sink.write(11).then(() => order.push(11));
+    await settle();
+    for (let round = 0; round < 5; round++) {
+      for (const g of gates.splice(0)) g.resolve();
+      await settle();
+    }
+    await Promise.all([a, b]);
+    expect(order).toEqual([10, 11]);
+  });
+
+  it('bounds bytes as well as records', async () => {
+    const { sink } = gatedSink({ maxRecords: 100, maxPendingRecords: 100, maxBytes: 100, maxPendingBytes: 250, estimateBytes: () => 100 });
+    expect([sink.tryWrite(1), sink.tryWrite(2), sink.tryWrite(3)]).toEqual([true, true, false]);
+  });
+});

@@ -1,0 +1,81 @@
+import { describe, expect, it } from 'vitest';
+import { ProgressTracker } from '../src/index.js';
+
+describe('ProgressTracker', () => {
+  it('commits the next offset to read: last contiguous terminal offset + 1', () => {
+    // Source: Apache Kafka documentation, consumer offset management — the committed offset is
+    // the offset of the next message the consumer will read.
+    const p = new ProgressTracker();
+    for (const o of [5, 6, 7]) p.track('t:0', o);
+    expect(p.committable('t:0')).toBeUndefined();
+    p.complete('t:0', 5);
+    expect(p.committable('t:0')).toBe(6n);
+  });
+
+  it('never passes an unfinished offset when batches finish out of order', () => {
+    const p = new ProgressTracker();
+    for (let o = 0; o < 10; o++) p.track('t:0', o);
+    for (const o of [9, 8, 3, 2, 1]) p.complete('t:0', o);
+    expect(p.committable('t:0')).toBeUndefined(); // 0 is still open
+    p.complete('t:0', 0);
+    expect(p.committable('t:0')).toBe(4n); // 4 is open
+    for (const o of [4, 5, 6, 7]) p.complete('t:0', o);
+    expect(p.committable('t:0')).toBe(10n);
+    expect(p.pending('t:0')).toBe(0);
+  });
+
+  it('waits for every record of an offset that fed several records', () => {
+    const p = new ProgressTracker();
+    p.track('t:1', '100', 2); // one message routed to two sinks
+    p.track('t:1', '101');
+    p.complete('t:1', '100');
+    p.complete('t:1', '101');
+    expect(p.committable('t:1')).toBeUndefined();
+    p.complete('t:1', '100');
+    expect(p.committable('t:1')).toBe(102n);
+  });
+
+  it('passes an offset with nothing to wait for once every earlier one is done', () => {
+    const p = new ProgressTracker();
+    p.track('t:0', 1);
+    p.track('t:0', 2, 0);
+    expect(p.committable('t:0')).toBeUndefined();
+    p.complete('t:0', 1);
+    expect(p.committable('t:0')).toBe(3n);
+  });
+
+  it('handles gaps in offsets (compacted topics, transaction markers)', () => {
+    const p = new ProgressTracker();
+    for (const o of [10, 13, 20]) p.track('t:0', o);
+    for (const o of [10, 13, 20]) p.complete('t:0', o);
+    expect(p.committable('t:0')).toBe(21n);
+  });
+
+  it('ignores a redelivered offset at or below the last one tracked', () => {
+    const p = new ProgressTracker();
+    expect(p.track('t:0', 5)).toBe(true);
+    expect(p.track('t:0', 4)).toBe(false);
+    p.complete('t:0', 5);
+    expect(p.committable('t:0')).toBe(6n);
+  });
+
+  it('keeps partitions apart', () => {
+    const p = new ProgressTracker();
+    p.track('t:0', 1);
+    p.track('t:1', 1);
+    p.complete('t:1', 1);
+    expect([...p.points()]).toEqual([['t:1', 2n]]);
+  });
+
+  it('stays linear on a long stream (amortised O(1) per offset)', () => {
+    const p = new ProgressTracker();
+    const n = 200_000;
+    for (let o = 0; o < n; o++) p.track('t:0', o);
+    // Finish in reverse pairs: every second completion advances the point by two.
+    for (let o = 0; o < n; o += 2) {
+      p.complete('t:0', o + 1);
+      p.complete('t:0', o);
+    }
+    expect(p.committable('t:0')).toBe(BigInt(n));
+  });
+});
