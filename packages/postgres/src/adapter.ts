@@ -1,0 +1,346 @@
+import { Readable } from 'node:stream';
+import { pipeline } from 'node:stream/promises';
+import {
+  type Batch,
+  type ErrorClass,
+  type PartialWrite,
+  Sink,
+  type SinkAdapter,
+  type SinkOptions,
+  SpillwayError,
+  StoreError,
+  messageOf,
+} from '@spillway/core';
+import type { PoolClient } from 'pg';
+import pgCopy from 'pg-copy-streams';
+import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
+import { encodeCopy } from './copy-format.js';
+import {
+  ADAPTER_OPTION_NAMES,
+  type PostgresAdapterOptions,
+  type ResolvedPostgresOptions,
+  resolvePostgresOptions,
+} from './options.js';
+import { makeEstimator } from './size.js';
+import { buildStatements, type Statements } from './statements.js';
+import { toWire, type WireValue } from './values.js';
+
+/** Counters of what the adapter sent. They only grow. */
+export interface PostgresAdapterStats {
+  /** `write()` calls: batches, retries, and the halves of split batches. */
+  writes: number;
+  /** Every statement sent: BEGIN / COMMIT / ROLLBACK, INSERT, COPY, staging DDL. */
+  statements: number;
+  /** Statements that carried rows: INSERT, COPY, and the merge of a staging table. */
+  dataStatements: number;
+  /** Writes that committed. */
+  committed: number;
+  /** Writes that failed (each is then retried, split or fatal, as `classify` says). */
+  failed: number;
+  /** Explicit ROLLBACKs after a failed statement inside a transaction. */
+  rollbacks: number;
+  /** Rows of committed writes. */
+  rows: number;
+  /** Records refused by `map` (reported as rejected, not sent). */
+  unmappable: number;
+  /** Bytes of COPY data sent (committed or not). */
+  copyBytes: number;
+  /** The most parameters any one statement bound. Never above 65,535. */
+  maxParameters: number;
+  /** Connections handed back to the pool as broken, so that the pool destroyed them. */
+  discardedConnections: number;
+  /** `'error'` events of idle pool clients (e.g. a server restart), absorbed by the adapter. */
+  poolErrors: number;
+  /** `'error'` events of a client while the adapter had it checked out. */
+  clientErrors: number;
+}
+
+/** The parts of one batch, as the adapter will send them. */
+interface Step {
+  readonly kind: 'values' | 'stage';
+  readonly rows: readonly (readonly WireValue[])[];
+}
+
+const { from: copyFrom } = pgCopy;
+
+/**
+ * A `SinkAdapter` that writes batches into one PostgreSQL table through the application's pg
+ * Pool, in `insert`, `copy` or `upsert` mode. Each batch is one transaction.
+ */
+export class PostgresAdapter<T> implements SinkAdapter<T> {
+  readonly kind = 'postgres';
+  readonly options: Readonly<ResolvedPostgresOptions<T>>;
+  private readonly sql: Statements;
+  private readonly width: number;
+  private readonly keyIndexes: number[];
+  private readonly estimator: (record: T) => number;
+  private readonly counters: PostgresAdapterStats = {
+    writes: 0,
+    statements: 0,
+    dataStatements: 0,
+    committed: 0,
+    failed: 0,
+    rollbacks: 0,
+    rows: 0,
+    unmappable: 0,
+    copyBytes: 0,
+    maxParameters: 0,
+    discardedConnections: 0,
+    poolErrors: 0,
+    clientErrors: 0,
+  };
+  private readonly onPoolError = () => {
+    this.counters.poolErrors++;
+  };
+  private closed = false;
+
+  constructor(options: PostgresAdapterOptions<T>) {
+    this.options = resolvePostgresOptions(options);
+    this.sql = buildStatements(this.options as ResolvedPostgresOptions<unknown>);
+    this.width = this.options.columns.length;
+    const names = this.options.columns.map((c) => c.name);
+    this.keyIndexes = (this.options.conflict?.key ?? []).map((k) => names.indexOf(k));
+    this.estimator = makeEstimator(this.options);
+    // Without a listener, an idle client's 'error' (57P01 on a server restart) crashes the process.
+    this.options.pool.on('error', this.onPoolError);
+  }
+
+  /** A copy of the counters. */
+  stats(): PostgresAdapterStats {
+    return { ...this.counters };
+  }
+
+  classify(error: unknown): ErrorClass {
+    return classifyPostgresError(error);
+  }
+
+  estimateBytes(record: T): number {
+    return this.estimator(record);
+  }
+
+  /** Detaches from the pool. The pool itself belongs to the application and stays open. */
+  async close(): Promise<void> {
+    if (this.closed) return;
+    this.closed = true;
+    this.options.pool.off('error', this.onPoolError);
+  }
+
+  async write(batch: Batch<T>): Promise<void | PartialWrite> {
+    this.counters.writes++;
+    const rows: WireValue[][] = [];
+    const rejected: Array<{ index: number; error: unknown }> = [];
+    const { map } = this.options;
+    for (let i = 0; i < batch.records.length; i++) {
+      try {
+        const values = map(batch.records[i] as T);
+        if (!Array.isArray(values) || values.length !== this.width) {
+          throw new TypeError(`map() returned ${Array.isArray(values) ? `${values.length} values` : typeof values}, expected ${this.width} values`);
+        }
+        const row = new Array<WireValue>(this.width);
+        for (let c = 0; c < this.width; c++) row[c] = toWire(values[c]);
+        rows.push(row);
+      } catch (error) {
+        this.counters.unmappable++;
+        rejected.push({
+          index: i,
+          error: new SpillwayError('SPILLWAY_RECORD_REJECTED', `A record for ${this.sql.target} could not be mapped to its columns: ${messageOf(error)}`, {
+            cause: error,
+            details: { table: this.options.table, schema: this.options.schema, mode: this.options.mode },
+          }),
+        });
+      }
+    }
+    if (rows.length > 0) await this.transact(this.plan(rows));
+    return rejected.length > 0 ? { rejected } : undefined;
+  }
+
+  /** Cuts a batch into the steps it is sent as. */
+  private plan(rows: WireValue[][]): Step[] {
+    const { mode, conflict, upsertViaCopyAbove } = this.options;
+    if (mode === 'copy') return [{ kind: 'stage', rows }];
+    if (mode === 'insert') return [{ kind: 'values', rows }];
+    // ON CONFLICT DO UPDATE refuses to touch one row twice in a statement (21000). Records of
+    // one key are applied in rounds, in batch order, which is what writing them one by one would do.
+    const rounds = conflict?.action === 'update' ? this.rounds(rows) : [rows];
+    return rounds.map((r) => ({ kind: r.length > upsertViaCopyAbove ? 'stage' : 'values', rows: r }));
+  }
+
+  private rounds(rows: WireValue[][]): WireValue[][][] {
+    const seen = new Map<string, number>();
+    const out: WireValue[][][] = [];
+    const keys = this.keyIndexes;
+    for (const row of rows) {
+      const k = keys.length === 1 ? keyPart(row[keys[0]!] as WireValue) : JSON.stringify(keys.map((i) => keyPart(row[i] as WireValue)));
+      const n = seen.get(k) ?? 0;
+      seen.set(k, n + 1);
+      (out[n] ??= []).push(row);
+    }
+    return out;
+  }
+
+  private statementCount(steps: readonly Step[]): number {
+    let n = 0;
+    for (const s of steps) {
+      n += s.kind === 'values' ? Math.ceil(s.rows.length / this.options.rowsPerStatement) : this.options.mode === 'copy' ? 1 : 3;
+    }
+    return n;
+  }
+
+  private async transact(steps: readonly Step[]): Promise<void> {
+    let client: PoolClient;
+    try {
+      client = await this.options.pool.connect();
+    } catch (error) {
+      this.counters.failed++;
+      throw this.wrap(error, 'connect');
+    }
+    let broken: unknown;
+    const onError = (error: unknown) => {
+      this.counters.clientErrors++;
+      broken ??= error;
+    };
+    client.on('error', onError);
+    // One statement is a transaction of its own; more need BEGIN / COMMIT to stay one.
+    const explicit = this.statementCount(steps) > 1;
+    let step = 'begin';
+    let failure: unknown;
+    try {
+      if (explicit) await this.run(client, 'BEGIN');
+      let staged = false;
+      for (const s of steps) {
+        if (s.kind === 'values') {
+          step = 'insert';
+          await this.insertValues(client, s.rows);
+        } else if (this.options.mode === 'copy') {
+          step = 'copy';
+          await this.copyRows(client, this.sql.target, s.rows);
+        } else {
+          step = 'stage';
+          await this.run(client, staged ? this.sql.truncateStage : this.sql.createStage);
+          staged = true;
+          step = 'copy';
+          await this.copyRows(client, this.sql.stage, s.rows);
+          step = 'merge';
+          this.counters.dataStatements++;
+          await this.run(client, this.sql.mergeStage);
+        }
+      }
+      step = 'commit';
+      if (explicit) await this.run(client, 'COMMIT');
+      this.counters.committed++;
+      for (const s of steps) this.counters.rows += s.rows.length;
+    } catch (error) {
+      failure = error;
+      this.counters.failed++;
+      // The next borrower of this client would get 25P02 inside an aborted transaction.
+      if (explicit && broken === undefined && !isConnectionError(error)) {
+        try {
+          await this.run(client, 'ROLLBACK');
+          this.counters.rollbacks++;
+        } catch (rollbackError) {
+          broken = rollbackError;
+        }
+      }
+      throw this.wrap(error, step);
+    } finally {
+      client.off('error', onError);
+      const discard = broken ?? (failure !== undefined && isConnectionError(failure) ? failure : undefined);
+      if (discard !== undefined) this.counters.discardedConnections++;
+      // release(error) makes the pool destroy the client instead of handing it out again.
+      client.release(discard === undefined ? undefined : discard instanceof Error ? discard : true);
+    }
+  }
+
+  private async run(client: PoolClient, text: string): Promise<void> {
+    this.counters.statements++;
+    await client.query(text);
+  }
+
+  private async insertValues(client: PoolClient, rows: readonly (readonly WireValue[])[]): Promise<void> {
+    const per = this.options.rowsPerStatement;
+    const width = this.width;
+    for (let start = 0; start < rows.length; start += per) {
+      const n = Math.min(per, rows.length - start);
+      const values = new Array<WireValue>(n * width);
+      let k = 0;
+      for (let r = start; r < start + n; r++) {
+        const row = rows[r]!;
+        for (let c = 0; c < width; c++) values[k++] = row[c] as WireValue;
+      }
+      if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
+      this.counters.statements++;
+      this.counters.dataStatements++;
+      await client.query({ text: this.sql.values(n), values });
+    }
+  }
+
+  private async copyRows(client: PoolClient, into: string, rows: readonly (readonly WireValue[])[]): Promise<void> {
+    const { chunks, bytes } = encodeCopy(rows, this.options.copyFormat);
+    this.counters.statements++;
+    if (this.options.mode === 'copy') this.counters.dataStatements++;
+    this.counters.copyBytes += bytes;
+    const stream = client.query(copyFrom(this.sql.copy(into)));
+    // pipeline() honours backpressure and rejects once when the server refuses the data.
+    await pipeline(Readable.from(chunks, { objectMode: false }), stream);
+  }
+
+  /** The error the engine and the user see: SQLSTATE, constraint and the driver's error kept. */
+  private wrap(error: unknown, step: string): StoreError {
+    const e = (typeof error === 'object' && error !== null ? error : {}) as Record<string, unknown>;
+    const sqlstate = sqlstateOf(error);
+    const errorClass = classifyPostgresError(error);
+    const target = this.sql.target;
+    const str = (v: unknown) => (typeof v === 'string' && v.length > 0 ? v : undefined);
+    const constraint = str(e.constraint);
+    // Only names and codes: the server's `detail` and `where` can quote row contents.
+    const details: Record<string, unknown> = {
+      table: this.options.table,
+      mode: this.options.mode,
+      step,
+      errorClass,
+    };
+    if (this.options.schema !== undefined) details.schema = this.options.schema;
+    if (sqlstate !== undefined) details.sqlstate = sqlstate;
+    if (constraint !== undefined) details.constraint = constraint;
+    for (const key of ['column', 'dataType', 'severity'] as const) {
+      const v = str(e[key]);
+      if (v !== undefined) details[key] = v;
+    }
+    const driverMessage = messageOf(error);
+    let message: string;
+    if (sqlstate === '42P01') message = `Table ${target} does not exist (SQLSTATE 42P01): ${driverMessage}`;
+    else if (sqlstate === '42703') message = `A column of ${target} does not exist (SQLSTATE 42703): ${driverMessage}`;
+    else if (sqlstate !== undefined) {
+      message = `PostgreSQL refused a ${this.options.mode} batch into ${target} (SQLSTATE ${sqlstate}${constraint ? `, constraint "${constraint}"` : ''}): ${driverMessage}`;
+    } else if (isConnectionError(error)) {
+      message = `Lost the connection to PostgreSQL during ${step} of a ${this.options.mode} batch into ${target}: ${driverMessage}`;
+    } else message = `A ${this.options.mode} batch into ${target} failed during ${step}: ${driverMessage}`;
+    const errno = typeof e.code === 'string' ? e.code : undefined;
+    return new StoreError(message, { cause: error, driverCode: sqlstate ?? errno, details });
+  }
+}
+
+/** An unambiguous string for one key value (its type tagged, so 'x' never equals a Buffer of x). */
+function keyPart(v: WireValue): string {
+  if (v === null) return 'n';
+  return typeof v === 'string' ? `s${v}` : `b${v.toString('hex')}`;
+}
+
+/** Creates a PostgreSQL adapter. Options are validated here (a `TypeError` names the bad one). */
+export function postgresAdapter<T>(options: PostgresAdapterOptions<T>): PostgresAdapter<T> {
+  return new PostgresAdapter(options);
+}
+
+/** Options of `postgresSink`: the adapter's and the Sink's in one object. */
+export type PostgresSinkOptions<T> = PostgresAdapterOptions<T> & SinkOptions<T>;
+
+/** A Sink writing into PostgreSQL: `new Sink(postgresAdapter(adapterOptions), sinkOptions)` in one call. */
+export function postgresSink<T>(options: PostgresSinkOptions<T>): Sink<T> {
+  const adapterOptions: Record<string, unknown> = {};
+  const sinkOptions: Record<string, unknown> = {};
+  for (const [key, value] of Object.entries(options ?? {})) {
+    (ADAPTER_OPTION_NAMES.has(key) ? adapterOptions : sinkOptions)[key] = value;
+  }
+  const adapter = postgresAdapter(adapterOptions as unknown as PostgresAdapterOptions<T>);
+  return new Sink(adapter, sinkOptions as SinkOptions<T>);
+}

@@ -1,0 +1,279 @@
+import { invalidOption } from '@spillway/core';
+import type { Pool } from 'pg';
+
+/**
+ * How a batch reaches its table.
+ * - `insert`: multi-row parameterised `INSERT … VALUES`, split so that no statement binds more
+ *   than 65,535 parameters.
+ * - `copy`: `COPY … FROM STDIN` (fastest append; no conflict handling).
+ * - `upsert`: `INSERT … ON CONFLICT (key) DO UPDATE | DO NOTHING`; large batches are copied
+ *   into a temporary table first and then merged with one `INSERT … SELECT … ON CONFLICT`.
+ */
+export type PostgresMode = 'insert' | 'copy' | 'upsert';
+
+/** COPY data format (PostgreSQL documentation, COPY, "File Formats"). */
+export type CopyFormat = 'csv' | 'text';
+
+/** A target column, with its SQL type when one is needed. */
+export interface ColumnSpec {
+  /** Column name as it is in the table (case and spaces kept; it is always quoted). */
+  readonly name: string;
+  /**
+   * SQL type of the column, e.g. `int`, `text`, `timestamptz`, `jsonb`. Used to declare the
+   * staging table of `upsert` batches that go through COPY; when every column has a type the
+   * staging table is declared from them, otherwise it is cloned from the target table.
+   * @default undefined (the server takes the type from the target column)
+   * @example { name: 'seen_at', type: 'timestamptz' }
+   */
+  readonly type?: string;
+}
+
+/** What `upsert` does when a row with the same key exists. */
+export interface ConflictOptions {
+  /**
+   * The conflict target: columns of a unique index or primary key, in any order.
+   * @example { key: ['dock_id'] }
+   */
+  readonly key: readonly string[];
+  /**
+   * `update`: overwrite the `update` columns of the existing row (`DO UPDATE SET c = EXCLUDED.c`);
+   * `nothing`: keep the existing row (`DO NOTHING`).
+   * @default 'update'
+   * @example { key: ['dock_id'], action: 'nothing' }
+   */
+  readonly action?: 'update' | 'nothing';
+  /**
+   * Columns overwritten on conflict. When empty (every column is part of the key) the action is
+   * `DO NOTHING`, as there is nothing to update.
+   * @default every column that is not part of `key`
+   * @example { key: ['dock_id'], update: ['bikes', 'empty_slots', 'seen_at'] }
+   */
+  readonly update?: readonly string[];
+}
+
+export interface PostgresAdapterOptions<T> {
+  /**
+   * The application's `pg` Pool. The adapter borrows one client per batch and never ends the
+   * pool (the application owns it). It adds an `'error'` listener to the pool, so that a server
+   * restart that kills idle connections cannot crash the process; `close()` removes it.
+   * @example new pg.Pool({ connectionString: process.env.DATABASE_URL, max: 4 })
+   */
+  readonly pool: Pool;
+  /**
+   * Target table. Always quoted as an identifier, so it is taken literally (case, spaces, quotes).
+   * @example 'dock_status'
+   */
+  readonly table: string;
+  /**
+   * Schema of the table. Without one the table is found through the connection's `search_path`.
+   * @default undefined (search_path)
+   * @example 'tandem'
+   */
+  readonly schema?: string;
+  /**
+   * Target columns, in the order `map` returns values. Strings or `{ name, type }`.
+   * @example ['dock_id', 'bikes', 'empty_slots', { name: 'seen_at', type: 'timestamptz' }]
+   */
+  readonly columns: ReadonlyArray<string | ColumnSpec>;
+  /**
+   * Turns a record into one value per column, in column order. `null` / `undefined` become SQL
+   * NULL; strings, numbers, bigints and booleans are sent as text; a `Date` as ISO 8601 UTC; a
+   * `Buffer` / `Uint8Array` as bytea; an array as a PostgreSQL array literal; other objects as
+   * JSON. A record whose `map` throws, or returns the wrong number of values, is rejected on its
+   * own (dead-lettered) and the rest of the batch is written.
+   * @example (e) => [e.dockId, e.bikes, e.emptySlots, new Date(e.at)]
+   */
+  readonly map: (record: T) => readonly unknown[];
+  /**
+   * How batches are written. See `PostgresMode`.
+   * @default 'insert'
+   * @example 'copy'
+   */
+  readonly mode?: PostgresMode;
+  /**
+   * Conflict handling; required by `upsert` and refused by the other modes.
+   * @default undefined
+   * @example { key: ['dock_id'], action: 'update' }
+   */
+  readonly conflict?: ConflictOptions;
+  /**
+   * Data format of COPY (`copy` mode, and `upsert` batches that go through COPY). Both round-trip
+   * every value; CSV is cheaper to generate in JavaScript.
+   * @default 'csv'
+   * @example 'text'
+   */
+  readonly copyFormat?: CopyFormat;
+  /**
+   * `upsert` batches with more rows than this are copied into a temporary table and merged with
+   * one `INSERT … SELECT … ON CONFLICT`; smaller ones use multi-row `INSERT … ON CONFLICT`.
+   * `Infinity` never uses COPY.
+   * @default 1000
+   * @example 5000
+   */
+  readonly upsertViaCopyAbove?: number;
+  /**
+   * Upper bound on rows per INSERT statement (`insert`, and `upsert` below `upsertViaCopyAbove`).
+   * The adapter never binds more than 65,535 parameters in one statement whatever this says
+   * (the Bind message counts parameters in an Int16).
+   * @default floor(65535 / columns.length)
+   * @example 2000
+   */
+  readonly maxRowsPerStatement?: number;
+}
+
+/** Options after defaults and validation. */
+export interface ResolvedPostgresOptions<T> {
+  pool: Pool;
+  table: string;
+  schema: string | undefined;
+  columns: ColumnSpec[];
+  map: (record: T) => readonly unknown[];
+  mode: PostgresMode;
+  conflict: { key: string[]; action: 'update' | 'nothing'; update: string[] } | undefined;
+  copyFormat: CopyFormat;
+  upsertViaCopyAbove: number;
+  rowsPerStatement: number;
+}
+
+/** The Bind message carries the parameter count as an Int16 (PostgreSQL protocol, "Bind"). */
+export const MAX_PARAMETERS = 65_535;
+
+export const POSTGRES_DEFAULTS = {
+  mode: 'insert',
+  copyFormat: 'csv',
+  upsertViaCopyAbove: 1000,
+} as const;
+
+const KNOWN = new Set([
+  'pool',
+  'table',
+  'schema',
+  'columns',
+  'map',
+  'mode',
+  'conflict',
+  'copyFormat',
+  'upsertViaCopyAbove',
+  'maxRowsPerStatement',
+]);
+
+/** Names of the adapter's own options (the rest of a `postgresSink` options object goes to the Sink). */
+export const ADAPTER_OPTION_NAMES: ReadonlySet<string> = KNOWN;
+
+// PostgreSQL truncates longer identifiers (NAMEDATALEN - 1 bytes), which could silently point a
+// write at another column; refuse them instead.
+const MAX_IDENTIFIER_BYTES = 63;
+
+// Type names go into DDL text: allow the shapes of real type names and nothing that could
+// close a parenthesis or start another clause.
+const TYPE_NAME = /^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)?( [A-Za-z_][A-Za-z0-9_]*)*(\(\s*\d+\s*(,\s*\d+\s*)?\))?( [A-Za-z_][A-Za-z0-9_]*)*(\[\d*\])*$/;
+
+function identifier(name: string, value: unknown): string {
+  if (typeof value !== 'string' || value.length === 0) throw invalidOption(name, 'a non-empty string', value);
+  if (value.includes('\0')) throw invalidOption(name, 'a name without NUL characters', value);
+  if (Buffer.byteLength(value, 'utf8') > MAX_IDENTIFIER_BYTES) {
+    throw invalidOption(name, `a name of at most ${MAX_IDENTIFIER_BYTES} bytes (PostgreSQL truncates longer ones)`, value);
+  }
+  return value;
+}
+
+function nameList(name: string, value: unknown, columns: ReadonlySet<string>, allowEmpty: boolean): string[] {
+  if (!Array.isArray(value) || (!allowEmpty && value.length === 0)) {
+    throw invalidOption(name, `${allowEmpty ? 'an' : 'a non-empty'} array of column names`, value);
+  }
+  const seen = new Set<string>();
+  for (const [i, v] of value.entries()) {
+    if (typeof v !== 'string' || !columns.has(v)) throw invalidOption(`${name}[${i}]`, 'one of `columns`', v);
+    if (seen.has(v)) throw invalidOption(`${name}[${i}]`, 'a column named once', v);
+    seen.add(v);
+  }
+  return [...seen];
+}
+
+function countOption(name: string, value: unknown, fallback: number, min: number, allowInfinity: boolean): number {
+  if (value === undefined) return fallback;
+  const ok =
+    typeof value === 'number' && value >= min && (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
+  if (!ok) throw invalidOption(name, `an integer >= ${min}${allowInfinity ? ' (or Infinity)' : ''}`, value);
+  return value;
+}
+
+/** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
+export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): ResolvedPostgresOptions<T> {
+  if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
+  const o = options as unknown as Record<string, unknown>;
+  for (const key of Object.keys(o)) {
+    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+  }
+  const pool = o.pool as Pool | undefined;
+  if (typeof pool !== 'object' || pool === null || typeof pool.connect !== 'function' || typeof pool.on !== 'function') {
+    throw invalidOption('pool', 'a pg Pool (an object with connect() and on())', pool);
+  }
+  const table = identifier('table', o.table);
+  const schema = o.schema === undefined ? undefined : identifier('schema', o.schema);
+
+  if (!Array.isArray(o.columns) || o.columns.length === 0) {
+    throw invalidOption('columns', 'a non-empty array of column names or { name, type } objects', o.columns);
+  }
+  const columns: ColumnSpec[] = [];
+  const names = new Set<string>();
+  for (const [i, c] of (o.columns as unknown[]).entries()) {
+    const spec = typeof c === 'string' ? { name: c } : c;
+    if (typeof spec !== 'object' || spec === null) throw invalidOption(`columns[${i}]`, 'a column name or { name, type }', c);
+    const { name, type } = spec as { name?: unknown; type?: unknown };
+    const n = identifier(`columns[${i}].name`, name);
+    if (names.has(n)) throw invalidOption(`columns[${i}].name`, 'a column named once', n);
+    if (type !== undefined && (typeof type !== 'string' || !TYPE_NAME.test(type))) {
+      throw invalidOption(`columns[${i}].type`, 'a SQL type name such as "int", "numeric(10,2)" or "text[]"', type);
+    }
+    names.add(n);
+    columns.push(type === undefined ? { name: n } : { name: n, type: type as string });
+  }
+
+  if (typeof o.map !== 'function') throw invalidOption('map', 'a function (record) => values in column order', o.map);
+
+  const mode = (o.mode ?? POSTGRES_DEFAULTS.mode) as PostgresMode;
+  if (mode !== 'insert' && mode !== 'copy' && mode !== 'upsert') {
+    throw invalidOption('mode', '"insert", "copy" or "upsert"', o.mode);
+  }
+
+  let conflict: ResolvedPostgresOptions<T>['conflict'];
+  if (mode === 'upsert') {
+    const c = o.conflict as Record<string, unknown> | undefined;
+    if (typeof c !== 'object' || c === null) throw invalidOption('conflict', 'an object { key, action?, update? } in upsert mode', c);
+    const key = nameList('conflict.key', c.key, names, false);
+    const action = (c.action ?? 'update') as 'update' | 'nothing';
+    if (action !== 'update' && action !== 'nothing') throw invalidOption('conflict.action', '"update" or "nothing"', c.action);
+    const update =
+      c.update === undefined ? columns.map((x) => x.name).filter((n) => !key.includes(n)) : nameList('conflict.update', c.update, names, true);
+    for (const [i, u] of update.entries()) {
+      if (key.includes(u)) throw invalidOption(`conflict.update[${i}]`, 'a column that is not part of conflict.key', u);
+    }
+    if (action === 'nothing' && c.update !== undefined) throw invalidOption('conflict.update', 'undefined when action is "nothing"', c.update);
+    conflict = { key, action: update.length === 0 ? 'nothing' : action, update: action === 'nothing' ? [] : update };
+  } else if (o.conflict !== undefined) {
+    throw invalidOption('conflict', 'undefined unless mode is "upsert"', o.conflict);
+  }
+
+  const copyFormat = (o.copyFormat ?? POSTGRES_DEFAULTS.copyFormat) as CopyFormat;
+  if (copyFormat !== 'csv' && copyFormat !== 'text') throw invalidOption('copyFormat', '"csv" or "text"', o.copyFormat);
+
+  const upsertViaCopyAbove = countOption('upsertViaCopyAbove', o.upsertViaCopyAbove, POSTGRES_DEFAULTS.upsertViaCopyAbove, 0, true);
+  const limit = Math.floor(MAX_PARAMETERS / columns.length);
+  if (limit < 1) throw invalidOption('columns', `at most ${MAX_PARAMETERS} columns`, columns.length);
+  const rowsPerStatement = countOption('maxRowsPerStatement', o.maxRowsPerStatement, limit, 1, false);
+
+  return {
+    pool,
+    table,
+    schema,
+    columns,
+    map: o.map as (record: T) => readonly unknown[],
+    mode,
+    conflict,
+    copyFormat,
+    upsertViaCopyAbove,
+    // The protocol bound wins over a larger request.
+    rowsPerStatement: Math.min(rowsPerStatement, limit),
+  };
+}

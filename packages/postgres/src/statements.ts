@@ -1,0 +1,78 @@
+/**
+ * The SQL text the adapter sends. Only identifiers (quoted) and `$n` placeholders ever go into
+ * it; values travel as parameters or as COPY data.
+ */
+import { copyOptions } from './copy-format.js';
+import { qualifiedName, quoteIdentifier } from './identifiers.js';
+import type { ResolvedPostgresOptions } from './options.js';
+
+export interface Statements {
+  /** `INSERT INTO t (cols) VALUES ($1,…),(…)` (plus ON CONFLICT in upsert mode) for `rows` rows. */
+  values(rows: number): string;
+  /** `COPY <target> (cols) FROM STDIN WITH (FORMAT …)`. */
+  copy(target: string): string;
+  /** Creates the per-transaction staging table of upsert-via-COPY. */
+  createStage: string;
+  truncateStage: string;
+  /** Merges the staging table into the target. */
+  mergeStage: string;
+  /** Quoted name of the staging table. */
+  stage: string;
+  /** Quoted, schema-qualified target. */
+  target: string;
+}
+
+let stageCounter = 0;
+
+export function buildStatements(o: ResolvedPostgresOptions<unknown>): Statements {
+  const target = qualifiedName(o.table, o.schema);
+  const cols = o.columns.map((c) => quoteIdentifier(c.name));
+  const colList = `(${cols.join(', ')})`;
+  const width = cols.length;
+
+  let onConflict = '';
+  if (o.conflict) {
+    const key = `(${o.conflict.key.map(quoteIdentifier).join(', ')})`;
+    onConflict =
+      o.conflict.action === 'nothing'
+        ? ` ON CONFLICT ${key} DO NOTHING`
+        : ` ON CONFLICT ${key} DO UPDATE SET ${o.conflict.update.map((c) => `${quoteIdentifier(c)} = EXCLUDED.${quoteIdentifier(c)}`).join(', ')}`;
+  }
+  const head = `INSERT INTO ${target} ${colList} VALUES `;
+
+  // Most batches are full-size: keep the text of the last few row counts instead of rebuilding
+  // a string of up to 65,535 placeholders for every statement.
+  const cache = new Map<number, string>();
+  const values = (rows: number): string => {
+    let sql = cache.get(rows);
+    if (sql !== undefined) return sql;
+    const tuples = new Array<string>(rows);
+    let n = 1;
+    for (let r = 0; r < rows; r++) {
+      const ph = new Array<string>(width);
+      for (let c = 0; c < width; c++) ph[c] = `$${n++}`;
+      tuples[r] = `(${ph.join(',')})`;
+    }
+    sql = head + tuples.join(',') + onConflict;
+    if (cache.size >= 4) cache.delete(cache.keys().next().value as number);
+    cache.set(rows, sql);
+    return sql;
+  };
+
+  // Unique per adapter, so that two adapters sharing a connection never meet in pg_temp.
+  const stage = quoteIdentifier(`spillway_stage_${process.pid}_${++stageCounter}`);
+  const typed = o.columns.every((c) => c.type !== undefined);
+  const createStage = typed
+    ? `CREATE TEMP TABLE ${stage} (${o.columns.map((c) => `${quoteIdentifier(c.name)} ${c.type}`).join(', ')}) ON COMMIT DROP`
+    : `CREATE TEMP TABLE ${stage} ON COMMIT DROP AS SELECT ${cols.join(', ')} FROM ${target} WITH NO DATA`;
+
+  return {
+    values,
+    copy: (into) => `COPY ${into} ${colList} FROM STDIN WITH ${copyOptions(o.copyFormat)}`,
+    createStage,
+    truncateStage: `TRUNCATE ${stage}`,
+    mergeStage: `INSERT INTO ${target} ${colList} SELECT ${cols.join(', ')} FROM ${stage}${onConflict}`,
+    stage,
+    target,
+  };
+}
