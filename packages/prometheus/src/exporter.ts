@@ -267,13 +267,17 @@ export class PrometheusExporter {
     return this.registry.metrics();
   }
 
-  /** One snapshot per sink per scrape: every collect() of one scrape runs in the same tick. */
+  /**
+   * One snapshot per sink per scrape, so the values of one scrape agree with each other:
+   * `registry.metrics()` calls every collect() in one synchronous pass, and the cache is dropped
+   * in the next microtask, before any later code can run.
+   */
   private currentSnapshots(): Map<string, SinkSnapshot> {
     if (this.snapshots) return this.snapshots;
     const snaps = new Map<string, SinkSnapshot>();
     for (const [name, e] of this.sinks) snaps.set(name, e.sink.snapshot());
     this.snapshots = snaps;
-    process.nextTick(() => {
+    queueMicrotask(() => {
       this.snapshots = undefined;
     });
     return snaps;

@@ -141,6 +141,34 @@ describe('PrometheusExporter', () => {
     expect(written.value).toBe('13'); // 1+2+3+1+2+3+1 records over seven rounds
   });
 
+  it('observes how long a writer waited for room under the pending bound', async () => {
+    const clock = new ManualClock();
+    let release: () => void = () => {};
+    const store: SinkAdapter<{ dock: string }> = {
+      kind: 'memory',
+      write: () => new Promise<void>((resolve) => (release = resolve)),
+      classify: () => 'fatal',
+    };
+    const sink = new Sink(store, { name: 'slow', maxRecords: 2, maxPendingRecords: 2, idleMs: 0, clock });
+    const exporter = registerSinkMetrics(sink);
+    await sink.write({ dock: 'a' });
+    await sink.write({ dock: 'b' }); // size flush; the write hangs until released
+    const third = sink.write({ dock: 'c' }); // no room: waits
+    await clock.advance(300);
+    let parsed = await scrape(exporter.registry);
+    expect(series(parsed.get('spillway_sink_waiting_writers'), { sink: 'slow' }).value).toBe('1');
+    expect(series(parsed.get('spillway_sink_pending_records'), { sink: 'slow' }).value).toBe('2');
+    release();
+    await third;
+    parsed = await scrape(exporter.registry);
+    expect(series(parsed.get('spillway_sink_waiting_writers'), { sink: 'slow' }).value).toBe('0');
+    const wait = await histogramSeries(exporter.registry, 'spillway_sink_backpressure_wait_seconds', { sink: 'slow' });
+    expect(wait.count).toBe(1);
+    expect(wait.sum).toBeCloseTo(0.3, 9);
+    expect(parsed.get('spillway_sink_backpressure_wait_seconds')?.metrics[0]?.buckets?.['0.25']).toBe('0');
+    expect(parsed.get('spillway_sink_backpressure_wait_seconds')?.metrics[0]?.buckets?.['0.5']).toBe('1');
+  });
+
   it('counts records written before the sink was added, and its counters never go down between scrapes', async () => {
     const { sink, clock } = makeSink('late');
     for (let i = 0; i < 4; i++) await sink.write({ dock: `d${i}` });
