@@ -1,0 +1,82 @@
+/**
+ * Options of the Redis adapter (`redisAdapter()`), validated in the constructor.
+ */
+import { invalidOption } from '@spillway/core';
+import type { Cluster, Redis } from 'ioredis';
+import type { RedisMapping } from './commands.js';
+
+export interface RedisAdapterOptions<T> {
+  /**
+   * The ioredis client: a `Redis` or a `Cluster`. The adapter never creates or configures it; it
+   * closes it only with `closeClient: true`. With a `Cluster`, batches are split by node
+   * (pipelines) or by slot (`atomic`) before they are sent; ioredis follows MOVED / ASK.
+   * @example new Redis('redis://127.0.0.1:6379')
+   */
+  client: Redis | Cluster;
+  /**
+   * How a record becomes commands: one of the ready-made mappings (`stringValue`, `hashFields`,
+   * `sortedSetMember`, `streamEntry`, `counter`) or `commandMapping({ commands, idempotent })`.
+   * @example hashFields({ key: (r) => `tandem:dock:${r.dockId}`, fields: (r) => ({ free: r.free }) })
+   */
+  mapping: RedisMapping<T>;
+  /**
+   * Send each batch as one MULTI/EXEC transaction instead of a plain pipeline: other clients never
+   * see half a batch. A command the server refuses while queueing (EXECABORT) aborts the whole
+   * transaction, and the batch is bisected to find the record; an error while executing (e.g.
+   * WRONGTYPE) fails only its record while the others are applied (Redis does not roll back).
+   * @default false
+   * @example true
+   */
+  atomic?: boolean;
+  /**
+   * What to do with a record whose commands were sent but whose replies never came (the
+   * connection dropped: ioredis' AbortError; or the client's `commandTimeout` expired): the
+   * command may or may not have run.
+   * - `'retry'`: write it again. Correct for idempotent mappings; a non-idempotent one (INCRBY,
+   *   XADD with `*`) may then apply twice.
+   * - `'dead-letter'`: hand it to the dead-letter target, so the sink never applies it twice; the
+   *   user decides whether to replay it.
+   * @default 'retry' when `mapping.idempotent`, else 'dead-letter'
+   * @example 'retry'
+   */
+  onUnknownOutcome?: 'retry' | 'dead-letter';
+  /**
+   * Quit the client when the sink closes.
+   * @default false
+   * @example true
+   */
+  closeClient?: boolean;
+}
+
+export interface ResolvedRedisOptions<T> {
+  client: Redis | Cluster;
+  mapping: RedisMapping<T>;
+  atomic: boolean;
+  onUnknownOutcome: 'retry' | 'dead-letter';
+  closeClient: boolean;
+}
+
+const KNOWN = new Set(['client', 'mapping', 'atomic', 'onUnknownOutcome', 'closeClient']);
+
+export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): ResolvedRedisOptions<T> {
+  if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
+  for (const key of Object.keys(options)) {
+    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, (options as unknown as Record<string, unknown>)[key]);
+  }
+  const { client, mapping } = options;
+  if (typeof client !== 'object' || client === null || typeof (client as { pipeline?: unknown }).pipeline !== 'function') {
+    throw invalidOption('client', 'an ioredis Redis or Cluster client', client);
+  }
+  if (typeof mapping !== 'object' || mapping === null || typeof mapping.commands !== 'function' || typeof mapping.idempotent !== 'boolean') {
+    throw invalidOption('mapping', 'a mapping with commands() and idempotent (e.g. stringValue({...}))', mapping);
+  }
+  const atomic = options.atomic ?? false;
+  if (typeof atomic !== 'boolean') throw invalidOption('atomic', 'a boolean', atomic);
+  const onUnknownOutcome = options.onUnknownOutcome ?? (mapping.idempotent ? 'retry' : 'dead-letter');
+  if (onUnknownOutcome !== 'retry' && onUnknownOutcome !== 'dead-letter') {
+    throw invalidOption('onUnknownOutcome', "'retry' or 'dead-letter'", onUnknownOutcome);
+  }
+  const closeClient = options.closeClient ?? false;
+  if (typeof closeClient !== 'boolean') throw invalidOption('closeClient', 'a boolean', closeClient);
+  return { client, mapping, atomic, onUnknownOutcome, closeClient };
+}
