@@ -22,6 +22,12 @@ export class Histogram {
     this.h.recordValue(v < 0 ? 0 : v);
   }
 
+  /** Records `value` `count` times in one step. */
+  recordMany(value: number, count: number): void {
+    const v = Math.round(value * this.scale);
+    this.h.recordValueWithCount(v < 0 ? 0 : v, count);
+  }
+
   /** Quantile in reported units; `q` in [0, 100]. */
   percentile(q: number): number {
     return this.h.totalCount === 0 ? 0 : this.h.getValueAtPercentile(q) / this.scale;

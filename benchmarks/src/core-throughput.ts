@@ -1,0 +1,183 @@
+/**
+ * Core engine throughput: records/s through a no-op adapter with `write()` and with the
+ * `tryWrite()` fast path, against a minimal hand-written array batcher of the same batch size
+ * (the limit: what the engine costs over doing nothing but batching). Also heap bytes per
+ * buffered record. Every sample runs in a fresh process; results are medians with spread.
+ *
+ *   node benchmarks/dist/core-throughput.js [--records 2000000] [--batch 1000] [--repeats 5]
+ */
+import { execFileSync } from 'node:child_process';
+import { cpus, totalmem } from 'node:os';
+import { fileURLToPath } from 'node:url';
+import { Sink, type SinkAdapter } from '@spillway/core';
+
+interface Dock {
+  dockId: number;
+  bikes: number;
+  docks: number;
+  at: number;
+}
+
+const arg = (name: string, fallback: number) => {
+  const i = process.argv.indexOf(`--${name}`);
+  return i >= 0 ? Number(process.argv[i + 1]) : Number(process.env[`BENCH_${name.toUpperCase()}`] ?? fallback);
+};
+const variantArg = () => {
+  const i = process.argv.indexOf('--variant');
+  return i >= 0 ? process.argv[i + 1] : undefined;
+};
+
+const noop: SinkAdapter<Dock> = { kind: 'noop', write: async () => {}, classify: () => 'fatal' };
+
+function record(i: number): Dock {
+  return { dockId: i % 500, bikes: i % 17, docks: 20, at: i };
+}
+
+/**
+ * The limit: the array batcher people write by hand — `await add(record)` pushes into an array and
+ * hands each full array to the same no-op write. Same calling convention as `sink.write()`, but
+ * size-only, no age bound, no backpressure, no metrics.
+ */
+class ArrayBatcher {
+  private buf: Dock[] = [];
+  constructor(
+    private readonly size: number,
+    private readonly adapter: SinkAdapter<Dock>,
+  ) {}
+  async add(r: Dock): Promise<void> {
+    this.buf.push(r);
+    if (this.buf.length >= this.size) await this.flush();
+  }
+  async flush(): Promise<void> {
+    const records = this.buf;
+    this.buf = [];
+    if (records.length > 0) await this.adapter.write({ id: 0, reason: 'size', attempt: 1, records, metas: [], bytes: 0 });
+  }
+}
+
+async function arrayBatcher(n: number, batch: number): Promise<void> {
+  const b = new ArrayBatcher(batch, noop);
+  for (let i = 0; i < n; i++) await b.add(record(i));
+  await b.flush();
+}
+
+/** For scale: a synchronous push loop that awaits only once per batch (no per-record promise). */
+async function pushLoop(n: number, batch: number): Promise<void> {
+  let buf: Dock[] = [];
+  for (let i = 0; i < n; i++) {
+    buf.push(record(i));
+    if (buf.length >= batch) {
+      await noop.write({ id: 0, reason: 'size', attempt: 1, records: buf, metas: [], bytes: 0 });
+      buf = [];
+    }
+  }
+}
+
+async function sinkWrite(n: number, batch: number): Promise<void> {
+  const sink = new Sink(noop, { maxRecords: batch, maxAgeMs: 500, idleMs: 0 });
+  for (let i = 0; i < n; i++) await sink.write(record(i));
+  await sink.close();
+}
+
+/** The fast path for hot loops that already hold records in chunks (a fetched page, a parsed block). */
+async function sinkTryWriteMany(n: number, batch: number): Promise<void> {
+  const sink = new Sink(noop, { maxRecords: batch, maxAgeMs: 500, idleMs: 0 });
+  const chunk: Dock[] = [];
+  for (let i = 0; i < n; i++) {
+    chunk.push(record(i));
+    if (chunk.length === 100 || i === n - 1) {
+      let taken = sink.tryWriteMany(chunk);
+      while (taken < chunk.length) {
+        await sink.write(chunk[taken]!);
+        taken++;
+        taken += sink.tryWriteMany(chunk.slice(taken));
+      }
+      chunk.length = 0;
+    }
+  }
+  await sink.close();
+}
+
+async function sinkTryWrite(n: number, batch: number): Promise<void> {
+  const sink = new Sink(noop, { maxRecords: batch, maxAgeMs: 500, idleMs: 0 });
+  for (let i = 0; i < n; i++) {
+    const r = record(i);
+    if (!sink.tryWrite(r)) await sink.write(r);
+  }
+  await sink.close();
+}
+
+/** Heap bytes each buffered record costs: the sink's entry on top of the record itself. */
+function heapPerRecord(kind: 'sink' | 'array', n: number): number {
+  const gc = (globalThis as { gc?: () => void }).gc;
+  if (!gc) return Number.NaN;
+  const records = Array.from({ length: n }, (_, i) => record(i));
+  gc();
+  const before = process.memoryUsage().heapUsed;
+  let keep: unknown;
+  if (kind === 'sink') {
+    const sink = new Sink(noop, { maxRecords: n + 1, maxPendingRecords: n + 1, maxBytes: 2 ** 40, maxPendingBytes: 2 ** 50, maxAgeMs: 3_600_000, idleMs: 0 });
+    for (const r of records) sink.tryWrite(r);
+    keep = sink;
+  } else {
+    const arr: Dock[] = [];
+    for (const r of records) arr.push(r);
+    keep = arr;
+  }
+  gc();
+  const after = process.memoryUsage().heapUsed;
+  void keep;
+  return (after - before) / n;
+}
+
+async function child(variant: string): Promise<void> {
+  const n = arg('records', 2_000_000);
+  const batch = arg('batch', 1000);
+  if (variant.startsWith('heap-')) {
+    process.stdout.write(JSON.stringify({ bytes: heapPerRecord(variant === 'heap-sink' ? 'sink' : 'array', 200_000) }));
+    return;
+  }
+  const run = { array: arrayBatcher, push: pushLoop, write: sinkWrite, tryWrite: sinkTryWrite, tryWriteMany: sinkTryWriteMany }[variant as 'array'];
+  await run(20_000, batch); // warm-up
+  const t0 = process.hrtime.bigint();
+  await run(n, batch);
+  const s = Number(process.hrtime.bigint() - t0) / 1e9;
+  process.stdout.write(JSON.stringify({ rps: n / s }));
+}
+
+function median(xs: number[]): number {
+  const s = [...xs].sort((a, b) => a - b);
+  const m = s.length >> 1;
+  return s.length % 2 ? s[m]! : (s[m - 1]! + s[m]!) / 2;
+}
+
+async function main(): Promise<void> {
+  const v = variantArg();
+  if (v) return child(v);
+  const repeats = arg('repeats', 5);
+  const self = fileURLToPath(import.meta.url);
+  const sample = (variant: string) =>
+    JSON.parse(execFileSync(process.execPath, ['--expose-gc', self, '--variant', variant, ...process.argv.slice(2)], { encoding: 'utf8' }));
+  const rps: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
+  // Interleave variants so machine noise hits them alike.
+  for (let r = 0; r < repeats; r++) for (const k of Object.keys(rps)) rps[k]!.push(sample(k).rps);
+  const heapSink = sample('heap-sink').bytes as number;
+  const heapArray = sample('heap-array').bytes as number;
+
+  const cpu = cpus()[0]?.model ?? 'unknown CPU';
+  console.log(`# core throughput — ${cpu}, ${cpus().length} cores, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, Node ${process.version}`);
+  console.log(`records per sample: ${arg('records', 2_000_000)}, batch: ${arg('batch', 1000)}, samples: ${repeats} per variant (fresh process each)`);
+  const limit = median(rps.array!);
+  console.log('variant        median rec/s   min–max rec/s            ratio to limit');
+  for (const [k, xs] of Object.entries(rps)) {
+    const m = median(xs);
+    console.log(
+      `${k.padEnd(14)} ${Math.round(m).toLocaleString('en').padStart(12)}   ${Math.round(Math.min(...xs)).toLocaleString('en')}–${Math.round(Math.max(...xs)).toLocaleString('en')}`.padEnd(58) +
+        (m / limit).toFixed(2),
+    );
+  }
+  console.log(`heap per buffered record: sink ${heapSink.toFixed(0)} B, plain array ${heapArray.toFixed(0)} B (engine overhead ${(heapSink - heapArray).toFixed(0)} B)`);
+  console.log(`target: write() ≥ 0.5 of the limit → ${(median(rps.write!) / limit).toFixed(2)}`);
+}
+
+await main();
