@@ -1,1 +1,14 @@
-export {};
+export { ingest, ingestFile, formatFromPath } from './ingest.js';
+export type { IngestInput } from './ingest.js';
+export { resolveIngestOptions, INGEST_DEFAULTS } from './options.js';
+export type { IngestOptions, IngestFormat, IngestProgress, Row, RowContext } from './options.js';
+export type { ColumnSpec, ColumnType } from './columns.js';
+export { COLUMN_TYPES } from './columns.js';
+export type { StandardSchemaV1, StandardResult, StandardIssue } from './standard-schema.js';
+export type { Reject, RejectReason, RejectTarget } from './reject.js';
+export { RejectFile, REJECT_CSV_HEADER } from './reject-file.js';
+export type { RejectFormat } from './reject-file.js';
+export type { IngestSummary, RejectNote } from './summary.js';
+export { IngestError } from './errors.js';
+export type { IngestStopReason } from './errors.js';
+export { formatFromContentType } from './http.js';

@@ -1,0 +1,356 @@
+import { createReadStream } from 'node:fs';
+import { stat } from 'node:fs/promises';
+import { basename, extname } from 'node:path';
+import type { Readable } from 'node:stream';
+import { type RecordMeta, type Sink, type SinkEvents, messageOf, progressKey, SpillwayError } from '@spillway/core';
+import { convert, isMissing, type ResolvedColumn } from './columns.js';
+import { IngestError, type IngestStopReason } from './errors.js';
+import { type IngestFormat, type IngestOptions, type IngestProgress, type ResolvedIngestOptions, type Row, resolveIngestOptions } from './options.js';
+import type { Reject, RejectReason } from './reject.js';
+import { csvReader, type Item, type ItemReader, ndjsonReader } from './rows.js';
+import { issuePath } from './standard-schema.js';
+import { FIRST_REJECTS, type IngestSummary, type RejectNote } from './summary.js';
+
+/** Bytes to read from: a Node stream (file, HTTP request body) or any async iterable of chunks. */
+export type IngestInput = Readable | AsyncIterable<Uint8Array | string>;
+
+let runs = 0;
+
+/** The format a file name implies, if any. */
+export function formatFromPath(path: string): IngestFormat | undefined {
+  const ext = extname(path).toLowerCase();
+  if (ext === '.csv' || ext === '.tsv') return 'csv';
+  if (ext === '.ndjson' || ext === '.jsonl') return 'ndjson';
+  return undefined;
+}
+
+/**
+ * Reads a file into a sink. Same as `ingest()`, with the format taken from the extension, the
+ * file's base name as `sourceName`, and its size for progress ETAs. Memory stays bounded by the
+ * sink's pending bounds and `maxRowBytes`, whatever the file's size.
+ */
+export async function ingestFile<T>(path: string, sink: Sink<T>, options: IngestOptions<T> = {}): Promise<IngestSummary> {
+  const format = options.format ?? formatFromPath(path);
+  const delimiter = options.delimiter ?? (extname(path).toLowerCase() === '.tsv' ? '\t' : undefined);
+  const totalBytes = (await stat(path)).size;
+  const stream = createReadStream(path, { highWaterMark: 256 * 1024 });
+  try {
+    return await run(stream, sink, { ...options, ...(format && { format }), ...(delimiter && { delimiter }), sourceName: options.sourceName ?? basename(path) }, totalBytes);
+  } finally {
+    stream.destroy();
+  }
+}
+
+/**
+ * Reads CSV or NDJSON from a stream into a sink, with the sink's backpressure: rows are parsed,
+ * validated and written one by one, bad rows go to the reject target with their line, column
+ * and reason, and the summary comes only after `sink.flush()` resolved — every row counted as
+ * written is durable. Stops early with an `IngestError` (whose `summary` counts what was done).
+ *
+ * Rows carry `meta = { topic: sourceName, partition: <run id>, offset: <line> }`: one upload is
+ * one ordering key, so its rows reach the store in file order (a later row for the same key wins
+ * in an upsert). The input is not destroyed on an early stop: the caller owns it (an HTTP server
+ * answers first).
+ */
+export function ingest<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<T> = {}): Promise<IngestSummary> {
+  return run(input, sink, options, undefined);
+}
+
+class Stop extends Error {
+  constructor(
+    readonly reason: IngestStopReason,
+    message: string,
+    readonly origin?: unknown,
+  ) {
+    super(message);
+  }
+}
+
+async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<T>, totalBytes: number | undefined): Promise<IngestSummary> {
+  const o = resolveIngestOptions(options);
+  if (o.format === undefined) {
+    throw new TypeError('Expected `format` to be \'csv\' or \'ndjson\' (it cannot be told from a stream), got `undefined`');
+  }
+  const format = o.format;
+  const source = o.sourceName ?? 'stream';
+  const runId = `ingest-${process.pid}-${++runs}`;
+  const started = performance.now();
+  const reader: ItemReader = format === 'csv' ? csvReader(o.delimiter, o.maxRowBytes) : ndjsonReader(o.maxRowBytes);
+
+  const s = {
+    rowsRead: 0,
+    accepted: 0,
+    written: 0,
+    deadLettered: 0,
+    rejected: 0,
+    blank: 0,
+    bytes: 0,
+    byReason: {} as Partial<Record<RejectReason, number>>,
+    first: [] as RejectNote[],
+  };
+  // Count this run's records as the sink settles them; other writers may share the sink.
+  const onSettled = (e: SinkEvents['settled']) => {
+    for (const m of e.metas) {
+      if (m !== undefined && m.partition === runId && m.topic === source) {
+        if (e.outcome === 'durable') s.written++;
+        else s.deadLettered++;
+      }
+    }
+  };
+  sink.on('settled', onSettled);
+
+  const summary = (stopped: string | undefined): IngestSummary => {
+    const durationMs = performance.now() - started;
+    return {
+      source,
+      format,
+      rowsRead: s.rowsRead,
+      rowsWritten: s.written,
+      rowsRejected: s.rejected,
+      rowsDeadLettered: s.deadLettered,
+      rowsPending: s.accepted - s.written - s.deadLettered,
+      blankLines: format === 'csv' ? reader.blankLines : s.blank,
+      bytesRead: s.bytes,
+      durationMs: Math.round(durationMs * 10) / 10,
+      rowsPerSecond: durationMs > 0 ? Math.round((s.rowsRead / durationMs) * 1000) : 0,
+      durable: s.accepted === s.written + s.deadLettered,
+      lastLine: reader.lastLine,
+      rejectsByReason: { ...s.byReason },
+      firstRejects: [...s.first],
+      stopped,
+    };
+  };
+
+  let lastProgress = started;
+  const progress = (force: boolean) => {
+    if (!o.onProgress) return;
+    const now = performance.now();
+    if (!force && now - lastProgress < o.progressIntervalMs) return;
+    lastProgress = now;
+    const p: IngestProgress = {
+      rowsRead: s.rowsRead,
+      rowsWritten: s.written,
+      rowsRejected: s.rejected,
+      rowsDeadLettered: s.deadLettered,
+      bytesRead: s.bytes,
+      totalBytes,
+      elapsedMs: now - started,
+    };
+    o.onProgress(p);
+  };
+
+  const reject = async (line: number, raw: Uint8Array, reason: RejectReason, message: string, column: string | undefined, truncated = false) => {
+    s.rejected++;
+    s.byReason[reason] = (s.byReason[reason] ?? 0) + 1;
+    if (s.first.length < FIRST_REJECTS) s.first.push({ line, column, reason, message });
+    if (o.rejects) {
+      const r: Reject = { line, column, reason, message, raw, truncated };
+      try {
+        await o.rejects.write(r);
+      } catch (error) {
+        throw new Stop('rejects', `Could not write a reject: ${messageOf(error)}`, error);
+      }
+    }
+    if (s.rejected > o.maxRejects) throw new Stop('reject-limit', `More than ${o.maxRejects} row(s) rejected; stopped at line ${line}`);
+  };
+
+  const writeOptions = o.signal ? { signal: o.signal } : undefined;
+  const accept = async (record: T, line: number) => {
+    const meta: RecordMeta = { topic: source, partition: runId, offset: line };
+    try {
+      if (!sink.tryWrite(record, meta)) await sink.write(record, meta, writeOptions);
+    } catch (error) {
+      if (o.signal?.aborted) throw new Stop('read', 'The ingest was aborted', o.signal.reason);
+      throw new Stop('sink', `The sink refused a row: ${messageOf(error)}`, error);
+    }
+    s.accepted++;
+  };
+
+  let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
+  const needHeader = format === 'csv' && o.header;
+
+  const handle = async (item: Item) => {
+    if (item.kind === 'blank') {
+      if (o.blankLines === 'reject') {
+        s.rowsRead++;
+        await reject(item.line, Buffer.alloc(0), 'blank', 'a blank line', undefined);
+      } else s.blank++;
+      return;
+    }
+    if (needHeader && header === undefined) {
+      if (item.kind !== 'fields') throw new Stop('header', `The CSV header (line ${item.line}) is malformed: ${item.kind === 'reject' ? item.message : 'no fields'}`);
+      header = headerMap(item.fields, o.columns);
+      return;
+    }
+    s.rowsRead++;
+    if (item.kind === 'reject') {
+      const column = item.field === undefined ? undefined : header?.names[item.field] ?? `#${item.field + 1}`;
+      await reject(item.line, item.raw, item.reason, item.message, column, item.truncated);
+      return;
+    }
+    let row: Row;
+    if (item.kind === 'fields') {
+      const h = header!;
+      if (item.fields.length !== h.width) {
+        await reject(item.line, item.raw, 'column-count', `expected ${h.width} field(s), got ${item.fields.length}`, undefined);
+        return;
+      }
+      const built = o.columns ? fromColumns(h.columns!, (c) => item.fields[h.index.get(c.name)!]) : fromHeader(h.names, item.fields);
+      if ('reason' in built) {
+        await reject(item.line, item.raw, built.reason, built.message, built.column);
+        return;
+      }
+      row = built.row;
+    } else {
+      const v = item.value;
+      if (typeof v !== 'object' || v === null || Array.isArray(v)) {
+        await reject(item.line, item.raw, 'not-object', `expected a JSON object, got ${v === null ? 'null' : Array.isArray(v) ? 'an array' : `a ${typeof v}`}`, undefined);
+        return;
+      }
+      const obj = v as Record<string, unknown>;
+      if (o.columns) {
+        const cols = o.columns;
+        const built = fromColumns(cols, (c) => obj[c.from]);
+        if ('reason' in built) {
+          await reject(item.line, item.raw, built.reason, built.message, built.column);
+          return;
+        }
+        row = built.row;
+      } else row = obj;
+    }
+    if (o.schema) {
+      let result = o.schema['~standard'].validate(row);
+      if (result instanceof Promise) result = await result;
+      if (result.issues) {
+        const issue = result.issues[0];
+        await reject(item.line, item.raw, 'schema', issue?.message ?? 'schema validation failed', issue ? issuePath(issue) : undefined);
+        return;
+      }
+      row = result.value as Row;
+    }
+    let record: T;
+    if (o.map) {
+      try {
+        record = o.map(row, { line: item.line, source });
+      } catch (error) {
+        await reject(item.line, item.raw, 'map', messageOf(error), undefined);
+        return;
+      }
+    } else record = row as T;
+    await accept(record, item.line);
+  };
+
+  let stop: Stop | undefined;
+  try {
+    for await (const chunk of chunks(input)) {
+      if (o.signal?.aborted) throw new Stop('read', 'The ingest was aborted', o.signal.reason);
+      s.bytes += chunk.length;
+      if (s.bytes > o.maxInputBytes) throw new Stop('too-large', `The input is larger than ${o.maxInputBytes} bytes`);
+      for (const item of reader.push(chunk)) await handle(item);
+      progress(false);
+    }
+    for (const item of reader.end()) await handle(item);
+  } catch (error) {
+    stop = error instanceof Stop ? error : new Stop('read', `Reading the input failed: ${messageOf(error)}`, error);
+  }
+
+  // The last partial batch leaves now, not when more data would have come; and the summary
+  // waits until every row handed over is terminal.
+  let sinkError: unknown;
+  if (!(stop?.reason === 'sink')) {
+    try {
+      await sink.flush();
+    } catch (error) {
+      sinkError = error;
+    }
+  }
+  sink.off('settled', onSettled);
+  sink.progress.forget(progressKey({ topic: source, partition: runId }));
+  if (o.ownsRejects) {
+    try {
+      await o.rejects?.close?.();
+    } catch (error) {
+      stop ??= new Stop('rejects', `Could not close the reject file: ${messageOf(error)}`, error);
+    }
+  }
+  progress(true);
+  if (sinkError !== undefined && !stop) stop = new Stop('sink', `The sink failed: ${messageOf(sinkError)}`, sinkError);
+  if (stop) {
+    const done = summary(stop.reason);
+    throw new IngestError(stop.reason, stop.message, done, stop.origin);
+  }
+  return summary(undefined);
+}
+
+/** Column positions of a CSV. */
+interface HeaderMap {
+  names: string[];
+  width: number;
+  columns: ResolvedColumn[] | undefined;
+  /** Column spec name → field index. */
+  index: Map<string, number>;
+}
+
+function positional(columns: ResolvedColumn[]): HeaderMap {
+  return { names: columns.map((c) => c.name), width: columns.length, columns, index: new Map(columns.map((c, i) => [c.name, i])) };
+}
+
+function headerMap(names: string[], columns: ResolvedColumn[] | undefined): HeaderMap {
+  const seen = new Map<string, number>();
+  names.forEach((n, i) => {
+    if (seen.has(n)) throw new Stop('header', `The CSV header names column "${n}" twice`);
+    seen.set(n, i);
+  });
+  if (!columns) return { names, width: names.length, columns: undefined, index: seen };
+  const index = new Map<string, number>();
+  const missing: string[] = [];
+  const present: ResolvedColumn[] = [];
+  for (const c of columns) {
+    const i = seen.get(c.from);
+    if (i === undefined) {
+      if (c.required) missing.push(c.from);
+      continue;
+    }
+    index.set(c.name, i);
+    present.push(c);
+  }
+  if (missing.length > 0) throw new Stop('header', `The CSV header lacks required column(s): ${missing.join(', ')}`);
+  // Optional columns absent from the header are null in every row.
+  const absent = columns.filter((c) => !index.has(c.name));
+  return { names, width: names.length, columns: [...present, ...absent], index };
+}
+
+type Built = { row: Row } | { reason: RejectReason; message: string; column: string };
+
+function fromColumns(columns: ResolvedColumn[], read: (c: ResolvedColumn) => unknown): Built {
+  const row: Row = {};
+  for (const c of columns) {
+    const raw = read(c);
+    if (isMissing(raw)) {
+      if (c.required) return { reason: 'required', message: 'a required value is missing', column: c.name };
+      row[c.name] = null;
+      continue;
+    }
+    const v = convert(c, raw);
+    if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
+    row[c.name] = v.value;
+  }
+  return { row };
+}
+
+function fromHeader(names: string[], fields: string[]): Built {
+  const row: Row = {};
+  for (let i = 0; i < names.length; i++) row[names[i]!] = fields[i];
+  return { row };
+}
+
+/** The input as Buffers. A Node stream is read without destroying it on an early stop. */
+async function* chunks(input: IngestInput): AsyncGenerator<Buffer> {
+  const readable = input as Readable & { iterator?: (o: { destroyOnReturn: boolean }) => AsyncIterable<unknown> };
+  const source: AsyncIterable<unknown> = typeof readable.iterator === 'function' && typeof readable.pipe === 'function' ? readable.iterator({ destroyOnReturn: false }) : (input as AsyncIterable<unknown>);
+  for await (const chunk of source) {
+    if (typeof chunk === 'string') yield Buffer.from(chunk, 'utf8');
+    else if (chunk instanceof Uint8Array) yield Buffer.isBuffer(chunk) ? chunk : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
+    else throw new SpillwayError('SPILLWAY_INPUT_ERROR', `Expected the input to yield bytes or strings, got ${typeof chunk}`);
+  }
+}

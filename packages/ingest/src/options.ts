@@ -1,0 +1,233 @@
+import { invalidOption } from '@spillway/core';
+import { type ColumnSpec, type ResolvedColumn, resolveColumns } from './columns.js';
+import type { RejectTarget } from './reject.js';
+import { RejectFile, type RejectFormat } from './reject-file.js';
+import { type StandardSchemaV1, isStandardSchema } from './standard-schema.js';
+
+export type IngestFormat = 'csv' | 'ndjson';
+
+/** A row after parsing and validation, before `map`: column name → value. */
+export type Row = Record<string, unknown>;
+
+/** Where a row came from, passed to `map`. */
+export interface RowContext {
+  /** Physical line (1-based) where the row starts. */
+  readonly line: number;
+  readonly source: string;
+}
+
+/** Counts so far, passed to `onProgress`. */
+export interface IngestProgress {
+  readonly rowsRead: number;
+  readonly rowsWritten: number;
+  readonly rowsRejected: number;
+  readonly rowsDeadLettered: number;
+  readonly bytesRead: number;
+  /** The input's size when known (a file), for an ETA. */
+  readonly totalBytes: number | undefined;
+  readonly elapsedMs: number;
+}
+
+export interface IngestOptions<T = Row> {
+  /**
+   * Input format. `ingestFile` takes it from the extension when not given (`.csv`, `.tsv`,
+   * `.ndjson`, `.jsonl`).
+   * @default from the file extension; required for streams
+   * @example 'ndjson'
+   */
+  format?: IngestFormat;
+  /**
+   * CSV: the first record holds the column names. With `false`, `columns` are read by position.
+   * @default true
+   */
+  header?: boolean;
+  /**
+   * CSV field delimiter, one ASCII character.
+   * @default ',' (or a tab for `.tsv` files)
+   * @example ';'
+   */
+  delimiter?: string;
+  /**
+   * Declared columns: which to read, their types and rules. Rows that fail go to the reject target.
+   * Without `columns` (and without `schema`) a CSV row is every header column as text, an NDJSON
+   * row the object as it came.
+   * @default undefined
+   * @example [{ name: 'dock_id', type: 'string', required: true, pattern: '^DK-\\d{4}$' }, { name: 'odometer_km', type: 'integer', min: 0 }]
+   */
+  columns?: readonly ColumnSpec[];
+  /**
+   * Any Standard Schema validator (zod 4, valibot, arktype, …), run after `columns`; its output
+   * is the row. Issues reject the row with reason `schema` and the issue's path as the column.
+   * @default undefined
+   * @example z.object({ dock_id: z.string().regex(/^DK-\d{4}$/), odometer_km: z.coerce.number().int() })
+   */
+  schema?: StandardSchemaV1;
+  /**
+   * Turns a valid row into the sink's record. A throw rejects the row with reason `map`.
+   * @default the row itself
+   * @example (row, { line }) => ({ ...row, source_line: line })
+   */
+  map?: (row: Row, context: RowContext) => T;
+  /**
+   * Where rejected rows go: a path (a `RejectFile`, created 0600, format from the extension:
+   * `.csv` → CSV, anything else → NDJSON) or any `RejectTarget`. Without one, rejects are only
+   * counted (and the first 20 listed in the summary).
+   * @default undefined
+   * @example '/var/lib/tandem/rejects/partner-42.ndjson'
+   */
+  rejects?: string | RejectTarget;
+  /**
+   * Format of a reject file given by path.
+   * @default from the extension (`.csv` → 'csv', else 'ndjson')
+   */
+  rejectFormat?: RejectFormat;
+  /**
+   * Stop the upload when more than this many rows are rejected (`IngestError` reason
+   * `reject-limit`). Rows written before the stop stay written. 0 stops at the first reject.
+   * @default Infinity
+   * @example 100
+   */
+  maxRejects?: number;
+  /**
+   * Longest NDJSON line / CSV record, in bytes, without its line break. A longer one is rejected
+   * (`too-long`) with only its first bytes kept; reading resumes at the next line break.
+   * @default 1048576 (1 MiB)
+   */
+  maxRowBytes?: number;
+  /**
+   * Stop when the input passes this many bytes (`IngestError` reason `too-large`).
+   * @default Infinity
+   * @example 64 * 1024 * 1024
+   */
+  maxInputBytes?: number;
+  /**
+   * NDJSON blank lines (only whitespace): `skip` counts them in `blankLines`, `reject` rejects
+   * them (reason `blank`). jsonlines.org has no blank lines; many writers end files with one.
+   * CSV blank lines are always skipped and counted.
+   * @default 'skip'
+   */
+  blankLines?: 'skip' | 'reject';
+  /**
+   * Name rows carry as `meta.topic` (so dead letters say where a row came from) and the summary's `source`.
+   * @default the file's base name, or 'stream'
+   * @example 'partner-42/2024-05-01.csv'
+   */
+  sourceName?: string;
+  /** Stops the ingest (reason `read`) when aborted. */
+  signal?: AbortSignal;
+  /**
+   * Called with the counts so far, at most every `progressIntervalMs`, and once at the end.
+   * @default undefined
+   */
+  onProgress?: (progress: IngestProgress) => void;
+  /**
+   * Least time between two `onProgress` calls, ms.
+   * @default 1000
+   */
+  progressIntervalMs?: number;
+}
+
+export interface ResolvedIngestOptions<T> {
+  format: IngestFormat | undefined;
+  header: boolean;
+  delimiter: number;
+  columns: ResolvedColumn[] | undefined;
+  schema: StandardSchemaV1 | undefined;
+  map: ((row: Row, context: RowContext) => T) | undefined;
+  rejects: RejectTarget | undefined;
+  /** True when the ingest opened the reject target and so closes it. */
+  ownsRejects: boolean;
+  maxRejects: number;
+  maxRowBytes: number;
+  maxInputBytes: number;
+  blankLines: 'skip' | 'reject';
+  sourceName: string | undefined;
+  signal: AbortSignal | undefined;
+  onProgress: ((progress: IngestProgress) => void) | undefined;
+  progressIntervalMs: number;
+}
+
+const KNOWN = new Set([
+  'format',
+  'header',
+  'delimiter',
+  'columns',
+  'schema',
+  'map',
+  'rejects',
+  'rejectFormat',
+  'maxRejects',
+  'maxRowBytes',
+  'maxInputBytes',
+  'blankLines',
+  'sourceName',
+  'signal',
+  'onProgress',
+  'progressIntervalMs',
+]);
+
+export const INGEST_DEFAULTS = { maxRowBytes: 1024 * 1024, progressIntervalMs: 1000 } as const;
+
+function count(name: string, value: unknown, fallback: number, min: number, allowInfinity = true): number {
+  if (value === undefined) return fallback;
+  const ok = typeof value === 'number' && value >= min && (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
+  if (!ok) throw invalidOption(name, `an integer >= ${min}${allowInfinity ? ' (or Infinity)' : ''}`, value);
+  return value;
+}
+
+/** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
+export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): ResolvedIngestOptions<T> {
+  const o = (options ?? {}) as Record<string, unknown>;
+  if (typeof o !== 'object' || o === null) throw invalidOption('options', 'an object', options);
+  for (const key of Object.keys(o)) {
+    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+  }
+  if (o.format !== undefined && o.format !== 'csv' && o.format !== 'ndjson') throw invalidOption('format', "'csv' or 'ndjson'", o.format);
+  if (o.header !== undefined && typeof o.header !== 'boolean') throw invalidOption('header', 'a boolean', o.header);
+  const delimiter = o.delimiter ?? ',';
+  if (typeof delimiter !== 'string' || delimiter.length !== 1 || delimiter.charCodeAt(0) > 0x7f || /["\r\n]/.test(delimiter)) {
+    throw invalidOption('delimiter', 'one ASCII character other than a quote or a line break', o.delimiter);
+  }
+  const columns = o.columns === undefined ? undefined : resolveColumns(o.columns);
+  if (o.schema !== undefined && !isStandardSchema(o.schema)) throw invalidOption('schema', 'a Standard Schema validator (an object with ~standard.validate)', o.schema);
+  if (o.map !== undefined && typeof o.map !== 'function') throw invalidOption('map', 'a function', o.map);
+  if (o.header === false && columns === undefined) throw invalidOption('columns', 'column specs when `header` is false (CSV columns are then read by position)', o.columns);
+  if (o.rejectFormat !== undefined && o.rejectFormat !== 'ndjson' && o.rejectFormat !== 'csv') throw invalidOption('rejectFormat', "'ndjson' or 'csv'", o.rejectFormat);
+  let rejects: RejectTarget | undefined;
+  let ownsRejects = false;
+  if (typeof o.rejects === 'string') {
+    if (o.rejects.length === 0) throw invalidOption('rejects', 'a non-empty path or a RejectTarget', o.rejects);
+    rejects = new RejectFile(o.rejects, o.rejectFormat as RejectFormat | undefined);
+    ownsRejects = true;
+  } else if (o.rejects !== undefined) {
+    const t = o.rejects as RejectTarget;
+    if (typeof t !== 'object' || t === null || typeof t.write !== 'function') throw invalidOption('rejects', 'a path or an object with write(reject)', o.rejects);
+    rejects = t;
+  }
+  if (o.blankLines !== undefined && o.blankLines !== 'skip' && o.blankLines !== 'reject') throw invalidOption('blankLines', "'skip' or 'reject'", o.blankLines);
+  if (o.sourceName !== undefined && (typeof o.sourceName !== 'string' || o.sourceName.length === 0)) throw invalidOption('sourceName', 'a non-empty string', o.sourceName);
+  if (o.signal !== undefined && !(o.signal instanceof AbortSignal)) throw invalidOption('signal', 'an AbortSignal', o.signal);
+  if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalidOption('onProgress', 'a function', o.onProgress);
+  const progressIntervalMs = o.progressIntervalMs ?? INGEST_DEFAULTS.progressIntervalMs;
+  if (typeof progressIntervalMs !== 'number' || !(progressIntervalMs >= 0) || !Number.isFinite(progressIntervalMs)) {
+    throw invalidOption('progressIntervalMs', 'a finite number >= 0', o.progressIntervalMs);
+  }
+  return {
+    format: o.format as IngestFormat | undefined,
+    header: o.header !== false,
+    delimiter: delimiter.charCodeAt(0),
+    columns,
+    schema: o.schema as StandardSchemaV1 | undefined,
+    map: o.map as ((row: Row, context: RowContext) => T) | undefined,
+    rejects,
+    ownsRejects,
+    maxRejects: count('maxRejects', o.maxRejects, Number.POSITIVE_INFINITY, 0),
+    maxRowBytes: count('maxRowBytes', o.maxRowBytes, INGEST_DEFAULTS.maxRowBytes, 1, false),
+    maxInputBytes: count('maxInputBytes', o.maxInputBytes, Number.POSITIVE_INFINITY, 1),
+    blankLines: (o.blankLines as 'skip' | 'reject' | undefined) ?? 'skip',
+    sourceName: o.sourceName as string | undefined,
+    signal: o.signal as AbortSignal | undefined,
+    onProgress: o.onProgress as ((p: IngestProgress) => void) | undefined,
+    progressIntervalMs,
+  };
+}
