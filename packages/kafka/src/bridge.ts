@@ -336,7 +336,6 @@ export class KafkaBridge<R> {
       const ts = Number(m.timestamp);
       const meta: RecordMeta = Number.isFinite(ts) ? { topic: st.topic, partition: st.partition, offset: m.offset, eventTime: ts } : { topic: st.topic, partition: st.partition, offset: m.offset };
       const { record, sinks } = this.decodeAndRoute(m, source);
-      for (const s of sinks) this.watch(s);
       this.owner.set(meta, st);
       this.tracker.track(st.key, offset, sinks.length);
       st.next = offset + 1n;
@@ -367,6 +366,7 @@ export class KafkaBridge<R> {
         const route = this.o.route(decoded.record, source);
         if (route == null) return { record: decoded.record, sinks: [] };
         const list = (Array.isArray(route) ? route : [route]) as AnySink[];
+        for (const sink of list) this.watch(sink);
         return { record: decoded.record, sinks: [...new Set(list)] };
       } catch (error) {
         failure = new DecodeError(`route() threw: ${messageOf(error)}`, { cause: error });
@@ -396,7 +396,11 @@ export class KafkaBridge<R> {
 
   private watch(sink: AnySink): void {
     if (this.sinks.has(sink)) return;
-    if (!(sink instanceof Sink)) throw new TypeError(`Expected \`route\` to return Sink instances, got \`${String(sink)}\``);
+    // Duck-typed, so that two copies of @spillway/core in one app still work together.
+    const s = sink as Partial<AnySink> | null;
+    if (!s || typeof s.tryWrite !== 'function' || typeof s.on !== 'function' || typeof s.revoke !== 'function') {
+      throw new TypeError(`Expected \`route\` to return Spillway sinks, got \`${String(sink)}\``);
+    }
     this.sinks.add(sink);
     sink.on('settled', this.onSettled);
     sink.on('error', this.onSinkError);

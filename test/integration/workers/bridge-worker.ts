@@ -1,0 +1,76 @@
+// A consumer process for the bridge tests: a KafkaBridge in a consumer group writing dock events
+// into PostgreSQL tables, with the process-wide shutdown coordinator installed, so that a test can
+// SIGTERM it (graceful: stop fetching → flush → commit → disconnect, exit 143) or SIGKILL it.
+//
+// Run: TSX_TSCONFIG_PATH=test/integration/workers/tsconfig.json node --import tsx \
+//        test/integration/workers/bridge-worker.ts   with BRIDGE_WORKER='{"brokers":[…],…}'
+// Prints one JSON object per line on stdout: {"event":"ready"|"assign"|"stats"|"commit", …}.
+import { Sink, fileDeadLetter, installShutdown } from '@spillway/core';
+import { KafkaBridge } from '@spillway/kafka';
+import { Kafka, logLevel } from 'kafkajs';
+import pg from 'pg';
+import { type DockRow, type WriteMode, decodeDockEvent, pgRowsAdapter } from './dock-rows.js';
+
+export interface WorkerConfig {
+  label: string;
+  brokers: string[];
+  topic: string;
+  groupId: string;
+  pgUrl: string;
+  tables: Array<{ table: string; mode: WriteMode }>;
+  deadLetterPath: string;
+  maxRecords?: number;
+  maxAgeMs?: number;
+  /** Print every commit (for the kill -9 test, which compares them with the rows). */
+  logCommits?: boolean;
+}
+
+const config = JSON.parse(process.env.BRIDGE_WORKER ?? '{}') as WorkerConfig;
+const out = (event: string, data: Record<string, unknown> = {}) => process.stdout.write(`${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`);
+
+const shutdown = installShutdown({ timeoutMs: 20_000, log: (line) => process.stderr.write(`[${config.label}] ${line}\n`) });
+const pool = new pg.Pool({ connectionString: config.pgUrl, max: config.tables.length + 1 });
+pool.on('error', () => undefined);
+
+const sinks = config.tables.map(
+  ({ table, mode }) =>
+    new Sink<DockRow>(pgRowsAdapter(pool, table, mode), {
+      name: table,
+      maxRecords: config.maxRecords ?? 1000,
+      maxAgeMs: config.maxAgeMs ?? 200,
+      deadLetter: fileDeadLetter(`${config.deadLetterPath}.${table}`),
+    }),
+);
+for (const s of sinks) shutdown.addSink(s);
+
+const kafka = new Kafka({ clientId: config.label, brokers: config.brokers, logLevel: logLevel.NOTHING });
+const bridge = new KafkaBridge<DockRow>({
+  kafka,
+  groupId: config.groupId,
+  // Short group timers so a rebalance takes about a second; the flush deadline stays well under them.
+  consumerConfig: { sessionTimeout: 10_000, rebalanceTimeout: 20_000, heartbeatInterval: 500, maxWaitTimeInMs: 200 },
+  topics: [config.topic],
+  fromBeginning: true,
+  decode: decodeDockEvent,
+  route: () => sinks,
+  deadLetter: fileDeadLetter(config.deadLetterPath),
+  commitIntervalMs: 300,
+  rebalanceFlushMs: 4000,
+  shutdown,
+  name: config.label,
+});
+shutdown.add('clients', 'pg pool', () => pool.end());
+
+bridge.on('assign', (e) => out('assign', { assigned: e.assigned, revoked: e.revoked, kept: e.kept }));
+if (config.logCommits) bridge.on('commit', (e) => out('commit', { offsets: e.offsets }));
+bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Error)?.message }));
+
+const stats = setInterval(() => {
+  const s = bridge.snapshot();
+  out('stats', { messages: s.messages, commits: s.commits, skipped: s.skippedRedeliveries, flushTimeouts: s.rebalanceFlushTimeouts });
+}, 500);
+stats.unref();
+shutdown.add('sources', 'stats', () => clearInterval(stats));
+
+await bridge.start();
+out('ready');
