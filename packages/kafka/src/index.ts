@@ -5,3 +5,5 @@ export type { BridgeState, BridgeSnapshot, PartitionSnapshot, BridgeEvents, Brid
 export type { KafkaBridgeOptions, Route } from './bridge-options.js';
 export { DecodeError } from './decode.js';
 export type { KafkaSource, UndecodableMessage } from './decode.js';
+export { KafkaProducerAdapter, kafkaProducerAdapter } from './producer.js';
+export type { KafkaProducerAdapterOptions, KafkaOutgoing } from './producer-options.js';

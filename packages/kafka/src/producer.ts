@@ -1,0 +1,174 @@
+/**
+ * The Kafka producer sink adapter: a batch goes out as one `sendBatch` (acks -1 by default) and
+ * is durable when that call resolves.
+ */
+import { StoreError, messageOf, type Batch, type ErrorClass, type PartialWrite, type SinkAdapter } from '@spillway/core';
+import type { Message, Producer, TopicMessages } from 'kafkajs';
+import { classifyKafkaError, kafkaErrorType } from './classify.js';
+import { resolveKafkaProducerOptions, type KafkaOutgoing, type KafkaProducerAdapterOptions, type ResolvedKafkaProducerOptions } from './producer-options.js';
+
+/**
+ * After these, an idempotent producer's sequence numbers no longer match the broker's: kafkajs
+ * rolls back the sequence of every partition of a failed request, including partitions the broker
+ * did append. Sending on with it risks OUT_OF_ORDER_SEQUENCE_NUMBER or, worse, a new batch taken
+ * for a duplicate of an old one and dropped. A new producer (new producer id) starts clean.
+ */
+const RESET_PRODUCER: ReadonlySet<string> = new Set([
+  'MESSAGE_TOO_LARGE',
+  'RECORD_LIST_TOO_LARGE',
+  'INVALID_RECORD',
+  'INVALID_TIMESTAMP',
+  'OUT_OF_ORDER_SEQUENCE_NUMBER',
+  'DUPLICATE_SEQUENCE_NUMBER',
+  'UNKNOWN_PRODUCER_ID',
+  'INVALID_PRODUCER_EPOCH',
+]);
+
+function byteLength(v: Buffer | string | null | undefined): number {
+  if (v === null || v === undefined) return 0;
+  return typeof v === 'string' ? Buffer.byteLength(v) : v.length;
+}
+
+function headerBytes(headers: KafkaOutgoing['headers']): number {
+  if (!headers) return 0;
+  let n = 0;
+  for (const [k, v] of Object.entries(headers)) {
+    n += Buffer.byteLength(k);
+    if (Array.isArray(v)) for (const x of v) n += byteLength(x);
+    else n += byteLength(v as Buffer | string | undefined);
+  }
+  return n;
+}
+
+export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
+  readonly kind = 'kafka';
+  private readonly o: ResolvedKafkaProducerOptions<T>;
+  private producer: Producer | undefined;
+  private connecting: Promise<Producer> | undefined;
+  private closed = false;
+  /** Producers created so far; more than one means a producer was replaced after a failure. */
+  producersCreated = 0;
+
+  constructor(options: KafkaProducerAdapterOptions<T>) {
+    this.o = resolveKafkaProducerOptions(options);
+  }
+
+  /** The connected producer, created on first use and after a reset. */
+  private connected(): Promise<Producer> {
+    if (this.producer) return Promise.resolve(this.producer);
+    this.connecting ??= (async () => {
+      const producer = this.o.kafka.producer(this.o.producer);
+      this.producersCreated++;
+      try {
+        await producer.connect();
+      } catch (error) {
+        await producer.disconnect().catch(() => undefined);
+        throw error;
+      }
+      this.producer = producer;
+      return producer;
+    })().finally(() => {
+      this.connecting = undefined;
+    });
+    return this.connecting;
+  }
+
+  /** Drops a producer whose state cannot be trusted; the next write creates a new one. */
+  private async reset(producer: Producer): Promise<void> {
+    if (this.producer !== producer) return;
+    this.producer = undefined;
+    await producer.disconnect().catch(() => undefined);
+  }
+
+  async write(batch: Batch<T>): Promise<void | PartialWrite> {
+    const { mapper, maxRecordBytes } = this.o;
+    const rejected: Array<{ index: number; error: unknown }> = [];
+    const byTopic = new Map<string, Message[]>();
+    for (let i = 0; i < batch.records.length; i++) {
+      let out: KafkaOutgoing;
+      try {
+        out = mapper(batch.records[i] as T, batch.metas[i]);
+        if (typeof out !== 'object' || out === null || !('value' in out)) {
+          throw new TypeError('the mapper must return an object with a `value`');
+        }
+      } catch (error) {
+        rejected.push({ index: i, error: new StoreError(`Kafka mapper failed for a record: ${messageOf(error)}`, { cause: error, details: { stage: 'mapping' } }) });
+        continue;
+      }
+      const topic = out.topic ?? this.o.topic;
+      if (topic === undefined) {
+        rejected.push({ index: i, error: new StoreError('Kafka record has no topic: set `topic` or return one from the mapper', { details: { stage: 'mapping' } }) });
+        continue;
+      }
+      if (maxRecordBytes !== Number.POSITIVE_INFINITY) {
+        const size = byteLength(out.key) + byteLength(out.value) + headerBytes(out.headers);
+        if (size > maxRecordBytes) {
+          rejected.push({
+            index: i,
+            error: new StoreError(`Kafka record of ${size} bytes exceeds maxRecordBytes (${maxRecordBytes}); not sent`, {
+              driverCode: 'MESSAGE_TOO_LARGE',
+              details: { topic, bytes: size, maxRecordBytes },
+            }),
+          });
+          continue;
+        }
+      }
+      const message: Message = { value: out.value };
+      if (out.key !== undefined) message.key = out.key;
+      if (out.headers !== undefined) message.headers = out.headers;
+      if (out.partition !== undefined) message.partition = out.partition;
+      if (out.timestamp !== undefined) message.timestamp = String(out.timestamp);
+      let list = byTopic.get(topic);
+      if (!list) byTopic.set(topic, (list = []));
+      list.push(message);
+    }
+
+    if (byTopic.size > 0) {
+      const producer = await this.connected().catch((error: unknown) => {
+        throw this.wrap(error, batch.records.length);
+      });
+      const topicMessages: TopicMessages[] = [...byTopic].map(([topic, messages]) => ({ topic, messages }));
+      try {
+        await producer.sendBatch({
+          topicMessages,
+          acks: this.o.acks,
+          timeout: this.o.ackTimeoutMs,
+          ...(this.o.compression === undefined ? {} : { compression: this.o.compression }),
+        });
+      } catch (error) {
+        const type = kafkaErrorType(error);
+        if (this.o.idempotent && type !== undefined && RESET_PRODUCER.has(type)) await this.reset(producer);
+        throw this.wrap(error, batch.records.length);
+      }
+    }
+    return rejected.length === 0 ? undefined : { rejected };
+  }
+
+  private wrap(error: unknown, records: number): StoreError {
+    const type = kafkaErrorType(error);
+    return new StoreError(`Kafka sendBatch of ${records} record(s) failed: ${messageOf(error)}`, {
+      cause: error,
+      driverCode: type,
+      details: { records },
+    });
+  }
+
+  classify(error: unknown): ErrorClass {
+    if (error instanceof StoreError && error.details.stage === 'mapping') return 'split';
+    if (error instanceof StoreError && error.cause === undefined && error.driverCode === 'MESSAGE_TOO_LARGE') return 'split';
+    return classifyKafkaError(error, { unknownTopic: this.o.unknownTopic });
+  }
+
+  async close(): Promise<void> {
+    if (this.closed) return;
+    this.closed = true;
+    const producer = this.producer ?? (await this.connecting?.catch(() => undefined));
+    this.producer = undefined;
+    await producer?.disconnect();
+  }
+}
+
+/** Creates the Kafka producer adapter; pass it to `new Sink(adapter, options)`. */
+export function kafkaProducerAdapter<T>(options: KafkaProducerAdapterOptions<T>): KafkaProducerAdapter<T> {
+  return new KafkaProducerAdapter(options);
+}
