@@ -1,0 +1,89 @@
+#!/usr/bin/env node
+// `npm run bench`: runs the benchmark grid and regenerates benchmarks/RESULTS.md, results/results.json
+// and the SVG charts. Flags narrow or widen the grid; see --help.
+import { Command } from 'commander';
+import { type Plan } from './plan.js';
+import { SHAPES, type ShapeName } from './shapes.js';
+import { defaultPlan, parseStore, quickPlan, runSuite } from './suite-run.js';
+
+const list = (v: string) => v.split(',').map((s) => s.trim()).filter(Boolean);
+const numbers = (name: string) => (v: string) =>
+  list(v).map((s) => {
+    const n = Number(s);
+    if (!Number.isFinite(n) || n < 0) throw new TypeError(`Expected \`${name}\` to be a comma-separated list of numbers >= 0, got \`${v}\``);
+    return n;
+  });
+
+const program = new Command()
+  .name('spillway-bench')
+  .description('Runs the Spillway benchmark grid; each cell in a fresh process.')
+  .option('--quick', 'a small grid (a minute or two)')
+  .option('--stores <list>', 'stores: noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka', list)
+  .option('--shapes <list>', `shapes for every store: ${SHAPES.join(', ')}`, list)
+  .option('--max-records <list>', 'maxRecords values', numbers('--max-records'))
+  .option('--max-age <list>', 'maxAgeMs values', numbers('--max-age'))
+  .option('--idle <list>', 'idleMs values (0 = off)', numbers('--idle'))
+  .option('--concurrency <list>', 'concurrency values', numbers('--concurrency'))
+  .option('--size-only <list>', 'maxRecords of the size-only baseline', numbers('--size-only'))
+  .option('--repeats <n>', 'runs per cell', Number)
+  .option('--rate <n>', 'records/s of the steady shape', Number)
+  .option('--duration <ms>', 'length of every shape, ms', Number)
+  .option('--out <dir>', 'where results.json and charts/ go (default benchmarks/results)')
+  .option('--markdown <file>', 'the results page (default benchmarks/RESULTS.md)')
+  .option('--full-grid', 'use the main grid on every shape, not the smaller one off steady');
+
+program.parse();
+const o = program.opts<{
+  quick?: boolean;
+  stores?: string[];
+  shapes?: string[];
+  maxRecords?: number[];
+  maxAge?: number[];
+  idle?: number[];
+  concurrency?: number[];
+  sizeOnly?: number[];
+  repeats?: number;
+  rate?: number;
+  duration?: number;
+  out?: string;
+  markdown?: string;
+  fullGrid?: boolean;
+}>();
+
+const plan: Plan = o.quick ? quickPlan() : defaultPlan();
+if (o.shapes) {
+  for (const s of o.shapes) if (!SHAPES.includes(s as ShapeName)) throw new TypeError(`Expected shapes among ${SHAPES.join(', ')}, got \`${s}\``);
+}
+if (o.stores) plan.stores = o.stores.map((name) => ({ store: parseStore(name), shapes: (o.shapes as ShapeName[] | undefined) ?? ['steady'] }));
+else if (o.shapes) for (const s of plan.stores) s.shapes = o.shapes as ShapeName[];
+if (o.maxRecords) plan.maxRecords = o.maxRecords;
+if (o.maxAge) plan.maxAgeMs = o.maxAge;
+if (o.idle) plan.idleMs = o.idle;
+if (o.concurrency) plan.concurrency = o.concurrency;
+if (o.sizeOnly) plan.sizeOnly = o.sizeOnly;
+if (o.repeats) plan.repeats = o.repeats;
+if (o.fullGrid || o.maxRecords || o.maxAge) delete plan.sideGrid;
+for (const shape of SHAPES) {
+  const over = { ...plan.shapeOverrides[shape] };
+  if (o.duration) over.durationMs = o.duration;
+  if (o.rate && shape === 'steady') over.rate = o.rate;
+  plan.shapeOverrides[shape] = over;
+}
+
+const started = Date.now();
+const { report, written } = await runSuite({
+  plan,
+  ...(o.out ? { outDir: o.out } : {}),
+  ...(o.markdown ? { markdownPath: o.markdown } : {}),
+  command: `npm run bench${process.argv.length > 2 ? ` -- ${process.argv.slice(2).join(' ')}` : ''}`,
+  log: (line) => process.stderr.write(`${line}\n`),
+  onProgress: (p) => {
+    const secs = Math.round((Date.now() - started) / 1000);
+    const what = p.error
+      ? `FAILED ${p.error.split('\n')[0]}`
+      : `${Math.round(p.result?.throughput ?? 0)}/s p99 ${p.result?.latencyMs.p99.toFixed(1)} ms${p.result?.stuck.records ? `, ${p.result.stuck.records} stuck` : ''}`;
+    process.stderr.write(`[${p.done}/${p.total} ${secs}s] ${p.cell.id}: ${what}\n`);
+  },
+});
+for (const n of report.notes) process.stderr.write(`note: ${n}\n`);
+process.stdout.write(`wrote ${written.markdownPath}, ${written.jsonPath} and ${written.charts.length} chart(s)\n`);
