@@ -153,8 +153,9 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
       const m = RFC3339.exec(text);
       if (!m) return fail('type', 'expected an RFC 3339 date or date-time with offset');
       const [y, mo, day, h = 0, mi = 0, sec = 0] = [1, 2, 3, 4, 5, 6].map((i) => (m[i] === undefined ? undefined : Number(m[i])));
-      const daysInMonth = new Date(Date.UTC(y!, mo!, 0)).getUTCDate();
-      if (mo! < 1 || mo! > 12 || day! < 1 || day! > daysInMonth || h > 23 || mi > 59 || sec > 60) {
+      // Days past the 28th are checked against the month's length (Date.parse would roll over).
+      const tooLate = day! > 28 && day! > new Date(Date.UTC(y!, mo!, 0)).getUTCDate();
+      if (mo! < 1 || mo! > 12 || day! < 1 || tooLate || h > 23 || mi > 59 || sec > 60) {
         return fail('type', 'not a valid calendar date or time');
       }
       const ms = Date.parse(m[4] === undefined ? `${text}T00:00:00Z` : text.replace(' ', 'T'));
