@@ -153,7 +153,7 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
 
   /** Queues commands by name (`call`), so any command the server knows can be sent. */
   private queue(pipeline: ChainableCommander, commands: readonly RedisCommand[]): ChainableCommander {
-    for (const [name, ...args] of commands) pipeline.call(name, ...args);
+    for (const c of commands) (pipeline.call as (...a: unknown[]) => unknown).apply(pipeline, c as unknown as unknown[]);
     return pipeline;
   }
 

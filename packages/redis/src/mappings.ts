@@ -21,8 +21,12 @@ function ttlOption<T>(name: string, value: unknown): From<T, number> | undefined
 }
 
 function flatten(fields: Readonly<Record<string, RedisArg>> | ReadonlyMap<string, RedisArg>, into: RedisArg[]): void {
-  const entries = fields instanceof Map ? fields.entries() : Object.entries(fields);
-  for (const [k, v] of entries) into.push(k, v);
+  if (fields instanceof Map) {
+    for (const [k, v] of fields) into.push(k, v);
+    return;
+  }
+  // for…in over own fields: no intermediate entries array on the hot path.
+  for (const k in fields) into.push(k, (fields as Readonly<Record<string, RedisArg>>)[k]!);
 }
 
 // ------------------------------------------------------------------------------------ string
@@ -72,10 +76,9 @@ export function hashFields<T>(options: HashFieldsMapping<T>): RedisMapping<T> {
     idempotent: true,
     commands(record, meta) {
       const k = key(record, meta);
-      const hset: RedisArg[] = [k];
+      const hset: [string, ...RedisArg[]] = ['HSET', k];
       flatten(fields(record, meta), hset);
-      const set: RedisCommand = ['HSET', ...hset];
-      return ttl === undefined ? set : [set, ['PEXPIRE', k, ttl(record, meta)]];
+      return ttl === undefined ? hset : [hset, ['PEXPIRE', k, ttl(record, meta)]];
     },
   };
 }
