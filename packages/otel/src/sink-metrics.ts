@@ -8,7 +8,7 @@ import {
   type ObservableGauge,
   metrics,
 } from '@opentelemetry/api';
-import { FLUSH_REASONS, invalidOption, type Sink, type SinkEvents, type SinkSnapshot, type SinkState } from '@spillway/core';
+import { FLUSH_REASONS, invalidOption, type SinkEventName, type SinkEvents, type SinkSnapshot, type SinkState } from '@spillway/core';
 import { ATTR_REASON, ATTR_SINK, ATTR_STATE, ATTR_STORE, INSTRUMENTS, type InstrumentDefinition } from './instrument-names.js';
 import {
   DEFAULT_BATCH_BYTES_BUCKETS,
@@ -20,7 +20,13 @@ import {
 } from './options.js';
 
 /** The part of a `Sink` the instrumentation reads. */
-export type InstrumentableSink = Pick<Sink<unknown>, 'name' | 'kind' | 'snapshot' | 'on' | 'off'>;
+export interface InstrumentableSink {
+  readonly name: string;
+  readonly kind: string;
+  snapshot(): SinkSnapshot;
+  on<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): unknown;
+  off<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): unknown;
+}
 
 const METER_NAME = '@spillway/otel';
 const STATES: readonly SinkState[] = ['open', 'closing', 'closed', 'failed'];
@@ -167,12 +173,18 @@ export class OtelSinkMetrics {
     };
     const onWritten = (e: SinkEvents['written']) => h.flushDuration.record(e.durationMs / 1000, attributes);
     const onBackpressure = (e: SinkEvents['backpressure']) => h.backpressureWait.record(e.waitedMs / 1000, attributes);
-    sink.on('settled', onSettled).on('flush', onFlush).on('written', onWritten).on('backpressure', onBackpressure);
+    sink.on('settled', onSettled);
+    sink.on('flush', onFlush);
+    sink.on('written', onWritten);
+    sink.on('backpressure', onBackpressure);
     this.sinks.set(sink.name, {
       sink,
       attributes,
       detach: () => {
-        sink.off('settled', onSettled).off('flush', onFlush).off('written', onWritten).off('backpressure', onBackpressure);
+        sink.off('settled', onSettled);
+        sink.off('flush', onFlush);
+        sink.off('written', onWritten);
+        sink.off('backpressure', onBackpressure);
       },
     });
     return () => this.remove(sink);

@@ -1,4 +1,4 @@
-import { FLUSH_REASONS, invalidOption, type Sink, type SinkEvents, type SinkSnapshot, type SinkState } from '@spillway/core';
+import { FLUSH_REASONS, invalidOption, type SinkEventName, type SinkEvents, type SinkSnapshot, type SinkState } from '@spillway/core';
 import { Counter, Gauge, Histogram, Registry } from 'prom-client';
 import { COMMON_LABELS, METRICS, type MetricDefinition } from './metric-names.js';
 import {
@@ -11,7 +11,13 @@ import {
 } from './options.js';
 
 /** The part of a `Sink` the exporter reads. */
-export type ExportableSink = Pick<Sink<unknown>, 'name' | 'kind' | 'snapshot' | 'on' | 'off'>;
+export interface ExportableSink {
+  readonly name: string;
+  readonly kind: string;
+  snapshot(): SinkSnapshot;
+  on<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): unknown;
+  off<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): unknown;
+}
 
 const STATES: readonly SinkState[] = ['open', 'closing', 'closed', 'failed'];
 
@@ -222,7 +228,10 @@ export class PrometheusExporter {
     };
     const onWritten = (e: SinkEvents['written']) => h.flushDuration.observe(labels, e.durationMs / 1000);
     const onBackpressure = (e: SinkEvents['backpressure']) => h.backpressureWait.observe(labels, e.waitedMs / 1000);
-    sink.on('settled', onSettled).on('flush', onFlush).on('written', onWritten).on('backpressure', onBackpressure);
+    sink.on('settled', onSettled);
+    sink.on('flush', onFlush);
+    sink.on('written', onWritten);
+    sink.on('backpressure', onBackpressure);
 
     // Series exist from the start (at zero), so rate() and absent() behave before the first flush.
     for (const c of Object.values(this.counters)) c.inc(labels, 0);
@@ -234,7 +243,10 @@ export class PrometheusExporter {
       labels,
       counted: new Map(),
       detach: () => {
-        sink.off('settled', onSettled).off('flush', onFlush).off('written', onWritten).off('backpressure', onBackpressure);
+        sink.off('settled', onSettled);
+        sink.off('flush', onFlush);
+        sink.off('written', onWritten);
+        sink.off('backpressure', onBackpressure);
       },
     };
     this.sinks.set(sink.name, entry);
