@@ -1,0 +1,169 @@
+// Tandem Bikes: repair partners upload their service records (CSV or NDJSON, any size, chunked
+// or not) to this server, which streams them into PostgreSQL and answers only once every row is
+// durable, with the ingest summary. Re-uploading a file is safe: rows are upserted on record_id.
+//
+//   createdb-free setup: psql test -c "CREATE TABLE service_records (...)"  (see SERVICE_RECORDS_DDL)
+//   DATABASE_URL=postgres://127.0.0.1:5432/test node --import tsx examples/partner-upload-server.ts
+//   curl -T examples/data/service-records.csv -H 'Content-Type: text/csv' http://127.0.0.1:8080/uploads/velofix
+//
+// Answers: 200 + summary (rows with problems are listed in it by line, column and reason, never
+// by content); 400 for an upload that cannot be read as a whole (bad header, too many rejects);
+// 413 past the size limit; 415 for a content type other than text/csv or application/x-ndjson;
+// 503 when the store failed (nothing reported written that is not durable).
+import { randomUUID } from 'node:crypto';
+import { type IncomingMessage, type Server, type ServerResponse, createServer } from 'node:http';
+import { join } from 'node:path';
+import { pathToFileURL } from 'node:url';
+import type { Sink } from '@spillway/core';
+import { type ColumnSpec, IngestError, type IngestSummary, RejectFile, type Row, formatFromContentType, ingest } from '@spillway/ingest';
+import { postgresSink } from '@spillway/postgres';
+import pg from 'pg';
+
+export const SERVICE_RECORD_COLUMNS: ColumnSpec[] = [
+  { name: 'record_id', required: true, pattern: '^SR-\\d+$' },
+  { name: 'dock_id', required: true, pattern: '^DK-\\d{4}$' },
+  { name: 'bike_id', type: 'integer', required: true, min: 1 },
+  { name: 'serviced_at', type: 'timestamp', required: true },
+  { name: 'odometer_km', type: 'number', min: 0 },
+  { name: 'passed', type: 'boolean' },
+  { name: 'kind', enum: ['brakes', 'chain', 'tyre', 'battery', 'lights'] },
+  { name: 'note', max: 2000 },
+];
+
+export const SERVICE_RECORDS_DDL = `CREATE TABLE IF NOT EXISTS service_records (
+  record_id   text PRIMARY KEY,
+  dock_id     text NOT NULL,
+  bike_id     int  NOT NULL,
+  serviced_at timestamptz NOT NULL,
+  odometer_km double precision,
+  passed      boolean,
+  kind        text,
+  note        text,
+  partner     text NOT NULL
+)`;
+
+export interface UploadServerOptions {
+  pool: pg.Pool;
+  /** @default 'service_records' */
+  table?: string;
+  /** Largest accepted body. @default 256 MiB */
+  maxBodyBytes?: number;
+  /** More rejected rows than this fail the upload with 400 (rows written before stay). @default 1000 */
+  maxRejects?: number;
+  /** Where each upload's reject file (0600) goes; none when undefined. */
+  rejectsDir?: string;
+  /** Called once per finished upload, with counts only. */
+  log?: (line: string) => void;
+}
+
+export interface UploadServer {
+  server: Server;
+  sink: Sink<Row>;
+  /** Stops accepting connections and closes the sink (every accepted row becomes terminal). */
+  close(): Promise<void>;
+}
+
+export function createUploadServer(options: UploadServerOptions): UploadServer {
+  const maxBodyBytes = options.maxBodyBytes ?? 256 * 1024 * 1024;
+  const columns = [...SERVICE_RECORD_COLUMNS.map((c) => c.name), 'partner'];
+  // One sink for every upload: concurrent uploads share batches; each upload's rows keep their order.
+  const sink = postgresSink<Row>({
+    pool: options.pool,
+    table: options.table ?? 'service_records',
+    columns,
+    map: (r) => columns.map((c) => r[c]),
+    mode: 'upsert',
+    conflict: { key: ['record_id'] },
+    maxRecords: 2000,
+    maxAgeMs: 500,
+  });
+  const log = options.log ?? (() => {});
+
+  const server = createServer((req, res) => {
+    handle(req, res).catch((error: unknown) => {
+      if (!res.headersSent) reply(res, 500, { error: 'internal error' });
+      log(`upload failed: ${(error as Error).message}`);
+    });
+  });
+
+  async function handle(req: IncomingMessage, res: ServerResponse): Promise<void> {
+    const match = /^\/uploads\/([a-z0-9-]{1,64})$/.exec(req.url ?? '');
+    if (req.method !== 'POST' || !match) return reply(res, 404, { error: 'POST /uploads/<partner>' });
+    const partner = match[1]!;
+    const format = formatFromContentType(req.headers['content-type']);
+    if (!format) return reply(res, 415, { error: 'Content-Type must be text/csv or application/x-ndjson' });
+    const declared = Number(req.headers['content-length']);
+    if (Number.isFinite(declared) && declared > maxBodyBytes) {
+      // Refuse before reading a byte; close so the client stops sending.
+      return reply(res, 413, { error: `body larger than ${maxBodyBytes} bytes` }, true);
+    }
+    const id = randomUUID();
+    const rejects = options.rejectsDir ? new RejectFile(join(options.rejectsDir, `${partner}-${id}.ndjson`)) : undefined;
+    const aborted = new AbortController();
+    req.once('close', () => {
+      if (!req.complete) aborted.abort();
+    });
+    try {
+      const summary = await ingest(req, sink, {
+        format,
+        columns: SERVICE_RECORD_COLUMNS,
+        map: (row) => ({ ...row, partner }),
+        maxInputBytes: maxBodyBytes,
+        maxRejects: options.maxRejects ?? 1000,
+        sourceName: `${partner}/${id}`,
+        signal: aborted.signal,
+        ...(rejects && { rejects }),
+      });
+      log(`upload ${partner}/${id}: ${summary.rowsWritten} written, ${summary.rowsRejected} rejected in ${summary.durationMs} ms`);
+      reply(res, 200, { upload: id, ...publicSummary(summary) });
+    } catch (error) {
+      if (!(error instanceof IngestError)) throw error;
+      const body = { upload: id, error: error.message, ...publicSummary(error.summary) };
+      log(`upload ${partner}/${id} stopped (${error.reason}): ${error.summary.rowsWritten} written`);
+      if (error.reason === 'too-large') reply(res, 413, body, true);
+      else if (error.reason === 'header' || error.reason === 'reject-limit') reply(res, 400, body, true);
+      else if (error.reason === 'sink') reply(res, 503, body);
+      else if (!aborted.signal.aborted) reply(res, 400, body, true);
+    } finally {
+      await rejects?.close();
+    }
+  }
+
+  return {
+    server,
+    sink,
+    async close() {
+      await new Promise<void>((resolve) => server.close(() => resolve()));
+      await sink.close();
+    },
+  };
+}
+
+function publicSummary(s: IngestSummary) {
+  const { source: _source, ...rest } = s;
+  return rest;
+}
+
+/** Sends JSON. With `close`, the connection is closed after the answer, so an unread body is dropped. */
+function reply(res: ServerResponse, status: number, body: unknown, close = false): void {
+  const text = `${JSON.stringify(body)}\n`;
+  res.writeHead(status, { 'content-type': 'application/json', 'content-length': Buffer.byteLength(text), ...(close && { connection: 'close' }) });
+  res.end(text, () => {
+    if (close) res.req.destroy();
+  });
+}
+
+if (import.meta.url === pathToFileURL(process.argv[1] ?? '').href) {
+  const pool = new pg.Pool({ connectionString: process.env.DATABASE_URL ?? 'postgres://127.0.0.1:5432/test', max: 4 });
+  await pool.query(SERVICE_RECORDS_DDL);
+  const { server, close } = createUploadServer({ pool, rejectsDir: process.env.REJECTS_DIR, log: (l) => console.log(l) });
+  const port = Number(process.env.PORT ?? 8080);
+  server.listen(port, '127.0.0.1', () => console.log(`partner uploads on http://127.0.0.1:${port}/uploads/<partner>`));
+  const stop = async () => {
+    await close();
+    await pool.end();
+    process.exit(0);
+  };
+  process.once('SIGTERM', stop);
+  process.once('SIGINT', stop);
+}
