@@ -110,7 +110,7 @@ async function main(): Promise<void> {
       if (attempt === 1) await server.initialise();
       await server.start();
       const version = /PostgreSQL (\d+(?:\.\d+)?)/.exec(log.join('\n'))?.[1] ?? '';
-      await send({ type: 'ready', port, user, password, version });
+      await send({ type: 'ready', port, user, password, version, dir });
       return;
     } catch (error) {
       lastError = error;
