@@ -1,2 +1,22 @@
-// Public surface of the benchmark suite, used by the CLI's `bench` and `tune` commands.
-export {};
+// Public surface of the benchmark suite, used by the CLI's `bench` and `tune` commands and by tests.
+export { runSuite, defaultPlan, quickPlan, applyFlags, parseStore, storeUrls } from './suite-run.js';
+export type { SuiteOptions, BenchFlags } from './suite-run.js';
+export { tune, tuneGrid, ageCandidates, formatTune } from './tune.js';
+export type { TuneOptions, TuneOutcome, TuneCandidate } from './tune.js';
+export { cellsOf, cellId, graceFor } from './plan.js';
+export type { Plan, StorePlan } from './plan.js';
+export { runCell, drive } from './cell-run.js';
+export type { CellSpec, CellResult, Settings, Variant, Stuck, LittleCheck } from './cell-run.js';
+export { runCells, runCellProcess, aggregate, median } from './runner.js';
+export type { CellAggregate, Figures, RunProgress } from './runner.js';
+export { reportProblems, markdownTable, headlines, writeReport, REPORT_VERSION } from './report.js';
+export type { Report, WrittenReport } from './report.js';
+export { chartSpec, renderSvg } from './charts.js';
+export { SHAPES, shapeParams, arrivals, expectedRecords } from './shapes.js';
+export type { ShapeName, ShapeParams, Arrival } from './shapes.js';
+export { SeededRandom } from './random.js';
+export { STORE_KINDS, storeLabel } from './stores.js';
+export type { StoreKind, StoreSpec } from './stores.js';
+export { SizeOnlyBatcher } from './size-only.js';
+export { machineInfo } from './machine.js';
+export type { MachineInfo } from './machine.js';

@@ -2,9 +2,9 @@
 // `npm run bench`: runs the benchmark grid and regenerates benchmarks/RESULTS.md, results/results.json
 // and the SVG charts. Flags narrow or widen the grid; see --help.
 import { Command } from 'commander';
-import { type Plan } from './plan.js';
-import { SHAPES, type ShapeName } from './shapes.js';
-import { defaultPlan, parseStore, quickPlan, runSuite } from './suite-run.js';
+import type { Plan } from './plan.js';
+import { SHAPES } from './shapes.js';
+import { type BenchFlags, applyFlags, defaultPlan, quickPlan, runSuite } from './suite-run.js';
 
 const list = (v: string) => v.split(',').map((s) => s.trim()).filter(Boolean);
 const numbers = (name: string) => (v: string) =>
@@ -33,42 +33,9 @@ const program = new Command()
   .option('--full-grid', 'use the main grid on every shape, not the smaller one off steady');
 
 program.parse();
-const o = program.opts<{
-  quick?: boolean;
-  stores?: string[];
-  shapes?: string[];
-  maxRecords?: number[];
-  maxAge?: number[];
-  idle?: number[];
-  concurrency?: number[];
-  sizeOnly?: number[];
-  repeats?: number;
-  rate?: number;
-  duration?: number;
-  out?: string;
-  markdown?: string;
-  fullGrid?: boolean;
-}>();
+const o = program.opts<BenchFlags & { quick?: boolean; out?: string; markdown?: string }>();
 
-const plan: Plan = o.quick ? quickPlan() : defaultPlan();
-if (o.shapes) {
-  for (const s of o.shapes) if (!SHAPES.includes(s as ShapeName)) throw new TypeError(`Expected shapes among ${SHAPES.join(', ')}, got \`${s}\``);
-}
-if (o.stores) plan.stores = o.stores.map((name) => ({ store: parseStore(name), shapes: (o.shapes as ShapeName[] | undefined) ?? ['steady'] }));
-else if (o.shapes) for (const s of plan.stores) s.shapes = o.shapes as ShapeName[];
-if (o.maxRecords) plan.maxRecords = o.maxRecords;
-if (o.maxAge) plan.maxAgeMs = o.maxAge;
-if (o.idle) plan.idleMs = o.idle;
-if (o.concurrency) plan.concurrency = o.concurrency;
-if (o.sizeOnly) plan.sizeOnly = o.sizeOnly;
-if (o.repeats) plan.repeats = o.repeats;
-if (o.fullGrid || o.maxRecords || o.maxAge) delete plan.sideGrid;
-for (const shape of SHAPES) {
-  const over = { ...plan.shapeOverrides[shape] };
-  if (o.duration) over.durationMs = o.duration;
-  if (o.rate && shape === 'steady') over.rate = o.rate;
-  plan.shapeOverrides[shape] = over;
-}
+const plan: Plan = applyFlags(o.quick ? quickPlan() : defaultPlan(), o);
 
 const started = Date.now();
 const { report, written } = await runSuite({
