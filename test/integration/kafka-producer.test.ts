@@ -166,7 +166,9 @@ describe('Kafka producer sink on the shared broker', () => {
     expect(ids.has('big')).toBe(false);
     expect(ids.size).toBe(n - 1);
     const duplicates = read.length - ids.size;
-    // The broker appends the other partitions of the refused request; bisection sends them again.
+    // A record larger than maxRequestBytes always travels alone, so the refused request holds
+    // nothing else and no other record is sent twice.
+    expect(duplicates).toBe(0);
     console.log(`kafka oversize (broker check): ${read.length} read, ${ids.size} unique, ${duplicates} duplicates, ${adapter.producersCreated} producers`);
     expect(adapter.producersCreated).toBeGreaterThan(1);
   });
@@ -184,6 +186,42 @@ describe('Kafka producer sink on the shared broker', () => {
     const read = await readTopic(k.kafka, k.admin, topic);
     expect(read.length).toBe(299);
     expect(inspect(read).duplicates).toBe(0);
+  });
+
+  it('sends a batch larger than the broker limit for one partition as several requests, each record once', async () => {
+    const topic = await k.topic(1, 'chunks');
+    const { sink, adapter, deadLetters } = sinkFor({ kafka: k.kafka, topic }, { maxRecords: 5000, maxBytes: 64 * 1024 * 1024, idleMs: 0, maxAgeMs: 60_000 });
+    let flushes = 0;
+    sink.on('flush', () => flushes++);
+    // 5,000 records of ~600 bytes: ~3 MB for one partition in one batch.
+    for (let i = 0; i < 5000; i++) await sink.write({ ...event(i), payload: 'p'.repeat(560) });
+    await sink.close();
+    expect(flushes).toBe(1);
+    expect(deadLetters.letters).toEqual([]);
+    expect(sink.snapshot().retries).toBe(0);
+    expect(adapter.producersCreated).toBe(1);
+    const read = await readTopic(k.kafka, k.admin, topic);
+    expect(read.length).toBe(5000);
+    expect(inspect(read).duplicates).toBe(0);
+  });
+
+  it('without the request bound, the broker refuses the same batch and the engine bisects it', async () => {
+    const topic = await k.topic(1, 'nochunks');
+    const { sink, adapter, deadLetters } = sinkFor(
+      { kafka: k.kafka, topic, maxRequestBytes: Number.POSITIVE_INFINITY },
+      { maxRecords: 5000, maxBytes: 64 * 1024 * 1024, idleMs: 0, maxAgeMs: 60_000 },
+    );
+    let written = 0;
+    sink.on('written', () => written++);
+    for (let i = 0; i < 5000; i++) await sink.write({ ...event(i), payload: 'p'.repeat(560) });
+    await sink.close();
+    expect(deadLetters.letters).toEqual([]);
+    // Source: Apache Kafka documentation, broker config message.max.bytes: "The largest record
+    // batch size allowed by Kafka". The refusal makes the engine write the halves separately.
+    expect(written).toBeGreaterThan(1);
+    expect(adapter.producersCreated).toBeGreaterThan(1);
+    const read = await readTopic(k.kafka, k.admin, topic);
+    expect(read.length).toBe(5000);
   });
 
   it('stops the sink on an unknown topic (auto-creation off) and reports nothing durable', async () => {

@@ -79,6 +79,16 @@ export interface KafkaProducerAdapterOptions<T> {
    */
   maxRecordBytes?: number;
   /**
+   * Upper bound on the estimated bytes of one `sendBatch` call. kafkajs sends all the messages
+   * of one partition in a call as one record batch, and the broker refuses a record batch over
+   * its `message.max.bytes` (Source: Apache Kafka documentation, broker configs: "the largest
+   * record batch size allowed"), so a batch above this bound goes out as several consecutive
+   * `sendBatch` calls. Raise it with the broker's limit.
+   * @default 1048576
+   * @example 8_388_608
+   */
+  maxRequestBytes?: number;
+  /**
    * How an unknown topic reads after kafkajs' own retries: with auto-creation off, `fatal`.
    * @default 'fatal'
    * @example 'retry'
@@ -102,11 +112,12 @@ export interface ResolvedKafkaProducerOptions<T> {
   ackTimeoutMs: number;
   compression: CompressionTypes | undefined;
   maxRecordBytes: number;
+  maxRequestBytes: number;
   unknownTopic: 'fatal' | 'retry';
   producer: ProducerConfig;
 }
 
-const KNOWN = new Set(['kafka', 'topic', 'mapper', 'acks', 'idempotent', 'ackTimeoutMs', 'compression', 'maxRecordBytes', 'unknownTopic', 'producer']);
+const KNOWN = new Set(['kafka', 'topic', 'mapper', 'acks', 'idempotent', 'ackTimeoutMs', 'compression', 'maxRecordBytes', 'maxRequestBytes', 'unknownTopic', 'producer']);
 
 export function resolveKafkaProducerOptions<T>(options: KafkaProducerAdapterOptions<T>): ResolvedKafkaProducerOptions<T> {
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
@@ -130,6 +141,10 @@ export function resolveKafkaProducerOptions<T>(options: KafkaProducerAdapterOpti
   if (!(maxRecordBytes === Number.POSITIVE_INFINITY || (Number.isInteger(maxRecordBytes) && maxRecordBytes > 0))) {
     throw invalidOption('maxRecordBytes', 'an integer > 0 or Infinity', maxRecordBytes);
   }
+  const maxRequestBytes = options.maxRequestBytes ?? 1_048_576;
+  if (!(maxRequestBytes === Number.POSITIVE_INFINITY || (Number.isInteger(maxRequestBytes) && maxRequestBytes > 0))) {
+    throw invalidOption('maxRequestBytes', 'an integer > 0 or Infinity', maxRequestBytes);
+  }
   const unknownTopic = options.unknownTopic ?? 'fatal';
   if (unknownTopic !== 'fatal' && unknownTopic !== 'retry') throw invalidOption('unknownTopic', "'fatal' or 'retry'", unknownTopic);
   const extra = options.producer ?? {};
@@ -143,5 +158,5 @@ export function resolveKafkaProducerOptions<T>(options: KafkaProducerAdapterOpti
     // Not idempotent: one request in flight per broker so a retried request cannot overtake.
     ...(idempotent ? {} : { maxInFlightRequests: 1 }),
   };
-  return { kafka, topic, mapper, acks, idempotent, ackTimeoutMs, compression: options.compression, maxRecordBytes, unknownTopic, producer };
+  return { kafka, topic, mapper, acks, idempotent, ackTimeoutMs, compression: options.compression, maxRecordBytes, maxRequestBytes, unknownTopic, producer };
 }

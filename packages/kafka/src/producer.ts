@@ -1,6 +1,7 @@
 /**
- * The Kafka producer sink adapter: a batch goes out as one `sendBatch` (acks -1 by default) and
- * is durable when that call resolves.
+ * The Kafka producer sink adapter: a batch goes out as one `sendBatch` (acks -1 by default), or
+ * as a few consecutive ones when it is larger than `maxRequestBytes`, and is durable when they
+ * have resolved.
  */
 import { StoreError, messageOf, type Batch, type ErrorClass, type PartialWrite, type SinkAdapter } from '@spillway/core';
 import type { Message, Producer, TopicMessages } from 'kafkajs';
@@ -23,6 +24,19 @@ const RESET_PRODUCER: ReadonlySet<string> = new Set([
   'UNKNOWN_PRODUCER_ID',
   'INVALID_PRODUCER_EPOCH',
 ]);
+
+/**
+ * Bytes a record adds to a produce request beyond its key, value and headers: the v2 record's
+ * length, attributes, timestamp and offset deltas and lengths (varints). From memory: at most
+ * about 20; 24 keeps the estimate on the safe side.
+ */
+const RECORD_OVERHEAD = 24;
+
+interface Chunk {
+  indexes: number[];
+  bytes: number;
+  byTopic: Map<string, Message[]>;
+}
 
 function byteLength(v: Buffer | string | null | undefined): number {
   if (v === null || v === undefined) return 0;
@@ -81,9 +95,11 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   }
 
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
-    const { mapper, maxRecordBytes } = this.o;
+    const { mapper, maxRecordBytes, maxRequestBytes } = this.o;
     const rejected: Array<{ index: number; error: unknown }> = [];
-    const byTopic = new Map<string, Message[]>();
+    // Consecutive chunks of at most maxRequestBytes (estimated), each one sendBatch.
+    const chunks: Chunk[] = [];
+    let chunk: Chunk | undefined;
     for (let i = 0; i < batch.records.length; i++) {
       let out: KafkaOutgoing;
       try {
@@ -100,45 +116,67 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
         rejected.push({ index: i, error: new StoreError('Kafka record has no topic: set `topic` or return one from the mapper', { details: { stage: 'mapping' } }) });
         continue;
       }
-      if (maxRecordBytes !== Number.POSITIVE_INFINITY) {
-        const size = byteLength(out.key) + byteLength(out.value) + headerBytes(out.headers);
-        if (size > maxRecordBytes) {
-          rejected.push({
-            index: i,
-            error: new StoreError(`Kafka record of ${size} bytes exceeds maxRecordBytes (${maxRecordBytes}); not sent`, {
-              driverCode: 'MESSAGE_TOO_LARGE',
-              details: { topic, bytes: size, maxRecordBytes },
-            }),
-          });
-          continue;
-        }
+      const size = byteLength(out.key) + byteLength(out.value) + headerBytes(out.headers);
+      if (size > maxRecordBytes) {
+        rejected.push({
+          index: i,
+          error: new StoreError(`Kafka record of ${size} bytes exceeds maxRecordBytes (${maxRecordBytes}); not sent`, {
+            driverCode: 'MESSAGE_TOO_LARGE',
+            details: { topic, bytes: size, maxRecordBytes },
+          }),
+        });
+        continue;
       }
       const message: Message = { value: out.value };
       if (out.key !== undefined) message.key = out.key;
       if (out.headers !== undefined) message.headers = out.headers;
       if (out.partition !== undefined) message.partition = out.partition;
       if (out.timestamp !== undefined) message.timestamp = String(out.timestamp);
-      let list = byTopic.get(topic);
-      if (!list) byTopic.set(topic, (list = []));
+      const bytes = size + RECORD_OVERHEAD;
+      if (chunk === undefined || (chunk.bytes + bytes > maxRequestBytes && chunk.indexes.length > 0)) {
+        chunks.push((chunk = { indexes: [], bytes: 0, byTopic: new Map() }));
+      }
+      chunk.indexes.push(i);
+      chunk.bytes += bytes;
+      let list = chunk.byTopic.get(topic);
+      if (!list) chunk.byTopic.set(topic, (list = []));
       list.push(message);
     }
 
-    if (byTopic.size > 0) {
+    if (chunks.length > 0) {
       const producer = await this.connected().catch((error: unknown) => {
         throw this.wrap(error, batch.records.length);
       });
-      const topicMessages: TopicMessages[] = [...byTopic].map(([topic, messages]) => ({ topic, messages }));
-      try {
-        await producer.sendBatch({
-          topicMessages,
-          acks: this.o.acks,
-          timeout: this.o.ackTimeoutMs,
-          ...(this.o.compression === undefined ? {} : { compression: this.o.compression }),
-        });
-      } catch (error) {
-        const type = kafkaErrorType(error);
-        if (this.o.idempotent && type !== undefined && RESET_PRODUCER.has(type)) await this.reset(producer);
-        throw this.wrap(error, batch.records.length);
+      for (let k = 0; k < chunks.length; k++) {
+        const c = chunks[k]!;
+        try {
+          await producer.sendBatch({
+            topicMessages: [...c.byTopic].map(([topic, messages]): TopicMessages => ({ topic, messages })),
+            acks: this.o.acks,
+            timeout: this.o.ackTimeoutMs,
+            ...(this.o.compression === undefined ? {} : { compression: this.o.compression }),
+          });
+        } catch (error) {
+          const type = kafkaErrorType(error);
+          if (this.o.idempotent && type !== undefined && RESET_PRODUCER.has(type)) await this.reset(producer);
+          const wrapped = this.wrap(error, c.indexes.length);
+          // Nothing of this batch is known to have landed: the engine retries or bisects it whole.
+          if (k === 0) throw wrapped;
+          const cls = this.classify(wrapped);
+          if (cls === 'fatal') throw wrapped;
+          // The earlier chunks are durable: report only the rest as not written. A refused chunk
+          // comes back as a retry, so that the next attempt starts with it and can be bisected.
+          const resend =
+            cls === 'retry'
+              ? wrapped
+              : new StoreError(`Kafka sendBatch refused a later part of a batch; sending it again on its own: ${wrapped.message}`, {
+                  cause: wrapped,
+                  driverCode: wrapped.driverCode,
+                  details: { stage: 'resend' },
+                });
+          for (let j = k; j < chunks.length; j++) for (const index of chunks[j]!.indexes) rejected.push({ index, error: resend });
+          break;
+        }
       }
     }
     return rejected.length === 0 ? undefined : { rejected };
@@ -155,6 +193,7 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
 
   classify(error: unknown): ErrorClass {
     if (error instanceof StoreError && error.details.stage === 'mapping') return 'split';
+    if (error instanceof StoreError && error.details.stage === 'resend') return 'retry';
     if (error instanceof StoreError && error.cause === undefined && error.driverCode === 'MESSAGE_TOO_LARGE') return 'split';
     return classifyKafkaError(error, { unknownTopic: this.o.unknownTopic });
   }
