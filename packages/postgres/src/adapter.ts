@@ -284,6 +284,10 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     await pipeline(Readable.from(chunks, { objectMode: false }), stream);
   }
 
+  private get batchName(): string {
+    return this.options.mode === 'copy' ? 'a copy' : `an ${this.options.mode}`;
+  }
+
   /** The error the engine and the user see: SQLSTATE, constraint and the driver's error kept. */
   private wrap(error: unknown, step: string): StoreError {
     const e = (typeof error === 'object' && error !== null ? error : {}) as Record<string, unknown>;
@@ -311,10 +315,10 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     if (sqlstate === '42P01') message = `Table ${target} does not exist (SQLSTATE 42P01): ${driverMessage}`;
     else if (sqlstate === '42703') message = `A column of ${target} does not exist (SQLSTATE 42703): ${driverMessage}`;
     else if (sqlstate !== undefined) {
-      message = `PostgreSQL refused a ${this.options.mode} batch into ${target} (SQLSTATE ${sqlstate}${constraint ? `, constraint "${constraint}"` : ''}): ${driverMessage}`;
+      message = `PostgreSQL refused ${this.batchName} batch into ${target} (SQLSTATE ${sqlstate}${constraint ? `, constraint "${constraint}"` : ''}): ${driverMessage}`;
     } else if (isConnectionError(error)) {
-      message = `Lost the connection to PostgreSQL during ${step} of a ${this.options.mode} batch into ${target}: ${driverMessage}`;
-    } else message = `A ${this.options.mode} batch into ${target} failed during ${step}: ${driverMessage}`;
+      message = `Lost the connection to PostgreSQL during ${step} of ${this.batchName} batch into ${target}: ${driverMessage}`;
+    } else message = `${this.batchName[0]!.toUpperCase()}${this.batchName.slice(1)} batch into ${target} failed during ${step}: ${driverMessage}`;
     const errno = typeof e.code === 'string' ? e.code : undefined;
     return new StoreError(message, { cause: error, driverCode: sqlstate ?? errno, details });
   }

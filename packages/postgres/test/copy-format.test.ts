@@ -1,0 +1,84 @@
+import { describe, expect, it } from 'vitest';
+import { csvField, encodeCopy, textField } from '../src/copy-format.js';
+import { quoteIdentifier } from '../src/identifiers.js';
+import { toWire } from '../src/values.js';
+
+// Source: PostgreSQL documentation, COPY, "File Formats" (text format: backslash escapes, \N for
+// NULL; CSV format: quoted values with doubled quotes, NULL as an unquoted empty field). The
+// round trip through a real server is in test/integration/postgres-values.test.ts.
+describe('COPY text format', () => {
+  it('escapes backslash, newline, carriage return and tab', () => {
+    expect(textField('a\tb')).toBe('a\\tb');
+    expect(textField('line1\nline2\r\n')).toBe('line1\\nline2\\r\\n');
+    expect(textField('C:\\path')).toBe('C:\\\\path');
+  });
+
+  it('writes NULL as \\N and keeps a literal "\\N" value apart from it', () => {
+    expect(textField(null)).toBe('\\N');
+    expect(textField('\\N')).toBe('\\\\N');
+    expect(textField('')).toBe('');
+  });
+
+  it('cannot produce the end-of-data marker from a value', () => {
+    expect(textField('\\.')).toBe('\\\\.');
+  });
+
+  it('leaves non-ASCII text as it is', () => {
+    expect(textField('Zürich 🚲 東京')).toBe('Zürich 🚲 東京');
+  });
+
+  it('writes bytes as an escaped \\x hex string', () => {
+    expect(textField(Buffer.from([0, 255]))).toBe('\\\\x00ff');
+  });
+});
+
+describe('COPY CSV format', () => {
+  it('quotes every value and doubles inner quotes', () => {
+    expect(csvField('plain')).toBe('"plain"');
+    expect(csvField('say "hi", then\nleave')).toBe('"say ""hi"", then\nleave"');
+  });
+
+  it('tells NULL (unquoted empty) from the empty string (quoted empty)', () => {
+    expect(csvField(null)).toBe('');
+    expect(csvField('')).toBe('""');
+  });
+
+  it('ends every row with a newline and reports the exact byte count', () => {
+    const { chunks, bytes } = encodeCopy([[toWire('é'), toWire(null), toWire(3)]], 'csv');
+    const all = Buffer.concat(chunks);
+    expect(all.toString('utf8')).toBe('"é",,"3"\n');
+    expect(bytes).toBe(all.length);
+    expect(bytes).toBe(10); // é is two bytes in UTF-8
+  });
+});
+
+describe('toWire', () => {
+  it('sends NULL for null and undefined', () => {
+    expect(toWire(null)).toBeNull();
+    expect(toWire(undefined)).toBeNull();
+  });
+
+  it('renders dates in UTC, so the process time zone does not change what lands', () => {
+    expect(toWire(new Date(Date.UTC(2024, 4, 1, 7, 30)))).toBe('2024-05-01T07:30:00.000Z');
+  });
+
+  it('renders arrays as PostgreSQL array literals with quoted, escaped elements', () => {
+    // Source: PostgreSQL documentation, Arrays, "Array Value Input".
+    expect(toWire(['a', 'b "c"', null, 'back\\slash'])).toBe('{"a","b \\"c\\"",NULL,"back\\\\slash"}');
+    expect(toWire([[1, 2], [3, 4]])).toBe('{{"1","2"},{"3","4"}}');
+  });
+
+  it('renders plain objects as JSON and bigints exactly', () => {
+    expect(toWire({ dock: 'D-1', bikes: 4 })).toBe('{"dock":"D-1","bikes":4}');
+    expect(toWire(2n ** 63n - 1n)).toBe('9223372036854775807');
+  });
+});
+
+describe('quoteIdentifier', () => {
+  // Source: PostgreSQL documentation, Lexical Structure, "Identifiers and Key Words" (a double
+  // quote inside a quoted identifier is written twice).
+  it('wraps a name in double quotes and doubles the quotes inside it', () => {
+    expect(quoteIdentifier('dock_status')).toBe('"dock_status"');
+    expect(quoteIdentifier('x"; DROP TABLE y; --')).toBe('"x""; DROP TABLE y; --"');
+  });
+});
