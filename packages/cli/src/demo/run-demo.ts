@@ -236,7 +236,7 @@ export function summaryLines(r: DemoResult): string[] {
   for (const s of r.stores) {
     const f = s.snapshot.flushes;
     const reasons = (Object.keys(f) as Array<keyof typeof f>).filter((k) => f[k] > 0).map((k) => `${k} ${fmt(f[k])}`);
-    lines.push(`  flushes   ${s.name}: ${reasons.join(' · ') || 'none'} (${fmt(s.snapshot.batches)} batches, mean ${fmt(s.snapshot.batchRecords.mean)} records)`);
+    lines.push(`  flushes   ${s.name}: ${reasons.join(' · ') || 'none'} (${fmt(s.snapshot.batches)} batches, mean ${fmt(s.snapshot.batchRecords.mean)})`);
   }
   for (const s of r.stores) {
     const a = s.snapshot.acceptToDurableMs;
