@@ -1,4 +1,4 @@
-export { ingest, ingestFile, formatFromPath } from './ingest.js';
+export { ingest, ingestFile, formatFromPath, readCsvHeader } from './ingest.js';
 export type { IngestInput } from './ingest.js';
 export { resolveIngestOptions, INGEST_DEFAULTS } from './options.js';
 export type { IngestOptions, IngestFormat, IngestProgress, Row, RowContext } from './options.js';

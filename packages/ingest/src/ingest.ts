@@ -354,3 +354,27 @@ async function* chunks(input: IngestInput): AsyncGenerator<Buffer> {
     else throw new SpillwayError('SPILLWAY_INPUT_ERROR', `Expected the input to yield bytes or strings, got ${typeof chunk}`);
   }
 }
+
+/**
+ * The column names in the header of a CSV file (its first record), or undefined when the file is
+ * empty or its first record is malformed. Reads at most `maxRowBytes` (default 1 MiB).
+ */
+export async function readCsvHeader(path: string, options: { delimiter?: string; maxRowBytes?: number } = {}): Promise<string[] | undefined> {
+  const delimiter = options.delimiter ?? ',';
+  const o = resolveIngestOptions({ delimiter, ...(options.maxRowBytes !== undefined && { maxRowBytes: options.maxRowBytes }) });
+  const reader = csvReader(o.delimiter, o.maxRowBytes);
+  const stream = createReadStream(path, { highWaterMark: 64 * 1024 });
+  try {
+    let read = 0;
+    for await (const chunk of stream) {
+      read += (chunk as Buffer).length;
+      const first = reader.push(chunk as Buffer).find((i) => i.kind !== 'blank');
+      if (first) return first.kind === 'fields' ? first.fields : undefined;
+      if (read > o.maxRowBytes + 64 * 1024) return undefined;
+    }
+    const last = reader.end().find((i) => i.kind !== 'blank');
+    return last?.kind === 'fields' ? last.fields : undefined;
+  } finally {
+    stream.destroy();
+  }
+}

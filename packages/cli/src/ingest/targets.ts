@@ -1,0 +1,140 @@
+import { type DeadLetterTarget, Sink, type SinkOptions } from '@spillway/core';
+import type { Row } from '@spillway/ingest';
+import { postgresAdapter } from '@spillway/postgres';
+import { hashFields, redisAdapter } from '@spillway/redis';
+import { kafkaProducerAdapter } from '@spillway/kafka';
+import { Redis } from 'ioredis';
+import { Kafka, logLevel } from 'kafkajs';
+import pg from 'pg';
+import { UsageError } from './usage-error.js';
+
+export interface TargetFlags {
+  to: string;
+  table?: string;
+  pgSchema?: string;
+  mode?: 'insert' | 'copy' | 'upsert';
+  key?: string;
+  keyTemplate?: string;
+  ttlMs?: number;
+  topic?: string;
+  messageKey?: string;
+}
+
+export interface Target {
+  sink: Sink<Row>;
+  /** What the summary prints as the destination (no credentials). */
+  label: string;
+  /** Closes the sink (every row terminal) and the client. */
+  close(): Promise<void>;
+}
+
+/** The store a `--to` URL names, with the sink the mapping flags describe. */
+export async function openTarget(flags: TargetFlags, columns: string[] | undefined, sinkOptions: SinkOptions<Row>, deadLetter: DeadLetterTarget<Row>): Promise<Target> {
+  let url: URL;
+  try {
+    url = new URL(flags.to);
+  } catch {
+    throw new UsageError(`--to: "${flags.to}" is not a URL (postgres://…, redis://…, kafka://host:port)`);
+  }
+  const options: SinkOptions<Row> = { ...sinkOptions, deadLetter };
+  const safe = `${url.protocol}//${url.host}${url.pathname === '/' ? '' : url.pathname}`;
+  switch (url.protocol) {
+    case 'postgres:':
+    case 'postgresql:': {
+      if (!flags.table) throw new UsageError('--table is required with a postgres:// target');
+      if (!columns) throw new UsageError('a postgres:// target needs the column names: give --columns or --schema (or a CSV file with a header)');
+      const keys = flags.key ? splitList(flags.key) : undefined;
+      const mode = flags.mode ?? (keys ? 'upsert' : 'copy');
+      if (mode === 'upsert' && !keys) throw new UsageError('--mode upsert needs --key <columns>: the conflict key');
+      if (mode !== 'upsert' && keys) throw new UsageError(`--key is used by --mode upsert, not ${mode}`);
+      const pool = new pg.Pool({ connectionString: flags.to, max: Math.max(2, (sinkOptions.concurrency ?? 1) + 1) });
+      const adapter = postgresAdapter<Row>({
+        pool,
+        table: flags.table,
+        ...(flags.pgSchema && { schema: flags.pgSchema }),
+        columns,
+        map: (r) => columns.map((c) => r[c]),
+        mode,
+        ...(keys && { conflict: { key: keys } }),
+      });
+      const sink = new Sink(adapter, { name: `postgres:${flags.table}`, ...options });
+      return {
+        sink,
+        label: `${safe} table ${flags.pgSchema ? `${flags.pgSchema}.` : ''}${flags.table} (${mode}${keys ? ` on ${keys.join(', ')}` : ''})`,
+        async close() {
+          try {
+            await sink.close();
+          } finally {
+            await pool.end();
+          }
+        },
+      };
+    }
+    case 'redis:':
+    case 'rediss:': {
+      if (!flags.keyTemplate) throw new UsageError('--key-template is required with a redis:// target, e.g. "tandem:service:{record_id}"');
+      const key = template(flags.keyTemplate);
+      const client = new Redis(flags.to, { lazyConnect: true, maxRetriesPerRequest: 2 });
+      await client.connect();
+      const adapter = redisAdapter<Row>({
+        client,
+        mapping: hashFields<Row>({ key, fields: (r) => hashOf(r), ...(flags.ttlMs !== undefined && { ttlMs: flags.ttlMs }) }),
+      });
+      const sink = new Sink(adapter, { name: 'redis', ...options });
+      return {
+        sink,
+        label: `${safe} hashes ${flags.keyTemplate}`,
+        async close() {
+          try {
+            await sink.close();
+          } finally {
+            client.disconnect();
+          }
+        },
+      };
+    }
+    case 'kafka:': {
+      if (!flags.topic) throw new UsageError('--topic is required with a kafka:// target');
+      const brokers = `${url.host}${url.pathname === '/' ? '' : url.pathname}`.split(',').filter(Boolean);
+      const kafka = new Kafka({ clientId: 'spillway-ingest', brokers, logLevel: logLevel.NOTHING });
+      const messageKey = flags.messageKey;
+      const adapter = kafkaProducerAdapter<Row>({
+        kafka,
+        topic: flags.topic,
+        mapper: (r) => ({ value: JSON.stringify(r), ...(messageKey !== undefined && { key: r[messageKey] == null ? null : String(r[messageKey]) }) }),
+      });
+      const sink = new Sink(adapter, { name: `kafka:${flags.topic}`, ...options });
+      return { sink, label: `kafka ${brokers.join(',')} topic ${flags.topic}`, close: () => sink.close() };
+    }
+    default:
+      throw new UsageError(`--to: unsupported scheme "${url.protocol}" (postgres://, redis://, kafka://)`);
+  }
+}
+
+function splitList(text: string): string[] {
+  return text
+    .split(',')
+    .map((s) => s.trim())
+    .filter(Boolean);
+}
+
+/** `tandem:service:{record_id}` → a key function; a row without the named value is refused by the store as bad data. */
+function template(text: string): (r: Row) => string {
+  const names = [...text.matchAll(/\{([^}]+)\}/g)].map((m) => m[1]!);
+  if (names.length === 0) throw new UsageError('--key-template must name at least one column in braces, e.g. "tandem:service:{record_id}"');
+  return (r) =>
+    text.replace(/\{([^}]+)\}/g, (_, name: string) => {
+      const v = r[name];
+      if (v === null || v === undefined || v === '') throw new RangeError(`key column ${name} is empty`);
+      return String(v);
+    });
+}
+
+function hashOf(r: Row): Record<string, string> {
+  const out: Record<string, string> = {};
+  for (const [k, v] of Object.entries(r)) {
+    if (v === null || v === undefined) continue;
+    out[k] = v instanceof Date ? v.toISOString() : typeof v === 'object' ? JSON.stringify(v) : String(v);
+  }
+  return out;
+}

@@ -1,0 +1,133 @@
+// `spillway ingest` run in-process (the real command definition, parsed by commander) against
+// the real PostgreSQL, Redis and Kafka servers: exit codes, summary file, reject file, targets.
+import { copyFile, mkdtemp, readFile, rm, stat, writeFile } from 'node:fs/promises';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { Command } from 'commander';
+import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
+import { registerIngest } from '../../packages/cli/src/commands/ingest.js';
+import { type TestKafka, type TestRedis, type TestSchema, services, withKafka, withRedis, withSchema } from '../harness/index.js';
+
+const SAMPLES = new URL('../../examples/data/', import.meta.url);
+const SPEC = 'record_id!,dock_id!,bike_id:integer!,serviced_at:timestamp!,odometer_km:number,passed:boolean,kind,note';
+
+let db: TestSchema;
+let redis: TestRedis;
+let kafka: TestKafka;
+let dir: string;
+beforeAll(async () => {
+  [db, redis, kafka] = await Promise.all([withSchema('ingest_cli'), withRedis('ingest_cli'), withKafka()]);
+  dir = await mkdtemp(join(tmpdir(), 'spillway-ingest-cli-'));
+  for (const f of ['service-records.csv', 'service-records-with-errors.csv', 'service-records.ndjson']) await copyFile(new URL(f, SAMPLES), join(dir, f));
+  await db.pool.query(`CREATE TABLE service_records (record_id text PRIMARY KEY, dock_id text NOT NULL, bike_id int NOT NULL,
+    serviced_at timestamptz NOT NULL, odometer_km double precision, passed boolean, kind text, note text)`);
+});
+afterAll(async () => {
+  await Promise.all([db?.drop(), redis?.drop(), kafka?.drop()]);
+  await rm(dir, { recursive: true, force: true });
+});
+
+/** Runs `spillway ingest …args` and returns its exit code and what it printed. */
+async function spillway(...args: string[]): Promise<{ code: number; out: string }> {
+  const program = new Command().name('spillway');
+  registerIngest(program);
+  let out = '';
+  const write = vi.spyOn(process.stdout, 'write').mockImplementation((chunk: string | Uint8Array) => {
+    out += String(chunk);
+    return true;
+  });
+  const errWrite = vi.spyOn(process.stderr, 'write').mockImplementation(() => true);
+  process.exitCode = undefined;
+  try {
+    await program.parseAsync(['node', 'spillway', 'ingest', ...args]);
+  } finally {
+    write.mockRestore();
+    errWrite.mockRestore();
+  }
+  const code = Number(process.exitCode ?? 0);
+  process.exitCode = undefined;
+  return { code, out };
+}
+
+const pgTarget = () => {
+  const url = new URL(services().pgUrl);
+  url.searchParams.set('options', `-c search_path=${db.schema}`);
+  return url.toString();
+};
+
+describe('spillway ingest', () => {
+  it('exits 0 when every row is written, prints the summary and writes it as JSON', async () => {
+    const summaryPath = join(dir, 'summary.json');
+    const { code, out } = await spillway(join(dir, 'service-records.csv'), '--to', pgTarget(), '--table', 'service_records', '--key', 'record_id', '--columns', SPEC, '--progress', 'none', '--summary', summaryPath);
+    expect(code).toBe(0);
+    expect(out).toMatch(/rows written\s+5 \(durable\)/);
+    const summary = JSON.parse(await readFile(summaryPath, 'utf8'));
+    expect(summary).toMatchObject({ rowsRead: 5, rowsWritten: 5, rowsRejected: 0, durable: true, format: 'csv' });
+    const { rows } = await db.pool.query(`SELECT note FROM service_records WHERE record_id = 'SR-1003'`);
+    expect(rows[0].note).toBe('rear tyre "slow leak" – replaced\nvalve checked twice');
+  });
+
+  it('exits 2 with rejects, and the reject file names their lines, columns and reasons', async () => {
+    const rejects = join(dir, 'partner.rejects.csv');
+    const { code, out } = await spillway(join(dir, 'service-records-with-errors.csv'), '--to', pgTarget(), '--table', 'service_records', '--key', 'record_id', '--columns', SPEC, '--progress', 'none', '--rejects', rejects);
+    expect(code).toBe(2);
+    expect(out).toMatch(/rows rejected\s+4/);
+    expect((await stat(rejects)).mode & 0o777).toBe(0o600);
+    const lines = (await readFile(rejects, 'utf8')).trim().split('\r\n');
+    expect(lines[0]).toBe('line,column,reason,message,truncated,raw');
+    expect(lines.slice(1).map((l) => l.split(',').slice(0, 3).join(','))).toEqual(['3,bike_id,type', '4,,column-count', '5,serviced_at,type', '7,dock_id,required']);
+  });
+
+  it('exits 1 when more rows are rejected than --max-rejects allows', async () => {
+    const { code, out } = await spillway(join(dir, 'service-records-with-errors.csv'), '--to', pgTarget(), '--table', 'service_records', '--columns', SPEC, '--key', 'record_id', '--max-rejects', '1', '--progress', 'none');
+    expect(code).toBe(1);
+    expect(out).toMatch(/^Stopped: More than 1 row\(s\) rejected/);
+  });
+
+  it('exits 1 and says why when the store fails (missing table)', async () => {
+    const { code, out } = await spillway(join(dir, 'service-records.csv'), '--to', pgTarget(), '--table', 'no_such_table', '--columns', SPEC, '--progress', 'none');
+    expect(code).toBe(1);
+    expect(out).toMatch(/42P01/);
+  });
+
+  it('writes rows as hashes into Redis with --key-template', async () => {
+    const { code } = await spillway(join(dir, 'service-records.ndjson'), '--to', services().redisUrl, '--key-template', `${redis.prefix}{record_id}`, '--columns', SPEC, '--progress', 'none');
+    expect(code).toBe(2); // line 5 of the sample is malformed JSON
+    expect(await redis.redis.hgetall(`${redis.prefix}SR-3003`)).toEqual({
+      record_id: 'SR-3003',
+      dock_id: 'DK-0219',
+      bike_id: '422',
+      serviced_at: '2024-05-03T10:00:00.000Z',
+      passed: 'false',
+      kind: 'battery',
+    });
+  });
+
+  it('writes rows as JSON messages to a Kafka topic, keyed by --message-key', async () => {
+    const topic = await kafka.topic(1, 'ingest_cli');
+    const { code } = await spillway(join(dir, 'service-records.csv'), '--to', `kafka://${services().kafkaBrokers.join(',')}`, '--topic', topic, '--message-key', 'bike_id', '--columns', SPEC, '--progress', 'none');
+    expect(code).toBe(0);
+    const offsets = await kafka.admin.fetchTopicOffsets(topic);
+    expect(offsets[0]?.high).toBe('5');
+    const consumer = kafka.kafka.consumer({ groupId: `${topic}_check` });
+    await consumer.connect();
+    await consumer.subscribe({ topic, fromBeginning: true });
+    const seen: Array<{ key: string; value: Record<string, unknown> }> = [];
+    await new Promise<void>((resolve) => {
+      void consumer.run({
+        eachMessage: async ({ message }) => {
+          seen.push({ key: String(message.key), value: JSON.parse(String(message.value)) });
+          if (seen.length === 5) resolve();
+        },
+      });
+    });
+    await consumer.disconnect();
+    expect(seen[0]).toEqual({ key: '117', value: expect.objectContaining({ record_id: 'SR-1001', bike_id: 117, serviced_at: '2024-05-01T08:12:00.000Z' }) });
+  });
+
+  it('exits 64 when the format cannot be told from the file name and --format is not given', async () => {
+    await writeFile(join(dir, 'no-extension'), '{"record_id":"SR-1"}\n');
+    const { code } = await spillway(join(dir, 'no-extension'), '--to', pgTarget(), '--table', 'service_records', '--progress', 'none');
+    expect(code).toBe(64);
+  });
+});
