@@ -176,5 +176,69 @@ describe('consumer processes of the bridge', () => {
     expect(ups).toEqual({ rows: TOTAL, distinct: TOTAL, min: 0, max: TOTAL - 1 });
     expect(Number(wrong.rows[0]!.n)).toBe(0);
   });
-});
 
+  it('scales from 1 to 3 to 2 processes of one group while a producer keeps writing, missing nothing', async () => {
+    const PARTITIONS = 6;
+    const topic = await kafka.topic(PARTITIONS, 'dock_scale');
+    const groupId = uniqueName('bridge_scale');
+    const table = uniqueName('dock_scale');
+    await createDockTable(schema.pool, table, 'insert');
+    const config = (label: string) => workerConfig(label, topic, groupId, [{ table, mode: 'insert' }]);
+
+    // A steady producer: 400 messages every 100 ms (about 4000/s) until told to stop.
+    let produced = 0;
+    let producing = true;
+    const producerLoop = (async () => {
+      while (producing) {
+        await produce(topic, PARTITIONS, produced, produced + 400);
+        produced += 400;
+        await sleep(100);
+      }
+    })();
+    const owns = (ws: Worker[], sizes: number[]) => {
+      const all = ws.flatMap((w) => w.assigned()).sort();
+      return all.length === PARTITIONS && new Set(all).size === PARTITIONS && ws.every((w, i) => w.assigned().length === sizes[i]) ? true : undefined;
+    };
+    const workers: Worker[] = [];
+    try {
+      const a = startWorker(config('scale_a'));
+      workers.push(a);
+      await a.waitFor('ready', (l) => l.event === 'ready');
+      await waitFor('A to own all 6 partitions', () => owns([a], [6]), { timeoutMs: 60_000 });
+      await waitFor('A to take messages', () => (messagesTaken(a) > 4000 ? true : undefined), { timeoutMs: 60_000 });
+
+      const b = startWorker(config('scale_b'));
+      const c = startWorker(config('scale_c'));
+      workers.push(b, c);
+      await waitFor('3 members with 2 partitions each', () => owns([a, b, c], [2, 2, 2]), { timeoutMs: 90_000, intervalMs: 100 });
+      await waitFor('B and C to take messages', () => (messagesTaken(b) > 1000 && messagesTaken(c) > 1000 ? true : undefined), { timeoutMs: 60_000 });
+
+      const cExit = await stopWorker(c, 'SIGTERM');
+      await waitFor('2 members with 3 partitions each', () => owns([a, b], [3, 3]), { timeoutMs: 90_000, intervalMs: 100 });
+      const bTaken = messagesTaken(b);
+      await waitFor('B to take more messages after the scale-in', () => (messagesTaken(b) > bTaken + 1000 ? true : undefined), { timeoutMs: 60_000 });
+
+      producing = false;
+      await producerLoop;
+      await waitCommittedToEnd(groupId, topic);
+      const exits = await Promise.all([stopWorker(a, 'SIGTERM'), stopWorker(b, 'SIGTERM')]);
+      const final = await counts(table);
+      const perWorker = workers.map((w) => {
+        const last = w.lines.filter((l) => l.event === 'stats').at(-1);
+        return `${w.label}: ${String(last?.messages ?? 0)} taken, ${String(last?.skipped ?? 0)} redeliveries skipped, ${String(last?.flushes ?? 0)} rebalance flushes (${String(last?.flushTimeouts ?? 0)} timed out), ${w.lines.filter((l) => l.event === 'assign').length} assignments`;
+      });
+      console.log(
+        `[bridge] scale 1 → 3 → 2: produced ${produced}; table ${final.rows} rows, ${final.distinct} distinct, ${final.rows - final.distinct} duplicates; ${perWorker.join('; ')}`,
+      );
+      expect([cExit.code, ...exits.map((e) => e.code)]).toEqual([143, 143, 143]);
+      expect(final.distinct).toBe(produced); // nothing missing
+      expect([final.min, final.max]).toEqual([0, produced - 1]);
+      // No process was killed: every rebalance flushed and committed before the partitions moved.
+      expect(final.rows - final.distinct).toBe(0);
+    } finally {
+      producing = false;
+      await producerLoop.catch(() => undefined);
+      for (const w of workers) if (w.child.exitCode === null && w.child.signalCode === null) w.child.kill('SIGKILL');
+    }
+  });
+});

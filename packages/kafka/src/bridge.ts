@@ -61,6 +61,8 @@ export interface BridgeSnapshot {
   commitErrors: number;
   pauses: number;
   rebalances: number;
+  /** Flush-and-commit rounds run because the group was rebalancing. */
+  rebalanceFlushes: number;
   /** Rebalances where the buffered records were not all durable within `rebalanceFlushMs`. */
   rebalanceFlushTimeouts: number;
 }
@@ -143,7 +145,7 @@ export class KafkaBridge<R> {
   private stopping: Promise<void> | undefined;
   private starting: Promise<void> | undefined;
 
-  private counts = { messages: 0, undecodable: 0, skipped: 0, commits: 0, commitErrors: 0, pauses: 0, rebalances: 0, rebalanceFlushTimeouts: 0 };
+  private counts = { messages: 0, undecodable: 0, skipped: 0, commits: 0, commitErrors: 0, pauses: 0, rebalances: 0, rebalanceFlushes: 0, rebalanceFlushTimeouts: 0 };
 
   constructor(options: KafkaBridgeOptions<R>) {
     this.o = resolveBridgeOptions(options);
@@ -538,6 +540,7 @@ export class KafkaBridge<R> {
    */
   private beforeRejoin(): Promise<void> {
     this.rejoinFlush ??= (async () => {
+      this.counts.rebalanceFlushes++;
       try {
         const ours = (meta: RecordMeta | undefined) => meta !== undefined && this.owner.has(meta);
         const flushed = Promise.all([...this.sinks].filter((s) => s.state === 'open').map((s) => s.revoke(ours))).then(() => true);
@@ -651,6 +654,7 @@ export class KafkaBridge<R> {
       commitErrors: c.commitErrors,
       pauses: c.pauses,
       rebalances: c.rebalances,
+      rebalanceFlushes: c.rebalanceFlushes,
       rebalanceFlushTimeouts: c.rebalanceFlushTimeouts,
     };
   }

@@ -65,12 +65,14 @@ bridge.on('assign', (e) => out('assign', { assigned: e.assigned, revoked: e.revo
 if (config.logCommits) bridge.on('commit', (e) => out('commit', { offsets: e.offsets }));
 bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Error)?.message }));
 
-const stats = setInterval(() => {
+const printStats = () => {
   const s = bridge.snapshot();
-  out('stats', { messages: s.messages, commits: s.commits, skipped: s.skippedRedeliveries, flushTimeouts: s.rebalanceFlushTimeouts });
-}, 500);
+  out('stats', { messages: s.messages, commits: s.commits, skipped: s.skippedRedeliveries, flushes: s.rebalanceFlushes, flushTimeouts: s.rebalanceFlushTimeouts });
+};
+const stats = setInterval(printStats, 500);
 stats.unref();
 shutdown.add('sources', 'stats', () => clearInterval(stats));
+shutdown.add('clients', 'final stats', printStats);
 
 await bridge.start();
 out('ready');

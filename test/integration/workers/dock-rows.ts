@@ -66,8 +66,10 @@ export async function createDockTable(pool: pg.Pool | pg.Client, table: string, 
  * Socket errors without a SQLSTATE (ECONNREFUSED, "Connection terminated") are transient.
  */
 export function classifyPgError(error: unknown): ErrorClass {
-  const code = (error as { code?: unknown } | null)?.code;
-  if (typeof code === 'string' && /^[0-9A-Z]{5}$/.test(code)) {
+  // Only a server error (it has a severity) carries a SQLSTATE: Node's EPIPE also has five letters.
+  const e = error as { code?: unknown; severity?: unknown } | null;
+  const code = e?.code;
+  if (typeof e?.severity === 'string' && typeof code === 'string' && /^[0-9A-Z]{5}$/.test(code)) {
     if (code.startsWith('08') || code.startsWith('57P') || code.startsWith('53') || code === '40001' || code === '40P01') return 'retry';
     if (code.startsWith('22') || code.startsWith('23')) return 'split';
     return 'fatal';
