@@ -10,12 +10,12 @@
 // SEED_EVENTS (default 5000) events are published to the topic first, so there is something to
 // read; STOP_AFTER_MS sends this process a SIGTERM after that long (to watch a graceful stop).
 // Writes to the table tandem_example_dock_events and the keys tandem:example:dock:<id>.
-import { installShutdown, fileDeadLetter, Sink } from '@spillway/core';
+import { fileDeadLetter, installShutdown, Sink } from '@spillway/core';
 import { DecodeError, KafkaBridge } from '@spillway/kafka';
 import { postgresSink } from '@spillway/postgres';
 import { hashFields, redisAdapter } from '@spillway/redis';
 import { Redis } from 'ioredis';
-import { Kafka, Partitioners, logLevel } from 'kafkajs';
+import { Kafka, logLevel, Partitioners } from 'kafkajs';
 import pg from 'pg';
 
 interface DockStatus {
@@ -50,7 +50,14 @@ if (seedEvents > 0) {
     const messages = [];
     for (let i = from; i < Math.min(seedEvents, from + 1000); i++) {
       const bikes = (i * 7) % 21;
-      const event: DockStatus = { eventId: base + i, dockId: `DK-${String(i % 144).padStart(4, '0')}`, district: districts[i % 6] as string, bikes, emptySlots: 20 - bikes, at: Date.now() };
+      const event: DockStatus = {
+        eventId: base + i,
+        dockId: `DK-${String(i % 144).padStart(4, '0')}`,
+        district: districts[i % 6] as string,
+        bikes,
+        emptySlots: 20 - bikes,
+        at: Date.now(),
+      };
       messages.push({ key: event.dockId, value: JSON.stringify(event) });
     }
     await producer.send({ topic, messages });
@@ -60,7 +67,10 @@ if (seedEvents > 0) {
 }
 
 // --- the stores and their sinks
-const pool = new pg.Pool({ connectionString: process.env.DATABASE_URL ?? 'postgres://postgres@127.0.0.1:5432/postgres', max: 4 });
+const pool = new pg.Pool({
+  connectionString: process.env.DATABASE_URL ?? 'postgres://postgres@127.0.0.1:5432/postgres',
+  max: 4,
+});
 pool.on('error', () => undefined);
 await pool.query(`CREATE TABLE IF NOT EXISTS ${table} (
   event_id bigint PRIMARY KEY, dock_id text NOT NULL, district text NOT NULL,
@@ -90,7 +100,12 @@ const availability = new Sink(
       fields: (e) => ({ bikes: e.bikes, empty_slots: e.emptySlots, seen_at: new Date(e.at).toISOString() }),
     }),
   }),
-  { name: 'dock-availability', maxRecords: 500, maxAgeMs: 200, deadLetter: fileDeadLetter('tandem-availability.dead-letters.ndjson') },
+  {
+    name: 'dock-availability',
+    maxRecords: 500,
+    maxAgeMs: 200,
+    deadLetter: fileDeadLetter('tandem-availability.dead-letters.ndjson'),
+  },
 );
 
 // --- one shutdown sequence for the process: sources → sinks → progress (commits) → clients
@@ -119,15 +134,21 @@ const bridge = new KafkaBridge<DockStatus>({
   deadLetter: fileDeadLetter('tandem-undecodable.ndjson'),
   shutdown,
 });
-bridge.on('assign', (e) => console.log(`assigned: ${e.assigned.join(', ') || 'none'} (generation ${e.generation})`));
+bridge.on('assign', (e) =>
+  console.log(`assigned: ${e.assigned.join(', ') || 'none'} (generation ${e.generation})`),
+);
 await bridge.start();
 console.log(`consuming ${topic} as group tandem-dock-status-writer; Ctrl-C to stop`);
 
 const status = setInterval(async () => {
   const s = bridge.snapshot();
   const lag = s.partitions.reduce((sum, p) => sum + p.lagMessages, 0);
-  const rows = (await pool.query<{ n: string }>(`SELECT count(*) AS n FROM ${table}`).catch(() => undefined))?.rows[0]?.n ?? '?';
-  console.log(`messages ${s.messages} · commits ${s.commits} · lag ${lag} · rows in ${table} ${rows} · buffered ${eventLog.pending().buffered}+${availability.pending().buffered}`);
+  const rows =
+    (await pool.query<{ n: string }>(`SELECT count(*) AS n FROM ${table}`).catch(() => undefined))?.rows[0]
+      ?.n ?? '?';
+  console.log(
+    `messages ${s.messages} · commits ${s.commits} · lag ${lag} · rows in ${table} ${rows} · buffered ${eventLog.pending().buffered}+${availability.pending().buffered}`,
+  );
 }, 2000);
 status.unref();
 shutdown.add('sources', 'status line', () => clearInterval(status));

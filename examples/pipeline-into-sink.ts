@@ -72,10 +72,14 @@ const flushes = Object.entries(snap.flushes)
   .filter(([, n]) => n > 0)
   .map(([reason, n]) => `${reason} ${n}`)
   .join(', ');
-console.log(`${events} events through stream.pipeline in ${seconds.toFixed(2)} s (${Math.round(events / seconds)} events/s)`);
+console.log(
+  `${events} events through stream.pipeline in ${seconds.toFixed(2)} s (${Math.round(events / seconds)} events/s)`,
+);
 console.log(`rows in ${table}: ${rows} (${rows === events ? 'all of them' : `MISSING ${events - rows}`})`);
 console.log(`flushes: ${flushes}; mean batch ${Math.round(snap.batchRecords.mean)} records`);
 console.log(`backpressure: the stream waited ${waits} times for room (maxPendingRecords 2000)`);
-console.log(`accept → durable: p50 ${snap.acceptToDurableMs.p50.toFixed(1)} ms, p99 ${snap.acceptToDurableMs.p99.toFixed(1)} ms`);
+console.log(
+  `accept → durable: p50 ${snap.acceptToDurableMs.p50.toFixed(1)} ms, p99 ${snap.acceptToDurableMs.p99.toFixed(1)} ms`,
+);
 await pool.end();
 process.exitCode = rows === events ? 0 : 1;

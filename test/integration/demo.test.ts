@@ -7,9 +7,16 @@ import { ShutdownCoordinator } from '@spillway/core';
 import pg from 'pg';
 import { afterAll, describe, expect, it } from 'vitest';
 import { type DemoOutput, demoOutput, runDemo } from '../../packages/cli/src/demo/run-demo.js';
-import { DOCKS_PER_DISTRICT, DISTRICTS } from '../../packages/cli/src/demo/scenario.js';
+import { DISTRICTS, DOCKS_PER_DISTRICT } from '../../packages/cli/src/demo/scenario.js';
 import { TABLE } from '../../packages/cli/src/demo/stores.js';
-import { deleteRedisPrefix, redisPrefix, services, uniqueName, withKafka, withRedis } from '../harness/index.js';
+import {
+  deleteRedisPrefix,
+  redisPrefix,
+  services,
+  uniqueName,
+  withKafka,
+  withRedis,
+} from '../harness/index.js';
 
 function captured(): { out: DemoOutput; text: () => string } {
   const stream = new PassThrough();
@@ -80,7 +87,9 @@ describe('spillway demo', () => {
     expect((pgFlushes?.age ?? 0) + (pgFlushes?.idle ?? 0)).toBeGreaterThan(0);
 
     // Counted again by this test: rows written = rows produced.
-    const rows = await admin.query<{ n: string; d: string }>(`SELECT count(*) AS n, count(DISTINCT event_id) AS d FROM "${schema}"."${TABLE}"`);
+    const rows = await admin.query<{ n: string; d: string }>(
+      `SELECT count(*) AS n, count(DISTINCT event_id) AS d FROM "${schema}"."${TABLE}"`,
+    );
     expect(Number(rows.rows[0]?.n)).toBe(result.produced);
     expect(Number(rows.rows[0]?.d)).toBe(result.produced);
     const offsets = await kafka.admin.fetchTopicOffsets(topic);
@@ -116,7 +125,13 @@ describe('spillway demo', () => {
     expect(summary).toContain('embedded PostgreSQL stopped, its data directory removed');
     expect(summary).toContain('Result: OK');
     // The server is gone: nothing listens on its port any more.
-    const probe = new pg.Client({ host: '127.0.0.1', port: Number(port), user: 'spillway', database: 'postgres', connectionTimeoutMillis: 2000 });
+    const probe = new pg.Client({
+      host: '127.0.0.1',
+      port: Number(port),
+      user: 'spillway',
+      database: 'postgres',
+      connectionTimeoutMillis: 2000,
+    });
     await expect(probe.connect()).rejects.toThrow();
     await probe.end().catch(() => undefined);
     const dir = /data in (\S*spillway-demo-pg-\w+)/.exec(summary)?.[1];

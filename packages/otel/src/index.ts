@@ -1,5 +1,5 @@
-export { OtelSinkMetrics, instrumentSinks } from './sink-metrics.js';
-export type { InstrumentableSink } from './sink-metrics.js';
+export type { InstrumentDefinition, InstrumentKey, InstrumentKind } from './instrument-names.js';
+export { ATTR_REASON, ATTR_SINK, ATTR_STATE, ATTR_STORE, INSTRUMENTS } from './instrument-names.js';
 export type { OtelSinkMetricsOptions } from './options.js';
-export { INSTRUMENTS, ATTR_SINK, ATTR_STORE, ATTR_REASON, ATTR_STATE } from './instrument-names.js';
-export type { InstrumentDefinition, InstrumentKind, InstrumentKey } from './instrument-names.js';
+export type { InstrumentableSink } from './sink-metrics.js';
+export { instrumentSinks, OtelSinkMetrics } from './sink-metrics.js';

@@ -84,7 +84,8 @@ export const INSTRUMENTS = {
     kind: 'gauge',
     unit: '1',
     extraAttributes: [ATTR_STATE],
-    description: 'The sink state: 1 on the point of the current state (open, closing, closed, failed), 0 on the others.',
+    description:
+      'The sink state: 1 on the point of the current state (open, closing, closed, failed), 0 on the others.',
   },
   accepted: {
     name: 'spillway.sink.records.accepted',
@@ -119,7 +120,8 @@ export const INSTRUMENTS = {
     kind: 'counter',
     unit: '{batch}',
     extraAttributes: [ATTR_REASON],
-    description: 'Batches started, by the trigger that started them (size, bytes, age, idle, manual, shutdown, revoke).',
+    description:
+      'Batches started, by the trigger that started them (size, bytes, age, idle, manual, shutdown, revoke).',
   },
   acceptToDurable: {
     name: 'spillway.sink.accept_to_durable.duration',
@@ -133,7 +135,8 @@ export const INSTRUMENTS = {
     kind: 'histogram',
     unit: 's',
     extraAttributes: [],
-    description: "Time from a record's meta.eventTime to the store acknowledging it; records with an event time only.",
+    description:
+      "Time from a record's meta.eventTime to the store acknowledging it; records with an event time only.",
   },
   batchRecords: {
     name: 'spillway.sink.batch.records',

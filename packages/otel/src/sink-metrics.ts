@@ -3,20 +3,34 @@ import {
   type BatchObservableCallback,
   type Histogram,
   type Meter,
+  metrics,
   type Observable,
   type ObservableCounter,
   type ObservableGauge,
-  metrics,
 } from '@opentelemetry/api';
-import { FLUSH_REASONS, invalidOption, type SinkEventName, type SinkEvents, type SinkSnapshot, type SinkState } from '@spillway/core';
-import { ATTR_REASON, ATTR_SINK, ATTR_STATE, ATTR_STORE, INSTRUMENTS, type InstrumentDefinition } from './instrument-names.js';
 import {
+  FLUSH_REASONS,
+  invalidOption,
+  type SinkEventName,
+  type SinkEvents,
+  type SinkSnapshot,
+  type SinkState,
+} from '@spillway/core';
+import {
+  ATTR_REASON,
+  ATTR_SINK,
+  ATTR_STATE,
+  ATTR_STORE,
+  INSTRUMENTS,
+  type InstrumentDefinition,
+} from './instrument-names.js';
+import {
+  bucketsOption,
   DEFAULT_BATCH_BYTES_BUCKETS,
   DEFAULT_BATCH_RECORDS_BUCKETS,
   DEFAULT_DURATION_BUCKETS,
   DEFAULT_LATENCY_BUCKETS,
   type OtelSinkMetricsOptions,
-  bucketsOption,
 } from './options.js';
 
 /** The part of a `Sink` the instrumentation reads. */
@@ -31,9 +45,24 @@ export interface InstrumentableSink {
 const METER_NAME = '@spillway/otel';
 const STATES: readonly SinkState[] = ['open', 'closing', 'closed', 'failed'];
 
-type GaugeKey = 'bufferedRecords' | 'bufferedBytes' | 'oldestAge' | 'inFlightBatches' | 'inFlightRecords' | 'pendingRecords' | 'pendingBytes' | 'waitingWriters';
+type GaugeKey =
+  | 'bufferedRecords'
+  | 'bufferedBytes'
+  | 'oldestAge'
+  | 'inFlightBatches'
+  | 'inFlightRecords'
+  | 'pendingRecords'
+  | 'pendingBytes'
+  | 'waitingWriters';
 type CounterKey = 'accepted' | 'written' | 'deadLettered' | 'retries';
-type HistogramKey = 'acceptToDurable' | 'eventToDurable' | 'batchRecords' | 'batchBytes' | 'flushDuration' | 'slotWait' | 'backpressureWait';
+type HistogramKey =
+  | 'acceptToDurable'
+  | 'eventToDurable'
+  | 'batchRecords'
+  | 'batchBytes'
+  | 'flushDuration'
+  | 'slotWait'
+  | 'backpressureWait';
 
 const GAUGE_VALUES: Record<GaugeKey, (s: SinkSnapshot) => number> = {
   bufferedRecords: (s) => s.bufferedRecords,
@@ -88,14 +117,19 @@ export class OtelSinkMetrics {
     const buckets = {
       latency: bucketsOption('latencyBuckets', options.latencyBuckets, DEFAULT_LATENCY_BUCKETS),
       duration: bucketsOption('durationBuckets', options.durationBuckets, DEFAULT_DURATION_BUCKETS),
-      batchRecords: bucketsOption('batchRecordsBuckets', options.batchRecordsBuckets, DEFAULT_BATCH_RECORDS_BUCKETS),
+      batchRecords: bucketsOption(
+        'batchRecordsBuckets',
+        options.batchRecordsBuckets,
+        DEFAULT_BATCH_RECORDS_BUCKETS,
+      ),
       batchBytes: bucketsOption('batchBytesBuckets', options.batchBytesBuckets, DEFAULT_BATCH_BYTES_BUCKETS),
     };
     const meter = options.meter ?? (options.meterProvider ?? metrics.getMeterProvider()).getMeter(METER_NAME);
     this.meter = meter;
 
     const describe = (def: InstrumentDefinition) => ({ description: def.description, unit: def.unit });
-    const gauge = (key: GaugeKey) => meter.createObservableGauge(INSTRUMENTS[key].name, describe(INSTRUMENTS[key]));
+    const gauge = (key: GaugeKey) =>
+      meter.createObservableGauge(INSTRUMENTS[key].name, describe(INSTRUMENTS[key]));
     this.gauges = {
       bufferedRecords: gauge('bufferedRecords'),
       bufferedBytes: gauge('bufferedBytes'),
@@ -107,7 +141,8 @@ export class OtelSinkMetrics {
       waitingWriters: gauge('waitingWriters'),
     };
     this.stateGauge = meter.createObservableGauge(INSTRUMENTS.state.name, describe(INSTRUMENTS.state));
-    const counter = (key: CounterKey) => meter.createObservableCounter(INSTRUMENTS[key].name, describe(INSTRUMENTS[key]));
+    const counter = (key: CounterKey) =>
+      meter.createObservableCounter(INSTRUMENTS[key].name, describe(INSTRUMENTS[key]));
     this.counters = {
       accepted: counter('accepted'),
       written: counter('written'),
@@ -116,7 +151,10 @@ export class OtelSinkMetrics {
     };
     this.flushes = meter.createObservableCounter(INSTRUMENTS.flushes.name, describe(INSTRUMENTS.flushes));
     const histogram = (key: HistogramKey, boundaries: number[]) =>
-      meter.createHistogram(INSTRUMENTS[key].name, { ...describe(INSTRUMENTS[key]), advice: { explicitBucketBoundaries: boundaries } });
+      meter.createHistogram(INSTRUMENTS[key].name, {
+        ...describe(INSTRUMENTS[key]),
+        advice: { explicitBucketBoundaries: boundaries },
+      });
     this.histograms = {
       acceptToDurable: histogram('acceptToDurable', buckets.latency),
       eventToDurable: histogram('eventToDurable', buckets.latency),
@@ -127,15 +165,27 @@ export class OtelSinkMetrics {
       backpressureWait: histogram('backpressureWait', buckets.duration),
     };
 
-    this.observables = [...Object.values(this.gauges), this.stateGauge, ...Object.values(this.counters), this.flushes];
+    this.observables = [
+      ...Object.values(this.gauges),
+      this.stateGauge,
+      ...Object.values(this.counters),
+      this.flushes,
+    ];
     // One snapshot per sink per collection, shared by every asynchronous instrument.
     this.callback = (result) => {
       for (const { sink, attributes } of this.sinks.values()) {
         const snap = sink.snapshot();
-        for (const key of Object.keys(GAUGE_VALUES) as GaugeKey[]) result.observe(this.gauges[key], GAUGE_VALUES[key](snap), attributes);
-        for (const state of STATES) result.observe(this.stateGauge, snap.state === state ? 1 : 0, { ...attributes, [ATTR_STATE]: state });
-        for (const key of Object.keys(COUNTER_VALUES) as CounterKey[]) result.observe(this.counters[key], COUNTER_VALUES[key](snap), attributes);
-        for (const reason of FLUSH_REASONS) result.observe(this.flushes, snap.flushes[reason], { ...attributes, [ATTR_REASON]: reason });
+        for (const key of Object.keys(GAUGE_VALUES) as GaugeKey[])
+          result.observe(this.gauges[key], GAUGE_VALUES[key](snap), attributes);
+        for (const state of STATES)
+          result.observe(this.stateGauge, snap.state === state ? 1 : 0, {
+            ...attributes,
+            [ATTR_STATE]: state,
+          });
+        for (const key of Object.keys(COUNTER_VALUES) as CounterKey[])
+          result.observe(this.counters[key], COUNTER_VALUES[key](snap), attributes);
+        for (const reason of FLUSH_REASONS)
+          result.observe(this.flushes, snap.flushes[reason], { ...attributes, [ATTR_REASON]: reason });
       }
     };
     meter.addBatchObservableCallback(this.callback, this.observables);
@@ -151,9 +201,14 @@ export class OtelSinkMetrics {
       this.meter.addBatchObservableCallback(this.callback, this.observables);
       this.closed = false;
     }
-    if (!sink || typeof sink.snapshot !== 'function' || typeof sink.on !== 'function') throw invalidOption('sink', 'a Sink', sink);
+    if (!sink || typeof sink.snapshot !== 'function' || typeof sink.on !== 'function')
+      throw invalidOption('sink', 'a Sink', sink);
     if (this.sinks.has(sink.name)) {
-      throw invalidOption('sink', 'a sink whose name is not already instrumented (give each sink its own `name`)', sink.name);
+      throw invalidOption(
+        'sink',
+        'a sink whose name is not already instrumented (give each sink its own `name`)',
+        sink.name,
+      );
     }
     const attributes: Attributes = { [ATTR_SINK]: sink.name, [ATTR_STORE]: sink.kind };
     const h = this.histograms;
@@ -172,7 +227,8 @@ export class OtelSinkMetrics {
       h.slotWait.record(e.slotWaitMs / 1000, attributes);
     };
     const onWritten = (e: SinkEvents['written']) => h.flushDuration.record(e.durationMs / 1000, attributes);
-    const onBackpressure = (e: SinkEvents['backpressure']) => h.backpressureWait.record(e.waitedMs / 1000, attributes);
+    const onBackpressure = (e: SinkEvents['backpressure']) =>
+      h.backpressureWait.record(e.waitedMs / 1000, attributes);
     sink.on('settled', onSettled);
     sink.on('flush', onFlush);
     sink.on('written', onWritten);

@@ -9,7 +9,15 @@ import {
 } from '@opentelemetry/sdk-metrics';
 import { type Batch, ManualClock, Sink, type SinkAdapter } from '@spillway/core';
 import { afterEach, describe, expect, it } from 'vitest';
-import { ATTR_REASON, ATTR_SINK, ATTR_STATE, ATTR_STORE, INSTRUMENTS, OtelSinkMetrics, instrumentSinks } from '../src/index.js';
+import {
+  ATTR_REASON,
+  ATTR_SINK,
+  ATTR_STATE,
+  ATTR_STORE,
+  INSTRUMENTS,
+  instrumentSinks,
+  OtelSinkMetrics,
+} from '../src/index.js';
 
 // An in-memory store: these tests read the engine's numbers, the store itself does not matter.
 class MemoryStore implements SinkAdapter<{ dock: string }> {
@@ -35,7 +43,8 @@ function sdk() {
     exporter.reset();
     await reader.forceFlush();
     const byName = new Map<string, MetricData>();
-    for (const rm of exporter.getMetrics()) for (const sm of rm.scopeMetrics) for (const m of sm.metrics) byName.set(m.descriptor.name, m);
+    for (const rm of exporter.getMetrics())
+      for (const sm of rm.scopeMetrics) for (const m of sm.metrics) byName.set(m.descriptor.name, m);
     return byName;
   };
   return { provider, collect, shutdown: () => provider.shutdown() };
@@ -47,7 +56,9 @@ afterEach(async () => {
 });
 
 function point(metric: MetricData | undefined, attrs: Record<string, string>) {
-  const found = metric?.dataPoints.find((p) => Object.entries(attrs).every(([k, v]) => p.attributes[k] === v));
+  const found = metric?.dataPoints.find((p) =>
+    Object.entries(attrs).every(([k, v]) => p.attributes[k] === v),
+  );
   if (!found) throw new Error(`no point ${JSON.stringify(attrs)} in ${metric?.descriptor.name}`);
   return found;
 }
@@ -67,15 +78,22 @@ describe('OtelSinkMetrics', () => {
     await clock.advance(200); // stays buffered, 0.2 s old
 
     const got = await s.collect();
-    const kinds = { gauge: DataPointType.GAUGE, counter: DataPointType.SUM, histogram: DataPointType.HISTOGRAM };
+    const kinds = {
+      gauge: DataPointType.GAUGE,
+      counter: DataPointType.SUM,
+      histogram: DataPointType.HISTOGRAM,
+    };
     // The backpressure histogram has points only once a writer waited: its own test below.
-    for (const def of Object.values(INSTRUMENTS).filter((d) => d.name !== INSTRUMENTS.backpressureWait.name)) {
+    for (const def of Object.values(INSTRUMENTS).filter(
+      (d) => d.name !== INSTRUMENTS.backpressureWait.name,
+    )) {
       const m = got.get(def.name);
       expect(m, def.name).toBeDefined();
       expect(m?.descriptor.unit, def.name).toBe(def.unit);
       expect(m?.descriptor.description, def.name).toBe(def.description);
       expect(m?.dataPointType, def.name).toBe(kinds[def.kind]);
-      if (def.kind === 'counter' && m?.dataPointType === DataPointType.SUM) expect(m.isMonotonic, def.name).toBe(true);
+      if (def.kind === 'counter' && m?.dataPointType === DataPointType.SUM)
+        expect(m.isMonotonic, def.name).toBe(true);
     }
 
     const attrs = { [ATTR_SINK]: 'docks', [ATTR_STORE]: 'memory' };
@@ -104,12 +122,18 @@ describe('OtelSinkMetrics', () => {
     expect(counts[boundaries.indexOf(0.5)]).toBe(2);
     expect(counts.reduce((a, b) => a + b, 0)).toBe(5);
 
-    const batch = point(got.get('spillway.sink.batch.records'), attrs).value as { count: number; sum: number };
+    const batch = point(got.get('spillway.sink.batch.records'), attrs).value as {
+      count: number;
+      sum: number;
+    };
     expect(batch.count).toBe(2);
     expect(batch.sum).toBe(5);
 
     // Only d3 carried an event time, 1 s before it was written.
-    const eventLatency = point(got.get('spillway.sink.event_to_durable.duration'), attrs).value as { count: number; min: number };
+    const eventLatency = point(got.get('spillway.sink.event_to_durable.duration'), attrs).value as {
+      count: number;
+      min: number;
+    };
     expect(eventLatency.count).toBe(1);
     expect(eventLatency.min).toBeGreaterThanOrEqual(1);
   });
@@ -133,7 +157,8 @@ describe('OtelSinkMetrics', () => {
     release();
     await third;
     const got = await s.collect();
-    const wait = point(got.get('spillway.sink.backpressure_wait.duration'), { [ATTR_SINK]: 'slow' }).value as { count: number; sum: number };
+    const wait = point(got.get('spillway.sink.backpressure_wait.duration'), { [ATTR_SINK]: 'slow' })
+      .value as { count: number; sum: number };
     expect(wait.count).toBe(1);
     expect(wait.sum).toBeCloseTo(0.3, 9);
     expect(point(got.get('spillway.sink.waiting_writers'), { [ATTR_SINK]: 'slow' }).value).toBe(0);
@@ -173,7 +198,9 @@ describe('OtelSinkMetrics', () => {
     expect(a.sink.snapshot().written).toBe(2);
     got = await s.collect();
     // The SDK may keep exporting the last cumulative point of a removed sink; it no longer moves.
-    const status = got.get('spillway.sink.records.written')?.dataPoints.find((p) => p.attributes[ATTR_SINK] === 'status');
+    const status = got
+      .get('spillway.sink.records.written')
+      ?.dataPoints.find((p) => p.attributes[ATTR_SINK] === 'status');
     if (status) expect(status.value).toBe(1);
     expect(point(got.get('spillway.sink.records.written'), { [ATTR_SINK]: 'availability' }).value).toBe(1);
   });

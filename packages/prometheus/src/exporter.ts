@@ -1,13 +1,20 @@
-import { FLUSH_REASONS, invalidOption, type SinkEventName, type SinkEvents, type SinkSnapshot, type SinkState } from '@spillway/core';
+import {
+  FLUSH_REASONS,
+  invalidOption,
+  type SinkEventName,
+  type SinkEvents,
+  type SinkSnapshot,
+  type SinkState,
+} from '@spillway/core';
 import { Counter, Gauge, Histogram, Registry } from 'prom-client';
 import { COMMON_LABELS, METRICS, type MetricDefinition } from './metric-names.js';
 import {
+  bucketsOption,
   DEFAULT_BATCH_BYTES_BUCKETS,
   DEFAULT_BATCH_RECORDS_BUCKETS,
   DEFAULT_DURATION_BUCKETS,
   DEFAULT_LATENCY_BUCKETS,
   type PrometheusExporterOptions,
-  bucketsOption,
 } from './options.js';
 
 /** The part of a `Sink` the exporter reads. */
@@ -93,12 +100,24 @@ export class PrometheusExporter {
     const registry = options.registry ?? new Registry();
     if (!(registry instanceof Registry)) throw invalidOption('registry', 'a prom-client Registry', registry);
     if (registries.has(registry)) {
-      throw invalidOption('registry', 'a registry without a Spillway exporter (add sinks to the exporter already on it)', registry);
+      throw invalidOption(
+        'registry',
+        'a registry without a Spillway exporter (add sinks to the exporter already on it)',
+        registry,
+      );
     }
     const latency = bucketsOption('latencyBuckets', options.latencyBuckets, DEFAULT_LATENCY_BUCKETS);
     const duration = bucketsOption('durationBuckets', options.durationBuckets, DEFAULT_DURATION_BUCKETS);
-    const batchRecords = bucketsOption('batchRecordsBuckets', options.batchRecordsBuckets, DEFAULT_BATCH_RECORDS_BUCKETS);
-    const batchBytes = bucketsOption('batchBytesBuckets', options.batchBytesBuckets, DEFAULT_BATCH_BYTES_BUCKETS);
+    const batchRecords = bucketsOption(
+      'batchRecordsBuckets',
+      options.batchRecordsBuckets,
+      DEFAULT_BATCH_RECORDS_BUCKETS,
+    );
+    const batchBytes = bucketsOption(
+      'batchBytesBuckets',
+      options.batchBytesBuckets,
+      DEFAULT_BATCH_BYTES_BUCKETS,
+    );
     this.registry = registry;
 
     const registers = [registry];
@@ -137,7 +156,8 @@ export class PrometheusExporter {
         for (const [name, snap] of this.currentSnapshots()) {
           const e = this.sinks.get(name);
           if (!e) continue;
-          for (const state of STATES) this.stateGauge.set({ ...e.labels, state }, snap.state === state ? 1 : 0);
+          for (const state of STATES)
+            this.stateGauge.set({ ...e.labels, state }, snap.state === state ? 1 : 0);
         }
       },
     });
@@ -207,7 +227,11 @@ export class PrometheusExporter {
       throw invalidOption('sink', 'a Sink', sink);
     }
     if (this.sinks.has(sink.name)) {
-      throw invalidOption('sink', `a sink whose name is not already exported (give each sink its own \`name\`)`, sink.name);
+      throw invalidOption(
+        'sink',
+        `a sink whose name is not already exported (give each sink its own \`name\`)`,
+        sink.name,
+      );
     }
     const labels: Labels = { sink: sink.name, store: sink.kind };
     const h = this.histograms;
@@ -227,7 +251,8 @@ export class PrometheusExporter {
       h.slotWait.observe(labels, e.slotWaitMs / 1000);
     };
     const onWritten = (e: SinkEvents['written']) => h.flushDuration.observe(labels, e.durationMs / 1000);
-    const onBackpressure = (e: SinkEvents['backpressure']) => h.backpressureWait.observe(labels, e.waitedMs / 1000);
+    const onBackpressure = (e: SinkEvents['backpressure']) =>
+      h.backpressureWait.observe(labels, e.waitedMs / 1000);
     sink.on('settled', onSettled);
     sink.on('flush', onFlush);
     sink.on('written', onWritten);
@@ -296,7 +321,13 @@ export class PrometheusExporter {
   }
 
   /** Adds to a counter the growth of a snapshot counter since the last scrape. */
-  private advance<L extends string>(e: Exported, key: string, counter: Counter<L>, labels: Record<L, string>, value: number): void {
+  private advance<L extends string>(
+    e: Exported,
+    key: string,
+    counter: Counter<L>,
+    labels: Record<L, string>,
+    value: number,
+  ): void {
     const before = e.counted.get(key) ?? 0;
     if (value > before) {
       counter.inc(labels, value - before);

@@ -1,5 +1,5 @@
-export { PrometheusExporter, registerSinkMetrics } from './exporter.js';
 export type { ExportableSink } from './exporter.js';
+export { PrometheusExporter, registerSinkMetrics } from './exporter.js';
+export type { MetricDefinition, MetricKey, MetricSource, MetricType } from './metric-names.js';
+export { COMMON_LABELS, METRICS } from './metric-names.js';
 export type { PrometheusExporterOptions } from './options.js';
-export { METRICS, COMMON_LABELS } from './metric-names.js';
-export type { MetricDefinition, MetricType, MetricSource, MetricKey } from './metric-names.js';

@@ -150,7 +150,7 @@ export const METRICS = {
     unit: 'seconds',
     extraLabels: [],
     source: 'events',
-    help: 'Time from a record\'s meta.eventTime (wall clock) to the store acknowledging it; only records that carry an event time.',
+    help: "Time from a record's meta.eventTime (wall clock) to the store acknowledging it; only records that carry an event time.",
   },
   batchRecords: {
     name: 'spillway_sink_batch_records',

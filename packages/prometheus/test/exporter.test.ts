@@ -1,4 +1,4 @@
-import { ManualClock, type Batch, Sink, type SinkAdapter } from '@spillway/core';
+import { type Batch, ManualClock, Sink, type SinkAdapter } from '@spillway/core';
 import parsePrometheusTextFormat from 'parse-prometheus-text-format';
 import { Counter, Registry } from 'prom-client';
 import { describe, expect, it } from 'vitest';
@@ -47,7 +47,9 @@ async function scrape(registry: Registry): Promise<Map<string, Parsed>> {
 
 async function histogramSeries(registry: Registry, name: string, labels: Record<string, string>) {
   const metric = (await registry.getMetricsAsJSON()).find((m) => m.name === name);
-  const values = (metric?.values ?? []).filter((v) => Object.entries(labels).every(([k, want]) => v.labels[k] === want));
+  const values = (metric?.values ?? []).filter((v) =>
+    Object.entries(labels).every(([k, want]) => v.labels[k] === want),
+  );
   const pick = (suffix: string) => values.find((v) => v.metricName === `${name}${suffix}`)?.value;
   return { sum: pick('_sum'), count: pick('_count'), sinks: new Set(values.map((v) => v.labels.sink)) };
 }
@@ -90,7 +92,10 @@ describe('PrometheusExporter', () => {
     expect(series(parsed.get('spillway_sink_accepted_records_total'), labels).value).toBe('6');
     expect(series(parsed.get('spillway_sink_written_records_total'), labels).value).toBe('5');
     expect(series(parsed.get('spillway_sink_buffered_records'), labels).value).toBe('1');
-    expect(Number(series(parsed.get('spillway_sink_oldest_buffered_age_seconds'), labels).value)).toBeCloseTo(0.2, 9);
+    expect(Number(series(parsed.get('spillway_sink_oldest_buffered_age_seconds'), labels).value)).toBeCloseTo(
+      0.2,
+      9,
+    );
     expect(series(parsed.get('spillway_sink_state'), { ...labels, state: 'open' }).value).toBe('1');
     expect(series(parsed.get('spillway_sink_state'), { ...labels, state: 'closed' }).value).toBe('0');
 
@@ -98,14 +103,26 @@ describe('PrometheusExporter', () => {
     expect(series(flushes, { ...labels, reason: 'size' }).value).toBe('1');
     expect(series(flushes, { ...labels, reason: 'age' }).value).toBe('1');
     // Every reason has a series from the start, at zero.
-    expect(flushes?.metrics.map((m) => m.labels?.reason).sort()).toEqual(['age', 'bytes', 'idle', 'manual', 'revoke', 'shutdown', 'size']);
+    expect(flushes?.metrics.map((m) => m.labels?.reason).sort()).toEqual([
+      'age',
+      'bytes',
+      'idle',
+      'manual',
+      'revoke',
+      'shutdown',
+      'size',
+    ]);
     expect(series(flushes, { ...labels, reason: 'idle' }).value).toBe('0');
 
     const batch = await histogramSeries(exporter.registry, 'spillway_sink_batch_records', labels);
     expect(batch.count).toBe(2);
     expect(batch.sum).toBe(5);
 
-    const latencyTotals = await histogramSeries(exporter.registry, 'spillway_sink_accept_to_durable_seconds', labels);
+    const latencyTotals = await histogramSeries(
+      exporter.registry,
+      'spillway_sink_accept_to_durable_seconds',
+      labels,
+    );
     expect(latencyTotals.count).toBe(5);
     expect(latencyTotals.sum).toBeCloseTo(1.0, 9);
     const latency = parsed.get('spillway_sink_accept_to_durable_seconds')?.metrics[0];
@@ -129,10 +146,13 @@ describe('PrometheusExporter', () => {
     for (const def of Object.values(METRICS).filter((d) => d.type === 'histogram')) {
       const { count } = await histogramSeries(exporter.registry, def.name, { sink: 'docks' });
       for (const m of parsed.get(def.name)?.metrics ?? []) {
-        const bounds = Object.keys(m.buckets ?? {}).sort((a, b) => (a === '+Inf' ? 1 : b === '+Inf' ? -1 : Number(a) - Number(b)));
+        const bounds = Object.keys(m.buckets ?? {}).sort((a, b) =>
+          a === '+Inf' ? 1 : b === '+Inf' ? -1 : Number(a) - Number(b),
+        );
         const counts = bounds.map((b) => Number(m.buckets?.[b]));
         // Source: Prometheus "Exposition formats", text format 0.0.4, histogram section.
-        for (let i = 1; i < counts.length; i++) expect(counts[i]).toBeGreaterThanOrEqual(counts[i - 1] as number);
+        for (let i = 1; i < counts.length; i++)
+          expect(counts[i]).toBeGreaterThanOrEqual(counts[i - 1] as number);
         expect(bounds.at(-1)).toBe('+Inf');
         expect(counts.at(-1)).toBe(count);
       }
@@ -162,7 +182,9 @@ describe('PrometheusExporter', () => {
     await third;
     parsed = await scrape(exporter.registry);
     expect(series(parsed.get('spillway_sink_waiting_writers'), { sink: 'slow' }).value).toBe('0');
-    const wait = await histogramSeries(exporter.registry, 'spillway_sink_backpressure_wait_seconds', { sink: 'slow' });
+    const wait = await histogramSeries(exporter.registry, 'spillway_sink_backpressure_wait_seconds', {
+      sink: 'slow',
+    });
     expect(wait.count).toBe(1);
     expect(wait.sum).toBeCloseTo(0.3, 9);
     expect(parsed.get('spillway_sink_backpressure_wait_seconds')?.metrics[0]?.buckets?.['0.25']).toBe('0');
@@ -200,10 +222,14 @@ describe('PrometheusExporter', () => {
     await a.clock.advance(500);
     let parsed = await scrape(exporter.registry);
     expect(series(parsed.get('spillway_sink_written_records_total'), { sink: 'status' }).value).toBe('1');
-    expect(series(parsed.get('spillway_sink_written_records_total'), { sink: 'availability' }).value).toBe('0');
+    expect(series(parsed.get('spillway_sink_written_records_total'), { sink: 'availability' }).value).toBe(
+      '0',
+    );
     exporter.remove(a.sink);
     parsed = await scrape(exporter.registry);
-    const sinks = new Set(parsed.get('spillway_sink_written_records_total')?.metrics.map((m) => m.labels?.sink));
+    const sinks = new Set(
+      parsed.get('spillway_sink_written_records_total')?.metrics.map((m) => m.labels?.sink),
+    );
     expect([...sinks]).toEqual(['availability']);
     const latency = await histogramSeries(exporter.registry, 'spillway_sink_accept_to_durable_seconds', {});
     expect(latency.sinks).toEqual(new Set(['availability']));
@@ -245,7 +271,10 @@ describe('PrometheusExporter', () => {
     await clock.advance(500);
     const parsed = await scrape(exporter.registry);
     const m = parsed.get('spillway_sink_event_to_durable_seconds')?.metrics[0];
-    expect((await histogramSeries(exporter.registry, 'spillway_sink_event_to_durable_seconds', { sink: 'docks' })).count).toBe(1);
+    expect(
+      (await histogramSeries(exporter.registry, 'spillway_sink_event_to_durable_seconds', { sink: 'docks' }))
+        .count,
+    ).toBe(1);
     expect(m.buckets?.['0.75']).toBe('0');
     expect(m.buckets?.['2.5']).toBe('1');
   });

@@ -1,6 +1,6 @@
-import { type Command, InvalidArgumentError } from 'commander';
 import { installShutdown, messageOf } from '@spillway/core';
-import { type DemoOptions, DEMO_DEFAULTS } from '../demo/options.js';
+import { type Command, InvalidArgumentError } from 'commander';
+import { DEMO_DEFAULTS, type DemoOptions } from '../demo/options.js';
 import { demoOutput, runDemo } from '../demo/run-demo.js';
 
 function positiveNumber(value: string): number {
@@ -23,24 +23,60 @@ export function registerDemo(program: Command): void {
       'Run the Tandem Bikes scenario end to end: dock events through batching sinks into PostgreSQL ' +
         '(embedded when no URL is given), and Redis / Kafka when given; live view, then a summary that counts what landed.',
     )
-    .option('--postgres <url>', 'PostgreSQL URL (env SPILLWAY_POSTGRES_URL); without one an embedded PostgreSQL is started')
+    .option(
+      '--postgres <url>',
+      'PostgreSQL URL (env SPILLWAY_POSTGRES_URL); without one an embedded PostgreSQL is started',
+    )
     .option('--redis <url>', 'Redis URL for live availability per dock (env SPILLWAY_REDIS_URL)')
-    .option('--kafka <brokers>', 'Kafka brokers, comma-separated, for the enriched events topic (env SPILLWAY_KAFKA_BROKERS)')
-    .option('--duration <seconds>', 'length of the simulated day', positiveNumber, DEMO_DEFAULTS.durationMs / 1000)
-    .option('--rate <multiplier>', 'multiplies every event rate (rush hour is 2,400 events/s at 1)', positiveNumber, DEMO_DEFAULTS.rate)
+    .option(
+      '--kafka <brokers>',
+      'Kafka brokers, comma-separated, for the enriched events topic (env SPILLWAY_KAFKA_BROKERS)',
+    )
+    .option(
+      '--duration <seconds>',
+      'length of the simulated day',
+      positiveNumber,
+      DEMO_DEFAULTS.durationMs / 1000,
+    )
+    .option(
+      '--rate <multiplier>',
+      'multiplies every event rate (rush hour is 2,400 events/s at 1)',
+      positiveNumber,
+      DEMO_DEFAULTS.rate,
+    )
     .option('--seed <n>', 'seed of the event generator', integer, DEMO_DEFAULTS.seed)
-    .option('--schema <name>', 'PostgreSQL schema of the demo table (recreated each run)', DEMO_DEFAULTS.schema)
+    .option(
+      '--schema <name>',
+      'PostgreSQL schema of the demo table (recreated each run)',
+      DEMO_DEFAULTS.schema,
+    )
     .option('--redis-prefix <prefix>', 'prefix of the Redis keys', DEMO_DEFAULTS.redisPrefix)
-    .option('--kafka-topic <topic>', 'Kafka topic for enriched events (created when missing)', DEMO_DEFAULTS.kafkaTopic)
-    .option('--metrics-port <port>', 'serve Prometheus metrics on 127.0.0.1:<port>/metrics while running', integer)
-    .option('--plain', 'print plain progress lines instead of the live view (the default when not a terminal)')
+    .option(
+      '--kafka-topic <topic>',
+      'Kafka topic for enriched events (created when missing)',
+      DEMO_DEFAULTS.kafkaTopic,
+    )
+    .option(
+      '--metrics-port <port>',
+      'serve Prometheus metrics on 127.0.0.1:<port>/metrics while running',
+      integer,
+    )
+    .option(
+      '--plain',
+      'print plain progress lines instead of the live view (the default when not a terminal)',
+    )
     .action(async (flags: Record<string, unknown>) => {
       const env = process.env;
       const kafka = (flags.kafka as string | undefined) ?? env.SPILLWAY_KAFKA_BROKERS;
       const options: DemoOptions = {
         postgresUrl: (flags.postgres as string | undefined) ?? env.SPILLWAY_POSTGRES_URL,
         redisUrl: (flags.redis as string | undefined) ?? env.SPILLWAY_REDIS_URL,
-        kafkaBrokers: kafka ? kafka.split(',').map((b) => b.trim()).filter(Boolean) : undefined,
+        kafkaBrokers: kafka
+          ? kafka
+              .split(',')
+              .map((b) => b.trim())
+              .filter(Boolean)
+          : undefined,
         durationMs: (flags.duration as number) * 1000,
         rate: flags.rate as number,
         seed: flags.seed as number,

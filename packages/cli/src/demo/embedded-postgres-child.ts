@@ -131,6 +131,10 @@ async function main(): Promise<void> {
 }
 
 void main().catch(async (error: unknown) => {
-  await send({ type: 'failed', reason: 'start-failed', message: `The embedded PostgreSQL helper failed: ${(error as Error)?.message ?? String(error)}` });
+  await send({
+    type: 'failed',
+    reason: 'start-failed',
+    message: `The embedded PostgreSQL helper failed: ${(error as Error)?.message ?? String(error)}`,
+  });
   await stop(1);
 });

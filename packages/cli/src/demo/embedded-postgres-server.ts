@@ -34,7 +34,10 @@ function helperPath(): { file: string; execArgv: string[] } {
   const here = import.meta.url;
   // Run from TypeScript sources (tests, tsx): the helper is a .ts file and needs the tsx loader.
   if (here.endsWith('.ts')) {
-    return { file: fileURLToPath(new URL('./embedded-postgres-child.ts', here)), execArgv: ['--import', 'tsx'] };
+    return {
+      file: fileURLToPath(new URL('./embedded-postgres-child.ts', here)),
+      execArgv: ['--import', 'tsx'],
+    };
   }
   return { file: fileURLToPath(new URL('./embedded-postgres-child.js', here)), execArgv: [] };
 }
@@ -57,7 +60,12 @@ export async function startEmbeddedPostgres(): Promise<EmbeddedPostgres> {
 
   const message = await new Promise<HelperMessage>((resolve, reject) => {
     const timer = setTimeout(() => {
-      reject(new SpillwayError('SPILLWAY_STORE_ERROR', `The embedded PostgreSQL did not start within ${START_TIMEOUT_MS / 1000} s`));
+      reject(
+        new SpillwayError(
+          'SPILLWAY_STORE_ERROR',
+          `The embedded PostgreSQL did not start within ${START_TIMEOUT_MS / 1000} s`,
+        ),
+      );
     }, START_TIMEOUT_MS);
     const done = () => {
       clearTimeout(timer);
@@ -70,7 +78,12 @@ export async function startEmbeddedPostgres(): Promise<EmbeddedPostgres> {
     };
     const onExit = (code: number | null) => {
       done();
-      reject(new SpillwayError('SPILLWAY_STORE_ERROR', `The embedded PostgreSQL helper exited (code ${code}) before the server was ready: ${stderr.trim() || 'no output'}`));
+      reject(
+        new SpillwayError(
+          'SPILLWAY_STORE_ERROR',
+          `The embedded PostgreSQL helper exited (code ${code}) before the server was ready: ${stderr.trim() || 'no output'}`,
+        ),
+      );
     };
     child.on('message', onMessage);
     child.on('exit', onExit);
@@ -79,7 +92,9 @@ export async function startEmbeddedPostgres(): Promise<EmbeddedPostgres> {
   if (message.type === 'failed') {
     await stopHelper(child);
     const hint = message.hint ? ` ${message.hint}` : '';
-    throw new SpillwayError('SPILLWAY_STORE_ERROR', `${message.message}${hint}`, { details: { reason: message.reason } });
+    throw new SpillwayError('SPILLWAY_STORE_ERROR', `${message.message}${hint}`, {
+      details: { reason: message.reason },
+    });
   }
 
   const { port, user, password, version, dir } = message;

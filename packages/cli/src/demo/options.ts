@@ -112,7 +112,8 @@ const IDENTIFIER = /^[a-z_][a-z0-9_]{0,62}$/;
 
 function positive(name: string, value: unknown, fallback: number): number {
   if (value === undefined) return fallback;
-  if (typeof value !== 'number' || !Number.isFinite(value) || value <= 0) throw invalidOption(name, 'a finite number > 0', value);
+  if (typeof value !== 'number' || !Number.isFinite(value) || value <= 0)
+    throw invalidOption(name, 'a finite number > 0', value);
   return value;
 }
 
@@ -129,12 +130,16 @@ export function resolveDemoOptions(o: DemoOptions = {}): ResolvedDemoOptions {
     throw invalidOption('schema', 'a lowercase identifier (letters, digits, _; at most 63)', schema);
   }
   const view = o.view ?? DEMO_DEFAULTS.view;
-  if (view !== 'auto' && view !== 'live' && view !== 'plain') throw invalidOption('view', '"auto", "live" or "plain"', view);
+  if (view !== 'auto' && view !== 'live' && view !== 'plain')
+    throw invalidOption('view', '"auto", "live" or "plain"', view);
   const seed = o.seed ?? DEMO_DEFAULTS.seed;
   if (!Number.isInteger(seed)) throw invalidOption('seed', 'an integer', seed);
   let kafkaBrokers: string[] | undefined;
   if (o.kafkaBrokers !== undefined) {
-    if (!Array.isArray(o.kafkaBrokers) || o.kafkaBrokers.some((b) => typeof b !== 'string' || !/^[^\s:]+:\d+$/.test(b))) {
+    if (
+      !Array.isArray(o.kafkaBrokers) ||
+      o.kafkaBrokers.some((b) => typeof b !== 'string' || !/^[^\s:]+:\d+$/.test(b))
+    ) {
       throw invalidOption('kafkaBrokers', 'host:port strings', o.kafkaBrokers);
     }
     kafkaBrokers = o.kafkaBrokers.length > 0 ? [...o.kafkaBrokers] : undefined;

@@ -4,16 +4,24 @@
  * every sink is flushed and closed and each store is checked against what was produced.
  */
 import { mkdtemp, rm } from 'node:fs/promises';
-import { type Server, createServer } from 'node:http';
+import { createServer, type Server } from 'node:http';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { type ShutdownCoordinator, type SinkSnapshot, SpillwayError, messageOf } from '@spillway/core';
+import { messageOf, type ShutdownCoordinator, type SinkSnapshot, SpillwayError } from '@spillway/core';
 import { PrometheusExporter } from '@spillway/prometheus';
 import { type EmbeddedPostgres, startEmbeddedPostgres } from './embedded-postgres-server.js';
 import { type DemoOptions, resolveDemoOptions } from './options.js';
 import { type DockEvent, Scenario } from './scenario.js';
-import { DEMO_SINK_SETTINGS, type DemoStore, type Verification, kafkaStore, metaOf, postgresStore, redisStore } from './stores.js';
-import { type DemoView, type ViewState, fmt, liveView, ms, plainView } from './view.js';
+import {
+  DEMO_SINK_SETTINGS,
+  type DemoStore,
+  kafkaStore,
+  metaOf,
+  postgresStore,
+  redisStore,
+  type Verification,
+} from './stores.js';
+import { type DemoView, fmt, liveView, ms, plainView, type ViewState } from './view.js';
 
 /** Where the demo writes: a stream, and whether it is a terminal. */
 export interface DemoOutput {
@@ -53,7 +61,11 @@ export interface DemoResult {
 
 const TICK_MS = 10;
 
-export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinator, out: DemoOutput): Promise<DemoResult> {
+export async function runDemo(
+  input: DemoOptions,
+  coordinator: ShutdownCoordinator,
+  out: DemoOutput,
+): Promise<DemoResult> {
   const o = resolveDemoOptions(input);
   const say = (line = '') => out.log(line);
   const runDir = await mkdtemp(join(tmpdir(), 'spillway-demo-'));
@@ -74,7 +86,8 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
     });
     postgresUrl = server.url;
   }
-  if (coordinator.started) throw new SpillwayError('SPILLWAY_SINK_CLOSED', 'The demo was stopped while starting');
+  if (coordinator.started)
+    throw new SpillwayError('SPILLWAY_SINK_CLOSED', 'The demo was stopped while starting');
 
   const stores: Array<{ name: string; store: DemoStore }> = [];
   const open = async (name: string, make: () => Promise<DemoStore>) => {
@@ -84,11 +97,15 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
       coordinator.add('clients', `${name} client`, () => store.close());
       return store;
     } catch (error) {
-      throw new SpillwayError('SPILLWAY_STORE_ERROR', `Could not open ${name}: ${messageOf(error)}`, { cause: error });
+      throw new SpillwayError('SPILLWAY_STORE_ERROR', `Could not open ${name}: ${messageOf(error)}`, {
+        cause: error,
+      });
     }
   };
   const pgStore = await open('postgres', () => postgresStore(postgresUrl as string, o.schema, runDir));
-  say(`  postgres  ${embedded ? `embedded PostgreSQL ${embedded.version} on 127.0.0.1:${embedded.port}` : redact(postgresUrl)}`);
+  say(
+    `  postgres  ${embedded ? `embedded PostgreSQL ${embedded.version} on 127.0.0.1:${embedded.port}` : redact(postgresUrl)}`,
+  );
   if (embedded) say(`            data in ${embedded.dir} (removed at exit)`);
   say(`            → ${pgStore.where}`);
   if (o.redisUrl) {
@@ -106,7 +123,9 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
     say('  kafka     off (--kafka <host:port> or SPILLWAY_KAFKA_BROKERS: enriched events topic)');
   }
   const s = DEMO_SINK_SETTINGS;
-  say(`  sinks     maxRecords ${s.maxRecords} · maxAgeMs ${s.maxAgeMs} · idleMs ${s.idleMs} · concurrency ${s.concurrency}`);
+  say(
+    `  sinks     maxRecords ${s.maxRecords} · maxAgeMs ${s.maxAgeMs} · idleMs ${s.idleMs} · concurrency ${s.concurrency}`,
+  );
   say(`            maxPendingRecords ${s.maxPendingRecords} (then write() waits: backpressure)`);
 
   const sinks = stores.map((x) => x.store.sink);
@@ -127,10 +146,18 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
       );
     });
     const server = metricsServer;
-    await new Promise<void>((resolve, reject) => server.once('error', reject).listen(o.metricsPort, '127.0.0.1', resolve));
+    await new Promise<void>((resolve, reject) =>
+      server.once('error', reject).listen(o.metricsPort, '127.0.0.1', resolve),
+    );
     const address = server.address();
-    say(`  metrics   http://127.0.0.1:${typeof address === 'object' && address ? address.port : o.metricsPort}/metrics (Prometheus text format)`);
-    coordinator.add('clients', 'metrics endpoint', () => new Promise<void>((resolve) => server.close(() => resolve())));
+    say(
+      `  metrics   http://127.0.0.1:${typeof address === 'object' && address ? address.port : o.metricsPort}/metrics (Prometheus text format)`,
+    );
+    coordinator.add(
+      'clients',
+      'metrics endpoint',
+      () => new Promise<void>((resolve) => server.close(() => resolve())),
+    );
   }
   say('');
 
@@ -142,7 +169,10 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
   const elapsed = () => performance.now() - started;
   const stopSources = new AbortController();
 
-  const view = o.view === 'plain' || (o.view === 'auto' && !out.isTTY) ? plainView((l) => out.stream.write(`${l}\n`), o.plainEveryMs) : liveView(out.stream as NodeJS.WriteStream);
+  const view =
+    o.view === 'plain' || (o.view === 'auto' && !out.isTTY)
+      ? plainView((l) => out.stream.write(`${l}\n`), o.plainEveryMs)
+      : liveView(out.stream as NodeJS.WriteStream);
   out.view = view;
   const liveFigures = new Map<string, string>();
   let polling: Promise<unknown> | undefined;
@@ -166,7 +196,11 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
       eventsPerSecond: scenario.rateAt(t),
       produced,
       held: scenario.heldCount,
-      sinks: stores.map(({ name, store }) => ({ name, snapshot: store.sink.snapshot(), live: liveFigures.get(name) })),
+      sinks: stores.map(({ name, store }) => ({
+        name,
+        snapshot: store.sink.snapshot(),
+        live: liveFigures.get(name),
+      })),
       stopping,
     };
   };
@@ -208,12 +242,25 @@ export async function runDemo(input: DemoOptions, coordinator: ShutdownCoordinat
     out.view = undefined;
     const checked: DemoStoreResult[] = [];
     for (const { name, store } of stores) {
-      const verification = await store.verify({ produced, lastByDock }).catch((e: unknown): Verification => ({ ok: false, lines: [`could not check: ${messageOf(e)}`] }));
+      const verification = await store
+        .verify({ produced, lastByDock })
+        .catch((e: unknown): Verification => ({ ok: false, lines: [`could not check: ${messageOf(e)}`] }));
       checked.push({ name, snapshot: store.sink.snapshot(), verification });
     }
-    result = { ok: checked.every((c) => c.verification.ok && c.snapshot.pendingRecords === 0 && c.snapshot.deadLettered === 0), produced, elapsedMs: elapsed(), stores: checked };
+    result = {
+      ok: checked.every(
+        (c) => c.verification.ok && c.snapshot.pendingRecords === 0 && c.snapshot.deadLettered === 0,
+      ),
+      produced,
+      elapsedMs: elapsed(),
+      stores: checked,
+    };
     for (const line of summaryLines(result)) say(line);
-    if (!result.ok) throw new SpillwayError('SPILLWAY_STORE_ERROR', 'The summary found missing or pending records (see above)');
+    if (!result.ok)
+      throw new SpillwayError(
+        'SPILLWAY_STORE_ERROR',
+        'The summary found missing or pending records (see above)',
+      );
   });
 
   await generate.catch((e: unknown) => say(`  generator stopped: ${messageOf(e)}`));
@@ -230,18 +277,27 @@ export function summaryLines(r: DemoResult): string[] {
   lines.push(`Summary — ${(r.elapsedMs / 1000).toFixed(1)} s, ${fmt(r.produced)} dock events produced`);
   for (const s of r.stores) {
     const snap = s.snapshot;
-    lines.push(`  ${s.name.padEnd(9)} written ${fmt(snap.written)} · dead-lettered ${fmt(snap.deadLettered)} · pending ${fmt(snap.pendingRecords)} · retries ${fmt(snap.retries)}`);
-    for (const [i, part] of s.verification.lines.entries()) lines.push(`  ${''.padEnd(9)} ${i === 0 ? (s.verification.ok ? '✓' : '✗') : ' '} ${part}`);
+    lines.push(
+      `  ${s.name.padEnd(9)} written ${fmt(snap.written)} · dead-lettered ${fmt(snap.deadLettered)} · pending ${fmt(snap.pendingRecords)} · retries ${fmt(snap.retries)}`,
+    );
+    for (const [i, part] of s.verification.lines.entries())
+      lines.push(`  ${''.padEnd(9)} ${i === 0 ? (s.verification.ok ? '✓' : '✗') : ' '} ${part}`);
   }
   for (const s of r.stores) {
     const f = s.snapshot.flushes;
-    const reasons = (Object.keys(f) as Array<keyof typeof f>).filter((k) => f[k] > 0).map((k) => `${k} ${fmt(f[k])}`);
-    lines.push(`  flushes   ${s.name}: ${reasons.join(' · ') || 'none'} (${fmt(s.snapshot.batches)} batches, mean ${fmt(s.snapshot.batchRecords.mean)})`);
+    const reasons = (Object.keys(f) as Array<keyof typeof f>)
+      .filter((k) => f[k] > 0)
+      .map((k) => `${k} ${fmt(f[k])}`);
+    lines.push(
+      `  flushes   ${s.name}: ${reasons.join(' · ') || 'none'} (${fmt(s.snapshot.batches)} batches, mean ${fmt(s.snapshot.batchRecords.mean)})`,
+    );
   }
   for (const s of r.stores) {
     const a = s.snapshot.acceptToDurableMs;
     const e = s.snapshot.eventToDurableMs;
-    lines.push(`  latency   ${s.name}: accept→durable p50 ${ms(a.p50)} · p99 ${ms(a.p99)} · max ${ms(a.max)} (maxAgeMs ${DEMO_SINK_SETTINGS.maxAgeMs})`);
+    lines.push(
+      `  latency   ${s.name}: accept→durable p50 ${ms(a.p50)} · p99 ${ms(a.p99)} · max ${ms(a.max)} (maxAgeMs ${DEMO_SINK_SETTINGS.maxAgeMs})`,
+    );
     // Events the silent district's uplink held reach the store late by design: its outage.
     const held = e.max > a.max + 1000 ? ' (the held replay)' : '';
     lines.push(`  ${''.padEnd(9)} ${s.name}: event time→durable p99 ${ms(e.p99)} · max ${ms(e.max)}${held}`);
@@ -254,7 +310,9 @@ export function summaryLines(r: DemoResult): string[] {
       : `  STUCK: ${stuck.map((s) => `${s.name} ${s.snapshot.pendingRecords} pending`).join(', ')}`,
   );
   lines.push(
-    lost.length === 0 ? '  nothing lost: every store holds exactly what was produced' : `  LOST OR EXTRA: ${lost.map((s) => s.name).join(', ')}`,
+    lost.length === 0
+      ? '  nothing lost: every store holds exactly what was produced'
+      : `  LOST OR EXTRA: ${lost.map((s) => s.name).join(', ')}`,
   );
   lines.push(`Result: ${r.ok ? 'OK' : 'FAILED'}`);
   return lines;

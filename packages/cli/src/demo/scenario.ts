@@ -97,7 +97,12 @@ export class Scenario {
     for (const district of DISTRICTS) {
       const code = dockCode(district);
       for (let i = 1; i <= DOCKS_PER_DISTRICT; i++) {
-        docks.push({ id: `${code}-${String(i).padStart(3, '0')}`, district, bikes: Math.floor(this.random() * (DOCK_CAPACITY + 1)), faulty: false });
+        docks.push({
+          id: `${code}-${String(i).padStart(3, '0')}`,
+          district,
+          bikes: Math.floor(this.random() * (DOCK_CAPACITY + 1)),
+          faulty: false,
+        });
       }
     }
     this.docks = docks;
@@ -171,7 +176,22 @@ export class Scenario {
     else dock.bikes = Math.min(DOCK_CAPACITY, dock.bikes + 1);
     const seq = (this.seqs.get(dock.district) ?? 0) + 1;
     this.seqs.set(dock.district, seq);
-    const status = dock.faulty ? 'fault' : dock.bikes === 0 ? 'empty' : dock.bikes === DOCK_CAPACITY ? 'full' : 'in_service';
-    return { eventId: 0, dockId: dock.id, district: dock.district, seq, bikes: dock.bikes, emptySlots: DOCK_CAPACITY - dock.bikes, status, at };
+    const status = dock.faulty
+      ? 'fault'
+      : dock.bikes === 0
+        ? 'empty'
+        : dock.bikes === DOCK_CAPACITY
+          ? 'full'
+          : 'in_service';
+    return {
+      eventId: 0,
+      dockId: dock.id,
+      district: dock.district,
+      seq,
+      bikes: dock.bikes,
+      emptySlots: DOCK_CAPACITY - dock.bikes,
+      status,
+      at,
+    };
   }
 }

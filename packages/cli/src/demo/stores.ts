@@ -4,7 +4,7 @@
  * Each one can check afterwards that what it holds matches what was produced.
  */
 import { join } from 'node:path';
-import { type RecordMeta, Sink, fileDeadLetter, messageOf } from '@spillway/core';
+import { fileDeadLetter, messageOf, type RecordMeta, Sink } from '@spillway/core';
 import { kafkaProducerAdapter } from '@spillway/kafka';
 import { postgresSink } from '@spillway/postgres';
 import { hashFields, redisAdapter } from '@spillway/redis';
@@ -89,7 +89,8 @@ export async function postgresStore(url: string, schema: string, runDir: string)
     ...DEMO_SINK_SETTINGS,
     deadLetter: fileDeadLetter(join(runDir, 'postgres.dead-letters.ndjson')),
   });
-  const count = async () => Number((await pool.query<{ n: string }>(`SELECT count(*) AS n FROM ${qualified}`)).rows[0]?.n ?? 0);
+  const count = async () =>
+    Number((await pool.query<{ n: string }>(`SELECT count(*) AS n FROM ${qualified}`)).rows[0]?.n ?? 0);
   return {
     sink,
     where: `table ${schema}.${TABLE} (COPY)`,
@@ -97,12 +98,17 @@ export async function postgresStore(url: string, schema: string, runDir: string)
     async verify({ produced }) {
       const [n, distinct] = await Promise.all([
         count(),
-        pool.query<{ n: string }>(`SELECT count(DISTINCT event_id) AS n FROM ${qualified}`).then((r) => Number(r.rows[0]?.n ?? 0)),
+        pool
+          .query<{ n: string }>(`SELECT count(DISTINCT event_id) AS n FROM ${qualified}`)
+          .then((r) => Number(r.rows[0]?.n ?? 0)),
       ]);
       const ok = n === produced && distinct === produced;
       return {
         ok,
-        lines: [`SELECT count(*) FROM ${schema}.${TABLE}: ${fmt(n)} rows`, `${fmt(distinct)} distinct event_id; ${fmt(produced)} produced ${ok ? '= rows written' : '≠ rows written'}`],
+        lines: [
+          `SELECT count(*) FROM ${schema}.${TABLE}: ${fmt(n)} rows`,
+          `${fmt(distinct)} distinct event_id; ${fmt(produced)} produced ${ok ? '= rows written' : '≠ rows written'}`,
+        ],
       };
     },
     close: () => pool.end(),
@@ -127,7 +133,11 @@ export async function redisStore(url: string, prefix: string, runDir: string): P
       }),
     }),
   });
-  const sink = new Sink(adapter, { name: 'redis', ...DEMO_SINK_SETTINGS, deadLetter: fileDeadLetter(join(runDir, 'redis.dead-letters.ndjson')) });
+  const sink = new Sink(adapter, {
+    name: 'redis',
+    ...DEMO_SINK_SETTINGS,
+    deadLetter: fileDeadLetter(join(runDir, 'redis.dead-letters.ndjson')),
+  });
   return {
     sink,
     where: `hashes ${prefix}dock:<id> (pipelined HSET)`,
@@ -142,7 +152,10 @@ export async function redisStore(url: string, prefix: string, runDir: string): P
         if (replies[i]?.[1] === String(e.eventId)) matching++;
       });
       const ok = matching === docks.length;
-      return { ok, lines: [`${fmt(matching)} of ${fmt(docks.length)} dock hashes hold their dock's last event`] };
+      return {
+        ok,
+        lines: [`${fmt(matching)} of ${fmt(docks.length)} dock hashes hold their dock's last event`],
+      };
     },
     close: async () => {
       await client.quit().catch(() => client.disconnect());
@@ -160,7 +173,11 @@ function enrich(e: DockEvent) {
   };
 }
 
-export async function kafkaStore(brokers: readonly string[], topic: string, runDir: string): Promise<DemoStore> {
+export async function kafkaStore(
+  brokers: readonly string[],
+  topic: string,
+  runDir: string,
+): Promise<DemoStore> {
   const kafka = new Kafka({ clientId: 'tandem-demo', brokers: [...brokers], logLevel: logLevel.NOTHING });
   const admin = kafka.admin();
   await admin.connect();
@@ -179,7 +196,11 @@ export async function kafkaStore(brokers: readonly string[], topic: string, runD
     topic,
     mapper: (e) => ({ key: e.dockId, value: JSON.stringify(enrich(e)), timestamp: e.at }),
   });
-  const sink = new Sink(adapter, { name: 'kafka', ...DEMO_SINK_SETTINGS, deadLetter: fileDeadLetter(join(runDir, 'kafka.dead-letters.ndjson')) });
+  const sink = new Sink(adapter, {
+    name: 'kafka',
+    ...DEMO_SINK_SETTINGS,
+    deadLetter: fileDeadLetter(join(runDir, 'kafka.dead-letters.ndjson')),
+  });
   return {
     sink,
     where: `topic ${topic} (idempotent producer, acks=all)`,
@@ -187,7 +208,13 @@ export async function kafkaStore(brokers: readonly string[], topic: string, runD
     async verify({ produced }) {
       const appended = (await total()) - before;
       const ok = appended === produced;
-      return { ok, lines: [`topic high watermarks grew by ${fmt(appended)}`, `${fmt(produced)} produced ${ok ? '= messages appended' : '≠ messages appended'}`] };
+      return {
+        ok,
+        lines: [
+          `topic high watermarks grew by ${fmt(appended)}`,
+          `${fmt(produced)} produced ${ok ? '= messages appended' : '≠ messages appended'}`,
+        ],
+      };
     },
     close: async () => {
       await admin.disconnect().catch((e: unknown) => console.error(`kafka admin: ${messageOf(e)}`));

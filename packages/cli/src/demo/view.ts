@@ -63,12 +63,16 @@ export function renderFrame(state: ViewState): string {
   const title = 'Tandem Bikes · spillway demo';
   const time = `${clock(state.elapsedMs)} / ${clock(state.durationMs)}`;
   lines.push(`${title}${' '.repeat(Math.max(2, 76 - title.length - time.length))}${time}`);
-  const phase = state.stopping ? 'stopping: flushing every sink' : `${state.phase} · ${fmt(state.eventsPerSecond)} events/s`;
+  const phase = state.stopping
+    ? 'stopping: flushing every sink'
+    : `${state.phase} · ${fmt(state.eventsPerSecond)} events/s`;
   const held = state.held > 0 ? ` · uplink holding ${fmt(state.held)}` : '';
   lines.push(`${phase}${held}`);
   lines.push(`produced ${fmt(state.produced)} dock events`);
   lines.push('');
-  lines.push(`${padEnd('sink', 9)}${pad('buffered', 9)}${pad('oldest', 9)}${pad('in flight', 10)}${pad('written', 10)}${pad('p99 accept→durable', 20)}`);
+  lines.push(
+    `${padEnd('sink', 9)}${pad('buffered', 9)}${pad('oldest', 9)}${pad('in flight', 10)}${pad('written', 10)}${pad('p99 accept→durable', 20)}`,
+  );
   for (const s of state.sinks) {
     const snap = s.snapshot;
     lines.push(
@@ -87,7 +91,11 @@ export function renderFrame(state: ViewState): string {
     lines.push(`in the stores: ${live.map((s) => `${s.name} ${s.live}`).join(' · ')}`);
   }
   lines.push('');
-  lines.push(state.stopping ? 'shutting down: sources → sinks → summary → clients' : 'Ctrl-C stops cleanly (sources stop, sinks flush, then the summary)');
+  lines.push(
+    state.stopping
+      ? 'shutting down: sources → sinks → summary → clients'
+      : 'Ctrl-C stops cleanly (sources stop, sinks flush, then the summary)',
+  );
   return lines.join('\n');
 }
 
