@@ -11,11 +11,19 @@
 // 413 past the size limit; 415 for a content type other than text/csv or application/x-ndjson;
 // 503 when the store failed (nothing reported written that is not durable).
 import { randomUUID } from 'node:crypto';
-import { type IncomingMessage, type Server, type ServerResponse, createServer } from 'node:http';
+import { createServer, type IncomingMessage, type Server, type ServerResponse } from 'node:http';
 import { join } from 'node:path';
 import { pathToFileURL } from 'node:url';
 import type { Sink } from '@spillway/core';
-import { type ColumnSpec, IngestError, type IngestSummary, RejectFile, type Row, formatFromContentType, ingest } from '@spillway/ingest';
+import {
+  type ColumnSpec,
+  formatFromContentType,
+  IngestError,
+  type IngestSummary,
+  ingest,
+  RejectFile,
+  type Row,
+} from '@spillway/ingest';
 import { postgresSink } from '@spillway/postgres';
 import pg from 'pg';
 
@@ -98,7 +106,9 @@ export function createUploadServer(options: UploadServerOptions): UploadServer {
       return reply(res, 413, { error: `body larger than ${maxBodyBytes} bytes` }, true);
     }
     const id = randomUUID();
-    const rejects = options.rejectsDir ? new RejectFile(join(options.rejectsDir, `${partner}-${id}.ndjson`)) : undefined;
+    const rejects = options.rejectsDir
+      ? new RejectFile(join(options.rejectsDir, `${partner}-${id}.ndjson`))
+      : undefined;
     const aborted = new AbortController();
     req.once('close', () => {
       if (!req.complete) aborted.abort();
@@ -114,7 +124,9 @@ export function createUploadServer(options: UploadServerOptions): UploadServer {
         signal: aborted.signal,
         ...(rejects && { rejects }),
       });
-      log(`upload ${partner}/${id}: ${summary.rowsWritten} written, ${summary.rowsRejected} rejected in ${summary.durationMs} ms`);
+      log(
+        `upload ${partner}/${id}: ${summary.rowsWritten} written, ${summary.rowsRejected} rejected in ${summary.durationMs} ms`,
+      );
       reply(res, 200, { upload: id, ...publicSummary(summary) });
     } catch (error) {
       if (!(error instanceof IngestError)) throw error;
@@ -147,18 +159,31 @@ function publicSummary(s: IngestSummary) {
 /** Sends JSON. With `close`, the connection is closed after the answer, so an unread body is dropped. */
 function reply(res: ServerResponse, status: number, body: unknown, close = false): void {
   const text = `${JSON.stringify(body)}\n`;
-  res.writeHead(status, { 'content-type': 'application/json', 'content-length': Buffer.byteLength(text), ...(close && { connection: 'close' }) });
+  res.writeHead(status, {
+    'content-type': 'application/json',
+    'content-length': Buffer.byteLength(text),
+    ...(close && { connection: 'close' }),
+  });
   res.end(text, () => {
     if (close) res.req.destroy();
   });
 }
 
 if (import.meta.url === pathToFileURL(process.argv[1] ?? '').href) {
-  const pool = new pg.Pool({ connectionString: process.env.DATABASE_URL ?? 'postgres://127.0.0.1:5432/test', max: 4 });
+  const pool = new pg.Pool({
+    connectionString: process.env.DATABASE_URL ?? 'postgres://127.0.0.1:5432/test',
+    max: 4,
+  });
   await pool.query(SERVICE_RECORDS_DDL);
-  const { server, close } = createUploadServer({ pool, rejectsDir: process.env.REJECTS_DIR, log: (l) => console.log(l) });
+  const { server, close } = createUploadServer({
+    pool,
+    rejectsDir: process.env.REJECTS_DIR,
+    log: (l) => console.log(l),
+  });
   const port = Number(process.env.PORT ?? 8080);
-  server.listen(port, '127.0.0.1', () => console.log(`partner uploads on http://127.0.0.1:${port}/uploads/<partner>`));
+  server.listen(port, '127.0.0.1', () =>
+    console.log(`partner uploads on http://127.0.0.1:${port}/uploads/<partner>`),
+  );
   const stop = async () => {
     await close();
     await pool.end();

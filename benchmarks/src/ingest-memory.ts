@@ -7,14 +7,14 @@
 //   INGEST_BYTES=268435456 INGEST_RUNS=3 node --import tsx benchmarks/src/ingest-memory.ts
 //   INGEST_STORE=postgres SPILLWAY_PG_URL=postgres://127.0.0.1:5432/test node --import tsx benchmarks/src/ingest-memory.ts
 import { spawn } from 'node:child_process';
+import { once } from 'node:events';
 import { createReadStream, createWriteStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
-import { once } from 'node:events';
 import { cpus, tmpdir, totalmem } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { Sink, type SinkAdapter } from '@spillway/core';
-import { type ColumnSpec, type Row, ingestFile } from '@spillway/ingest';
+import { type ColumnSpec, ingestFile, type Row } from '@spillway/ingest';
 
 const COLUMNS: ColumnSpec[] = [
   { name: 'record_id', type: 'string', required: true, pattern: '^SR-\\d+$' },
@@ -27,7 +27,13 @@ const COLUMNS: ColumnSpec[] = [
   { name: 'note' },
 ];
 const KINDS = ['brakes', 'chain', 'tyre', 'battery', 'lights'];
-const NOTES = ['pads replaced', '"worn, replaced" front and rear', 'ok', 'tightened\r\nchecked again', 'café stop: saddle'];
+const NOTES = [
+  'pads replaced',
+  '"worn, replaced" front and rear',
+  'ok',
+  'tightened\r\nchecked again',
+  'café stop: saddle',
+];
 
 export async function generateCsv(path: string, bytes: number): Promise<number> {
   const out = createWriteStream(path);
@@ -74,10 +80,22 @@ async function child(mode: string, path: string): Promise<void> {
     if (mode === 'postgres') {
       const pg = (await import('pg')).default;
       const { postgresSink } = await import('@spillway/postgres');
-      const pool = new pg.Pool({ connectionString: process.env.SPILLWAY_PG_URL ?? 'postgres://127.0.0.1:5432/test', max: 2 });
+      const pool = new pg.Pool({
+        connectionString: process.env.SPILLWAY_PG_URL ?? 'postgres://127.0.0.1:5432/test',
+        max: 2,
+      });
       const table = `ingest_bench_${process.pid}`;
-      await pool.query(`CREATE UNLOGGED TABLE ${table} (record_id text, dock_id text, bike_id int, serviced_at timestamptz, odometer_km float8, passed bool, kind text, note text)`);
-      sink = postgresSink<Row>({ pool, table, mode: 'copy', columns: COLUMNS.map((c) => c.name), map: (r) => COLUMNS.map((c) => r[c.name]), maxRecords: 5000 });
+      await pool.query(
+        `CREATE UNLOGGED TABLE ${table} (record_id text, dock_id text, bike_id int, serviced_at timestamptz, odometer_km float8, passed bool, kind text, note text)`,
+      );
+      sink = postgresSink<Row>({
+        pool,
+        table,
+        mode: 'copy',
+        columns: COLUMNS.map((c) => c.name),
+        map: (r) => COLUMNS.map((c) => r[c.name]),
+        maxRecords: 5000,
+      });
       done = async () => {
         await pool.query(`DROP TABLE ${table}`);
         await pool.end();
@@ -88,11 +106,14 @@ async function child(mode: string, path: string): Promise<void> {
     await done();
     rows = s.rowsWritten;
     bytes = s.bytesRead;
-    if (s.rowsRejected > 0) throw new RangeError(`${s.rowsRejected} rows rejected: ${JSON.stringify(s.firstRejects.slice(0, 3))}`);
+    if (s.rowsRejected > 0)
+      throw new RangeError(`${s.rowsRejected} rows rejected: ${JSON.stringify(s.firstRejects.slice(0, 3))}`);
   }
   clearInterval(timer);
   peak = Math.max(peak, process.memoryUsage().rss);
-  process.stdout.write(`${JSON.stringify({ mode, rows, bytes, ms: performance.now() - t0, peakRssBytes: peak })}\n`);
+  process.stdout.write(
+    `${JSON.stringify({ mode, rows, bytes, ms: performance.now() - t0, peakRssBytes: peak })}\n`,
+  );
 }
 
 interface RunResult {
@@ -105,10 +126,18 @@ interface RunResult {
 
 function runChild(mode: string, path: string): Promise<RunResult> {
   return new Promise((resolve, reject) => {
-    const p = spawn(process.execPath, [...process.execArgv, fileURLToPath(import.meta.url), '--child', mode, path], { stdio: ['ignore', 'pipe', 'inherit'] });
+    const p = spawn(
+      process.execPath,
+      [...process.execArgv, fileURLToPath(import.meta.url), '--child', mode, path],
+      { stdio: ['ignore', 'pipe', 'inherit'] },
+    );
     let out = '';
     p.stdout.on('data', (d) => (out += d));
-    p.on('exit', (code) => (code === 0 ? resolve(JSON.parse(out.trim().split('\n').pop()!) as RunResult) : reject(new RangeError(`${mode} run exited ${code}`))));
+    p.on('exit', (code) =>
+      code === 0
+        ? resolve(JSON.parse(out.trim().split('\n').pop()!) as RunResult)
+        : reject(new RangeError(`${mode} run exited ${code}`)),
+    );
   });
 }
 
@@ -124,11 +153,17 @@ async function main(): Promise<void> {
   if (!existing || existing.size < bytes) {
     const t0 = performance.now();
     const rows = await generateCsv(path, bytes);
-    process.stdout.write(`generated ${path}: ${rows} rows in ${((performance.now() - t0) / 1000).toFixed(1)} s\n`);
+    process.stdout.write(
+      `generated ${path}: ${rows} rows in ${((performance.now() - t0) / 1000).toFixed(1)} s\n`,
+    );
   }
   const size = (await stat(path)).size;
-  process.stdout.write(`machine: ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${mib(totalmem())} MiB, node ${process.version}\n`);
-  process.stdout.write(`file: ${mib(size)} MiB; store: ${store}; runs: ${runs} of each (baseline = read + count lines, no parsing)\n`);
+  process.stdout.write(
+    `machine: ${cpus().length} × ${cpus()[0]?.model ?? '?'}, ${mib(totalmem())} MiB, node ${process.version}\n`,
+  );
+  process.stdout.write(
+    `file: ${mib(size)} MiB; store: ${store}; runs: ${runs} of each (baseline = read + count lines, no parsing)\n`,
+  );
   const results: Record<string, RunResult[]> = { read: [], [store]: [] };
   for (let i = 0; i < runs; i++) {
     results.read!.push(await runChild('read', path));
@@ -138,7 +173,20 @@ async function main(): Promise<void> {
     Object.entries(results).map(([mode, rs]) => {
       const rss = rs.map((r) => r.peakRssBytes);
       const mbps = rs.map((r) => r.bytes / 1024 / 1024 / (r.ms / 1000));
-      return [mode, { runs: rs.length, rows: rs[0]!.rows, peakRssMiB: { median: +mib(median(rss)), min: +mib(Math.min(...rss)), max: +mib(Math.max(...rss)) }, mibPerSecond: { median: +median(mbps).toFixed(1), min: +Math.min(...mbps).toFixed(1), max: +Math.max(...mbps).toFixed(1) }, rowsPerSecond: Math.round(median(rs.map((r) => r.rows / (r.ms / 1000)))) }];
+      return [
+        mode,
+        {
+          runs: rs.length,
+          rows: rs[0]!.rows,
+          peakRssMiB: { median: +mib(median(rss)), min: +mib(Math.min(...rss)), max: +mib(Math.max(...rss)) },
+          mibPerSecond: {
+            median: +median(mbps).toFixed(1),
+            min: +Math.min(...mbps).toFixed(1),
+            max: +Math.max(...mbps).toFixed(1),
+          },
+          rowsPerSecond: Math.round(median(rs.map((r) => r.rows / (r.ms / 1000)))),
+        },
+      ];
     }),
   );
   const base = summary.read!;

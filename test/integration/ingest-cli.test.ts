@@ -6,10 +6,19 @@ import { join } from 'node:path';
 import { Command } from 'commander';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 import { registerIngest } from '../../packages/cli/src/commands/ingest.js';
-import { type TestKafka, type TestRedis, type TestSchema, services, withKafka, withRedis, withSchema } from '../harness/index.js';
+import {
+  services,
+  type TestKafka,
+  type TestRedis,
+  type TestSchema,
+  withKafka,
+  withRedis,
+  withSchema,
+} from '../harness/index.js';
 
 const SAMPLES = new URL('../../examples/data/', import.meta.url);
-const SPEC = 'record_id!,dock_id!,bike_id:integer!,serviced_at:timestamp!,odometer_km:number,passed:boolean,kind,note';
+const SPEC =
+  'record_id!,dock_id!,bike_id:integer!,serviced_at:timestamp!,odometer_km:number,passed:boolean,kind,note';
 
 let db: TestSchema;
 let redis: TestRedis;
@@ -18,7 +27,8 @@ let dir: string;
 beforeAll(async () => {
   [db, redis, kafka] = await Promise.all([withSchema('ingest_cli'), withRedis('ingest_cli'), withKafka()]);
   dir = await mkdtemp(join(tmpdir(), 'spillway-ingest-cli-'));
-  for (const f of ['service-records.csv', 'service-records-with-errors.csv', 'service-records.ndjson']) await copyFile(new URL(f, SAMPLES), join(dir, f));
+  for (const f of ['service-records.csv', 'service-records-with-errors.csv', 'service-records.ndjson'])
+    await copyFile(new URL(f, SAMPLES), join(dir, f));
   await db.pool.query(`CREATE TABLE service_records (record_id text PRIMARY KEY, dock_id text NOT NULL, bike_id int NOT NULL,
     serviced_at timestamptz NOT NULL, odometer_km double precision, passed boolean, kind text, note text)`);
 });
@@ -58,40 +68,113 @@ const pgTarget = () => {
 describe('spillway ingest', () => {
   it('exits 0 when every row is written, prints the summary and writes it as JSON', async () => {
     const summaryPath = join(dir, 'summary.json');
-    const { code, out } = await spillway(join(dir, 'service-records.csv'), '--to', pgTarget(), '--table', 'service_records', '--key', 'record_id', '--columns', SPEC, '--progress', 'none', '--summary', summaryPath);
+    const { code, out } = await spillway(
+      join(dir, 'service-records.csv'),
+      '--to',
+      pgTarget(),
+      '--table',
+      'service_records',
+      '--key',
+      'record_id',
+      '--columns',
+      SPEC,
+      '--progress',
+      'none',
+      '--summary',
+      summaryPath,
+    );
     expect(code).toBe(0);
     expect(out).toMatch(/rows written\s+5 \(durable\)/);
     const summary = JSON.parse(await readFile(summaryPath, 'utf8'));
-    expect(summary).toMatchObject({ rowsRead: 5, rowsWritten: 5, rowsRejected: 0, durable: true, format: 'csv' });
+    expect(summary).toMatchObject({
+      rowsRead: 5,
+      rowsWritten: 5,
+      rowsRejected: 0,
+      durable: true,
+      format: 'csv',
+    });
     const { rows } = await db.pool.query(`SELECT note FROM service_records WHERE record_id = 'SR-1003'`);
     expect(rows[0].note).toBe('rear tyre "slow leak" – replaced\nvalve checked twice');
   });
 
   it('exits 2 with rejects, and the reject file names their lines, columns and reasons', async () => {
     const rejects = join(dir, 'partner.rejects.csv');
-    const { code, out } = await spillway(join(dir, 'service-records-with-errors.csv'), '--to', pgTarget(), '--table', 'service_records', '--key', 'record_id', '--columns', SPEC, '--progress', 'none', '--rejects', rejects);
+    const { code, out } = await spillway(
+      join(dir, 'service-records-with-errors.csv'),
+      '--to',
+      pgTarget(),
+      '--table',
+      'service_records',
+      '--key',
+      'record_id',
+      '--columns',
+      SPEC,
+      '--progress',
+      'none',
+      '--rejects',
+      rejects,
+    );
     expect(code).toBe(2);
     expect(out).toMatch(/rows rejected\s+4/);
     expect((await stat(rejects)).mode & 0o777).toBe(0o600);
     const lines = (await readFile(rejects, 'utf8')).trim().split('\r\n');
     expect(lines[0]).toBe('line,column,reason,message,truncated,raw');
-    expect(lines.slice(1).map((l) => l.split(',').slice(0, 3).join(','))).toEqual(['3,bike_id,type', '4,,column-count', '5,serviced_at,type', '7,dock_id,required']);
+    expect(lines.slice(1).map((l) => l.split(',').slice(0, 3).join(','))).toEqual([
+      '3,bike_id,type',
+      '4,,column-count',
+      '5,serviced_at,type',
+      '7,dock_id,required',
+    ]);
   });
 
   it('exits 1 when more rows are rejected than --max-rejects allows', async () => {
-    const { code, out } = await spillway(join(dir, 'service-records-with-errors.csv'), '--to', pgTarget(), '--table', 'service_records', '--columns', SPEC, '--key', 'record_id', '--max-rejects', '1', '--progress', 'none');
+    const { code, out } = await spillway(
+      join(dir, 'service-records-with-errors.csv'),
+      '--to',
+      pgTarget(),
+      '--table',
+      'service_records',
+      '--columns',
+      SPEC,
+      '--key',
+      'record_id',
+      '--max-rejects',
+      '1',
+      '--progress',
+      'none',
+    );
     expect(code).toBe(1);
     expect(out).toMatch(/^Stopped: More than 1 row\(s\) rejected/);
   });
 
   it('exits 1 and says why when the store fails (missing table)', async () => {
-    const { code, out } = await spillway(join(dir, 'service-records.csv'), '--to', pgTarget(), '--table', 'no_such_table', '--columns', SPEC, '--progress', 'none');
+    const { code, out } = await spillway(
+      join(dir, 'service-records.csv'),
+      '--to',
+      pgTarget(),
+      '--table',
+      'no_such_table',
+      '--columns',
+      SPEC,
+      '--progress',
+      'none',
+    );
     expect(code).toBe(1);
     expect(out).toMatch(/42P01/);
   });
 
   it('writes rows as hashes into Redis with --key-template', async () => {
-    const { code } = await spillway(join(dir, 'service-records.ndjson'), '--to', services().redisUrl, '--key-template', `${redis.prefix}{record_id}`, '--columns', SPEC, '--progress', 'none');
+    const { code } = await spillway(
+      join(dir, 'service-records.ndjson'),
+      '--to',
+      services().redisUrl,
+      '--key-template',
+      `${redis.prefix}{record_id}`,
+      '--columns',
+      SPEC,
+      '--progress',
+      'none',
+    );
     expect(code).toBe(2); // line 5 of the sample is malformed JSON
     expect(await redis.redis.hgetall(`${redis.prefix}SR-3003`)).toEqual({
       record_id: 'SR-3003',
@@ -105,7 +188,19 @@ describe('spillway ingest', () => {
 
   it('writes rows as JSON messages to a Kafka topic, keyed by --message-key', async () => {
     const topic = await kafka.topic(1, 'ingest_cli');
-    const { code } = await spillway(join(dir, 'service-records.csv'), '--to', `kafka://${services().kafkaBrokers.join(',')}`, '--topic', topic, '--message-key', 'bike_id', '--columns', SPEC, '--progress', 'none');
+    const { code } = await spillway(
+      join(dir, 'service-records.csv'),
+      '--to',
+      `kafka://${services().kafkaBrokers.join(',')}`,
+      '--topic',
+      topic,
+      '--message-key',
+      'bike_id',
+      '--columns',
+      SPEC,
+      '--progress',
+      'none',
+    );
     expect(code).toBe(0);
     const offsets = await kafka.admin.fetchTopicOffsets(topic);
     expect(offsets[0]?.high).toBe('5');
@@ -122,12 +217,27 @@ describe('spillway ingest', () => {
       });
     });
     await consumer.disconnect();
-    expect(seen[0]).toEqual({ key: '117', value: expect.objectContaining({ record_id: 'SR-1001', bike_id: 117, serviced_at: '2024-05-01T08:12:00.000Z' }) });
+    expect(seen[0]).toEqual({
+      key: '117',
+      value: expect.objectContaining({
+        record_id: 'SR-1001',
+        bike_id: 117,
+        serviced_at: '2024-05-01T08:12:00.000Z',
+      }),
+    });
   });
 
   it('exits 64 when the format cannot be told from the file name and --format is not given', async () => {
     await writeFile(join(dir, 'no-extension'), '{"record_id":"SR-1"}\n');
-    const { code } = await spillway(join(dir, 'no-extension'), '--to', pgTarget(), '--table', 'service_records', '--progress', 'none');
+    const { code } = await spillway(
+      join(dir, 'no-extension'),
+      '--to',
+      pgTarget(),
+      '--table',
+      'service_records',
+      '--progress',
+      'none',
+    );
     expect(code).toBe(64);
   });
 });

@@ -8,10 +8,10 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { PassThrough } from 'node:stream';
 import { type FlushReason, ManualClock, Sink } from '@spillway/core';
-import { type ColumnSpec, type Row, ingest, ingestFile } from '@spillway/ingest';
+import { type ColumnSpec, ingest, ingestFile, type Row } from '@spillway/ingest';
 import { postgresAdapter, postgresSink } from '@spillway/postgres';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { SERVICE_RECORDS_DDL, createUploadServer } from '../../examples/partner-upload-server.js';
+import { createUploadServer, SERVICE_RECORDS_DDL } from '../../examples/partner-upload-server.js';
 import { type TestSchema, waitFor, withSchema } from '../harness/index.js';
 
 const COLUMNS: ColumnSpec[] = [
@@ -51,14 +51,19 @@ function good(n: number): string {
 }
 
 /** A 100,000-row partner file with 10 bad rows of different kinds; returns their lines and reasons. */
-async function partnerFile(path: string): Promise<{ multiline: number; bad: Map<number, [string, string | undefined]> }> {
+async function partnerFile(
+  path: string,
+): Promise<{ multiline: number; bad: Map<number, [string, string | undefined]> }> {
   const badAt = new Map<number, [string, string, string | undefined]>([
     [137, ['SR-137,DK-0137,1,2024-05-01T10:00:00Z,1,true,brakes\r\n', 'column-count', undefined]],
     [9_001, ['SR-9001,DK-0001,seven,2024-05-01T10:00:00Z,1,true,brakes,ok\r\n', 'type', 'bike_id']],
     [20_000, ['SR-20000,,5,2024-05-01T10:00:00Z,1,true,brakes,ok\r\n', 'required', 'dock_id']],
     [31_415, ['SR-31415,DK-0001,5,2024-13-01T10:00:00Z,1,true,brakes,ok\r\n', 'type', 'serviced_at']],
     [42_000, ['SR-42000,DK-0001,5,2024-05-01T10:00:00Z,1,true,brakes,caf\xe9\r\n', 'utf8', 'note']],
-    [50_505, ['SR-50505,DK-0001,5,2024-05-01T10:00:00Z,1,true,brakes,a "quoted" word\r\n', 'csv-syntax', 'note']],
+    [
+      50_505,
+      ['SR-50505,DK-0001,5,2024-05-01T10:00:00Z,1,true,brakes,a "quoted" word\r\n', 'csv-syntax', 'note'],
+    ],
     [61_000, ['XR-61000,DK-0001,5,2024-05-01T10:00:00Z,1,true,brakes,ok\r\n', 'pattern', 'record_id']],
     [72_000, ['SR-72000,DK-0001,5,2024-05-01T10:00:00Z,1,true,saddle,ok\r\n', 'enum', 'kind']],
     [88_888, ['SR-88888,DK-0001,5,2024-05-01T10:00:00Z,-4,true,brakes,ok\r\n', 'range', 'odometer_km']],
@@ -92,20 +97,42 @@ describe('a partner file into PostgreSQL', () => {
     const path = join(dir, 'partner-42.csv');
     const rejectsPath = join(dir, 'partner-42.rejects.ndjson');
     const { bad, multiline } = await partnerFile(path);
-    const sink = postgresSink<Row>({ pool: db.pool, table: name, columns: NAMES, map: (r) => NAMES.map((c) => r[c]), mode: 'copy', maxRecords: 5000 });
+    const sink = postgresSink<Row>({
+      pool: db.pool,
+      table: name,
+      columns: NAMES,
+      map: (r) => NAMES.map((c) => r[c]),
+      mode: 'copy',
+      maxRecords: 5000,
+    });
 
     const summary = await ingestFile(path, sink, { columns: COLUMNS, rejects: rejectsPath });
     await sink.close();
 
-    expect(summary).toMatchObject({ rowsRead: 100_000, rowsWritten: 99_990, rowsRejected: 10, rowsDeadLettered: 0, durable: true });
-    const { rows } = await db.pool.query(`SELECT count(*)::int AS n, count(*) FILTER (WHERE note LIKE E'checked, twice\\r\\nsigned off')::int AS multiline FROM ${name}`);
+    expect(summary).toMatchObject({
+      rowsRead: 100_000,
+      rowsWritten: 99_990,
+      rowsRejected: 10,
+      rowsDeadLettered: 0,
+      durable: true,
+    });
+    const { rows } = await db.pool.query(
+      `SELECT count(*)::int AS n, count(*) FILTER (WHERE note LIKE E'checked, twice\\r\\nsigned off')::int AS multiline FROM ${name}`,
+    );
     // Rows whose quoted note holds a CRLF landed with it (RFC 4180 §2.6), and line numbers still hold below.
     expect(rows[0]).toEqual({ n: 99_990, multiline });
     expect((await stat(rejectsPath)).mode & 0o777).toBe(0o600);
-    const lines = (await readFile(rejectsPath, 'utf8')).trim().split('\n').map((l) => JSON.parse(l) as { line: number; reason: string; column: string | null });
-    expect(lines.map((l) => [l.line, l.reason, l.column ?? undefined])).toEqual([...bad].map(([line, [reason, column]]) => [line, reason, column]));
+    const lines = (await readFile(rejectsPath, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l) as { line: number; reason: string; column: string | null });
+    expect(lines.map((l) => [l.line, l.reason, l.column ?? undefined])).toEqual(
+      [...bad].map(([line, [reason, column]]) => [line, reason, column]),
+    );
     // None of the rejected record ids reached the table.
-    const ids = await db.pool.query(`SELECT count(*)::int AS n FROM ${name} WHERE record_id = ANY($1)`, [['SR-137', 'SR-9001', 'SR-20000', 'SR-99999']]);
+    const ids = await db.pool.query(`SELECT count(*)::int AS n FROM ${name} WHERE record_id = ANY($1)`, [
+      ['SR-137', 'SR-9001', 'SR-20000', 'SR-99999'],
+    ]);
     expect(ids.rows[0].n).toBe(0);
   });
 
@@ -115,13 +142,24 @@ describe('a partner file into PostgreSQL', () => {
     const body = Array.from({ length: 5000 }, (_, i) => good(i + 1)).join('');
     await writeFile(path, HEADER + body);
     const upload = async () => {
-      const sink = postgresSink<Row>({ pool: db.pool, table: name, columns: NAMES, map: (r) => NAMES.map((c) => r[c]), mode: 'upsert', conflict: { key: ['record_id'] } });
+      const sink = postgresSink<Row>({
+        pool: db.pool,
+        table: name,
+        columns: NAMES,
+        map: (r) => NAMES.map((c) => r[c]),
+        mode: 'upsert',
+        conflict: { key: ['record_id'] },
+      });
       const s = await ingestFile(path, sink, { columns: COLUMNS });
       await sink.close();
       return s;
     };
     const fingerprint = async () =>
-      (await db.pool.query(`SELECT count(*)::int AS n, md5(string_agg(t::text, '|' ORDER BY record_id)) AS digest FROM ${name} t`)).rows[0] as { n: number; digest: string };
+      (
+        await db.pool.query(
+          `SELECT count(*)::int AS n, md5(string_agg(t::text, '|' ORDER BY record_id)) AS digest FROM ${name} t`,
+        )
+      ).rows[0] as { n: number; digest: string };
 
     const first = await upload();
     const before = await fingerprint();
@@ -145,17 +183,31 @@ describe('a partner file into PostgreSQL', () => {
     const clock = new ManualClock();
     const maxAgeMs = 1000;
     // No idle flush: only size and age can send rows while the upload stays open.
-    const sink = new Sink(postgresAdapter<Row>({ pool: db.pool, table: name, columns: NAMES, map: (r) => NAMES.map((c) => r[c]), mode: 'copy' }), {
-      maxRecords: 1000,
-      maxAgeMs,
-      idleMs: 0,
-      clock,
-    });
+    const sink = new Sink(
+      postgresAdapter<Row>({
+        pool: db.pool,
+        table: name,
+        columns: NAMES,
+        map: (r) => NAMES.map((c) => r[c]),
+        mode: 'copy',
+      }),
+      {
+        maxRecords: 1000,
+        maxAgeMs,
+        idleMs: 0,
+        clock,
+      },
+    );
     const reasons: FlushReason[] = [];
     sink.on('flush', (f) => reasons.push(f.reason));
     const upload = new PassThrough();
     let read = 0;
-    const done = ingest(upload, sink, { format: 'csv', columns: COLUMNS, progressIntervalMs: 0, onProgress: (p) => (read = p.rowsRead) });
+    const done = ingest(upload, sink, {
+      format: 'csv',
+      columns: COLUMNS,
+      progressIntervalMs: 0,
+      onProgress: (p) => (read = p.rowsRead),
+    });
 
     upload.write(HEADER);
     let n = 0;
@@ -168,8 +220,13 @@ describe('a partner file into PostgreSQL', () => {
     const tail = n % 1000;
     expect(tail).toBeGreaterThan(0);
     // The input stays open (silence). Every complete row is parsed and accepted without more data.
-    await waitFor('all rows accepted', () => (read === n && sink.pending().inFlight === 0 ? true : undefined), { timeoutMs: 60_000, intervalMs: 20 });
-    const count = async () => (await db.pool.query(`SELECT count(*)::int AS n FROM ${name}`)).rows[0].n as number;
+    await waitFor(
+      'all rows accepted',
+      () => (read === n && sink.pending().inFlight === 0 ? true : undefined),
+      { timeoutMs: 60_000, intervalMs: 20 },
+    );
+    const count = async () =>
+      (await db.pool.query(`SELECT count(*)::int AS n FROM ${name}`)).rows[0].n as number;
     expect(sink.pending().buffered).toBe(tail);
     expect(await count()).toBe(n - tail);
 
@@ -192,15 +249,25 @@ describe('a partner file into PostgreSQL', () => {
 });
 
 describe('the partner upload server example', () => {
-  function post(port: number, path: string, type: string, chunks: string[]): Promise<{ status: number; body: Record<string, unknown> }> {
+  function post(
+    port: number,
+    path: string,
+    type: string,
+    chunks: string[],
+  ): Promise<{ status: number; body: Record<string, unknown> }> {
     return new Promise((resolve, reject) => {
       // No Content-Length: the body goes chunked, as a streaming client sends it.
-      const req = request({ host: '127.0.0.1', port, path, method: 'POST', headers: { 'content-type': type } }, (res) => {
-        let text = '';
-        res.setEncoding('utf8');
-        res.on('data', (d) => (text += d));
-        res.on('end', () => resolve({ status: res.statusCode ?? 0, body: JSON.parse(text) as Record<string, unknown> }));
-      });
+      const req = request(
+        { host: '127.0.0.1', port, path, method: 'POST', headers: { 'content-type': type } },
+        (res) => {
+          let text = '';
+          res.setEncoding('utf8');
+          res.on('data', (d) => (text += d));
+          res.on('end', () =>
+            resolve({ status: res.statusCode ?? 0, body: JSON.parse(text) as Record<string, unknown> }),
+          );
+        },
+      );
       req.on('error', reject);
       (async () => {
         for (const c of chunks) {
@@ -221,13 +288,23 @@ describe('the partner upload server example', () => {
     try {
       const rows = Array.from({ length: 3000 }, (_, i) => good(i + 1));
       rows[99] = 'SR-100,DK-0100,x,2024-05-01T10:00:00Z,1,true,brakes,ok\r\n';
-      const chunks = [HEADER, ...Array.from({ length: 30 }, (_, k) => rows.slice(k * 100, k * 100 + 100).join(''))];
+      const chunks = [
+        HEADER,
+        ...Array.from({ length: 30 }, (_, k) => rows.slice(k * 100, k * 100 + 100).join('')),
+      ];
       const res = await post(port, '/uploads/velofix', 'text/csv', chunks);
       // Counted the moment the answer arrives: the server must not answer before the rows are durable.
-      const inTable = (await db.pool.query(`SELECT count(*)::int AS n FROM service_records WHERE partner = 'velofix'`)).rows[0].n;
+      const inTable = (
+        await db.pool.query(`SELECT count(*)::int AS n FROM service_records WHERE partner = 'velofix'`)
+      ).rows[0].n;
       expect(res.status).toBe(200);
       expect(res.body).toMatchObject({ rowsRead: 3000, rowsWritten: 2999, rowsRejected: 1, durable: true });
-      expect((res.body.firstRejects as unknown[])[0]).toEqual({ line: expect.any(Number), column: 'bike_id', reason: 'type', message: 'expected an integer' });
+      expect((res.body.firstRejects as unknown[])[0]).toEqual({
+        line: expect.any(Number),
+        column: 'bike_id',
+        reason: 'type',
+        message: 'expected an integer',
+      });
       expect(inTable).toBe(2999);
 
       const ndjson = await post(port, '/uploads/velofix', 'application/x-ndjson; charset=utf-8', [
@@ -243,17 +320,27 @@ describe('the partner upload server example', () => {
 
   it('answers 413 past the size limit, 400 for a malformed upload and 415 for another content type', async () => {
     await db.pool.query(SERVICE_RECORDS_DDL);
-    const app = createUploadServer({ pool: db.pool, table: 'service_records', maxBodyBytes: 64 * 1024, maxRejects: 5 });
+    const app = createUploadServer({
+      pool: db.pool,
+      table: 'service_records',
+      maxBodyBytes: 64 * 1024,
+      maxRejects: 5,
+    });
     app.server.listen(0, '127.0.0.1');
     await once(app.server, 'listening');
     const { port } = app.server.address() as AddressInfo;
     try {
       const big = Array.from({ length: 2000 }, (_, i) => good(500_000 + i));
-      const tooLarge = await post(port, '/uploads/bigco', 'text/csv', [HEADER, ...Array.from({ length: 20 }, (_, k) => big.slice(k * 100, k * 100 + 100).join(''))]);
+      const tooLarge = await post(port, '/uploads/bigco', 'text/csv', [
+        HEADER,
+        ...Array.from({ length: 20 }, (_, k) => big.slice(k * 100, k * 100 + 100).join('')),
+      ]);
       expect(tooLarge.status).toBe(413);
       expect(tooLarge.body).toMatchObject({ durable: true, stopped: 'too-large' });
 
-      const badHeader = await post(port, '/uploads/bigco', 'text/csv', ['record_id,dock\r\nSR-1,DK-0001\r\n']);
+      const badHeader = await post(port, '/uploads/bigco', 'text/csv', [
+        'record_id,dock\r\nSR-1,DK-0001\r\n',
+      ]);
       expect(badHeader.status).toBe(400);
       expect(String(badHeader.body.error)).toMatch(/lacks required column/);
 

@@ -4,7 +4,14 @@ import type { RejectReason } from './reject.js';
 /** The value types of a declared column. */
 export type ColumnType = 'string' | 'integer' | 'number' | 'boolean' | 'timestamp' | 'json';
 
-export const COLUMN_TYPES: readonly ColumnType[] = ['string', 'integer', 'number', 'boolean', 'timestamp', 'json'];
+export const COLUMN_TYPES: readonly ColumnType[] = [
+  'string',
+  'integer',
+  'number',
+  'boolean',
+  'timestamp',
+  'json',
+];
 
 /**
  * One column of a declared row. In CSV an empty field counts as missing; in NDJSON a missing
@@ -53,30 +60,39 @@ const TRUE = new Set(['true', 't', 'yes', 'y', '1']);
 const FALSE = new Set(['false', 'f', 'no', 'n', '0']);
 
 export function resolveColumns(columns: unknown): ResolvedColumn[] {
-  if (!Array.isArray(columns) || columns.length === 0) throw invalidOption('columns', 'a non-empty array of column specs', columns);
+  if (!Array.isArray(columns) || columns.length === 0)
+    throw invalidOption('columns', 'a non-empty array of column specs', columns);
   const names = new Set<string>();
   return columns.map((c: unknown, i) => {
     const at = `columns[${i}]`;
-    if (typeof c !== 'object' || c === null) throw invalidOption(at, 'an object { name, type?, required?, pattern?, min?, max?, enum? }', c);
+    if (typeof c !== 'object' || c === null)
+      throw invalidOption(at, 'an object { name, type?, required?, pattern?, min?, max?, enum? }', c);
     const s = c as Record<string, unknown>;
-    if (typeof s.name !== 'string' || s.name.length === 0) throw invalidOption(`${at}.name`, 'a non-empty string', s.name);
+    if (typeof s.name !== 'string' || s.name.length === 0)
+      throw invalidOption(`${at}.name`, 'a non-empty string', s.name);
     if (names.has(s.name)) throw invalidOption(`${at}.name`, 'a name not used by another column', s.name);
     names.add(s.name);
-    if (s.from !== undefined && (typeof s.from !== 'string' || s.from.length === 0)) throw invalidOption(`${at}.from`, 'a non-empty string', s.from);
+    if (s.from !== undefined && (typeof s.from !== 'string' || s.from.length === 0))
+      throw invalidOption(`${at}.from`, 'a non-empty string', s.from);
     const type = s.type ?? 'string';
-    if (!COLUMN_TYPES.includes(type as ColumnType)) throw invalidOption(`${at}.type`, `one of ${COLUMN_TYPES.join(', ')}`, s.type);
-    if (s.required !== undefined && typeof s.required !== 'boolean') throw invalidOption(`${at}.required`, 'a boolean', s.required);
+    if (!COLUMN_TYPES.includes(type as ColumnType))
+      throw invalidOption(`${at}.type`, `one of ${COLUMN_TYPES.join(', ')}`, s.type);
+    if (s.required !== undefined && typeof s.required !== 'boolean')
+      throw invalidOption(`${at}.required`, 'a boolean', s.required);
     let pattern: RegExp | undefined;
-    if (s.pattern instanceof RegExp) pattern = new RegExp(s.pattern.source, s.pattern.flags.replace(/[gy]/g, ''));
+    if (s.pattern instanceof RegExp)
+      pattern = new RegExp(s.pattern.source, s.pattern.flags.replace(/[gy]/g, ''));
     else if (typeof s.pattern === 'string') {
       try {
         pattern = new RegExp(s.pattern, 'u');
       } catch {
         throw invalidOption(`${at}.pattern`, 'a valid regular expression', s.pattern);
       }
-    } else if (s.pattern !== undefined) throw invalidOption(`${at}.pattern`, 'a RegExp or a string', s.pattern);
+    } else if (s.pattern !== undefined)
+      throw invalidOption(`${at}.pattern`, 'a RegExp or a string', s.pattern);
     for (const k of ['min', 'max'] as const) {
-      if (s[k] !== undefined && !(typeof s[k] === 'number' && Number.isFinite(s[k]))) throw invalidOption(`${at}.${k}`, 'a finite number', s[k]);
+      if (s[k] !== undefined && !(typeof s[k] === 'number' && Number.isFinite(s[k])))
+        throw invalidOption(`${at}.${k}`, 'a finite number', s[k]);
     }
     if (s.enum !== undefined && !(Array.isArray(s.enum) && s.enum.every((v) => typeof v === 'string'))) {
       throw invalidOption(`${at}.enum`, 'an array of strings', s.enum);
@@ -107,12 +123,18 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
   const text = typeof value === 'string' ? value : undefined;
   if (text !== undefined) {
     if (col.pattern && !col.pattern.test(text)) return fail('pattern', `does not match ${col.pattern}`);
-    if (col.enum && !col.enum.has(text)) return fail('enum', `is not one of the ${col.enum.size} allowed values`);
+    if (col.enum && !col.enum.has(text))
+      return fail('enum', `is not one of the ${col.enum.size} allowed values`);
   } else if (col.pattern || col.enum) {
     const asText = typeof value === 'number' || typeof value === 'boolean' ? String(value) : undefined;
-    if (asText === undefined) return fail('type', `expected text for a column with a pattern or allowed values, got ${kindOf(value)}`);
+    if (asText === undefined)
+      return fail(
+        'type',
+        `expected text for a column with a pattern or allowed values, got ${kindOf(value)}`,
+      );
     if (col.pattern && !col.pattern.test(asText)) return fail('pattern', `does not match ${col.pattern}`);
-    if (col.enum && !col.enum.has(asText)) return fail('enum', `is not one of the ${col.enum.size} allowed values`);
+    if (col.enum && !col.enum.has(asText))
+      return fail('enum', `is not one of the ${col.enum.size} allowed values`);
   }
   switch (col.type) {
     case 'string': {
@@ -128,7 +150,8 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
       else return fail('type', `expected an integer, got ${kindOf(value)}`);
       if (!Number.isInteger(n)) return fail('type', 'expected an integer');
       // Beyond 2^53 a JS number no longer holds every integer: declare such ids as strings.
-      if (!Number.isSafeInteger(n)) return fail('range', 'integer beyond ±(2^53 − 1); declare the column as string');
+      if (!Number.isSafeInteger(n))
+        return fail('range', 'integer beyond ±(2^53 − 1); declare the column as string');
       return ranged(col, n, n, 'value');
     }
     case 'number': {
@@ -152,7 +175,9 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
       if (text === undefined) return fail('type', `expected an RFC 3339 timestamp, got ${kindOf(value)}`);
       const m = RFC3339.exec(text);
       if (!m) return fail('type', 'expected an RFC 3339 date or date-time with offset');
-      const [y, mo, day, h = 0, mi = 0, sec = 0] = [1, 2, 3, 4, 5, 6].map((i) => (m[i] === undefined ? undefined : Number(m[i])));
+      const [y, mo, day, h = 0, mi = 0, sec = 0] = [1, 2, 3, 4, 5, 6].map((i) =>
+        m[i] === undefined ? undefined : Number(m[i]),
+      );
       // Days past the 28th are checked against the month's length (Date.parse would roll over).
       const tooLate = day! > 28 && day! > new Date(Date.UTC(y!, mo!, 0)).getUTCDate();
       if (mo! < 1 || mo! > 12 || day! < 1 || tooLate || h > 23 || mi > 59 || sec > 60) {
@@ -175,8 +200,10 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
 }
 
 function ranged(col: ResolvedColumn, value: unknown, measure: number, what: 'length' | 'value'): Converted {
-  if (col.min !== undefined && measure < col.min) return fail('range', `${what} below the minimum ${col.min}`);
-  if (col.max !== undefined && measure > col.max) return fail('range', `${what} above the maximum ${col.max}`);
+  if (col.min !== undefined && measure < col.min)
+    return fail('range', `${what} below the minimum ${col.min}`);
+  if (col.max !== undefined && measure > col.max)
+    return fail('range', `${what} above the maximum ${col.max}`);
   return { ok: true, value };
 }
 

@@ -15,11 +15,15 @@ export interface CsvFrame {
   readonly line: number;
   readonly bytes: Buffer;
   /** Set when the record is not well formed; `bytes` is then as much as was kept. */
-  readonly error?: { readonly reason: 'csv-syntax' | 'too-long'; readonly message: string; readonly field: number };
+  readonly error?: {
+    readonly reason: 'csv-syntax' | 'too-long';
+    readonly message: string;
+    readonly field: number;
+  };
   readonly truncated: boolean;
 }
 
-const enum State {
+enum State {
   FieldStart,
   Unquoted,
   Quoted,
@@ -134,7 +138,12 @@ export class CsvFramer {
         this.keep(chunk.subarray(segStart, segStart + (this.maxRecordBytes - this.size)));
         segStart = i + 1;
         this.truncated = true;
-        if (!this.error) this.error = { reason: 'too-long', message: `record longer than ${this.maxRecordBytes} bytes`, field: this.field };
+        if (!this.error)
+          this.error = {
+            reason: 'too-long',
+            message: `record longer than ${this.maxRecordBytes} bytes`,
+            field: this.field,
+          };
         this.state = State.SkipToLf;
       }
     }
@@ -146,7 +155,8 @@ export class CsvFramer {
   end(): CsvFrame[] {
     const out: CsvFrame[] = [];
     if (this.atStart) out.push(...this.feed(Buffer.alloc(0), true));
-    if (this.state === State.Quoted) this.bad('csv-syntax', 'a quoted field is not closed at the end of the input');
+    if (this.state === State.Quoted)
+      this.bad('csv-syntax', 'a quoted field is not closed at the end of the input');
     if (this.size > 0 || this.error) this.emit(out, Buffer.alloc(0), 0, 0, true);
     return out;
   }
@@ -166,7 +176,12 @@ export class CsvFramer {
     if (!this.truncated) this.keep(chunk.subarray(from, to));
     let bytes = this.parts.length === 1 ? this.parts[0]! : Buffer.concat(this.parts, this.size);
     // The CR of a CRLF line break is not data.
-    if (!this.truncated && bytes.length > 0 && bytes[bytes.length - 1] === CR && this.state !== State.Quoted) {
+    if (
+      !this.truncated &&
+      bytes.length > 0 &&
+      bytes[bytes.length - 1] === CR &&
+      this.state !== State.Quoted
+    ) {
       bytes = bytes.subarray(0, bytes.length - 1);
     }
     if (bytes.length === 0 && !this.error) this.blankLines++;

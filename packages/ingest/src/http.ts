@@ -9,6 +9,12 @@ export function formatFromContentType(contentType: string | undefined): IngestFo
   if (!contentType) return undefined;
   const type = contentType.split(';')[0]!.trim().toLowerCase();
   if (type === 'text/csv') return 'csv';
-  if (type === 'application/x-ndjson' || type === 'application/jsonl' || type === 'application/x-jsonlines' || type === 'application/jsonlines') return 'ndjson';
+  if (
+    type === 'application/x-ndjson' ||
+    type === 'application/jsonl' ||
+    type === 'application/x-jsonlines' ||
+    type === 'application/jsonlines'
+  )
+    return 'ndjson';
   return undefined;
 }

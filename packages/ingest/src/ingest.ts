@@ -2,10 +2,23 @@ import { createReadStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
-import { type RecordMeta, type Sink, type SinkEvents, messageOf, progressKey, SpillwayError } from '@spillway/core';
+import {
+  messageOf,
+  progressKey,
+  type RecordMeta,
+  type Sink,
+  type SinkEvents,
+  SpillwayError,
+} from '@spillway/core';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { IngestError, type IngestStopReason } from './errors.js';
-import { type IngestFormat, type IngestOptions, type IngestProgress, type ResolvedIngestOptions, type Row, resolveIngestOptions } from './options.js';
+import {
+  type IngestFormat,
+  type IngestOptions,
+  type IngestProgress,
+  type Row,
+  resolveIngestOptions,
+} from './options.js';
 import type { Reject, RejectReason } from './reject.js';
 import { csvReader, type Item, type ItemReader, ndjsonReader } from './rows.js';
 import { issuePath } from './standard-schema.js';
@@ -29,13 +42,27 @@ export function formatFromPath(path: string): IngestFormat | undefined {
  * file's base name as `sourceName`, and its size for progress ETAs. Memory stays bounded by the
  * sink's pending bounds and `maxRowBytes`, whatever the file's size.
  */
-export async function ingestFile<T>(path: string, sink: Sink<T>, options: IngestOptions<T> = {}): Promise<IngestSummary> {
+export async function ingestFile<T>(
+  path: string,
+  sink: Sink<T>,
+  options: IngestOptions<T> = {},
+): Promise<IngestSummary> {
   const format = options.format ?? formatFromPath(path);
   const delimiter = options.delimiter ?? (extname(path).toLowerCase() === '.tsv' ? '\t' : undefined);
   const totalBytes = (await stat(path)).size;
   const stream = createReadStream(path, { highWaterMark: 256 * 1024 });
   try {
-    return await run(stream, sink, { ...options, ...(format && { format }), ...(delimiter && { delimiter }), sourceName: options.sourceName ?? basename(path) }, totalBytes);
+    return await run(
+      stream,
+      sink,
+      {
+        ...options,
+        ...(format && { format }),
+        ...(delimiter && { delimiter }),
+        sourceName: options.sourceName ?? basename(path),
+      },
+      totalBytes,
+    );
   } finally {
     stream.destroy();
   }
@@ -52,7 +79,11 @@ export async function ingestFile<T>(path: string, sink: Sink<T>, options: Ingest
  * in an upsert). The input is not destroyed on an early stop: the caller owns it (an HTTP server
  * answers first).
  */
-export function ingest<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<T> = {}): Promise<IngestSummary> {
+export function ingest<T>(
+  input: IngestInput,
+  sink: Sink<T>,
+  options: IngestOptions<T> = {},
+): Promise<IngestSummary> {
   return run(input, sink, options, undefined);
 }
 
@@ -66,16 +97,24 @@ class Stop extends Error {
   }
 }
 
-async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<T>, totalBytes: number | undefined): Promise<IngestSummary> {
+async function run<T>(
+  input: IngestInput,
+  sink: Sink<T>,
+  options: IngestOptions<T>,
+  totalBytes: number | undefined,
+): Promise<IngestSummary> {
   const o = resolveIngestOptions(options);
   if (o.format === undefined) {
-    throw new TypeError('Expected `format` to be \'csv\' or \'ndjson\' (it cannot be told from a stream), got `undefined`');
+    throw new TypeError(
+      "Expected `format` to be 'csv' or 'ndjson' (it cannot be told from a stream), got `undefined`",
+    );
   }
   const format = o.format;
   const source = o.sourceName ?? 'stream';
   const runId = `ingest-${process.pid}-${++runs}`;
   const started = performance.now();
-  const reader: ItemReader = format === 'csv' ? csvReader(o.delimiter, o.maxRowBytes) : ndjsonReader(o.maxRowBytes);
+  const reader: ItemReader =
+    format === 'csv' ? csvReader(o.delimiter, o.maxRowBytes) : ndjsonReader(o.maxRowBytes);
 
   const s = {
     rowsRead: 0,
@@ -139,7 +178,14 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
     o.onProgress(p);
   };
 
-  const reject = async (line: number, raw: Uint8Array, reason: RejectReason, message: string, column: string | undefined, truncated = false) => {
+  const reject = async (
+    line: number,
+    raw: Uint8Array,
+    reason: RejectReason,
+    message: string,
+    column: string | undefined,
+    truncated = false,
+  ) => {
     s.rejected++;
     s.byReason[reason] = (s.byReason[reason] ?? 0) + 1;
     if (s.first.length < FIRST_REJECTS) s.first.push({ line, column, reason, message });
@@ -151,7 +197,8 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
         throw new Stop('rejects', `Could not write a reject: ${messageOf(error)}`, error);
       }
     }
-    if (s.rejected > o.maxRejects) throw new Stop('reject-limit', `More than ${o.maxRejects} row(s) rejected; stopped at line ${line}`);
+    if (s.rejected > o.maxRejects)
+      throw new Stop('reject-limit', `More than ${o.maxRejects} row(s) rejected; stopped at line ${line}`);
   };
 
   const writeOptions = o.signal ? { signal: o.signal } : undefined;
@@ -178,13 +225,18 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
       return;
     }
     if (needHeader && header === undefined) {
-      if (item.kind !== 'fields') throw new Stop('header', `The CSV header (line ${item.line}) is malformed: ${item.kind === 'reject' ? item.message : 'no fields'}`);
+      if (item.kind !== 'fields')
+        throw new Stop(
+          'header',
+          `The CSV header (line ${item.line}) is malformed: ${item.kind === 'reject' ? item.message : 'no fields'}`,
+        );
       header = headerMap(item.fields, o.columns);
       return;
     }
     s.rowsRead++;
     if (item.kind === 'reject') {
-      const column = item.field === undefined ? undefined : header?.names[item.field] ?? `#${item.field + 1}`;
+      const column =
+        item.field === undefined ? undefined : (header?.names[item.field] ?? `#${item.field + 1}`);
       await reject(item.line, item.raw, item.reason, item.message, column, item.truncated);
       return;
     }
@@ -192,10 +244,18 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
     if (item.kind === 'fields') {
       const h = header!;
       if (item.fields.length !== h.width) {
-        await reject(item.line, item.raw, 'column-count', `expected ${h.width} field(s), got ${item.fields.length}`, undefined);
+        await reject(
+          item.line,
+          item.raw,
+          'column-count',
+          `expected ${h.width} field(s), got ${item.fields.length}`,
+          undefined,
+        );
         return;
       }
-      const built = o.columns ? fromColumns(h.columns!, (c) => item.fields[h.index.get(c.name)!]) : fromHeader(h.names, item.fields);
+      const built = o.columns
+        ? fromColumns(h.columns!, (c) => item.fields[h.index.get(c.name)!])
+        : fromHeader(h.names, item.fields);
       if ('reason' in built) {
         await reject(item.line, item.raw, built.reason, built.message, built.column);
         return;
@@ -204,7 +264,13 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
     } else {
       const v = item.value;
       if (typeof v !== 'object' || v === null || Array.isArray(v)) {
-        await reject(item.line, item.raw, 'not-object', `expected a JSON object, got ${v === null ? 'null' : Array.isArray(v) ? 'an array' : `a ${typeof v}`}`, undefined);
+        await reject(
+          item.line,
+          item.raw,
+          'not-object',
+          `expected a JSON object, got ${v === null ? 'null' : Array.isArray(v) ? 'an array' : `a ${typeof v}`}`,
+          undefined,
+        );
         return;
       }
       const obj = v as Record<string, unknown>;
@@ -223,7 +289,13 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
       if (result instanceof Promise) result = await result;
       if (result.issues) {
         const issue = result.issues[0];
-        await reject(item.line, item.raw, 'schema', issue?.message ?? 'schema validation failed', issue ? issuePath(issue) : undefined);
+        await reject(
+          item.line,
+          item.raw,
+          'schema',
+          issue?.message ?? 'schema validation failed',
+          issue ? issuePath(issue) : undefined,
+        );
         return;
       }
       row = result.value as Row;
@@ -245,13 +317,17 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
     for await (const chunk of chunks(input)) {
       if (o.signal?.aborted) throw new Stop('read', 'The ingest was aborted', o.signal.reason);
       s.bytes += chunk.length;
-      if (s.bytes > o.maxInputBytes) throw new Stop('too-large', `The input is larger than ${o.maxInputBytes} bytes`);
+      if (s.bytes > o.maxInputBytes)
+        throw new Stop('too-large', `The input is larger than ${o.maxInputBytes} bytes`);
       for (const item of reader.push(chunk)) await handle(item);
       progress(false);
     }
     for (const item of reader.end()) await handle(item);
   } catch (error) {
-    stop = error instanceof Stop ? error : new Stop('read', `Reading the input failed: ${messageOf(error)}`, error);
+    stop =
+      error instanceof Stop
+        ? error
+        : new Stop('read', `Reading the input failed: ${messageOf(error)}`, error);
   }
 
   // The last partial batch leaves now, not when more data would have come; and the summary
@@ -274,7 +350,8 @@ async function run<T>(input: IngestInput, sink: Sink<T>, options: IngestOptions<
     }
   }
   progress(true);
-  if (sinkError !== undefined && !stop) stop = new Stop('sink', `The sink failed: ${messageOf(sinkError)}`, sinkError);
+  if (sinkError !== undefined && !stop)
+    stop = new Stop('sink', `The sink failed: ${messageOf(sinkError)}`, sinkError);
   if (stop) {
     const done = summary(stop.reason);
     throw new IngestError(stop.reason, stop.message, done, stop.origin);
@@ -292,7 +369,12 @@ interface HeaderMap {
 }
 
 function positional(columns: ResolvedColumn[]): HeaderMap {
-  return { names: columns.map((c) => c.name), width: columns.length, columns, index: new Map(columns.map((c, i) => [c.name, i])) };
+  return {
+    names: columns.map((c) => c.name),
+    width: columns.length,
+    columns,
+    index: new Map(columns.map((c, i) => [c.name, i])),
+  };
 }
 
 function headerMap(names: string[], columns: ResolvedColumn[] | undefined): HeaderMap {
@@ -314,7 +396,8 @@ function headerMap(names: string[], columns: ResolvedColumn[] | undefined): Head
     index.set(c.name, i);
     present.push(c);
   }
-  if (missing.length > 0) throw new Stop('header', `The CSV header lacks required column(s): ${missing.join(', ')}`);
+  if (missing.length > 0)
+    throw new Stop('header', `The CSV header lacks required column(s): ${missing.join(', ')}`);
   // Optional columns absent from the header are null in every row.
   const absent = columns.filter((c) => !index.has(c.name));
   return { names, width: names.length, columns: [...present, ...absent], index };
@@ -346,12 +429,22 @@ function fromHeader(names: string[], fields: string[]): Built {
 
 /** The input as Buffers. A Node stream is read without destroying it on an early stop. */
 async function* chunks(input: IngestInput): AsyncGenerator<Buffer> {
-  const readable = input as Readable & { iterator?: (o: { destroyOnReturn: boolean }) => AsyncIterable<unknown> };
-  const source: AsyncIterable<unknown> = typeof readable.iterator === 'function' && typeof readable.pipe === 'function' ? readable.iterator({ destroyOnReturn: false }) : (input as AsyncIterable<unknown>);
+  const readable = input as Readable & {
+    iterator?: (o: { destroyOnReturn: boolean }) => AsyncIterable<unknown>;
+  };
+  const source: AsyncIterable<unknown> =
+    typeof readable.iterator === 'function' && typeof readable.pipe === 'function'
+      ? readable.iterator({ destroyOnReturn: false })
+      : (input as AsyncIterable<unknown>);
   for await (const chunk of source) {
     if (typeof chunk === 'string') yield Buffer.from(chunk, 'utf8');
-    else if (chunk instanceof Uint8Array) yield Buffer.isBuffer(chunk) ? chunk : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
-    else throw new SpillwayError('SPILLWAY_INPUT_ERROR', `Expected the input to yield bytes or strings, got ${typeof chunk}`);
+    else if (chunk instanceof Uint8Array)
+      yield Buffer.isBuffer(chunk) ? chunk : Buffer.from(chunk.buffer, chunk.byteOffset, chunk.byteLength);
+    else
+      throw new SpillwayError(
+        'SPILLWAY_INPUT_ERROR',
+        `Expected the input to yield bytes or strings, got ${typeof chunk}`,
+      );
   }
 }
 
@@ -359,9 +452,15 @@ async function* chunks(input: IngestInput): AsyncGenerator<Buffer> {
  * The column names in the header of a CSV file (its first record), or undefined when the file is
  * empty or its first record is malformed. Reads at most `maxRowBytes` (default 1 MiB).
  */
-export async function readCsvHeader(path: string, options: { delimiter?: string; maxRowBytes?: number } = {}): Promise<string[] | undefined> {
+export async function readCsvHeader(
+  path: string,
+  options: { delimiter?: string; maxRowBytes?: number } = {},
+): Promise<string[] | undefined> {
   const delimiter = options.delimiter ?? ',';
-  const o = resolveIngestOptions({ delimiter, ...(options.maxRowBytes !== undefined && { maxRowBytes: options.maxRowBytes }) });
+  const o = resolveIngestOptions({
+    delimiter,
+    ...(options.maxRowBytes !== undefined && { maxRowBytes: options.maxRowBytes }),
+  });
   const reader = csvReader(o.delimiter, o.maxRowBytes);
   const stream = createReadStream(path, { highWaterMark: 64 * 1024 });
   try {

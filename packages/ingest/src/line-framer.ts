@@ -64,7 +64,8 @@ export class LineFramer {
   private frame(): LineFrame {
     let bytes = this.parts.length === 1 ? this.parts[0]! : Buffer.concat(this.parts, this.size);
     let truncated = this.truncated;
-    if (!truncated && bytes.length > 0 && bytes[bytes.length - 1] === CR) bytes = bytes.subarray(0, bytes.length - 1);
+    if (!truncated && bytes.length > 0 && bytes[bytes.length - 1] === CR)
+      bytes = bytes.subarray(0, bytes.length - 1);
     if (bytes.length > this.maxLineBytes) {
       truncated = true;
       bytes = bytes.subarray(0, this.maxLineBytes);

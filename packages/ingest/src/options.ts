@@ -2,7 +2,7 @@ import { invalidOption } from '@spillway/core';
 import { type ColumnSpec, type ResolvedColumn, resolveColumns } from './columns.js';
 import type { RejectTarget } from './reject.js';
 import { RejectFile, type RejectFormat } from './reject-file.js';
-import { type StandardSchemaV1, isStandardSchema } from './standard-schema.js';
+import { isStandardSchema, type StandardSchemaV1 } from './standard-schema.js';
 
 export type IngestFormat = 'csv' | 'ndjson';
 
@@ -170,7 +170,10 @@ export const INGEST_DEFAULTS = { maxRowBytes: 1024 * 1024, progressIntervalMs: 1
 
 function count(name: string, value: unknown, fallback: number, min: number, allowInfinity = true): number {
   if (value === undefined) return fallback;
-  const ok = typeof value === 'number' && value >= min && (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
+  const ok =
+    typeof value === 'number' &&
+    value >= min &&
+    (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
   if (!ok) throw invalidOption(name, `an integer >= ${min}${allowInfinity ? ' (or Infinity)' : ''}`, value);
   return value;
 }
@@ -180,36 +183,65 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
   const o = (options ?? {}) as Record<string, unknown>;
   if (typeof o !== 'object' || o === null) throw invalidOption('options', 'an object', options);
   for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+    if (!KNOWN.has(key))
+      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
   }
-  if (o.format !== undefined && o.format !== 'csv' && o.format !== 'ndjson') throw invalidOption('format', "'csv' or 'ndjson'", o.format);
-  if (o.header !== undefined && typeof o.header !== 'boolean') throw invalidOption('header', 'a boolean', o.header);
+  if (o.format !== undefined && o.format !== 'csv' && o.format !== 'ndjson')
+    throw invalidOption('format', "'csv' or 'ndjson'", o.format);
+  if (o.header !== undefined && typeof o.header !== 'boolean')
+    throw invalidOption('header', 'a boolean', o.header);
   const delimiter = o.delimiter ?? ',';
-  if (typeof delimiter !== 'string' || delimiter.length !== 1 || delimiter.charCodeAt(0) > 0x7f || /["\r\n]/.test(delimiter)) {
+  if (
+    typeof delimiter !== 'string' ||
+    delimiter.length !== 1 ||
+    delimiter.charCodeAt(0) > 0x7f ||
+    /["\r\n]/.test(delimiter)
+  ) {
     throw invalidOption('delimiter', 'one ASCII character other than a quote or a line break', o.delimiter);
   }
   const columns = o.columns === undefined ? undefined : resolveColumns(o.columns);
-  if (o.schema !== undefined && !isStandardSchema(o.schema)) throw invalidOption('schema', 'a Standard Schema validator (an object with ~standard.validate)', o.schema);
+  if (o.schema !== undefined && !isStandardSchema(o.schema))
+    throw invalidOption(
+      'schema',
+      'a Standard Schema validator (an object with ~standard.validate)',
+      o.schema,
+    );
   if (o.map !== undefined && typeof o.map !== 'function') throw invalidOption('map', 'a function', o.map);
-  if (o.header === false && columns === undefined) throw invalidOption('columns', 'column specs when `header` is false (CSV columns are then read by position)', o.columns);
-  if (o.rejectFormat !== undefined && o.rejectFormat !== 'ndjson' && o.rejectFormat !== 'csv') throw invalidOption('rejectFormat', "'ndjson' or 'csv'", o.rejectFormat);
+  if (o.header === false && columns === undefined)
+    throw invalidOption(
+      'columns',
+      'column specs when `header` is false (CSV columns are then read by position)',
+      o.columns,
+    );
+  if (o.rejectFormat !== undefined && o.rejectFormat !== 'ndjson' && o.rejectFormat !== 'csv')
+    throw invalidOption('rejectFormat', "'ndjson' or 'csv'", o.rejectFormat);
   let rejects: RejectTarget | undefined;
   let ownsRejects = false;
   if (typeof o.rejects === 'string') {
-    if (o.rejects.length === 0) throw invalidOption('rejects', 'a non-empty path or a RejectTarget', o.rejects);
+    if (o.rejects.length === 0)
+      throw invalidOption('rejects', 'a non-empty path or a RejectTarget', o.rejects);
     rejects = new RejectFile(o.rejects, o.rejectFormat as RejectFormat | undefined);
     ownsRejects = true;
   } else if (o.rejects !== undefined) {
     const t = o.rejects as RejectTarget;
-    if (typeof t !== 'object' || t === null || typeof t.write !== 'function') throw invalidOption('rejects', 'a path or an object with write(reject)', o.rejects);
+    if (typeof t !== 'object' || t === null || typeof t.write !== 'function')
+      throw invalidOption('rejects', 'a path or an object with write(reject)', o.rejects);
     rejects = t;
   }
-  if (o.blankLines !== undefined && o.blankLines !== 'skip' && o.blankLines !== 'reject') throw invalidOption('blankLines', "'skip' or 'reject'", o.blankLines);
-  if (o.sourceName !== undefined && (typeof o.sourceName !== 'string' || o.sourceName.length === 0)) throw invalidOption('sourceName', 'a non-empty string', o.sourceName);
-  if (o.signal !== undefined && !(o.signal instanceof AbortSignal)) throw invalidOption('signal', 'an AbortSignal', o.signal);
-  if (o.onProgress !== undefined && typeof o.onProgress !== 'function') throw invalidOption('onProgress', 'a function', o.onProgress);
+  if (o.blankLines !== undefined && o.blankLines !== 'skip' && o.blankLines !== 'reject')
+    throw invalidOption('blankLines', "'skip' or 'reject'", o.blankLines);
+  if (o.sourceName !== undefined && (typeof o.sourceName !== 'string' || o.sourceName.length === 0))
+    throw invalidOption('sourceName', 'a non-empty string', o.sourceName);
+  if (o.signal !== undefined && !(o.signal instanceof AbortSignal))
+    throw invalidOption('signal', 'an AbortSignal', o.signal);
+  if (o.onProgress !== undefined && typeof o.onProgress !== 'function')
+    throw invalidOption('onProgress', 'a function', o.onProgress);
   const progressIntervalMs = o.progressIntervalMs ?? INGEST_DEFAULTS.progressIntervalMs;
-  if (typeof progressIntervalMs !== 'number' || !(progressIntervalMs >= 0) || !Number.isFinite(progressIntervalMs)) {
+  if (
+    typeof progressIntervalMs !== 'number' ||
+    !(progressIntervalMs >= 0) ||
+    !Number.isFinite(progressIntervalMs)
+  ) {
     throw invalidOption('progressIntervalMs', 'a finite number >= 0', o.progressIntervalMs);
   }
   return {

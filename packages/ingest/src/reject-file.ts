@@ -1,7 +1,13 @@
 import { once } from 'node:events';
 import { chmod, open } from 'node:fs/promises';
 import type { Writable } from 'node:stream';
-import { SpillwayError, messageOf, type DeadLetter, type DeadLetterTarget, type RecordMeta } from '@spillway/core';
+import {
+  type DeadLetter,
+  type DeadLetterTarget,
+  messageOf,
+  type RecordMeta,
+  SpillwayError,
+} from '@spillway/core';
 import type { Reject, RejectTarget } from './reject.js';
 
 export type RejectFormat = 'ndjson' | 'csv';
@@ -47,7 +53,8 @@ export class RejectFile implements RejectTarget {
       if (this.closed) throw new SpillwayError('SPILLWAY_INPUT_ERROR', `Reject file ${this.path} is closed`);
       const stream = await this.file();
       this.count++;
-      if (!stream.write(this.format === 'csv' ? csvLine(reject) : ndjsonLine(reject))) await once(stream, 'drain');
+      if (!stream.write(this.format === 'csv' ? csvLine(reject) : ndjsonLine(reject)))
+        await once(stream, 'drain');
     });
     this.tail = run.catch(() => {});
     return run;
@@ -94,7 +101,13 @@ function lineOf(meta: RecordMeta | undefined): number {
 const decoder = new TextDecoder('utf-8', { fatal: true });
 
 function ndjsonLine(r: Reject): string {
-  const out: Record<string, unknown> = { line: r.line, column: r.column ?? null, reason: r.reason, message: r.message, truncated: r.truncated };
+  const out: Record<string, unknown> = {
+    line: r.line,
+    column: r.column ?? null,
+    reason: r.reason,
+    message: r.message,
+    truncated: r.truncated,
+  };
   try {
     out.raw = decoder.decode(r.raw);
   } catch {
@@ -104,7 +117,13 @@ function ndjsonLine(r: Reject): string {
 }
 
 function csvLine(r: Reject): Buffer {
-  const head = [String(r.line), quote(r.column ?? ''), r.reason, quote(r.message), r.truncated ? 'true' : 'false'].join(',');
+  const head = [
+    String(r.line),
+    quote(r.column ?? ''),
+    r.reason,
+    quote(r.message),
+    r.truncated ? 'true' : 'false',
+  ].join(',');
   // Source: RFC 4180 §2.6–2.7: a field with quotes, commas or line breaks is quoted, inner quotes doubled.
   const raw = Buffer.from(r.raw);
   const escaped = Buffer.from(raw.toString('latin1').replaceAll('"', '""'), 'latin1');

@@ -1,6 +1,6 @@
 import { isUtf8 } from 'node:buffer';
 import { parse } from 'csv-parse/sync';
-import { CsvFramer, type CsvFrame } from './csv-framer.js';
+import { type CsvFrame, CsvFramer } from './csv-framer.js';
 import { LineFramer } from './line-framer.js';
 import type { RejectReason } from './reject.js';
 
@@ -52,9 +52,25 @@ export function csvReader(delimiter: number, maxRowBytes: number): ItemReader {
       const f = frames[i]!;
       lastLine = f.line;
       if (f.error) {
-        out[i] = { kind: 'reject', line: f.line, raw: f.bytes, reason: f.error.reason, message: f.error.message, field: f.error.field, truncated: f.truncated };
+        out[i] = {
+          kind: 'reject',
+          line: f.line,
+          raw: f.bytes,
+          reason: f.error.reason,
+          message: f.error.message,
+          field: f.error.field,
+          truncated: f.truncated,
+        };
       } else if (!isUtf8(f.bytes)) {
-        out[i] = { kind: 'reject', line: f.line, raw: f.bytes, reason: 'utf8', message: 'not valid UTF-8', field: badUtf8Field(f.bytes, options), truncated: false };
+        out[i] = {
+          kind: 'reject',
+          line: f.line,
+          raw: f.bytes,
+          reason: 'utf8',
+          message: 'not valid UTF-8',
+          field: badUtf8Field(f.bytes, options),
+          truncated: false,
+        };
       } else good.push(i);
     }
     if (good.length === 0) return out;
@@ -82,7 +98,15 @@ export function csvReader(delimiter: number, maxRowBytes: number): ItemReader {
         if (one.length !== 1) throw new RangeError('not one record');
         out[i] = { kind: 'fields', line: f.line, raw: f.bytes, fields: one[0]! };
       } catch {
-        out[i] = { kind: 'reject', line: f.line, raw: f.bytes, reason: 'csv-syntax', message: 'csv-parse refused the record', field: undefined, truncated: false };
+        out[i] = {
+          kind: 'reject',
+          line: f.line,
+          raw: f.bytes,
+          reason: 'csv-syntax',
+          message: 'csv-parse refused the record',
+          field: undefined,
+          truncated: false,
+        };
       }
     }
     return out;
@@ -123,7 +147,15 @@ export function ndjsonReader(maxRowBytes: number): ItemReader {
     for (let i = 0; i < frames.length; i++) {
       const f = frames[i]!;
       lastLine = f.line;
-      const reject = (reason: RejectReason, message: string): Item => ({ kind: 'reject', line: f.line, raw: f.bytes, reason, message, field: undefined, truncated: f.truncated });
+      const reject = (reason: RejectReason, message: string): Item => ({
+        kind: 'reject',
+        line: f.line,
+        raw: f.bytes,
+        reason,
+        message,
+        field: undefined,
+        truncated: f.truncated,
+      });
       if (f.truncated) {
         out[i] = reject('too-long', `line longer than ${maxRowBytes} bytes`);
         continue;

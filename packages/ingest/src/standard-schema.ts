@@ -29,5 +29,7 @@ export function isStandardSchema(value: unknown): value is StandardSchemaV1 {
 /** The dotted path of an issue (`parts.0.sku`), or undefined for an issue about the whole row. */
 export function issuePath(issue: StandardIssue): string | undefined {
   if (!issue.path || issue.path.length === 0) return undefined;
-  return issue.path.map((p) => String(typeof p === 'object' && p !== null && 'key' in p ? p.key : p)).join('.');
+  return issue.path
+    .map((p) => String(typeof p === 'object' && p !== null && 'key' in p ? p.key : p))
+    .join('.');
 }

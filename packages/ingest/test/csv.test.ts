@@ -1,7 +1,7 @@
 import { Readable } from 'node:stream';
 import { Sink } from '@spillway/core';
 import { describe, expect, it } from 'vitest';
-import { type Reject, type Row, ingest } from '../src/index.js';
+import { ingest, type Reject, type Row } from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
 async function run(text: string | Buffer, options: Parameters<typeof ingest<Row>>[2] = {}, chunkSize = 7) {
@@ -12,7 +12,11 @@ async function run(text: string | Buffer, options: Parameters<typeof ingest<Row>
   // Small chunks so records, quotes and CRLFs straddle chunk boundaries.
   const chunks: Buffer[] = [];
   for (let i = 0; i < bytes.length; i += chunkSize) chunks.push(bytes.subarray(i, i + chunkSize));
-  const summary = await ingest(Readable.from(chunks), sink, { format: 'csv', rejects: { write: (r) => void rejects.push(r) }, ...options });
+  const summary = await ingest(Readable.from(chunks), sink, {
+    format: 'csv',
+    rejects: { write: (r) => void rejects.push(r) },
+    ...options,
+  });
   await sink.close();
   return { rows: adapter.stored, lines: adapter.lines, rejects, summary };
 }
@@ -22,12 +26,17 @@ describe('CSV as RFC 4180 describes it', () => {
   it('reads records separated by CRLF, the last one with or without a line break (§2.1, §2.2)', async () => {
     const a = await run('name,dock\r\naaa,bbb\r\nzzz,yyy\r\n');
     const b = await run('name,dock\r\naaa,bbb\r\nzzz,yyy');
-    expect(a.rows).toEqual([{ name: 'aaa', dock: 'bbb' }, { name: 'zzz', dock: 'yyy' }]);
+    expect(a.rows).toEqual([
+      { name: 'aaa', dock: 'bbb' },
+      { name: 'zzz', dock: 'yyy' },
+    ]);
     expect(b.rows).toEqual(a.rows);
   });
 
   it('takes the first line as the header of names (§2.3)', async () => {
-    const { rows, summary } = await run('field_name,field_name2,field_name3\r\naaa,bbb,ccc\r\nzzz,yyy,xxx\r\n');
+    const { rows, summary } = await run(
+      'field_name,field_name2,field_name3\r\naaa,bbb,ccc\r\nzzz,yyy,xxx\r\n',
+    );
     expect(rows).toEqual([
       { field_name: 'aaa', field_name2: 'bbb', field_name3: 'ccc' },
       { field_name: 'zzz', field_name2: 'yyy', field_name3: 'xxx' },
@@ -42,12 +51,18 @@ describe('CSV as RFC 4180 describes it', () => {
 
   it('reads quoted fields, with commas inside them (§2.5, §2.6)', async () => {
     const { rows } = await run('part,note\r\n"aaa","b,bb"\r\nzzz,"brake pads, front"\r\n');
-    expect(rows).toEqual([{ part: 'aaa', note: 'b,bb' }, { part: 'zzz', note: 'brake pads, front' }]);
+    expect(rows).toEqual([
+      { part: 'aaa', note: 'b,bb' },
+      { part: 'zzz', note: 'brake pads, front' },
+    ]);
   });
 
   it('keeps a CRLF inside quotes as data and counts the record from its first line (§2.6)', async () => {
     const { rows, lines } = await run('a,b,c\r\n"aaa","b\r\nbb","ccc"\r\nzzz,yyy,xxx\r\n', {}, 3);
-    expect(rows).toEqual([{ a: 'aaa', b: 'b\r\nbb', c: 'ccc' }, { a: 'zzz', b: 'yyy', c: 'xxx' }]);
+    expect(rows).toEqual([
+      { a: 'aaa', b: 'b\r\nbb', c: 'ccc' },
+      { a: 'zzz', b: 'yyy', c: 'xxx' },
+    ]);
     expect(lines).toEqual([2, 4]);
   });
 
@@ -58,7 +73,10 @@ describe('CSV as RFC 4180 describes it', () => {
 
   it('rejects a ragged row with its line number and writes the others (§2.4: same number of fields)', async () => {
     const { rows, rejects, summary } = await run('dock,bikes,slots\n1,2,3\n4,5\n6,7,8\n9,10,11,12\n');
-    expect(rows).toEqual([{ dock: '1', bikes: '2', slots: '3' }, { dock: '6', bikes: '7', slots: '8' }]);
+    expect(rows).toEqual([
+      { dock: '1', bikes: '2', slots: '3' },
+      { dock: '6', bikes: '7', slots: '8' },
+    ]);
     expect(rejects.map((r) => [r.line, r.reason, r.message, Buffer.from(r.raw).toString()])).toEqual([
       [3, 'column-count', 'expected 3 field(s), got 2', '4,5'],
       [5, 'column-count', 'expected 3 field(s), got 4', '9,10,11,12'],
@@ -90,16 +108,28 @@ describe('CSV as RFC 4180 describes it', () => {
   });
 
   it('rejects a record with invalid UTF-8, naming its column, and writes the rest', async () => {
-    const bytes = Buffer.concat([Buffer.from('dock,note\nDK-1,caf\xc3\xa9\nDK-2,', 'latin1'), Buffer.from([0xff, 0xfe]), Buffer.from('\nDK-3,ok\n')]);
+    const bytes = Buffer.concat([
+      Buffer.from('dock,note\nDK-1,caf\xc3\xa9\nDK-2,', 'latin1'),
+      Buffer.from([0xff, 0xfe]),
+      Buffer.from('\nDK-3,ok\n'),
+    ]);
     const { rows, rejects } = await run(bytes);
-    expect(rows).toEqual([{ dock: 'DK-1', note: 'café' }, { dock: 'DK-3', note: 'ok' }]);
+    expect(rows).toEqual([
+      { dock: 'DK-1', note: 'café' },
+      { dock: 'DK-3', note: 'ok' },
+    ]);
     expect(rejects).toMatchObject([{ line: 3, reason: 'utf8', column: 'note' }]);
-    expect(Buffer.from(rejects[0]!.raw)).toEqual(Buffer.concat([Buffer.from('DK-2,'), Buffer.from([0xff, 0xfe])]));
+    expect(Buffer.from(rejects[0]!.raw)).toEqual(
+      Buffer.concat([Buffer.from('DK-2,'), Buffer.from([0xff, 0xfe])]),
+    );
   });
 
   it('skips blank lines and a UTF-8 byte order mark, keeping physical line numbers', async () => {
     const { rows, lines, summary } = await run('\ufeffa,b\n\n1,2\r\n\r\n3,4\n');
-    expect(rows).toEqual([{ a: '1', b: '2' }, { a: '3', b: '4' }]);
+    expect(rows).toEqual([
+      { a: '1', b: '2' },
+      { a: '3', b: '4' },
+    ]);
     expect(lines).toEqual([3, 5]);
     expect(summary.blankLines).toBe(2);
   });
@@ -108,13 +138,21 @@ describe('CSV as RFC 4180 describes it', () => {
     const { rows } = await run('DK-1\t4\nDK-2\t0\n', {
       header: false,
       delimiter: '\t',
-      columns: [{ name: 'dock', required: true }, { name: 'bikes', type: 'integer' }],
+      columns: [
+        { name: 'dock', required: true },
+        { name: 'bikes', type: 'integer' },
+      ],
     });
-    expect(rows).toEqual([{ dock: 'DK-1', bikes: 4 }, { dock: 'DK-2', bikes: 0 }]);
+    expect(rows).toEqual([
+      { dock: 'DK-1', bikes: 4 },
+      { dock: 'DK-2', bikes: 0 },
+    ]);
   });
 
   it('stops at a header that lacks a required column', async () => {
-    await expect(run('dock\nDK-1\n', { columns: [{ name: 'dock' }, { name: 'bikes', required: true }] })).rejects.toMatchObject({
+    await expect(
+      run('dock\nDK-1\n', { columns: [{ name: 'dock' }, { name: 'bikes', required: true }] }),
+    ).rejects.toMatchObject({
       code: 'SPILLWAY_INPUT_ERROR',
       reason: 'header',
     });

@@ -1,13 +1,13 @@
 import { mkdtemp, readFile, rm, stat, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
-import v8 from 'node:v8';
-import { runInNewContext } from 'node:vm';
 import { join } from 'node:path';
 import { PassThrough, Readable } from 'node:stream';
+import v8 from 'node:v8';
+import { runInNewContext } from 'node:vm';
 import { type FlushReason, Sink } from '@spillway/core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { z } from 'zod';
-import { type ColumnSpec, IngestError, RejectFile, type Row, ingest, ingestFile } from '../src/index.js';
+import { type ColumnSpec, IngestError, ingest, ingestFile, RejectFile, type Row } from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
 let dir: string;
@@ -65,7 +65,16 @@ describe('validation against declared columns', () => {
         kind: 'brakes',
         parts: ['pad'],
       },
-      { record_id: 'SR-2', dock_id: 'DK-0042', bike_id: 18, serviced_at: new Date('2024-05-01T00:00:00Z'), odometer_km: null, passed: false, kind: 'chain', parts: null },
+      {
+        record_id: 'SR-2',
+        dock_id: 'DK-0042',
+        bike_id: 18,
+        serviced_at: new Date('2024-05-01T00:00:00Z'),
+        odometer_km: null,
+        passed: false,
+        kind: 'chain',
+        parts: null,
+      },
     ]);
     expect(rejects).toEqual([
       [4, 'record_id', 'pattern'],
@@ -79,7 +88,12 @@ describe('validation against declared columns', () => {
       [12, 'parts', 'type'],
       [13, 'bike_id', 'range'],
     ]);
-    expect(summary).toMatchObject({ rowsRead: 12, rowsWritten: 2, rowsRejected: 10, rejectsByReason: { pattern: 1, required: 1, type: 5, range: 2, enum: 1 } });
+    expect(summary).toMatchObject({
+      rowsRead: 12,
+      rowsWritten: 2,
+      rowsRejected: 10,
+      rejectsByReason: { pattern: 1, required: 1, type: 5, range: 2, enum: 1 },
+    });
     await sink.close();
   });
 
@@ -88,15 +102,24 @@ describe('validation against declared columns', () => {
     const sink = new Sink(adapter);
     const rejects: Array<[number, string | undefined, string]> = [];
     await ingest(
-      Readable.from(['{"dock":"DK-1","bikes":4,"open":true}\n{"dock":"DK-2","bikes":"5","open":"f"}\n{"dock":"DK-3","bikes":4.5}\n{"bikes":1}\n']),
+      Readable.from([
+        '{"dock":"DK-1","bikes":4,"open":true}\n{"dock":"DK-2","bikes":"5","open":"f"}\n{"dock":"DK-3","bikes":4.5}\n{"bikes":1}\n',
+      ]),
       sink,
       {
         format: 'ndjson',
-        columns: [{ name: 'dock', required: true }, { name: 'bikes', type: 'integer' }, { name: 'open', type: 'boolean' }],
+        columns: [
+          { name: 'dock', required: true },
+          { name: 'bikes', type: 'integer' },
+          { name: 'open', type: 'boolean' },
+        ],
         rejects: { write: (r) => void rejects.push([r.line, r.column, r.reason]) },
       },
     );
-    expect(adapter.stored).toEqual([{ dock: 'DK-1', bikes: 4, open: true }, { dock: 'DK-2', bikes: 5, open: false }]);
+    expect(adapter.stored).toEqual([
+      { dock: 'DK-1', bikes: 4, open: true },
+      { dock: 'DK-2', bikes: 5, open: false },
+    ]);
     expect(rejects).toEqual([
       [3, 'bikes', 'type'],
       [4, 'dock', 'required'],
@@ -117,7 +140,10 @@ describe('validation against declared columns', () => {
       schema,
       rejects: { write: (r) => void rejects.push([r.line, r.column, r.reason]) },
     });
-    expect(adapter.stored).toEqual([{ dock_id: 'DK-0001', bikes: 4 }, { dock_id: 'DK-0003', bikes: 2 }]);
+    expect(adapter.stored).toEqual([
+      { dock_id: 'DK-0001', bikes: 4 },
+      { dock_id: 'DK-0003', bikes: 2 },
+    ]);
     expect(rejects).toEqual([
       [3, 'dock_id', 'schema'],
       [4, 'bikes', 'schema'],
@@ -135,8 +161,13 @@ describe('validation against declared columns', () => {
         return { id: String(row.id), line };
       },
     });
-    expect(adapter.stored).toEqual([{ id: 'a', line: 1 }, { id: 'c', line: 3 }]);
-    expect(summary.firstRejects).toEqual([{ line: 2, column: undefined, reason: 'map', message: 'unmappable' }]);
+    expect(adapter.stored).toEqual([
+      { id: 'a', line: 1 },
+      { id: 'c', line: 3 },
+    ]);
+    expect(summary.firstRejects).toEqual([
+      { line: 2, column: undefined, reason: 'map', message: 'unmappable' },
+    ]);
     await sink.close();
   });
 });
@@ -145,14 +176,39 @@ describe('reject files', () => {
   it('writes NDJSON rejects 0600 with line, column, reason and the raw row (base64 when not UTF-8)', async () => {
     const path = join(dir, 'rejects.ndjson');
     const sink = new Sink(new MemoryAdapter<Row>());
-    const input = Buffer.concat([Buffer.from('dock,bikes\nDK-1,x\nDK-2,'), Buffer.from([0xff]), Buffer.from('\nDK-3,3\n')]);
-    const summary = await ingest(Readable.from([input]), sink, { format: 'csv', columns: [{ name: 'dock' }, { name: 'bikes', type: 'integer' }], rejects: path });
+    const input = Buffer.concat([
+      Buffer.from('dock,bikes\nDK-1,x\nDK-2,'),
+      Buffer.from([0xff]),
+      Buffer.from('\nDK-3,3\n'),
+    ]);
+    const summary = await ingest(Readable.from([input]), sink, {
+      format: 'csv',
+      columns: [{ name: 'dock' }, { name: 'bikes', type: 'integer' }],
+      rejects: path,
+    });
     expect(summary.rowsRejected).toBe(2);
     expect((await stat(path)).mode & 0o777).toBe(0o600);
-    const lines = (await readFile(path, 'utf8')).trim().split('\n').map((l) => JSON.parse(l));
+    const lines = (await readFile(path, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l));
     expect(lines).toEqual([
-      { line: 2, column: 'bikes', reason: 'type', message: 'expected an integer', truncated: false, raw: 'DK-1,x' },
-      { line: 3, column: 'bikes', reason: 'utf8', message: 'not valid UTF-8', truncated: false, rawBase64: Buffer.from('DK-2,\xff', 'latin1').toString('base64') },
+      {
+        line: 2,
+        column: 'bikes',
+        reason: 'type',
+        message: 'expected an integer',
+        truncated: false,
+        raw: 'DK-1,x',
+      },
+      {
+        line: 3,
+        column: 'bikes',
+        reason: 'utf8',
+        message: 'not valid UTF-8',
+        truncated: false,
+        rawBase64: Buffer.from('DK-2,\xff', 'latin1').toString('base64'),
+      },
     ]);
     await sink.close();
   });
@@ -163,7 +219,9 @@ describe('reject files', () => {
     const sink = new Sink(new MemoryAdapter<Row>());
     await ingest(Readable.from(['a,b\n"x, ""y""",1,extra\n']), sink, { format: 'csv', rejects: path });
     expect((await stat(path)).mode & 0o777).toBe(0o600);
-    expect(await readFile(path, 'utf8')).toBe('line,column,reason,message,truncated,raw\r\n2,,column-count,"expected 2 field(s), got 3",false,"""x, """"y"""""",1,extra"\r\n');
+    expect(await readFile(path, 'utf8')).toBe(
+      'line,column,reason,message,truncated,raw\r\n2,,column-count,"expected 2 field(s), got 3",false,"""x, """"y"""""",1,extra"\r\n',
+    );
     await sink.close();
   });
 
@@ -173,11 +231,24 @@ describe('reject files', () => {
     const adapter = new MemoryAdapter<Row>();
     adapter.refuse = (r) => r.dock === 'DK-2';
     const sink = new Sink(adapter, { deadLetter: rejects.deadLetterTarget() });
-    const summary = await ingest(Readable.from(['{"dock":"DK-1"}\n{"dock":"DK-2"}\n{"dock":"DK-3"}\n']), sink, { format: 'ndjson', rejects });
-    expect(summary).toMatchObject({ rowsRead: 3, rowsWritten: 2, rowsDeadLettered: 1, rowsRejected: 0, durable: true });
+    const summary = await ingest(
+      Readable.from(['{"dock":"DK-1"}\n{"dock":"DK-2"}\n{"dock":"DK-3"}\n']),
+      sink,
+      { format: 'ndjson', rejects },
+    );
+    expect(summary).toMatchObject({
+      rowsRead: 3,
+      rowsWritten: 2,
+      rowsDeadLettered: 1,
+      rowsRejected: 0,
+      durable: true,
+    });
     await sink.close();
     await rejects.close();
-    const [line] = (await readFile(path, 'utf8')).trim().split('\n').map((l) => JSON.parse(l));
+    const [line] = (await readFile(path, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l));
     expect(line).toMatchObject({ line: 2, reason: 'store', raw: '{"dock":"DK-2"}' });
   });
 });
@@ -186,11 +257,18 @@ describe('stopping and flushing', () => {
   it('stops once more than maxRejects rows are rejected, after writing the valid rows before it', async () => {
     const sink = new Sink(new MemoryAdapter<Row>());
     const input = ['a\n', '1\n', 'x,y\n', '2\n', 'x,y\n', '3\n', '4\n'].join('');
-    const error = await ingest(Readable.from([input]), sink, { format: 'csv', maxRejects: 1 }).catch((e: unknown) => e);
+    const error = await ingest(Readable.from([input]), sink, { format: 'csv', maxRejects: 1 }).catch(
+      (e: unknown) => e,
+    );
     expect(error).toBeInstanceOf(IngestError);
     const e = error as IngestError;
     expect(e).toMatchObject({ code: 'SPILLWAY_INPUT_ERROR', reason: 'reject-limit' });
-    expect(e.summary).toMatchObject({ rowsWritten: 2, rowsRejected: 2, durable: true, stopped: 'reject-limit' });
+    expect(e.summary).toMatchObject({
+      rowsWritten: 2,
+      rowsRejected: 2,
+      durable: true,
+      stopped: 'reject-limit',
+    });
     await sink.close();
   });
 
@@ -199,7 +277,9 @@ describe('stopping and flushing', () => {
     const input = new PassThrough();
     input.write('{"a":1}\n'.repeat(100));
     input.end();
-    const error = (await ingest(input, sink, { format: 'ndjson', maxInputBytes: 100 }).catch((e: unknown) => e)) as IngestError;
+    const error = (await ingest(input, sink, { format: 'ndjson', maxInputBytes: 100 }).catch(
+      (e: unknown) => e,
+    )) as IngestError;
     expect(error.reason).toBe('too-large');
     expect(input.destroyed).toBe(false);
     await sink.close();
@@ -234,14 +314,25 @@ describe('stopping and flushing', () => {
     await writeFile(path, '{"a":1}\n{"a":2}\n');
     const sink = new Sink(new MemoryAdapter<Row>());
     const summary = await ingestFile(path, sink);
-    expect(summary).toMatchObject({ source: 'service-records.ndjson', format: 'ndjson', rowsRead: 2, rowsWritten: 2, bytesRead: 16, lastLine: 2 });
+    expect(summary).toMatchObject({
+      source: 'service-records.ndjson',
+      format: 'ndjson',
+      rowsRead: 2,
+      rowsWritten: 2,
+      bytesRead: 16,
+      lastLine: 2,
+    });
     await sink.close();
   });
 
   it('refuses an unknown option, naming it', async () => {
     const sink = new Sink(new MemoryAdapter<Row>());
-    await expect(ingest(Readable.from(['']), sink, { format: 'csv', maxRejectz: 1 } as never)).rejects.toThrow(/`maxRejectz`/);
-    await expect(ingest(Readable.from(['']), sink, { format: 'csv', delimiter: '""' })).rejects.toThrow(/`delimiter`/);
+    await expect(
+      ingest(Readable.from(['']), sink, { format: 'csv', maxRejectz: 1 } as never),
+    ).rejects.toThrow(/`maxRejectz`/);
+    await expect(ingest(Readable.from(['']), sink, { format: 'csv', delimiter: '""' })).rejects.toThrow(
+      /`delimiter`/,
+    );
     await sink.close();
   });
 });
@@ -269,7 +360,11 @@ describe('bounded memory', () => {
     let peakPending = 0;
     const summary = await ingest(Readable.from(generate()), sink, {
       format: 'csv',
-      columns: [{ name: 'record_id', required: true }, { name: 'bike_id', type: 'integer' }, { name: 'serviced_at', type: 'timestamp' }],
+      columns: [
+        { name: 'record_id', required: true },
+        { name: 'bike_id', type: 'integer' },
+        { name: 'serviced_at', type: 'timestamp' },
+      ],
       progressIntervalMs: 0,
       onProgress: (p) => {
         const pending = sink.pending();

@@ -12,7 +12,7 @@ export class MemoryAdapter<T> implements SinkAdapter<T> {
   discard = false;
   delayMs = 0;
 
-  async write(batch: Batch<T>): Promise<void | PartialWrite> {
+  async write(batch: Batch<T>): Promise<PartialWrite | undefined> {
     this.batches++;
     if (this.delayMs > 0) await new Promise((r) => setTimeout(r, this.delayMs));
     const rejected: Array<{ index: number; error: unknown }> = [];

@@ -1,7 +1,7 @@
 import { Readable } from 'node:stream';
 import { Sink } from '@spillway/core';
 import { describe, expect, it } from 'vitest';
-import { type IngestOptions, type Reject, type Row, ingest } from '../src/index.js';
+import { type IngestOptions, ingest, type Reject, type Row } from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
 async function run(text: string | Buffer, options: IngestOptions<Row> = {}) {
@@ -11,7 +11,11 @@ async function run(text: string | Buffer, options: IngestOptions<Row> = {}) {
   const bytes = Buffer.isBuffer(text) ? text : Buffer.from(text, 'utf8');
   const chunks: Buffer[] = [];
   for (let i = 0; i < bytes.length; i += 5) chunks.push(bytes.subarray(i, i + 5));
-  const summary = await ingest(Readable.from(chunks), sink, { format: 'ndjson', rejects: { write: (r) => void rejects.push(r) }, ...options });
+  const summary = await ingest(Readable.from(chunks), sink, {
+    format: 'ndjson',
+    rejects: { write: (r) => void rejects.push(r) },
+    ...options,
+  });
   await sink.close();
   return { rows: adapter.stored, lines: adapter.lines, rejects, summary };
 }
@@ -21,7 +25,10 @@ describe('NDJSON as jsonlines.org describes it', () => {
   // supported "because surrounding white space is implicitly ignored"), the last separator optional.
   it('reads one JSON object per line, LF or CRLF', async () => {
     const { rows, lines } = await run('{"dock":"DK-1","bikes":4}\r\n{"dock":"DK-2","bikes":0}\n');
-    expect(rows).toEqual([{ dock: 'DK-1', bikes: 4 }, { dock: 'DK-2', bikes: 0 }]);
+    expect(rows).toEqual([
+      { dock: 'DK-1', bikes: 4 },
+      { dock: 'DK-2', bikes: 0 },
+    ]);
     expect(lines).toEqual([1, 2]);
   });
 
@@ -65,7 +72,11 @@ describe('NDJSON as jsonlines.org describes it', () => {
   });
 
   it('rejects invalid UTF-8 on its own line only', async () => {
-    const bytes = Buffer.concat([Buffer.from('{"a":"é"}\n{"a":"'), Buffer.from([0xc3, 0x28]), Buffer.from('"}\n{"a":"z"}\n')]);
+    const bytes = Buffer.concat([
+      Buffer.from('{"a":"é"}\n{"a":"'),
+      Buffer.from([0xc3, 0x28]),
+      Buffer.from('"}\n{"a":"z"}\n'),
+    ]);
     const { rows, rejects } = await run(bytes);
     expect(rows).toEqual([{ a: 'é' }, { a: 'z' }]);
     expect(rejects).toMatchObject([{ line: 2, reason: 'utf8' }]);

@@ -1,19 +1,19 @@
 import { stat, writeFile } from 'node:fs/promises';
-import { Command, type CommanderError, InvalidArgumentError, Option } from 'commander';
 import { messageOf } from '@spillway/core';
 import {
   type ColumnSpec,
+  formatFromPath,
+  IngestError,
   type IngestFormat,
   type IngestOptions,
   type IngestSummary,
-  IngestError,
-  RejectFile,
-  type Row,
-  formatFromPath,
   ingest,
   ingestFile,
+  RejectFile,
+  type Row,
   readCsvHeader,
 } from '@spillway/ingest';
+import { Command, type CommanderError, InvalidArgumentError, Option } from 'commander';
 import { parseColumnsFlag, readSchemaFile } from '../ingest/columns-flag.js';
 import { type ProgressMode, progressView } from '../ingest/progress.js';
 import { openTarget } from '../ingest/targets.js';
@@ -94,37 +94,97 @@ Examples:
 /** Registers `spillway ingest <file> --to <url>`. */
 export function registerIngest(program: Command): void {
   const cmd = new Command('ingest')
-    .description('Stream a CSV or NDJSON file (or - for stdin) into PostgreSQL, Redis or Kafka, with validation, a reject file and a summary.')
+    .description(
+      'Stream a CSV or NDJSON file (or - for stdin) into PostgreSQL, Redis or Kafka, with validation, a reject file and a summary.',
+    )
     .argument('<file>', 'input file, or - to read standard input (then --format is required)')
     .requiredOption('--to <url>', 'target store: postgres://…, redis://…, or kafka://host:port[,host:port]')
     // input
-    .addOption(new Option('--format <format>', 'input format (default: from the extension: .csv/.tsv, .ndjson/.jsonl)').choices(['csv', 'ndjson']))
+    .addOption(
+      new Option(
+        '--format <format>',
+        'input format (default: from the extension: .csv/.tsv, .ndjson/.jsonl)',
+      ).choices(['csv', 'ndjson']),
+    )
     .option('--delimiter <char>', 'CSV field delimiter (default "," or a tab for .tsv)')
     .option('--no-header', 'the CSV has no header row: --columns / --schema name the fields by position')
-    .option('--columns <spec>', 'declared columns: name[:type][!],… with types string|integer|number|boolean|timestamp|json and ! for required')
-    .option('--schema <file.json>', 'declared columns as a JSON array of {name, type, required, pattern, min, max, enum, from}')
-    .option('--max-row-bytes <n>', 'longest CSV record / NDJSON line in bytes; longer ones are rejected (default 1048576)', int('--max-row-bytes', 1))
-    .addOption(new Option('--blank-lines <what>', 'NDJSON blank lines: skip them, or reject them (default skip)').choices(['skip', 'reject']))
+    .option(
+      '--columns <spec>',
+      'declared columns: name[:type][!],… with types string|integer|number|boolean|timestamp|json and ! for required',
+    )
+    .option(
+      '--schema <file.json>',
+      'declared columns as a JSON array of {name, type, required, pattern, min, max, enum, from}',
+    )
+    .option(
+      '--max-row-bytes <n>',
+      'longest CSV record / NDJSON line in bytes; longer ones are rejected (default 1048576)',
+      int('--max-row-bytes', 1),
+    )
+    .addOption(
+      new Option(
+        '--blank-lines <what>',
+        'NDJSON blank lines: skip them, or reject them (default skip)',
+      ).choices(['skip', 'reject']),
+    )
     // target mapping
     .option('--table <name>', 'PostgreSQL: target table (required for postgres://)')
     .option('--pg-schema <name>', 'PostgreSQL: schema of the table (default: the search_path)')
-    .addOption(new Option('--mode <mode>', 'PostgreSQL: insert, copy or upsert (default copy; upsert when --key is given)').choices(['insert', 'copy', 'upsert']))
-    .option('--key <columns>', 'PostgreSQL upsert: the conflict key columns, comma-separated (makes re-uploads idempotent)')
-    .option('--key-template <template>', 'Redis: key of each row\'s hash, with {column} placeholders (required for redis://)')
+    .addOption(
+      new Option(
+        '--mode <mode>',
+        'PostgreSQL: insert, copy or upsert (default copy; upsert when --key is given)',
+      ).choices(['insert', 'copy', 'upsert']),
+    )
+    .option(
+      '--key <columns>',
+      'PostgreSQL upsert: the conflict key columns, comma-separated (makes re-uploads idempotent)',
+    )
+    .option(
+      '--key-template <template>',
+      "Redis: key of each row's hash, with {column} placeholders (required for redis://)",
+    )
     .option('--ttl-ms <n>', 'Redis: expire each hash after this many ms', int('--ttl-ms', 1))
-    .option('--topic <name>', 'Kafka: topic to write to (required for kafka://); each row becomes a JSON message')
+    .option(
+      '--topic <name>',
+      'Kafka: topic to write to (required for kafka://); each row becomes a JSON message',
+    )
     .option('--message-key <column>', 'Kafka: column whose value is the message key')
     // rejects
     .option('--rejects <path>', 'reject file, created 0600 (default <file>.rejects.ndjson; .csv writes CSV)')
-    .addOption(new Option('--reject-format <format>', 'reject file format (default: from the extension)').choices(['ndjson', 'csv']))
-    .option('--max-rejects <n>', 'stop (exit 1) once more than n rows are rejected (default: no limit)', int('--max-rejects', 0))
+    .addOption(
+      new Option('--reject-format <format>', 'reject file format (default: from the extension)').choices([
+        'ndjson',
+        'csv',
+      ]),
+    )
+    .option(
+      '--max-rejects <n>',
+      'stop (exit 1) once more than n rows are rejected (default: no limit)',
+      int('--max-rejects', 0),
+    )
     // batching
     .option('--batch-size <n>', 'rows per batch written to the store (default 1000)', int('--batch-size', 1))
-    .option('--max-age-ms <n>', 'longest a row waits in a batch before it is written (default 500)', int('--max-age-ms', 1))
-    .option('--concurrency <n>', 'batches in flight at once (default 1; one file keeps its row order)', int('--concurrency', 1))
+    .option(
+      '--max-age-ms <n>',
+      'longest a row waits in a batch before it is written (default 500)',
+      int('--max-age-ms', 1),
+    )
+    .option(
+      '--concurrency <n>',
+      'batches in flight at once (default 1; one file keeps its row order)',
+      int('--concurrency', 1),
+    )
     // output
     .option('--summary <path>', 'also write the summary as JSON to this file')
-    .addOption(new Option('--progress <mode>', 'progress display: auto (a bar on a terminal, lines otherwise), bar, lines, none').choices(['auto', 'bar', 'lines', 'none']).default('auto'))
+    .addOption(
+      new Option(
+        '--progress <mode>',
+        'progress display: auto (a bar on a terminal, lines otherwise), bar, lines, none',
+      )
+        .choices(['auto', 'bar', 'lines', 'none'])
+        .default('auto'),
+    )
     .option('-q, --quiet', 'print nothing but errors (the summary still goes to --summary)', false)
     .addHelpText('after', EPILOG)
     .showHelpAfterError('(spillway ingest --help lists every flag)')
@@ -148,19 +208,32 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
   const onSigint = () => {
     if (interrupted) process.exit(INGEST_EXIT.interrupted);
     interrupted = true;
-    process.stderr.write('\nspillway ingest: interrupted, flushing the rows read so far (Ctrl-C again to quit now)\n');
+    process.stderr.write(
+      '\nspillway ingest: interrupted, flushing the rows read so far (Ctrl-C again to quit now)\n',
+    );
     abort.abort();
   };
   try {
     const fromStdin = file === '-';
     const format = flags.format ?? (fromStdin ? undefined : formatFromPath(file));
-    if (!format) throw new UsageError(`--format is required: it cannot be told from ${fromStdin ? 'standard input' : `"${file}"`}`);
+    if (!format)
+      throw new UsageError(
+        `--format is required: it cannot be told from ${fromStdin ? 'standard input' : `"${file}"`}`,
+      );
     const totalBytes = fromStdin ? undefined : (await stat(file).catch(() => undefined))?.size;
     if (!fromStdin && totalBytes === undefined) throw new UsageError(`cannot read ${file}`);
-    const columns: ColumnSpec[] | undefined = flags.schema ? await readSchemaFile(flags.schema) : flags.columns ? parseColumnsFlag(flags.columns) : undefined;
+    const columns: ColumnSpec[] | undefined = flags.schema
+      ? await readSchemaFile(flags.schema)
+      : flags.columns
+        ? parseColumnsFlag(flags.columns)
+        : undefined;
     if (flags.columns && flags.schema) throw new UsageError('give --columns or --schema, not both');
     const delimiter = flags.delimiter ?? (file.toLowerCase().endsWith('.tsv') ? '\t' : undefined);
-    const names = columns?.map((c) => c.name) ?? (format === 'csv' && !fromStdin && flags.header ? await readCsvHeader(file, delimiter === undefined ? {} : { delimiter }) : undefined);
+    const names =
+      columns?.map((c) => c.name) ??
+      (format === 'csv' && !fromStdin && flags.header
+        ? await readCsvHeader(file, delimiter === undefined ? {} : { delimiter })
+        : undefined);
 
     const rejectsPath = flags.rejects ?? (fromStdin ? 'stdin.rejects.ndjson' : `${file}.rejects.ndjson`);
     const rejects = new RejectFile(rejectsPath, flags.rejectFormat);
@@ -193,7 +266,9 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
     let summary: IngestSummary;
     let stopped: IngestError | undefined;
     try {
-      summary = fromStdin ? await ingest(process.stdin, target.sink, { ...options, sourceName: 'stdin' }) : await ingestFile(file, target.sink, options);
+      summary = fromStdin
+        ? await ingest(process.stdin, target.sink, { ...options, sourceName: 'stdin' })
+        : await ingestFile(file, target.sink, options);
     } catch (error) {
       if (!(error instanceof IngestError)) throw error;
       stopped = error;
@@ -211,7 +286,12 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
     target = undefined;
     await rejects.close();
     const problem = stopped?.message ?? (closeError === undefined ? undefined : messageOf(closeError));
-    const report = { ...summary, target: targetLabel(flags), rejectsFile: summary.rowsRejected + summary.rowsDeadLettered > 0 ? rejectsPath : undefined, error: problem };
+    const report = {
+      ...summary,
+      target: targetLabel(flags),
+      rejectsFile: summary.rowsRejected + summary.rowsDeadLettered > 0 ? rejectsPath : undefined,
+      error: problem,
+    };
     if (flags.summary) await writeSummary(flags.summary, report);
     say(summaryText(summary, targetLabel(flags), rejectsPath, problem));
     if (interrupted) return INGEST_EXIT.interrupted;
@@ -219,7 +299,10 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
     return summary.rowsRejected + summary.rowsDeadLettered > 0 ? INGEST_EXIT.rejects : INGEST_EXIT.ok;
   } catch (error) {
     process.stderr.write(`spillway ingest: ${messageOf(error)}\n`);
-    return error instanceof UsageError || (error instanceof TypeError && (error as { code?: string }).code === 'SPILLWAY_INVALID_OPTION') ? INGEST_EXIT.usage : INGEST_EXIT.failed;
+    return error instanceof UsageError ||
+      (error instanceof TypeError && (error as { code?: string }).code === 'SPILLWAY_INVALID_OPTION')
+      ? INGEST_EXIT.usage
+      : INGEST_EXIT.failed;
   } finally {
     process.off('SIGINT', onSigint);
     await target?.close().catch(() => undefined);
@@ -248,7 +331,12 @@ async function writeSummary(path: string, report: unknown): Promise<void> {
   await writeFile(path, `${JSON.stringify(report, null, 2)}\n`);
 }
 
-function summaryText(s: IngestSummary, target: string, rejectsPath: string, problem: string | undefined): string {
+function summaryText(
+  s: IngestSummary,
+  target: string,
+  rejectsPath: string,
+  problem: string | undefined,
+): string {
   const secs = (s.durationMs / 1000).toFixed(1);
   const lines = [
     problem === undefined ? `Ingested ${s.source} into ${target}` : `Stopped: ${problem}`,
@@ -263,7 +351,8 @@ function summaryText(s: IngestSummary, target: string, rejectsPath: string, prob
       .map(([r, n]) => `${r} ${n}`)
       .join(', ');
     lines.push(`  reasons        ${reasons || 'store'}`, `  reject file    ${rejectsPath}`);
-    for (const r of s.firstRejects.slice(0, 5)) lines.push(`    line ${r.line}${r.column ? `, ${r.column}` : ''}: ${r.reason} (${r.message})`);
+    for (const r of s.firstRejects.slice(0, 5))
+      lines.push(`    line ${r.line}${r.column ? `, ${r.column}` : ''}: ${r.reason} (${r.message})`);
   }
   return `${lines.join('\n')}\n`;
 }

@@ -15,7 +15,8 @@ export function parseColumnsFlag(text: string): ColumnSpec[] {
       const m = /^([^:!]+)(?::([a-z]+))?(!)?$/.exec(s);
       if (!m) throw new UsageError(`--columns: cannot read "${s}" (expected name[:type][!])`);
       const type = (m[2] ?? 'string') as ColumnType;
-      if (!COLUMN_TYPES.includes(type)) throw new UsageError(`--columns: "${m[2]}" is not a type (${COLUMN_TYPES.join(', ')})`);
+      if (!COLUMN_TYPES.includes(type))
+        throw new UsageError(`--columns: "${m[2]}" is not a type (${COLUMN_TYPES.join(', ')})`);
       return { name: m[1]!.trim(), type, required: m[3] === '!' };
     });
   if (specs.length === 0) throw new UsageError('--columns: no column named');
@@ -31,6 +32,7 @@ export async function readSchemaFile(path: string): Promise<ColumnSpec[]> {
     throw new UsageError(`--schema: cannot read ${path} as JSON (${(error as Error).message})`);
   }
   const list = Array.isArray(value) ? value : (value as { columns?: unknown })?.columns;
-  if (!Array.isArray(list)) throw new UsageError('--schema: expected a JSON array of column specs (or { "columns": [...] })');
+  if (!Array.isArray(list))
+    throw new UsageError('--schema: expected a JSON array of column specs (or { "columns": [...] })');
   return list as ColumnSpec[];
 }

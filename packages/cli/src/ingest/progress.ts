@@ -1,5 +1,5 @@
-import cliProgress from 'cli-progress';
 import type { IngestProgress } from '@spillway/ingest';
+import cliProgress from 'cli-progress';
 
 export type ProgressMode = 'auto' | 'bar' | 'lines' | 'none';
 
@@ -12,12 +12,20 @@ export interface ProgressView {
 const mib = (b: number) => `${(b / 1024 / 1024).toFixed(1)} MiB`;
 
 export function progressView(mode: ProgressMode, totalBytes: number | undefined): ProgressView {
-  const resolved = mode === 'auto' ? (process.stdout.isTTY && totalBytes !== undefined ? 'bar' : process.stdout.isTTY ? 'lines' : 'lines') : mode;
+  const resolved =
+    mode === 'auto'
+      ? process.stdout.isTTY && totalBytes !== undefined
+        ? 'bar'
+        : process.stdout.isTTY
+          ? 'lines'
+          : 'lines'
+      : mode;
   if (resolved === 'none') return { update() {}, stop() {} };
   if (resolved === 'bar' && totalBytes !== undefined) {
     const bar = new cliProgress.SingleBar(
       {
-        format: ' {bar} {percentage}% | {rows} rows | {rate} rows/s | {rejected} rejected | ETA {eta_formatted}',
+        format:
+          ' {bar} {percentage}% | {rows} rows | {rate} rows/s | {rejected} rejected | ETA {eta_formatted}',
         hideCursor: true,
         etaBuffer: 50,
         fps: 5,
@@ -29,7 +37,11 @@ export function progressView(mode: ProgressMode, totalBytes: number | undefined)
     bar.start(Math.max(1, totalBytes), 0, { rows: 0, rate: 0, rejected: 0 });
     return {
       update(p) {
-        bar.update(p.bytesRead, { rows: p.rowsRead, rate: Math.round(p.rowsRead / Math.max(p.elapsedMs / 1000, 0.001)), rejected: p.rowsRejected });
+        bar.update(p.bytesRead, {
+          rows: p.rowsRead,
+          rate: Math.round(p.rowsRead / Math.max(p.elapsedMs / 1000, 0.001)),
+          rejected: p.rowsRejected,
+        });
       },
       stop() {
         bar.stop();

@@ -1,8 +1,8 @@
 import { type DeadLetterTarget, Sink, type SinkOptions } from '@spillway/core';
 import type { Row } from '@spillway/ingest';
+import { kafkaProducerAdapter } from '@spillway/kafka';
 import { postgresAdapter } from '@spillway/postgres';
 import { hashFields, redisAdapter } from '@spillway/redis';
-import { kafkaProducerAdapter } from '@spillway/kafka';
 import { Redis } from 'ioredis';
 import { Kafka, logLevel } from 'kafkajs';
 import pg from 'pg';
@@ -29,7 +29,12 @@ export interface Target {
 }
 
 /** The store a `--to` URL names, with the sink the mapping flags describe. */
-export async function openTarget(flags: TargetFlags, columns: string[] | undefined, sinkOptions: SinkOptions<Row>, deadLetter: DeadLetterTarget<Row>): Promise<Target> {
+export async function openTarget(
+  flags: TargetFlags,
+  columns: string[] | undefined,
+  sinkOptions: SinkOptions<Row>,
+  deadLetter: DeadLetterTarget<Row>,
+): Promise<Target> {
   let url: URL;
   try {
     url = new URL(flags.to);
@@ -42,12 +47,19 @@ export async function openTarget(flags: TargetFlags, columns: string[] | undefin
     case 'postgres:':
     case 'postgresql:': {
       if (!flags.table) throw new UsageError('--table is required with a postgres:// target');
-      if (!columns) throw new UsageError('a postgres:// target needs the column names: give --columns or --schema (or a CSV file with a header)');
+      if (!columns)
+        throw new UsageError(
+          'a postgres:// target needs the column names: give --columns or --schema (or a CSV file with a header)',
+        );
       const keys = flags.key ? splitList(flags.key) : undefined;
       const mode = flags.mode ?? (keys ? 'upsert' : 'copy');
-      if (mode === 'upsert' && !keys) throw new UsageError('--mode upsert needs --key <columns>: the conflict key');
+      if (mode === 'upsert' && !keys)
+        throw new UsageError('--mode upsert needs --key <columns>: the conflict key');
       if (mode !== 'upsert' && keys) throw new UsageError(`--key is used by --mode upsert, not ${mode}`);
-      const pool = new pg.Pool({ connectionString: flags.to, max: Math.max(2, (sinkOptions.concurrency ?? 1) + 1) });
+      const pool = new pg.Pool({
+        connectionString: flags.to,
+        max: Math.max(2, (sinkOptions.concurrency ?? 1) + 1),
+      });
       const adapter = postgresAdapter<Row>({
         pool,
         table: flags.table,
@@ -72,13 +84,20 @@ export async function openTarget(flags: TargetFlags, columns: string[] | undefin
     }
     case 'redis:':
     case 'rediss:': {
-      if (!flags.keyTemplate) throw new UsageError('--key-template is required with a redis:// target, e.g. "tandem:service:{record_id}"');
+      if (!flags.keyTemplate)
+        throw new UsageError(
+          '--key-template is required with a redis:// target, e.g. "tandem:service:{record_id}"',
+        );
       const key = template(flags.keyTemplate);
       const client = new Redis(flags.to, { lazyConnect: true, maxRetriesPerRequest: 2 });
       await client.connect();
       const adapter = redisAdapter<Row>({
         client,
-        mapping: hashFields<Row>({ key, fields: (r) => hashOf(r), ...(flags.ttlMs !== undefined && { ttlMs: flags.ttlMs }) }),
+        mapping: hashFields<Row>({
+          key,
+          fields: (r) => hashOf(r),
+          ...(flags.ttlMs !== undefined && { ttlMs: flags.ttlMs }),
+        }),
       });
       const sink = new Sink(adapter, { name: 'redis', ...options });
       return {
@@ -101,7 +120,10 @@ export async function openTarget(flags: TargetFlags, columns: string[] | undefin
       const adapter = kafkaProducerAdapter<Row>({
         kafka,
         topic: flags.topic,
-        mapper: (r) => ({ value: JSON.stringify(r), ...(messageKey !== undefined && { key: r[messageKey] == null ? null : String(r[messageKey]) }) }),
+        mapper: (r) => ({
+          value: JSON.stringify(r),
+          ...(messageKey !== undefined && { key: r[messageKey] == null ? null : String(r[messageKey]) }),
+        }),
       });
       const sink = new Sink(adapter, { name: `kafka:${flags.topic}`, ...options });
       return { sink, label: `kafka ${brokers.join(',')} topic ${flags.topic}`, close: () => sink.close() };
@@ -121,7 +143,10 @@ function splitList(text: string): string[] {
 /** `tandem:service:{record_id}` → a key function; a row without the named value is refused by the store as bad data. */
 function template(text: string): (r: Row) => string {
   const names = [...text.matchAll(/\{([^}]+)\}/g)].map((m) => m[1]!);
-  if (names.length === 0) throw new UsageError('--key-template must name at least one column in braces, e.g. "tandem:service:{record_id}"');
+  if (names.length === 0)
+    throw new UsageError(
+      '--key-template must name at least one column in braces, e.g. "tandem:service:{record_id}"',
+    );
   return (r) =>
     text.replace(/\{([^}]+)\}/g, (_, name: string) => {
       const v = r[name];
