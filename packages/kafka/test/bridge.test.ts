@@ -1,0 +1,365 @@
+// Unit tests of the bridge's own logic (progress across sinks, holding and pausing, redelivery,
+// commit fencing, rebalance and shutdown order) with a fake kafkajs consumer that the test drives
+// by hand. The real-broker behaviour is covered in test/integration/bridge*.test.ts.
+import { type Batch, type DeadLetter, Sink, type SinkAdapter } from '@spillway/core';
+import { DecodeError, KafkaBridge, type UndecodableMessage } from '@spillway/kafka';
+import type { Consumer, EachBatchPayload, KafkaMessage } from 'kafkajs';
+import { describe, expect, it } from 'vitest';
+
+const TOPIC = 'tandem.dock-status';
+
+type Listener = (e: { payload: any }) => void;
+
+/** Just enough of a kafkajs Consumer for the bridge; records what the bridge asked of it. */
+class FakeConsumer {
+  readonly events = { GROUP_JOIN: 'consumer.group_join', REBALANCING: 'consumer.rebalancing', CRASH: 'consumer.crash' };
+  readonly listeners = new Map<string, Set<Listener>>();
+  readonly commits: Array<Array<{ topic: string; partition: number; offset: string }>> = [];
+  readonly calls: string[] = [];
+  readonly pausedSet = new Set<string>();
+  eachBatch: ((p: EachBatchPayload) => Promise<void>) | undefined;
+  resolved = new Map<number, string>();
+  commitError: unknown;
+
+  on(event: string, listener: Listener) {
+    let set = this.listeners.get(event);
+    if (!set) this.listeners.set(event, (set = new Set()));
+    set.add(listener);
+    return () => set!.delete(listener);
+  }
+  emit(event: string, payload: unknown) {
+    for (const l of this.listeners.get(event) ?? []) l({ payload });
+  }
+  join(partitions: number[], memberId = 'member-1') {
+    this.emit(this.events.GROUP_JOIN, { memberId, memberAssignment: { [TOPIC]: partitions } });
+  }
+  async connect() {
+    this.calls.push('connect');
+  }
+  async subscribe() {
+    this.calls.push('subscribe');
+  }
+  async run(config: { eachBatch: (p: EachBatchPayload) => Promise<void> }) {
+    this.calls.push('run');
+    this.eachBatch = config.eachBatch;
+  }
+  pause(tps: Array<{ topic: string; partitions: number[] }>) {
+    for (const tp of tps) for (const p of tp.partitions) this.pausedSet.add(`${tp.topic}:${p}`);
+  }
+  resume(tps: Array<{ topic: string; partitions: number[] }>) {
+    for (const tp of tps) for (const p of tp.partitions) this.pausedSet.delete(`${tp.topic}:${p}`);
+  }
+  paused() {
+    const by = new Map<string, number[]>();
+    for (const k of this.pausedSet) {
+      const [topic, p] = k.split(':') as [string, string];
+      by.set(topic, [...(by.get(topic) ?? []), Number(p)]);
+    }
+    return [...by].map(([topic, partitions]) => ({ topic, partitions }));
+  }
+  async commitOffsets(offsets: Array<{ topic: string; partition: number; offset: string }>) {
+    if (this.commitError) throw this.commitError;
+    this.calls.push('commit');
+    this.commits.push(offsets);
+  }
+  async disconnect() {
+    this.calls.push('disconnect');
+  }
+
+  /** Delivers a batch of `values` starting at `first` on `partition`, as kafkajs' runner would. */
+  async deliver(partition: number, first: number, values: Array<string | Buffer>, heartbeat: () => Promise<void> = async () => undefined) {
+    const messages = values.map(
+      (v, i) => ({ offset: String(first + i), key: null, value: Buffer.isBuffer(v) ? v : Buffer.from(v), timestamp: String(Date.now()), attributes: 0, headers: {} }) as unknown as KafkaMessage,
+    );
+    await this.eachBatch!({
+      batch: { topic: TOPIC, partition, highWatermark: String(first + values.length), messages } as never,
+      resolveOffset: (o: string) => this.resolved.set(partition, o),
+      heartbeat,
+      isRunning: () => true,
+      isStale: () => false,
+    } as unknown as EachBatchPayload);
+  }
+  lastCommit(partition: number): string | undefined {
+    for (let i = this.commits.length - 1; i >= 0; i--) {
+      const hit = this.commits[i]!.find((c) => c.partition === partition);
+      if (hit) return hit.offset;
+    }
+    return undefined;
+  }
+}
+
+/** An adapter whose writes stay open until the test releases them. */
+class GatedAdapter implements SinkAdapter<{ n: number }> {
+  readonly kind = 'gated';
+  readonly batches: Array<{ batch: Batch<{ n: number }>; release: () => void }> = [];
+  readonly written: number[] = [];
+  write(batch: Batch<{ n: number }>): Promise<void> {
+    return new Promise((resolve) =>
+      this.batches.push({
+        batch,
+        release: () => {
+          this.written.push(...batch.records.map((r) => r.n));
+          resolve();
+        },
+      }),
+    );
+  }
+  classify() {
+    return 'retry' as const;
+  }
+  /** Releases every batch written so far, oldest first. */
+  releaseAll() {
+    for (const b of this.batches.splice(0)) b.release();
+  }
+}
+
+const tick = () => new Promise((r) => setImmediate(r));
+
+/** Flushes the sinks while acknowledging every batch as it is written. */
+async function flushAcking(sinks: Sink<{ n: number }>[], adapters: GatedAdapter[]): Promise<void> {
+  const auto = setInterval(() => adapters.forEach((a) => a.releaseAll()), 1);
+  try {
+    await Promise.all(sinks.map((s) => s.flush()));
+    await tick();
+  } finally {
+    clearInterval(auto);
+  }
+}
+
+function setup(options: { sinks?: number; maxRecords?: number; maxPendingRecords?: number; route?: (r: { n: number }) => Sink<{ n: number }>[] } = {}) {
+  const consumer = new FakeConsumer();
+  const adapters = Array.from({ length: options.sinks ?? 1 }, () => new GatedAdapter());
+  const sinks = adapters.map(
+    (a, i) =>
+      new Sink(a, {
+        name: `sink-${i}`,
+        maxRecords: options.maxRecords ?? 100,
+        maxPendingRecords: options.maxPendingRecords ?? options.maxRecords ?? 100,
+        maxAgeMs: 60_000,
+        idleMs: 0,
+      }),
+  );
+  const letters: DeadLetter<UndecodableMessage>[] = [];
+  const bridge = new KafkaBridge<{ n: number }>({
+    consumer: consumer as unknown as Consumer,
+    topics: [TOPIC],
+    decode: (m) => {
+      const text = m.value?.toString() ?? '';
+      if (text === 'skip') return { n: -1 };
+      return /^\d+$/.test(text) ? { n: Number(text) } : new DecodeError('not a number');
+    },
+    route: options.route ?? ((r) => (r.n < 0 ? [] : sinks)),
+    deadLetter: { write: async (l) => void letters.push(...l) },
+    commitIntervalMs: 60_000,
+  });
+  return { consumer, adapters, sinks, bridge, letters };
+}
+
+describe('KafkaBridge', () => {
+  it('commits the offset after the last message durable in every sink it was routed to', async () => {
+    const { consumer, adapters, sinks, bridge } = setup({ sinks: 2 });
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['10', '11', '12']);
+    const flushing = Promise.all(sinks.map((s) => s.flush()));
+    adapters[0]!.releaseAll(); // durable in PostgreSQL, say, but not yet in Redis
+    await tick();
+    await bridge.commit();
+    expect(consumer.commits).toEqual([]);
+    adapters[1]!.releaseAll();
+    await flushing;
+    await bridge.commit();
+    // Source: Apache Kafka documentation, consumer offset management: the committed offset is the
+    // next offset to read, last processed + 1.
+    expect(consumer.lastCommit(0)).toBe('3');
+    expect(bridge.snapshot().partitions[0]).toMatchObject({ committed: '3', durable: '3', lastSeen: '2', lagMessages: 0, pendingMessages: 0 });
+  });
+
+  it('never commits past a record still in flight, even when a later batch finishes first', async () => {
+    const consumer = new FakeConsumer();
+    const adapter = new GatedAdapter();
+    const sink = new Sink(adapter, { maxRecords: 2, maxAgeMs: 60_000, idleMs: 0, concurrency: 2, orderingKey: () => undefined });
+    const bridge = new KafkaBridge<{ n: number }>({
+      consumer: consumer as unknown as Consumer,
+      topics: [TOPIC],
+      decode: (m) => ({ n: Number(m.value) }),
+      route: () => sink,
+      deadLetter: { write: async () => undefined },
+    });
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['0', '1', '2', '3']);
+    expect(adapter.batches).toHaveLength(2);
+    adapter.batches[1]!.release(); // offsets 2, 3 durable; 0, 1 still in flight
+    await tick();
+    await bridge.commit();
+    expect(consumer.commits).toEqual([]);
+    adapter.batches[0]!.release();
+    await tick();
+    await bridge.commit();
+    expect(consumer.lastCommit(0)).toBe('4');
+  });
+
+  it('dead-letters an undecodable message with its coordinates and raw bytes, and commits past it once stored', async () => {
+    const { consumer, adapters, sinks, bridge, letters } = setup();
+    await bridge.start();
+    consumer.join([2]);
+    const raw = Buffer.from([0xde, 0xad, 0xbe, 0xef]);
+    await consumer.deliver(2, 40, ['1', raw, 'skip', '2']);
+    await flushAcking(sinks, adapters);
+    await bridge.stop({ timeoutMs: 5000 });
+    expect(letters).toHaveLength(1);
+    expect(letters[0]).toMatchObject({ reason: 'decode', meta: { topic: TOPIC, partition: 2, offset: '41' } });
+    expect(letters[0]!.record.value?.equals(raw)).toBe(true);
+    expect((letters[0]!.error as DecodeError).code).toBe('SPILLWAY_DECODE_ERROR');
+    // 41 (dead-lettered) and 42 (routed nowhere) do not hold the commit point back.
+    expect(consumer.lastCommit(2)).toBe('44');
+    expect(adapters[0]!.written).toEqual([1, 2]);
+  });
+
+  it('holds the message a full sink refused, pauses its partition, and resumes once there is room', async () => {
+    const { consumer, adapters, sinks, bridge } = setup({ sinks: 2, maxRecords: 2, maxPendingRecords: 2 });
+    await bridge.start();
+    consumer.join([0, 1]);
+    await consumer.deliver(0, 0, ['0', '1', '2', '3']);
+    // Both sinks took 0 and 1; sink 0 was full at 2, so 2 is held and partition 0 pauses.
+    expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(true);
+    expect(consumer.resolved.get(0)).toBe('2'); // taken (held): kafkajs fetches from 3 after resume
+    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)?.paused).toBe(true);
+    // A batch fetched before the pause is left unresolved for kafkajs to fetch again.
+    await consumer.deliver(0, 3, ['3']);
+    expect(consumer.resolved.get(0)).toBe('2');
+    adapters[0]!.releaseAll();
+    adapters[1]!.releaseAll();
+    await tick();
+    await tick();
+    expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(false);
+    await consumer.deliver(0, 3, ['3']);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    // Each sink got each message exactly once, in order.
+    expect(adapters[0]!.written).toEqual([0, 1, 2, 3]);
+    expect(adapters[1]!.written).toEqual([0, 1, 2, 3]);
+    expect(consumer.lastCommit(0)).toBe('4');
+  });
+
+  it('skips offsets redelivered after a rejoin that kept the partition', async () => {
+    const { consumer, adapters, bridge } = setup();
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['0', '1', '2']);
+    consumer.join([0]); // kept: kafkajs restarts from the broker's committed offset (none yet)
+    await consumer.deliver(0, 0, ['0', '1', '2', '3']);
+    const auto = setInterval(() => adapters[0]!.releaseAll(), 1);
+    try {
+      await bridge.stop({ timeoutMs: 5000 });
+    } finally {
+      clearInterval(auto);
+    }
+    expect(bridge.snapshot().skippedRedeliveries).toBe(3);
+    expect(adapters[0]!.written).toEqual([0, 1, 2, 3]);
+    expect(consumer.lastCommit(0)).toBe('4');
+  });
+
+  it('fences commits: not for revoked partitions, never backwards, and not from records of an earlier ownership', async () => {
+    const { consumer, adapters, sinks, bridge } = setup();
+    await bridge.start();
+    consumer.join([0, 1]);
+    await consumer.deliver(0, 0, ['0', '1']);
+    await consumer.deliver(1, 0, ['5']);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    expect(consumer.commits.at(-1)).toEqual([
+      { topic: TOPIC, partition: 0, offset: '2' },
+      { topic: TOPIC, partition: 1, offset: '1' },
+    ]);
+    // Partition 1 moves away; its late records must not be committed by this member.
+    await consumer.deliver(1, 1, ['6']);
+    consumer.join([0]);
+    await flushAcking(sinks, adapters);
+    const before = consumer.commits.length;
+    await bridge.commit();
+    expect(consumer.commits.length).toBe(before); // nothing new: partition 0 unchanged, 1 not owned
+    // Expelled and joined afresh with a new member id: the partition's state starts over from
+    // what is delivered, and a point below this member's earlier commit of 2 is never sent.
+    consumer.join([0], 'member-2');
+    await consumer.deliver(0, 0, ['0']);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    expect(consumer.commits.length).toBe(before);
+    expect(bridge.snapshot().skippedRedeliveries).toBe(0); // state was dropped, so 0 was taken again
+    await consumer.deliver(0, 1, ['1', '2']);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    expect(consumer.lastCommit(0)).toBe('3');
+  });
+
+  it('on a rebalance signal from heartbeat, flushes and commits before rethrowing the same error', async () => {
+    const { consumer, adapters, bridge } = setup();
+    await bridge.start();
+    consumer.join([0]);
+    const rebalance = Object.assign(new Error('The group is rebalancing'), { type: 'REBALANCE_IN_PROGRESS' });
+    const order: string[] = [];
+    // The gated store acknowledges each batch as soon as it is written.
+    const auto = setInterval(() => adapters[0]!.releaseAll(), 1);
+    try {
+      const delivered = consumer.deliver(0, 0, ['0', '1', '2'], async () => {
+        order.push('heartbeat');
+        throw rebalance;
+      });
+      await expect(delivered).rejects.toBe(rebalance);
+    } finally {
+      clearInterval(auto);
+    }
+    order.push(...consumer.calls.filter((c) => c === 'commit'));
+    expect(order).toEqual(['heartbeat', 'commit']);
+    expect(consumer.lastCommit(0)).toBe('3');
+    expect(adapters[0]!.written).toEqual([0, 1, 2]);
+    expect(bridge.snapshot().rebalanceFlushes).toBe(1);
+  });
+
+  it('stops in order: pause everything, flush, commit, disconnect', async () => {
+    const { consumer, adapters, bridge } = setup();
+    await bridge.start();
+    consumer.join([0, 1]);
+    await consumer.deliver(0, 0, ['0']);
+    await consumer.deliver(1, 0, ['1']);
+    const auto = setInterval(() => adapters[0]!.releaseAll(), 1);
+    try {
+      await bridge.stop({ timeoutMs: 5000 });
+    } finally {
+      clearInterval(auto);
+    }
+    expect(consumer.pausedSet).toEqual(new Set([`${TOPIC}:0`, `${TOPIC}:1`]));
+    expect(consumer.calls.slice(-2)).toEqual(['commit', 'disconnect']);
+    expect(adapters[0]!.written).toEqual([0, 1]);
+    expect(bridge.state).toBe('stopped');
+    // Nothing is taken once stopping began.
+    await consumer.deliver(0, 1, ['2']);
+    expect(bridge.snapshot().messages).toBe(2);
+  });
+
+  it('resolves a commit refused by a rebalance, and rejects other commit failures with the Kafka error type', async () => {
+    const { consumer, adapters, sinks, bridge } = setup();
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['0']);
+    const f = sinks[0]!.flush();
+    adapters[0]!.releaseAll();
+    await f;
+    consumer.commitError = Object.assign(new Error('not the current generation'), { type: 'ILLEGAL_GENERATION' });
+    await expect(bridge.commit()).resolves.toBeUndefined();
+    consumer.commitError = Object.assign(new Error('denied'), { type: 'GROUP_AUTHORIZATION_FAILED' });
+    await expect(bridge.commit()).rejects.toMatchObject({ code: 'SPILLWAY_STORE_ERROR', driverCode: 'GROUP_AUTHORIZATION_FAILED' });
+    expect(bridge.snapshot().commitErrors).toBe(2);
+  });
+
+  it('rejects bad options with a TypeError that names the option', () => {
+    const base = { consumer: new FakeConsumer() as unknown as Consumer, topics: [TOPIC], decode: () => 1, route: () => undefined, deadLetter: { write: async () => undefined } };
+    expect(() => new KafkaBridge({ ...base, commitIntervalMs: -5 })).toThrow(/Expected `commitIntervalMs` to be a finite number > 0, got `-5`/);
+    expect(() => new KafkaBridge({ ...base, topics: [] })).toThrow(/`topics`/);
+    expect(() => new KafkaBridge({ ...base, deadLetter: undefined as never })).toThrow(/`deadLetter`/);
+    expect(() => new KafkaBridge({ ...base, consumer: undefined })).toThrow(/`kafka`/);
+    expect(() => new KafkaBridge({ ...base, colour: 'red' } as never)).toThrow(TypeError);
+  });
+});
