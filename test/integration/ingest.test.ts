@@ -178,6 +178,30 @@ describe('a partner file into PostgreSQL', () => {
     expect((await fingerprint()).n).toBe(5000);
   });
 
+  it('keeps the last row of a key that a file corrects further down, even with batches in flight in parallel', async () => {
+    const name = await table('records_corrections');
+    const path = join(dir, 'partner-corrections.csv');
+    // SR-1 … SR-3000, then a correction of every tenth record: the corrections must win.
+    const rows = Array.from({ length: 3000 }, (_, i) => good(i + 1));
+    const corrections = Array.from({ length: 300 }, (_, i) => `SR-${(i + 1) * 10},DK-0001,999,2024-06-01T00:00:00Z,0,true,chain,corrected\r\n`);
+    await writeFile(path, HEADER + rows.join('') + corrections.join(''));
+    const sink = postgresSink<Row>({
+      pool: db.pool,
+      table: name,
+      columns: NAMES,
+      map: (r) => NAMES.map((c) => r[c]),
+      mode: 'upsert',
+      conflict: { key: ['record_id'] },
+      maxRecords: 200,
+      concurrency: 4,
+    });
+    const summary = await ingestFile(path, sink, { columns: COLUMNS });
+    await sink.close();
+    expect(summary.rowsWritten).toBe(3300);
+    const { rows: got } = await db.pool.query(`SELECT count(*)::int AS n, count(*) FILTER (WHERE bike_id = 999)::int AS corrected FROM ${name}`);
+    expect(got[0]).toEqual({ n: 3000, corrected: 300 });
+  });
+
   it('makes every row of a 5 MB upload that then goes silent durable at maxAgeMs, before the upload ends', async () => {
     const name = await table('records_silence');
     const clock = new ManualClock();
