@@ -113,14 +113,14 @@ export async function runDemo(
     say(`  redis     ${redact(o.redisUrl)}`);
     say(`            → ${s.where}`);
   } else {
-    say('  redis     off (--redis <url> or SPILLWAY_REDIS_URL: live availability per dock)');
+    say('  redis     off (--redis <url> or SPILLWAY_REDIS_URL)');
   }
   if (o.kafkaBrokers) {
     const s = await open('kafka', () => kafkaStore(o.kafkaBrokers as string[], o.kafkaTopic, runDir));
     say(`  kafka     ${o.kafkaBrokers.join(',')}`);
     say(`            → ${s.where}`);
   } else {
-    say('  kafka     off (--kafka <host:port> or SPILLWAY_KAFKA_BROKERS: enriched events topic)');
+    say('  kafka     off (--kafka <host:port> or SPILLWAY_KAFKA_BROKERS)');
   }
   const s = DEMO_SINK_SETTINGS;
   say(
@@ -288,19 +288,20 @@ export function summaryLines(r: DemoResult): string[] {
     const reasons = (Object.keys(f) as Array<keyof typeof f>)
       .filter((k) => f[k] > 0)
       .map((k) => `${k} ${fmt(f[k])}`);
+    lines.push(`  flushes   ${s.name}: ${reasons.join(' · ') || 'none'}`);
     lines.push(
-      `  flushes   ${s.name}: ${reasons.join(' · ') || 'none'} (${fmt(s.snapshot.batches)} batches, mean ${fmt(s.snapshot.batchRecords.mean)})`,
+      `            ${s.name}: ${fmt(s.snapshot.batches)} batches, mean ${fmt(s.snapshot.batchRecords.mean)} records`,
     );
   }
   for (const s of r.stores) {
     const a = s.snapshot.acceptToDurableMs;
     const e = s.snapshot.eventToDurableMs;
     lines.push(
-      `  latency   ${s.name}: accept→durable p50 ${ms(a.p50)} · p99 ${ms(a.p99)} · max ${ms(a.max)} (maxAgeMs ${DEMO_SINK_SETTINGS.maxAgeMs})`,
+      `  latency   ${s.name}: accept→durable p50 ${ms(a.p50)} · p99 ${ms(a.p99)} · max ${ms(a.max)}`,
     );
     // Events the silent district's uplink held reach the store late by design: its outage.
-    const held = e.max > a.max + 1000 ? ' (the held replay)' : '';
-    lines.push(`  ${''.padEnd(9)} ${s.name}: event time→durable p99 ${ms(e.p99)} · max ${ms(e.max)}${held}`);
+    const held = e.max > a.max + 1000 ? ' (uplink replay)' : '';
+    lines.push(`            ${s.name}: event time→durable p99 ${ms(e.p99)} · max ${ms(e.max)}${held}`);
   }
   const stuck = r.stores.filter((s) => s.snapshot.pendingRecords > 0);
   const lost = r.stores.filter((s) => !s.verification.ok);
