@@ -48,8 +48,8 @@ async function raw(client: Redis, batch: number): Promise<number> {
   return records.length / ((performance.now() - t0) / 1000);
 }
 
-async function viaSink(client: Redis, batch: number): Promise<number> {
-  const sink = new Sink(redisAdapter({ client, mapping }), { maxRecords: batch, maxBytes: 1 << 30, maxAgeMs: 60_000, idleMs: 0 });
+async function viaSink(client: Redis, batch: number, concurrency = 1): Promise<number> {
+  const sink = new Sink(redisAdapter({ client, mapping }), { maxRecords: batch, maxBytes: 1 << 30, maxAgeMs: 60_000, idleMs: 0, concurrency });
   const t0 = performance.now();
   for (const r of records) if (!sink.tryWrite(r)) await sink.write(r);
   await sink.flush();
@@ -94,12 +94,14 @@ async function main(): Promise<void> {
         push(`sink@${size}`, await viaSink(client, size));
         push(`raw@${size}`, await raw(client, size));
       }
+      // Not a like-for-like row: two pipelines in flight (Sink concurrency 2), for information.
+      push(`sink-c2@${size}`, await viaSink(client, size, 2));
     }
   }
   const one = summary(samples.get('per-record')!);
   console.log(`\nrecords/s (median of ${REPEATS}; spread = (max-min)/median)`);
   console.log(`per-record HSET: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)}, spread ${one.spreadPct.toFixed(0)}%)`);
-  console.log('batch  | raw pipeline               | sink                       | sink/raw | sink/per-record');
+  console.log('batch  | raw pipeline               | sink                       | sink/raw: ratio of medians, paired median [range] | sink/per-record');
   for (const size of SIZES) {
     const r = summary(samples.get(`raw@${size}`)!);
     const s = summary(samples.get(`sink@${size}`)!);
@@ -109,9 +111,14 @@ async function main(): Promise<void> {
     console.log(
       `${String(size).padEnd(6)} | ${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(37) +
         ` | ${fmt(s.median).padStart(9)} (±${(s.spreadPct / 2).toFixed(0)}%)`.padEnd(29) +
-        ` | ${(s.median / r.median).toFixed(2)} [${pr.min.toFixed(2)}–${pr.max.toFixed(2)}]` +
+        ` | ${(s.median / r.median).toFixed(2)}, paired ${pr.median.toFixed(2)} [${pr.min.toFixed(2)}–${pr.max.toFixed(2)}]` +
         ` | ${(s.median / one.median).toFixed(1)}×`,
     );
+  }
+  for (const size of SIZES) {
+    const c2 = summary(samples.get(`sink-c2@${size}`)!);
+    const r = summary(samples.get(`raw@${size}`)!);
+    console.log(`sink, concurrency 2, batch ${size}: ${fmt(c2.median)} (±${(c2.spreadPct / 2).toFixed(0)}%) = ${(c2.median / r.median).toFixed(2)}× raw, ${(c2.median / one.median).toFixed(1)}× per-record`);
   }
   console.log(JSON.stringify({ samples: Object.fromEntries(samples) }));
   // Remove the keys written here (SCAN, not KEYS).

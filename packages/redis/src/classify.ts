@@ -91,7 +91,12 @@ export function classifyRedisError(error: unknown, options: RedisClassifyOptions
     if (prefix === 'EXECABORT') {
       // A queue-time error: the causes tell whether it was the data or the command itself.
       const previous = field(inner, 'previousErrors');
-      if (Array.isArray(previous) && previous.some((p) => classifyRedisError(p, options) === 'fatal')) return 'fatal';
+      if (Array.isArray(previous) && previous.length > 0) {
+        const classes = previous.map((p) => classifyRedisError(p, options));
+        if (classes.includes('fatal')) return 'fatal';
+        // e.g. OOM while queueing: the server state, not the data.
+        if (classes.every((c) => c === 'retry')) return 'retry';
+      }
     }
     return 'split';
   }
@@ -100,6 +105,9 @@ export function classifyRedisError(error: unknown, options: RedisClassifyOptions
   if (field(inner, 'name') === 'MaxRetriesPerRequestError') return 'retry';
   const code = field(inner, 'code');
   if (typeof code === 'string' && SOCKET_CODES.has(code)) return 'retry';
-  if (/Failed to refresh slots cache|None of startup nodes is available|Too many Cluster redirections/.test(message)) return 'retry';
+  // Cluster topology errors: a slot moved between grouping and sending, or the slots are being refreshed.
+  if (/Failed to refresh slots cache|None of startup nodes is available|Too many Cluster redirections|should belong to the same slots? allocation group|Cluster isn't ready/.test(message)) {
+    return 'retry';
+  }
   return 'fatal';
 }

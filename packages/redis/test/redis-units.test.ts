@@ -41,6 +41,7 @@ describe('classifyRedisError', () => {
       expect(classifyRedisError(reply(m)), m).toBe('retry');
     }
     expect(classifyRedisError(Object.assign(new Error('connect ECONNREFUSED 127.0.0.1:1'), { code: 'ECONNREFUSED' }))).toBe('retry');
+    expect(classifyRedisError(new Error('All keys in the pipeline should belong to the same slots allocation group'))).toBe('retry');
     expect(classifyRedisError(named('MaxRetriesPerRequestError', 'Reached the max retries per request limit (which is 1). Refer to "maxRetriesPerRequest" option for details.'))).toBe('retry');
   });
 
@@ -55,6 +56,8 @@ describe('classifyRedisError', () => {
     expect(classifyRedisError(reply("ERR unknown command 'NOSUCH', with args beginning with: 'k' "))).toBe('fatal');
     const execabort = Object.assign(reply('EXECABORT Transaction discarded because of previous errors.'), { previousErrors: [reply("ERR unknown command 'NOSUCH'")] });
     expect(classifyRedisError(execabort)).toBe('fatal');
+    const oom = Object.assign(reply('EXECABORT Transaction discarded because of previous errors.'), { previousErrors: [reply("OOM command not allowed when used memory > 'maxmemory'.")] });
+    expect(classifyRedisError(oom)).toBe('retry');
     expect(classifyRedisError(new TypeError('bug'))).toBe('fatal');
   });
 
