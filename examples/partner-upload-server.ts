@@ -2,8 +2,9 @@
 // or not) to this server, which streams them into PostgreSQL and answers only once every row is
 // durable, with the ingest summary. Re-uploading a file is safe: rows are upserted on record_id.
 //
-//   createdb-free setup: psql test -c "CREATE TABLE service_records (...)"  (see SERVICE_RECORDS_DDL)
-//   DATABASE_URL=postgres://127.0.0.1:5432/test node --import tsx examples/partner-upload-server.ts
+//   npm run build   # the example imports the built packages
+//   DATABASE_URL=postgres://postgres@127.0.0.1:5432/test node --import tsx examples/partner-upload-server.ts
+//   (it creates the service_records table if it is missing: SERVICE_RECORDS_DDL)
 //   curl -T examples/data/service-records.csv -H 'Content-Type: text/csv' http://127.0.0.1:8080/uploads/velofix
 //
 // Answers: 200 + summary (rows with problems are listed in it by line, column and reason, never
@@ -96,7 +97,9 @@ export function createUploadServer(options: UploadServerOptions): UploadServer {
 
   async function handle(req: IncomingMessage, res: ServerResponse): Promise<void> {
     const match = /^\/uploads\/([a-z0-9-]{1,64})$/.exec(req.url ?? '');
-    if (req.method !== 'POST' || !match) return reply(res, 404, { error: 'POST /uploads/<partner>' });
+    // PUT (what `curl -T` sends) or POST: a re-sent upload is harmless either way (upsert).
+    if ((req.method !== 'POST' && req.method !== 'PUT') || !match)
+      return reply(res, 404, { error: 'POST or PUT /uploads/<partner>' });
     const partner = match[1]!;
     const format = formatFromContentType(req.headers['content-type']);
     if (!format) return reply(res, 415, { error: 'Content-Type must be text/csv or application/x-ndjson' });
@@ -171,7 +174,7 @@ function reply(res: ServerResponse, status: number, body: unknown, close = false
 
 if (import.meta.url === pathToFileURL(process.argv[1] ?? '').href) {
   const pool = new pg.Pool({
-    connectionString: process.env.DATABASE_URL ?? 'postgres://127.0.0.1:5432/test',
+    connectionString: process.env.DATABASE_URL ?? 'postgres://postgres@127.0.0.1:5432/test',
     max: 4,
   });
   await pool.query(SERVICE_RECORDS_DDL);
