@@ -11,7 +11,8 @@
 // by content); 400 for an upload that cannot be read as a whole (bad header, too many rejects);
 // 413 past the size limit (before reading when Content-Length says so; for a chunked body, once
 // the limit is passed — rows before it are written, and a retried upload overwrites them);
-// 415 for a content type other than text/csv or application/x-ndjson; 503 when the store failed (nothing reported written that is not durable).
+// 415 for a content type other than text/csv or application/x-ndjson; 503 when the store failed
+// (nothing reported written that is not durable).
 import { randomUUID } from 'node:crypto';
 import { createServer, type IncomingMessage, type Server, type ServerResponse } from 'node:http';
 import { join } from 'node:path';
