@@ -1,8 +1,10 @@
 // `spillway ingest` run in-process (the real command definition, parsed by commander) against
 // the real PostgreSQL, Redis and Kafka servers: exit codes, summary file, reject file, targets.
+import { spawn } from 'node:child_process';
 import { copyFile, mkdtemp, readFile, rm, stat, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
 import { Command } from 'commander';
 import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
 import { registerIngest } from '../../packages/cli/src/commands/ingest.js';
@@ -240,4 +242,67 @@ describe('spillway ingest', () => {
     );
     expect(code).toBe(64);
   });
+
+  it('runs as a process: reads standard input, prints progress lines to stderr when stdout is not a terminal', async () => {
+    const input = Array.from(
+      { length: 50 },
+      (_, i) =>
+        `{"record_id":"SR-${700_000 + i}","dock_id":"DK-0001","bike_id":${i + 1},"serviced_at":"2024-05-01T10:00:00Z"}\n`,
+    ).join('');
+    const run = await bin(
+      [
+        'ingest',
+        '-',
+        '--format',
+        'ndjson',
+        '--to',
+        pgTarget(),
+        '--table',
+        'service_records',
+        '--columns',
+        SPEC,
+        '--progress',
+        'lines',
+        '--rejects',
+        join(dir, 'stdin.rejects.ndjson'),
+      ],
+      input,
+    );
+    expect(run.code).toBe(0);
+    expect(run.stdout).toMatch(/rows written\s+50 \(durable\)/);
+    expect(run.stderr).toMatch(/^progress: 50 rows read, 50 written, 0 rejected/m);
+    const { rows } = await db.pool.query(
+      `SELECT count(*)::int AS n FROM service_records WHERE record_id LIKE 'SR-7000%'`,
+    );
+    expect(rows[0].n).toBe(50);
+  });
+
+  it('runs as a process: exits 64 on a usage error, before touching any store', async () => {
+    const run = await bin(['ingest', join(dir, 'service-records.csv')], '');
+    expect(run.code).toBe(64);
+    expect(run.stderr).toMatch(/required option '--to <url>' not specified/);
+  });
 });
+
+const BIN = fileURLToPath(new URL('../../packages/cli/src/bin.ts', import.meta.url));
+const TSCONFIG = fileURLToPath(new URL('./ingest-cli.tsconfig.json', import.meta.url));
+
+/** Runs the `spillway` binary from source in its own process, with `stdin` as its standard input. */
+function bin(
+  args: string[],
+  stdin: string,
+): Promise<{ code: number | null; stdout: string; stderr: string }> {
+  return new Promise((resolve, reject) => {
+    const child = spawn(process.execPath, ['--import', 'tsx', BIN, ...args], {
+      env: { ...process.env, TSX_TSCONFIG_PATH: TSCONFIG },
+      stdio: ['pipe', 'pipe', 'pipe'],
+    });
+    let stdout = '';
+    let stderr = '';
+    child.stdout.on('data', (d: Buffer) => (stdout += d));
+    child.stderr.on('data', (d: Buffer) => (stderr += d));
+    child.on('error', reject);
+    child.on('close', (code) => resolve({ code, stdout, stderr }));
+    child.stdin.end(stdin);
+  });
+}
