@@ -14,7 +14,7 @@ import {
 import type { PoolClient } from 'pg';
 import pgCopy from 'pg-copy-streams';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
-import { encodeCopy } from './copy-format.js';
+import { CopyChunks, copyLine, copyRow } from './copy-format.js';
 import {
   ADAPTER_OPTION_NAMES,
   type PostgresAdapterOptions,
@@ -56,10 +56,10 @@ export interface PostgresAdapterStats {
 }
 
 /** The parts of one batch, as the adapter will send them. */
-interface Step {
-  readonly kind: 'values' | 'stage';
-  readonly rows: readonly (readonly WireValue[])[];
-}
+type Step =
+  | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[] }
+  /** COPY: into the target (`copy` mode, with the data already encoded) or a staging table. */
+  | { readonly kind: 'stage'; readonly rows: number | readonly (readonly WireValue[])[]; readonly data?: CopyChunks };
 
 const { from: copyFrom } = pgCopy;
 
@@ -127,37 +127,56 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
 
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
     this.counters.writes++;
-    const rows: WireValue[][] = [];
     const rejected: Array<{ index: number; error: unknown }> = [];
-    const { map } = this.options;
-    for (let i = 0; i < batch.records.length; i++) {
-      try {
-        const values = map(batch.records[i] as T);
-        if (!Array.isArray(values) || values.length !== this.width) {
-          throw new TypeError(`map() returned ${Array.isArray(values) ? `${values.length} values` : typeof values}, expected ${this.width} values`);
+    const { map, mode, copyFormat } = this.options;
+    if (mode === 'copy') {
+      // The hot path: COPY lines straight from the mapped values.
+      const data = new CopyChunks();
+      let count = 0;
+      for (let i = 0; i < batch.records.length; i++) {
+        try {
+          data.push(copyLine(this.mapped(map(batch.records[i] as T)), copyFormat));
+          count++;
+        } catch (error) {
+          rejected.push({ index: i, error: this.unmappable(error) });
         }
-        const row = new Array<WireValue>(this.width);
-        for (let c = 0; c < this.width; c++) row[c] = toWire(values[c]);
-        rows.push(row);
-      } catch (error) {
-        this.counters.unmappable++;
-        rejected.push({
-          index: i,
-          error: new SpillwayError('SPILLWAY_RECORD_REJECTED', `A record for ${this.sql.target} could not be mapped to its columns: ${messageOf(error)}`, {
-            cause: error,
-            details: { table: this.options.table, schema: this.options.schema, mode: this.options.mode },
-          }),
-        });
       }
+      if (count > 0) await this.transact([{ kind: 'stage', rows: count, data }]);
+    } else {
+      const rows: WireValue[][] = [];
+      for (let i = 0; i < batch.records.length; i++) {
+        try {
+          const values = this.mapped(map(batch.records[i] as T));
+          const row = new Array<WireValue>(this.width);
+          for (let c = 0; c < this.width; c++) row[c] = toWire(values[c]);
+          rows.push(row);
+        } catch (error) {
+          rejected.push({ index: i, error: this.unmappable(error) });
+        }
+      }
+      if (rows.length > 0) await this.transact(this.plan(rows));
     }
-    if (rows.length > 0) await this.transact(this.plan(rows));
     return rejected.length > 0 ? { rejected } : undefined;
+  }
+
+  private mapped(values: readonly unknown[]): readonly unknown[] {
+    if (!Array.isArray(values) || values.length !== this.width) {
+      throw new TypeError(`map() returned ${Array.isArray(values) ? `${values.length} values` : typeof values}, expected ${this.width} values`);
+    }
+    return values;
+  }
+
+  private unmappable(error: unknown): SpillwayError {
+    this.counters.unmappable++;
+    return new SpillwayError('SPILLWAY_RECORD_REJECTED', `A record for ${this.sql.target} could not be mapped to its columns: ${messageOf(error)}`, {
+      cause: error,
+      details: { table: this.options.table, schema: this.options.schema, mode: this.options.mode },
+    });
   }
 
   /** Cuts a batch into the steps it is sent as. */
   private plan(rows: WireValue[][]): Step[] {
     const { mode, conflict, upsertViaCopyAbove } = this.options;
-    if (mode === 'copy') return [{ kind: 'stage', rows }];
     if (mode === 'insert') return [{ kind: 'values', rows }];
     // ON CONFLICT DO UPDATE refuses to touch one row twice in a statement (21000). Records of
     // one key are applied in rounds, in batch order, which is what writing them one by one would do.
@@ -211,15 +230,17 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         if (s.kind === 'values') {
           step = 'insert';
           await this.insertValues(client, s.rows);
-        } else if (this.options.mode === 'copy') {
+        } else if (s.data !== undefined) {
           step = 'copy';
-          await this.copyRows(client, this.sql.target, s.rows);
+          await this.copy(client, this.sql.target, s.data);
         } else {
           step = 'stage';
           await this.run(client, staged ? this.sql.truncateStage : this.sql.createStage);
           staged = true;
           step = 'copy';
-          await this.copyRows(client, this.sql.stage, s.rows);
+          const data = new CopyChunks();
+          for (const row of s.rows as readonly (readonly WireValue[])[]) data.push(copyRow(row, this.options.copyFormat));
+          await this.copy(client, this.sql.stage, data);
           step = 'merge';
           this.counters.dataStatements++;
           await this.run(client, this.sql.mergeStage);
@@ -228,7 +249,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       step = 'commit';
       if (explicit) await this.run(client, 'COMMIT');
       this.counters.committed++;
-      for (const s of steps) this.counters.rows += s.rows.length;
+      for (const s of steps) this.counters.rows += typeof s.rows === 'number' ? s.rows : s.rows.length;
     } catch (error) {
       failure = error;
       this.counters.failed++;
@@ -274,11 +295,11 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     }
   }
 
-  private async copyRows(client: PoolClient, into: string, rows: readonly (readonly WireValue[])[]): Promise<void> {
-    const { chunks, bytes } = encodeCopy(rows, this.options.copyFormat);
+  private async copy(client: PoolClient, into: string, data: CopyChunks): Promise<void> {
+    const chunks = data.finish();
     this.counters.statements++;
     if (this.options.mode === 'copy') this.counters.dataStatements++;
-    this.counters.copyBytes += bytes;
+    this.counters.copyBytes += data.bytes;
     const stream = client.query(copyFrom(this.sql.copy(into)));
     // pipeline() honours backpressure and rejects once when the server refuses the data.
     await pipeline(Readable.from(chunks, { objectMode: false }), stream);

@@ -11,7 +11,7 @@
  * inside a value literal.
  */
 import type { CopyFormat } from './options.js';
-import type { WireValue } from './values.js';
+import { toWire, type WireValue } from './values.js';
 
 const TEXT_SPECIAL = /[\\\n\r\t]/;
 const TEXT_SPECIAL_ALL = /[\\\n\r\t]/g;
@@ -39,31 +39,64 @@ export function copyOptions(format: CopyFormat): string {
 // enough to keep the per-chunk cost low, small enough not to hold a second copy of a big batch.
 const CHUNK_CHARS = 1 << 18;
 
+/**
+ * One COPY line (with its newline) straight from mapped values, without an intermediate array
+ * of wire values: the hot path of `copy` mode. Numbers need neither quotes nor escapes.
+ */
+export function copyLine(values: readonly unknown[], format: CopyFormat): string {
+  const csv = format === 'csv';
+  let line = '';
+  for (let i = 0; i < values.length; i++) {
+    if (i > 0) line += csv ? ',' : '\t';
+    const v = values[i];
+    if (typeof v === 'string') line += csv ? csvField(v) : textField(v);
+    else if (typeof v === 'number' || typeof v === 'bigint') line += String(v);
+    else if (v === null || v === undefined) line += csv ? '' : '\\N';
+    else line += csv ? csvField(toWire(v)) : textField(toWire(v));
+  }
+  return `${line}\n`;
+}
+
+/** Collects COPY lines into Buffers of about CHUNK_CHARS characters. */
+export class CopyChunks {
+  readonly chunks: Buffer[] = [];
+  bytes = 0;
+  private text = '';
+
+  push(line: string): void {
+    this.text += line;
+    if (this.text.length >= CHUNK_CHARS) this.cut();
+  }
+
+  /** The chunks, with whatever is still pending. */
+  finish(): Buffer[] {
+    if (this.text.length > 0) this.cut();
+    return this.chunks;
+  }
+
+  private cut(): void {
+    const b = Buffer.from(this.text, 'utf8');
+    this.chunks.push(b);
+    this.bytes += b.length;
+    this.text = '';
+  }
+}
+
+/** One COPY line (with its newline) from wire values. */
+export function copyRow(row: readonly WireValue[], format: CopyFormat): string {
+  const field = format === 'csv' ? csvField : textField;
+  let line = '';
+  for (let i = 0; i < row.length; i++) {
+    if (i > 0) line += format === 'csv' ? ',' : '\t';
+    line += field(row[i] as WireValue);
+  }
+  return `${line}\n`;
+}
+
 /** COPY data for `rows`, as Buffers ready to stream; `bytes` is their total length. */
 export function encodeCopy(rows: readonly (readonly WireValue[])[], format: CopyFormat): { chunks: Buffer[]; bytes: number } {
-  const field = format === 'csv' ? csvField : textField;
-  const sep = format === 'csv' ? ',' : '\t';
-  const chunks: Buffer[] = [];
-  let bytes = 0;
-  let text = '';
-  for (const row of rows) {
-    let line = '';
-    for (let i = 0; i < row.length; i++) {
-      if (i > 0) line += sep;
-      line += field(row[i] as WireValue);
-    }
-    text += `${line}\n`;
-    if (text.length >= CHUNK_CHARS) {
-      const b = Buffer.from(text, 'utf8');
-      chunks.push(b);
-      bytes += b.length;
-      text = '';
-    }
-  }
-  if (text.length > 0) {
-    const b = Buffer.from(text, 'utf8');
-    chunks.push(b);
-    bytes += b.length;
-  }
-  return { chunks, bytes };
+  const data = new CopyChunks();
+  for (const row of rows) data.push(copyRow(row, format));
+  const chunks = data.finish();
+  return { chunks, bytes: data.bytes };
 }

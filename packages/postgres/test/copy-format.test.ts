@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { csvField, encodeCopy, textField } from '../src/copy-format.js';
+import { copyLine, copyRow, csvField, encodeCopy, textField } from '../src/copy-format.js';
 import { quoteIdentifier } from '../src/identifiers.js';
 import { toWire } from '../src/values.js';
 
@@ -80,5 +80,19 @@ describe('quoteIdentifier', () => {
   it('wraps a name in double quotes and doubles the quotes inside it', () => {
     expect(quoteIdentifier('dock_status')).toBe('"dock_status"');
     expect(quoteIdentifier('x"; DROP TABLE y; --')).toBe('"x""; DROP TABLE y; --"');
+  });
+});
+
+describe('copyLine (the copy-mode hot path)', () => {
+  const strings = ['tab\t', 'nl\n', 'cr\r', '\\N', '"q"', '', 'Zürich 🚲'];
+
+  it.each(['csv', 'text'] as const)('encodes strings and NULLs exactly as the general %s encoder does', (format) => {
+    const values = [...strings, null];
+    expect(copyLine(values, format)).toBe(copyRow(values.map(toWire), format));
+  });
+
+  it('writes numbers bare, which both formats read as the number', () => {
+    expect(copyLine([1, -2.5, 10n, null, 'x'], 'csv')).toBe('1,-2.5,10,,"x"\n');
+    expect(copyLine([1, -2.5, 10n, null, 'x'], 'text')).toBe('1\t-2.5\t10\t\\N\tx\n');
   });
 });

@@ -1,0 +1,245 @@
+// PostgreSQL adapter throughput against the raw driver, in one process and one run. For each
+// mode and batch size:
+// - raw:      pg (and pg-copy-streams) doing the very same batches by hand: the same statements,
+//             the same transactions, written the way a careful application would write them;
+// - sink:     Sink + postgresAdapter in that mode, flushing by size at the same batch size;
+// - per-row:  one autocommitted INSERT per row (the baseline batching must beat), measured once
+//             per repeat on a smaller row count.
+// Run: npx tsc --build && node benchmarks/dist/adapters/postgres.js [--rows 50000] [--repeats 5]
+//      [--sizes 100,1000,10000] [--per-row 3000] [--modes insert,copy,upsert]
+//      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test); SPILLWAY_BENCH_ROWS /
+//      SPILLWAY_BENCH_REPEATS set the defaults of --rows / --repeats.
+// Nothing here asserts a time: it prints samples, medians, spreads and ratios.
+import { randomBytes } from 'node:crypto';
+import { Readable } from 'node:stream';
+import { pipeline } from 'node:stream/promises';
+import { parseArgs } from 'node:util';
+import { Sink } from '@spillway/core';
+import { type PostgresMode, postgresAdapter } from '@spillway/postgres';
+import pg from 'pg';
+import pgCopy from 'pg-copy-streams';
+import { machineInfo } from '../machine.js';
+
+interface DockStatus {
+  id: number;
+  dock: string;
+  bikes: number;
+  emptySlots: number;
+  note: string | null;
+}
+
+const { values: flags } = parseArgs({
+  options: {
+    rows: { type: 'string', default: process.env.SPILLWAY_BENCH_ROWS ?? '50000' },
+    repeats: { type: 'string', default: process.env.SPILLWAY_BENCH_REPEATS ?? '5' },
+    sizes: { type: 'string', default: '100,1000,10000' },
+    'per-row': { type: 'string', default: '3000' },
+    modes: { type: 'string', default: 'insert,copy,upsert' },
+  },
+});
+const ROWS = Number(flags.rows);
+const REPEATS = Number(flags.repeats);
+const SIZES = String(flags.sizes).split(',').map(Number);
+const PER_ROW = Number(flags['per-row']);
+const MODES = String(flags.modes).split(',') as PostgresMode[];
+const URL = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
+const SCHEMA = `spillway_bench_${randomBytes(4).toString('hex')}`;
+const TABLE = 'dock_status';
+const COLUMNS = ['id', 'dock', 'bikes', 'empty_slots', 'note'];
+const MAX_PARAMS = 65_535;
+// The adapter's default: upsert batches above this many rows go through a staging table.
+const UPSERT_VIA_COPY_ABOVE = 1000;
+
+const records: DockStatus[] = Array.from({ length: ROWS }, (_, i) => ({
+  id: i + 1,
+  dock: `dock-${String(i % 5000).padStart(4, '0')}`,
+  bikes: i % 13,
+  emptySlots: 12 - (i % 13),
+  note: i % 4 === 0 ? null : `serviced by Tandem crew ${i % 31}`,
+}));
+const map = (r: DockStatus) => [r.id, r.dock, r.bikes, r.emptySlots, r.note];
+
+// ------------------------------------------------------------------ the raw driver, by hand
+
+const colList = `(${COLUMNS.join(', ')})`;
+const onConflict = ` ON CONFLICT (id) DO UPDATE SET ${COLUMNS.slice(1).map((c) => `${c} = EXCLUDED.${c}`).join(', ')}`;
+const sqlCache = new Map<string, string>();
+function valuesSql(rows: number, conflict: boolean): string {
+  const key = `${rows}:${conflict}`;
+  let sql = sqlCache.get(key);
+  if (sql === undefined) {
+    const tuples: string[] = [];
+    for (let r = 0, n = 1; r < rows; r++) tuples.push(`(${COLUMNS.map(() => `$${n++}`).join(',')})`);
+    sql = `INSERT INTO ${TABLE} ${colList} VALUES ${tuples.join(',')}${conflict ? onConflict : ''}`;
+    sqlCache.set(key, sql);
+  }
+  return sql;
+}
+
+function csv(rows: readonly DockStatus[]): Buffer {
+  let s = '';
+  const q = (v: string) => (v.includes('"') ? `"${v.replace(/"/g, '""')}"` : `"${v}"`);
+  for (const r of rows) s += `"${r.id}",${q(r.dock)},"${r.bikes}","${r.emptySlots}",${r.note === null ? '' : q(r.note)}\n`;
+  return Buffer.from(s, 'utf8');
+}
+
+async function rawInsert(client: pg.PoolClient, batch: readonly DockStatus[], conflict: boolean): Promise<void> {
+  const per = Math.floor(MAX_PARAMS / COLUMNS.length);
+  const many = batch.length > per;
+  if (many) await client.query('BEGIN');
+  for (let i = 0; i < batch.length; i += per) {
+    const part = batch.slice(i, i + per);
+    const values: unknown[] = [];
+    for (const r of part) values.push(r.id, r.dock, r.bikes, r.emptySlots, r.note);
+    await client.query(valuesSql(part.length, conflict), values);
+  }
+  if (many) await client.query('COMMIT');
+}
+
+async function rawCopy(client: pg.PoolClient, into: string, batch: readonly DockStatus[]): Promise<void> {
+  await pipeline(Readable.from([csv(batch)]), client.query(pgCopy.from(`COPY ${into} ${colList} FROM STDIN WITH (FORMAT csv)`)));
+}
+
+async function rawUpsert(client: pg.PoolClient, batch: readonly DockStatus[]): Promise<void> {
+  if (batch.length <= UPSERT_VIA_COPY_ABOVE) return rawInsert(client, batch, true);
+  await client.query('BEGIN');
+  await client.query(`CREATE TEMP TABLE stage ON COMMIT DROP AS SELECT ${COLUMNS.join(', ')} FROM ${TABLE} WITH NO DATA`);
+  await rawCopy(client, 'stage', batch);
+  await client.query(`INSERT INTO ${TABLE} ${colList} SELECT ${COLUMNS.join(', ')} FROM stage${onConflict}`);
+  await client.query('COMMIT');
+}
+
+async function raw(pool: pg.Pool, mode: PostgresMode, size: number): Promise<number> {
+  const t0 = performance.now();
+  for (let i = 0; i < records.length; i += size) {
+    const batch = records.slice(i, i + size);
+    // One checkout per batch, as the adapter does.
+    const client = await pool.connect();
+    try {
+      if (mode === 'insert') await rawInsert(client, batch, false);
+      else if (mode === 'copy') await rawCopy(client, TABLE, batch);
+      else await rawUpsert(client, batch);
+    } finally {
+      client.release();
+    }
+  }
+  return records.length / ((performance.now() - t0) / 1000);
+}
+
+// ------------------------------------------------------------------ Spillway
+
+async function viaSink(pool: pg.Pool, mode: PostgresMode, size: number): Promise<number> {
+  const adapter = postgresAdapter<DockStatus>({
+    pool,
+    table: TABLE,
+    columns: COLUMNS,
+    map,
+    mode,
+    ...(mode === 'upsert' ? { conflict: { key: ['id'] }, upsertViaCopyAbove: UPSERT_VIA_COPY_ABOVE } : {}),
+  });
+  const sink = new Sink(adapter, { maxRecords: size, maxBytes: 1 << 30, maxAgeMs: 60_000, idleMs: 0 });
+  const t0 = performance.now();
+  for (const r of records) if (!sink.tryWrite(r)) await sink.write(r);
+  await sink.flush();
+  const rate = records.length / ((performance.now() - t0) / 1000);
+  await sink.close();
+  if (sink.snapshot().written !== records.length) throw new Error(`sink wrote ${sink.snapshot().written} of ${records.length}`);
+  return rate;
+}
+
+async function perRow(pool: pg.Pool): Promise<number> {
+  const sql = `INSERT INTO ${TABLE} ${colList} VALUES ($1, $2, $3, $4, $5)`;
+  const client = await pool.connect();
+  try {
+    const t0 = performance.now();
+    for (const r of records.slice(0, PER_ROW)) await client.query(sql, [r.id, r.dock, r.bikes, r.emptySlots, r.note]);
+    return PER_ROW / ((performance.now() - t0) / 1000);
+  } finally {
+    client.release();
+  }
+}
+
+// ------------------------------------------------------------------ report
+
+function summary(xs: number[]): { median: number; min: number; max: number; spreadPct: number } {
+  const s = [...xs].sort((a, b) => a - b);
+  const mid = s.length >> 1;
+  const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
+  return { median, min: s[0]!, max: s[s.length - 1]!, spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100 };
+}
+const fmt = (n: number) => Math.round(n).toLocaleString('en-US');
+
+async function main(): Promise<void> {
+  const setup = new pg.Client({ connectionString: URL });
+  await setup.connect();
+  let version: string;
+  try {
+    version = (await setup.query<{ v: string }>("SELECT current_setting('server_version') AS v")).rows[0]!.v;
+    await setup.query(`CREATE SCHEMA ${SCHEMA}`);
+  } catch (error) {
+    await setup.end();
+    throw error;
+  }
+  await setup.query(`CREATE TABLE ${SCHEMA}.${TABLE} (id int PRIMARY KEY, dock text NOT NULL, bikes int NOT NULL, empty_slots int NOT NULL, note text)`);
+  const pool = new pg.Pool({ connectionString: URL, max: 2, options: `-c search_path=${SCHEMA}` });
+  pool.on('error', () => undefined);
+  const truncate = () => setup.query(`TRUNCATE ${SCHEMA}.${TABLE}`);
+  console.log(
+    JSON.stringify({ benchmark: 'postgres-adapter', machine: machineInfo({ postgresql: version }), rows: ROWS, repeats: REPEATS, sizes: SIZES, modes: MODES, perRow: PER_ROW, upsertViaCopyAbove: UPSERT_VIA_COPY_ABOVE }),
+  );
+  try {
+    // Warm-up: JIT, connections, plan caches; not measured.
+    for (const mode of MODES) {
+      await truncate();
+      await raw(pool, mode, 1000);
+      await truncate();
+      await viaSink(pool, mode, 1000);
+    }
+    const samples = new Map<string, number[]>();
+    const push = (k: string, v: number) => (samples.get(k) ?? samples.set(k, []).get(k)!).push(v);
+    for (let rep = 0; rep < REPEATS; rep++) {
+      await truncate();
+      push('per-row', await perRow(pool));
+      for (const mode of MODES) {
+        for (const size of SIZES) {
+          // Every run starts from an empty table; alternate which side goes first so that drift
+          // on a shared machine does not favour one of them.
+          const order = rep % 2 === 0 ? (['raw', 'sink'] as const) : (['sink', 'raw'] as const);
+          for (const side of order) {
+            await truncate();
+            push(`${side}:${mode}@${size}`, side === 'raw' ? await raw(pool, mode, size) : await viaSink(pool, mode, size));
+          }
+        }
+      }
+      process.stderr.write(`repeat ${rep + 1}/${REPEATS} done\n`);
+    }
+
+    const one = summary(samples.get('per-row')!);
+    console.log(`\nrows/s (median of ${REPEATS}; ± = half the (max-min)/median spread; [a–b] = range of per-repeat sink/raw ratios)`);
+    console.log(`per-row INSERT: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)}, spread ${one.spreadPct.toFixed(0)}%)`);
+    console.log('mode   | batch  | raw driver           | sink                 | sink/raw          | sink/per-row');
+    for (const mode of MODES) {
+      for (const size of SIZES) {
+        const r = summary(samples.get(`raw:${mode}@${size}`)!);
+        const s = summary(samples.get(`sink:${mode}@${size}`)!);
+        const pairs = samples.get(`sink:${mode}@${size}`)!.map((v, i) => v / samples.get(`raw:${mode}@${size}`)![i]!);
+        const pr = summary(pairs);
+        console.log(
+          `${mode.padEnd(6)} | ${String(size).padEnd(6)} | ${`${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +
+            `${`${fmt(s.median).padStart(9)} (±${(s.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +
+            `${`${(s.median / r.median).toFixed(2)} [${pr.min.toFixed(2)}–${pr.max.toFixed(2)}]`.padEnd(17)} | ${(s.median / one.median).toFixed(1)}×`,
+        );
+      }
+    }
+    console.log(JSON.stringify({ samples: Object.fromEntries(samples) }));
+  } finally {
+    await pool.end();
+    await setup.query(`DROP SCHEMA ${SCHEMA} CASCADE`);
+    await setup.end();
+  }
+}
+
+main().catch((error) => {
+  console.error(error);
+  process.exitCode = 1;
+});
