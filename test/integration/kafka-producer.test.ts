@@ -71,11 +71,16 @@ async function readTopic(kafka: Kafka, admin: Admin, topic: string): Promise<Rea
       if (out.length >= total) done();
     },
   });
-  const timeout = sleep(120_000).then(() => {
-    throw new Error(`read ${out.length} of ${total} messages of ${topic}`);
+  let timer: NodeJS.Timeout | undefined;
+  const timeout = new Promise<never>((_, reject) => {
+    timer = setTimeout(() => reject(new Error(`read ${out.length} of ${total} messages of ${topic}`)), 120_000);
   });
-  await Promise.race([finished, timeout]);
-  await consumer.disconnect();
+  try {
+    await Promise.race([finished, timeout]);
+  } finally {
+    clearTimeout(timer);
+    await consumer.disconnect();
+  }
   return out;
 }
 
@@ -144,6 +149,45 @@ describe('Kafka producer sink on the shared broker', () => {
     expect(first.timestamp).toBe('1700000000000');
   });
 
+  it('writes to the partition, topic and timestamp the mapper names', async () => {
+    const topic = await k.topic(3, 'explicit');
+    const other = await k.topic(1, 'explicit_other');
+    const { sink } = sinkFor({
+      kafka: k.kafka,
+      topic,
+      mapper: (e) => ({ value: JSON.stringify(e), partition: e.seq % 3, timestamp: 1_600_000_000_000 + e.seq, ...(e.seq === 6 ? { topic: other } : {}) }),
+    });
+    for (let seq = 0; seq < 30; seq++) await sink.write({ dock: 'dock-1', seq, payload: '' });
+    await sink.close();
+    expect(sink.snapshot().written).toBe(30);
+    const read = await readTopic(k.kafka, k.admin, topic);
+    expect(read).toHaveLength(29);
+    for (const m of read) {
+      const seq = (JSON.parse(m.value) as DockEvent).seq;
+      expect(m.partition).toBe(seq % 3);
+      expect(m.timestamp).toBe(String(1_600_000_000_000 + seq));
+    }
+    const moved = await readTopic(k.kafka, k.admin, other);
+    expect(moved.map((m) => (JSON.parse(m.value) as DockEvent).seq)).toEqual([6]);
+  });
+
+  it('stops instead of losing records sent to a partition the topic does not have', async () => {
+    // kafkajs resolves sendBatch without writing such records; the adapter checks the response.
+    const topic = await k.topic(2, 'nopart');
+    const { sink, deadLetters } = sinkFor({ kafka: k.kafka, topic, mapper: (e) => ({ value: JSON.stringify(e), partition: e.seq === 5 ? 7 : e.seq % 2 }) });
+    const errors: unknown[] = [];
+    sink.on('error', (e) => errors.push(e.error));
+    for (let seq = 0; seq < 10; seq++) await sink.write({ dock: 'dock-1', seq, payload: '' });
+    await expect(sink.flush()).rejects.toMatchObject({ code: 'SPILLWAY_SINK_FAILED' });
+    expect(errors[0]).toMatchObject({ driverCode: 'UNKNOWN_TOPIC_OR_PARTITION', details: { partition: 7 } });
+    expect(deadLetters.letters).toEqual([]);
+    // The engine stops at the fatal refusal before counting the others: it under-reports (the
+    // nine the broker took are in the topic) rather than report the lost one as durable.
+    expect(sink.snapshot().written).toBe(0);
+    expect(await readTopic(k.kafka, k.admin, topic)).toHaveLength(9);
+    await sink.close().catch(() => undefined);
+  });
+
   it('dead-letters a record larger than message.max.bytes while the rest land', async () => {
     const topic = await k.topic(3, 'big');
     const { sink, adapter, deadLetters } = sinkFor(
@@ -200,6 +244,9 @@ describe('Kafka producer sink on the shared broker', () => {
     expect(deadLetters.letters).toEqual([]);
     expect(sink.snapshot().retries).toBe(0);
     expect(adapter.producersCreated).toBe(1);
+    expect(sink.snapshot().written).toBe(5000);
+    const ends = await k.admin.fetchTopicOffsets(topic);
+    expect(ends.map((e) => e.high)).toEqual(['5000']);
     const read = await readTopic(k.kafka, k.admin, topic);
     expect(read.length).toBe(5000);
     expect(inspect(read).duplicates).toBe(0);

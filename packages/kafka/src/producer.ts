@@ -36,6 +36,8 @@ interface Chunk {
   indexes: number[];
   bytes: number;
   byTopic: Map<string, Message[]>;
+  /** `topic\u0000partition` → indexes of records the mapper sent to that explicit partition. */
+  explicit: Map<string, number[]> | undefined;
 }
 
 function byteLength(v: Buffer | string | null | undefined): number {
@@ -134,10 +136,17 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
       if (out.timestamp !== undefined) message.timestamp = String(out.timestamp);
       const bytes = size + RECORD_OVERHEAD;
       if (chunk === undefined || (chunk.bytes + bytes > maxRequestBytes && chunk.indexes.length > 0)) {
-        chunks.push((chunk = { indexes: [], bytes: 0, byTopic: new Map() }));
+        chunks.push((chunk = { indexes: [], bytes: 0, byTopic: new Map(), explicit: undefined }));
       }
       chunk.indexes.push(i);
       chunk.bytes += bytes;
+      if (out.partition !== undefined) {
+        const where = `${topic}\u0000${out.partition}`;
+        chunk.explicit ??= new Map();
+        const list = chunk.explicit.get(where);
+        if (list) list.push(i);
+        else chunk.explicit.set(where, [i]);
+      }
       let list = chunk.byTopic.get(topic);
       if (!list) chunk.byTopic.set(topic, (list = []));
       list.push(message);
@@ -150,12 +159,13 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
       for (let k = 0; k < chunks.length; k++) {
         const c = chunks[k]!;
         try {
-          await producer.sendBatch({
+          const written = await producer.sendBatch({
             topicMessages: [...c.byTopic].map(([topic, messages]): TopicMessages => ({ topic, messages })),
             acks: this.o.acks,
             timeout: this.o.ackTimeoutMs,
             ...(this.o.compression === undefined ? {} : { compression: this.o.compression }),
           });
+          if (c.explicit !== undefined && this.o.acks !== 0) this.checkExplicit(c.explicit, written, rejected);
         } catch (error) {
           const type = kafkaErrorType(error);
           if (this.o.idempotent && type !== undefined && RESET_PRODUCER.has(type)) await this.reset(producer);
@@ -180,6 +190,29 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
       }
     }
     return rejected.length === 0 ? undefined : { rejected };
+  }
+
+  /**
+   * kafkajs silently skips messages whose explicit partition is not in its topic metadata (the
+   * partition does not exist): `sendBatch` resolves and they are gone. Every partition written
+   * appears in the produce response, so any explicit partition missing from it did not get its
+   * records: they are reported as not written (UNKNOWN_TOPIC_OR_PARTITION).
+   */
+  private checkExplicit(
+    explicit: Map<string, number[]>,
+    written: ReadonlyArray<{ topicName: string; partition: number }>,
+    rejected: Array<{ index: number; error: unknown }>,
+  ): void {
+    const landed = new Set(written.map((w) => `${w.topicName}\u0000${w.partition}`));
+    for (const [where, indexes] of explicit) {
+      if (landed.has(where)) continue;
+      const [topic, partition] = where.split('\u0000');
+      const error = new StoreError(`Kafka topic "${topic}" has no partition ${partition}: ${indexes.length} record(s) not written`, {
+        driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
+        details: { topic, partition: Number(partition), records: indexes.length },
+      });
+      for (const index of indexes) rejected.push({ index, error });
+    }
   }
 
   private wrap(error: unknown, records: number): StoreError {
