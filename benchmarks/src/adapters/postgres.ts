@@ -207,7 +207,11 @@ async function main(): Promise<void> {
           const order = rep % 2 === 0 ? (['raw', 'sink'] as const) : (['sink', 'raw'] as const);
           for (const side of order) {
             await truncate();
+            const cpu0 = process.cpuUsage();
             push(`${side}:${mode}@${size}`, side === 'raw' ? await raw(pool, mode, size) : await viaSink(pool, mode, size));
+            const cpu = process.cpuUsage(cpu0);
+            // Client CPU per row: less exposed to the shared machine's noise than wall time.
+            push(`cpu:${side}:${mode}@${size}`, (cpu.user + cpu.system) / records.length);
           }
         }
       }
@@ -215,9 +219,9 @@ async function main(): Promise<void> {
     }
 
     const one = summary(samples.get('per-row')!);
-    console.log(`\nrows/s (median of ${REPEATS}; ± = half the (max-min)/median spread; [a–b] = range of per-repeat sink/raw ratios)`);
+    console.log(`\nrows/s (median of ${REPEATS}; ± = half the (max-min)/median spread; [a–b] = range of the sink/raw ratios of runs measured back to back)`);
     console.log(`per-row INSERT: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)}, spread ${one.spreadPct.toFixed(0)}%)`);
-    console.log('mode   | batch  | raw driver           | sink                 | sink/raw          | sink/per-row');
+    console.log('mode   | batch  | raw driver           | sink                 | sink/raw [pairs]  | median pair | sink/per-row | client CPU µs/row raw → sink');
     for (const mode of MODES) {
       for (const size of SIZES) {
         const r = summary(samples.get(`raw:${mode}@${size}`)!);
@@ -227,7 +231,9 @@ async function main(): Promise<void> {
         console.log(
           `${mode.padEnd(6)} | ${String(size).padEnd(6)} | ${`${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +
             `${`${fmt(s.median).padStart(9)} (±${(s.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +
-            `${`${(s.median / r.median).toFixed(2)} [${pr.min.toFixed(2)}–${pr.max.toFixed(2)}]`.padEnd(17)} | ${(s.median / one.median).toFixed(1)}×`,
+            `${`${(s.median / r.median).toFixed(2)} [${pr.min.toFixed(2)}–${pr.max.toFixed(2)}]`.padEnd(17)} | ${pr.median.toFixed(2).padEnd(11)} | ` +
+            `${`${(s.median / one.median).toFixed(1)}×`.padEnd(12)} | ` +
+            `${summary(samples.get(`cpu:raw:${mode}@${size}`)!).median.toFixed(2)} → ${summary(samples.get(`cpu:sink:${mode}@${size}`)!).median.toFixed(2)}`,
         );
       }
     }

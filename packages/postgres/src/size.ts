@@ -2,6 +2,7 @@
  * Per-record size estimates that follow what the adapter actually sends, so that the sink's
  * `maxBytes` bounds the bytes of a write rather than of a JSON rendering of the record.
  */
+import { csvField, textField } from './copy-format.js';
 import type { ResolvedPostgresOptions } from './options.js';
 import { toWire, type WireValue } from './values.js';
 
@@ -108,9 +109,11 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
           n += b + fieldOverhead;
           continue;
         }
-        // Bytes, arrays, JSON: rarer, and worth converting to count them right.
+        // Bytes, arrays, JSON: rarer, and worth converting (and escaping: JSON is full of quotes)
+        // to count them right.
         const w: WireValue = toWire(v);
-        n += viaCopy ? copyRowBytes([w], format) : insertRowBytes([w]) - TUPLE_BYTES;
+        if (!viaCopy) n += insertRowBytes([w]) - TUPLE_BYTES;
+        else n += 1 + (typeof w === 'string' ? Buffer.byteLength(format === 'csv' ? csvField(w) : textField(w), 'utf8') : copyRowBytes([w], format) - 1);
       }
       return n;
     } catch {
