@@ -486,20 +486,19 @@ export class Sink<T> {
           this.emit('written', { sink: this.name, batchId: batch.id, records: current.length, bytes: sumBytes(current), durationMs, attempts: attempt });
           return;
         }
-        // Some records landed, some did not: settle the landed ones, then act on each refusal.
+        // Some records landed, some did not: settle the landed ones first (the store acknowledged
+        // them, whatever happens next), then act on each refusal.
         const refusedIdx = new Set<number>();
         const toRetry: Entry<T>[] = [];
         const toDeadLetter: Array<{ entry: Entry<T>; error: unknown }> = [];
+        let fatal: { error: unknown } | undefined;
         for (const r of rejected) {
           const entry = current[r.index];
           if (!entry || refusedIdx.has(r.index)) continue;
           refusedIdx.add(r.index);
           const cls = this.classify(r.error);
-          if (cls === 'fatal') {
-            this.fail(r.error);
-            return;
-          }
-          if (cls === 'retry') {
+          if (cls === 'fatal') fatal ??= { error: r.error };
+          else if (cls === 'retry') {
             toRetry.push(entry);
             error = r.error;
           } else toDeadLetter.push({ entry, error: r.error });
@@ -508,6 +507,10 @@ export class Sink<T> {
         if (landed.length > 0) {
           this.settle(batch, landed, 'durable');
           this.emit('written', { sink: this.name, batchId: batch.id, records: landed.length, bytes: sumBytes(landed), durationMs, attempts: attempt });
+        }
+        if (fatal) {
+          this.fail(fatal.error);
+          return;
         }
         for (const d of toDeadLetter) {
           if (!(await this.deadLetter(batch, [d.entry], 'rejected', d.error))) return;

@@ -157,3 +157,14 @@ describe('failures', () => {
     await expect(bad).resolves.toBe('dead-lettered');
   });
 });
+
+describe('partial writes with a fatal refusal', () => {
+  it('reports the records that landed as durable before stopping the sink', async () => {
+    const { clock, adapter, sink } = setup({ maxRecords: 4 });
+    adapter.behave = () => ({ rejected: [{ index: 2, error: new Misconfigured('partition 9 does not exist') }] });
+    for (let i = 0; i < 4; i++) await sink.write(i);
+    await clock.advance(10);
+    expect(sink.state).toBe('failed');
+    expect(sink.snapshot()).toMatchObject({ written: 3, deadLettered: 0, pendingRecords: 1 });
+  });
+});
