@@ -57,7 +57,9 @@ export interface PostgresAdapterStats {
 
 /** The parts of one batch, as the adapter will send them. */
 type Step =
-  | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[] }
+  /** INSERT statements: rows as arrays, or (`insert` mode) `rows` rows of parameters in one flat array. */
+  | { readonly kind: 'values'; readonly rows: number; readonly values: WireValue[] }
+  | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[]; readonly values?: undefined }
   /** COPY: into the target (`copy` mode, with the data already encoded) or a staging table. */
   | { readonly kind: 'stage'; readonly rows: number | readonly (readonly WireValue[])[]; readonly data?: CopyChunks };
 
@@ -142,6 +144,22 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         }
       }
       if (count > 0) await this.transact([{ kind: 'stage', rows: count, data }]);
+    } else if (mode === 'insert') {
+      // Parameters straight into one flat array, in statement order.
+      const flat: WireValue[] = [];
+      let count = 0;
+      for (let i = 0; i < batch.records.length; i++) {
+        const base = flat.length;
+        try {
+          const values = this.mapped(map(batch.records[i] as T));
+          for (let c = 0; c < this.width; c++) flat.push(toWire(values[c]));
+          count++;
+        } catch (error) {
+          flat.length = base;
+          rejected.push({ index: i, error: this.unmappable(error) });
+        }
+      }
+      if (count > 0) await this.transact([{ kind: 'values', rows: count, values: flat }]);
     } else {
       const rows: WireValue[][] = [];
       for (let i = 0; i < batch.records.length; i++) {
@@ -174,14 +192,13 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     });
   }
 
-  /** Cuts a batch into the steps it is sent as. */
+  /** Cuts an upsert batch into the steps it is sent as. */
   private plan(rows: WireValue[][]): Step[] {
-    const { mode, conflict, upsertViaCopyAbove } = this.options;
-    if (mode === 'insert') return [{ kind: 'values', rows }];
+    const { conflict, upsertViaCopyAbove } = this.options;
     // ON CONFLICT DO UPDATE refuses to touch one row twice in a statement (21000). Records of
     // one key are applied in rounds, in batch order, which is what writing them one by one would do.
     const rounds = conflict?.action === 'update' ? this.rounds(rows) : [rows];
-    return rounds.map((r) => ({ kind: r.length > upsertViaCopyAbove ? 'stage' : 'values', rows: r }));
+    return rounds.map((r): Step => (r.length > upsertViaCopyAbove ? { kind: 'stage', rows: r } : { kind: 'values', rows: r }));
   }
 
   private rounds(rows: WireValue[][]): WireValue[][][] {
@@ -200,7 +217,8 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   private statementCount(steps: readonly Step[]): number {
     let n = 0;
     for (const s of steps) {
-      n += s.kind === 'values' ? Math.ceil(s.rows.length / this.options.rowsPerStatement) : this.options.mode === 'copy' ? 1 : 3;
+      const rows = typeof s.rows === 'number' ? s.rows : s.rows.length;
+      n += s.kind === 'values' ? Math.ceil(rows / this.options.rowsPerStatement) : this.options.mode === 'copy' ? 1 : 3;
     }
     return n;
   }
@@ -229,7 +247,8 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       for (const s of steps) {
         if (s.kind === 'values') {
           step = 'insert';
-          await this.insertValues(client, s.rows);
+          if (s.values !== undefined) await this.insertFlat(client, s.values, s.rows);
+          else await this.insertValues(client, s.rows);
         } else if (s.data !== undefined) {
           step = 'copy';
           await this.copy(client, this.sql.target, s.data);
@@ -262,7 +281,10 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
           broken = rollbackError;
         }
       }
-      throw this.wrap(error, step);
+      // A connection lost while the last statement (COMMIT, or the one autocommitted statement)
+      // was on its way may have committed: say so, since a retry can then write the rows twice.
+      const unknown = isConnectionError(error) && (step === 'commit' || !explicit);
+      throw this.wrap(error, step, unknown);
     } finally {
       client.off('error', onError);
       const discard = broken ?? (failure !== undefined && isConnectionError(failure) ? failure : undefined);
@@ -275,6 +297,18 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   private async run(client: PoolClient, text: string): Promise<void> {
     this.counters.statements++;
     await client.query(text);
+  }
+
+  private async insertFlat(client: PoolClient, flat: WireValue[], rows: number): Promise<void> {
+    const per = this.options.rowsPerStatement;
+    for (let start = 0; start < rows; start += per) {
+      const n = Math.min(per, rows - start);
+      const values = n === rows ? flat : flat.slice(start * this.width, (start + n) * this.width);
+      if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
+      this.counters.statements++;
+      this.counters.dataStatements++;
+      await client.query({ text: this.sql.values(n), values });
+    }
   }
 
   private async insertValues(client: PoolClient, rows: readonly (readonly WireValue[])[]): Promise<void> {
@@ -310,7 +344,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   }
 
   /** The error the engine and the user see: SQLSTATE, constraint and the driver's error kept. */
-  private wrap(error: unknown, step: string): StoreError {
+  private wrap(error: unknown, step: string, outcomeUnknown = false): StoreError {
     const e = (typeof error === 'object' && error !== null ? error : {}) as Record<string, unknown>;
     const sqlstate = sqlstateOf(error);
     const errorClass = classifyPostgresError(error);
@@ -325,6 +359,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       errorClass,
     };
     if (this.options.schema !== undefined) details.schema = this.options.schema;
+    if (outcomeUnknown) details.outcomeUnknown = true;
     if (sqlstate !== undefined) details.sqlstate = sqlstate;
     if (constraint !== undefined) details.constraint = constraint;
     for (const key of ['column', 'dataType', 'severity'] as const) {
