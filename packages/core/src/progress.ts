@@ -10,10 +10,20 @@ interface Slot {
   open: number;
 }
 
+const MAX_SAFE = BigInt(Number.MAX_SAFE_INTEGER);
+
+/**
+ * Map key of an offset: a number when it fits (Kafka offsets practically always do), since a
+ * Map hashes bigint keys several times slower than numbers and this runs per record.
+ */
+function slotKey(offset: bigint): number | bigint {
+  return offset <= MAX_SAFE && offset >= -MAX_SAFE ? Number(offset) : offset;
+}
+
 class PartitionProgress {
   private queue: Slot[] = [];
   private head = 0;
-  private byOffset = new Map<bigint, Slot>();
+  private byOffset = new Map<number | bigint, Slot>();
   /** Next offset to read: last finished contiguous offset + 1. */
   next: bigint | undefined;
   lastTracked: bigint | undefined;
@@ -31,18 +41,18 @@ class PartitionProgress {
       // Nothing to wait for: done at once, but only after every earlier offset.
       const slot = { offset, open: 0 };
       this.queue.push(slot);
-      this.byOffset.set(offset, slot);
+      this.byOffset.set(slotKey(offset), slot);
       this.advance();
       return true;
     }
     const slot = { offset, open: count };
     this.queue.push(slot);
-    this.byOffset.set(offset, slot);
+    this.byOffset.set(slotKey(offset), slot);
     return true;
   }
 
   complete(offset: bigint, count: number): void {
-    const slot = this.byOffset.get(offset);
+    const slot = this.byOffset.get(slotKey(offset));
     if (!slot) return;
     slot.open -= count;
     if (slot.open <= 0) this.advance();
@@ -53,7 +63,7 @@ class PartitionProgress {
       const slot = this.queue[this.head]!;
       if (slot.open > 0) break;
       this.next = slot.offset + 1n;
-      this.byOffset.delete(slot.offset);
+      this.byOffset.delete(slotKey(slot.offset));
       this.head++;
     }
     if (this.head > 1024 && this.head * 2 > this.queue.length) {

@@ -78,4 +78,25 @@ describe('ProgressTracker', () => {
     }
     expect(p.committable('t:0')).toBe(BigInt(n));
   });
+
+  it('tracks offsets beyond 2^53 exactly, next to small ones', () => {
+    const p = new ProgressTracker();
+    const big = 2n ** 63n - 10n; // Kafka offsets are signed 64-bit
+    p.track('t:0', big);
+    p.track('t:0', big + 1n);
+    p.track('t:1', 5);
+    p.complete('t:0', big + 1n);
+    expect(p.committable('t:0')).toBeUndefined();
+    p.complete('t:0', big);
+    expect(p.committable('t:0')).toBe(big + 2n);
+    p.complete('t:1', 5n);
+    expect(p.committable('t:1')).toBe(6n);
+    // Two offsets that round to the same double stay apart.
+    const q = new ProgressTracker();
+    q.track('k', 2n ** 60n);
+    q.track('k', 2n ** 60n + 1n);
+    q.complete('k', 2n ** 60n + 1n);
+    expect(q.committable('k')).toBeUndefined();
+    expect(q.pending('k')).toBe(2);
+  });
 });
