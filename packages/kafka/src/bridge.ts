@@ -43,6 +43,8 @@ export interface PartitionSnapshot {
   paused: boolean;
   /** Received messages not yet durable everywhere. */
   pendingMessages: number;
+  /** Of those, messages taken from a batch but not yet accepted by every sink (the partition is paused). */
+  heldMessages: number;
 }
 
 export interface BridgeSnapshot {
@@ -85,6 +87,41 @@ export type BridgeEventName = keyof BridgeEvents;
 // eslint-disable-next-line @typescript-eslint/no-explicit-any
 type AnySink = Sink<any>;
 
+/**
+ * The meta of a message the bridge took. Its private fields (never copied by spread, never in
+ * JSON, so never in a dead-letter file) tie it to the partition ownership it was taken in.
+ */
+class MessageMeta implements RecordMeta {
+  readonly topic: string;
+  readonly partition: number;
+  /** A bigint, so that the sinks' own progress tracking does not parse it again. */
+  readonly offset: bigint;
+  readonly eventTime?: number;
+  /** `topic:partition`, the sinks' default ordering key, computed once per partition. */
+  readonly key: string;
+  readonly #owner: PartitionState;
+  /** Kafka timestamp, or the time it was taken when the message has none. */
+  readonly #ts: number;
+
+  constructor(owner: PartitionState, offset: bigint, ts: number, now: number) {
+    this.topic = owner.topic;
+    this.partition = owner.partition;
+    this.offset = offset;
+    if (Number.isFinite(ts)) this.eventTime = ts;
+    this.key = owner.key;
+    this.#owner = owner;
+    this.#ts = Number.isFinite(ts) ? ts : now;
+  }
+
+  static ownerOf(meta: RecordMeta): PartitionState | undefined {
+    return #owner in meta ? (meta as MessageMeta).#owner : undefined;
+  }
+
+  get ts(): number {
+    return this.#ts;
+  }
+}
+
 interface Held {
   readonly record: unknown;
   readonly meta: RecordMeta;
@@ -98,13 +135,19 @@ interface PartitionState {
   readonly key: string;
   /** Next offset to take; anything below was taken in this ownership (a redelivery). */
   next: bigint | undefined;
-  held: Held | undefined;
+  /**
+   * Messages taken but not yet accepted by every sink, oldest first: from the refused message to
+   * the end of its batch. While there are any the partition is paused, so this never exceeds one
+   * fetched batch (kafkajs' `maxBytesPerPartition`) per partition.
+   */
+  held: Held[] | undefined;
+  heldHead: number;
   paused: boolean;
   lastMessageAt: number;
   lastSeen: bigint | undefined;
   highWatermark: bigint | undefined;
-  /** Kafka timestamps of taken offsets, oldest first, pruned past the commit point. */
-  times: Array<{ offset: bigint; ts: number }>;
+  /** Taken messages, oldest first, pruned past the commit point (for lag in seconds). */
+  times: MessageMeta[];
   timesHead: number;
 }
 
@@ -126,8 +169,6 @@ export class KafkaBridge<R> {
   private readonly events = new EventEmitter();
   private readonly tracker = new ProgressTracker();
   private readonly fence = new CommitFence();
-  /** The partition a message's meta belongs to; stale after the partition is revoked. */
-  private readonly owner = new WeakMap<RecordMeta, PartitionState>();
   private readonly parts = new Map<string, PartitionState>();
   private readonly sinks = new Set<AnySink>();
   private readonly decodeSink: Sink<DecodeFailure>;
@@ -303,7 +344,7 @@ export class KafkaBridge<R> {
     const st = this.partitionFor(batch.topic, batch.partition);
     if (st && !this.draining && this.stateValue === 'running') {
       st.highWatermark = BigInt(batch.highWatermark);
-      // With a held message the partition is paused: a batch fetched before the pause is left
+      // With held messages the partition is paused: a batch fetched before the pause is left
       // unresolved, so kafkajs fetches it again after resume.
       if (st.held === undefined) this.take(st, batch.messages, resolveOffset, isRunning, isStale);
     }
@@ -324,40 +365,48 @@ export class KafkaBridge<R> {
     isRunning: () => boolean,
     isStale: () => boolean,
   ): void {
+    // The loop is synchronous: nothing can stop the consumer or make the batch stale inside it.
+    if (!isRunning() || isStale()) return;
     const source: KafkaSource = { topic: st.topic, partition: st.partition };
     const now = Date.now();
+    let last: string | undefined;
     for (const m of messages) {
-      if (!isRunning() || isStale() || this.draining) return;
+      if (this.stateValue !== 'running') break;
       const offset = BigInt(m.offset);
+      // Taken (or skipped): kafkajs fetches after it from now on, whether or not every sink had room.
+      last = m.offset;
       if (st.next !== undefined && offset < st.next) {
         // Redelivered after a rejoin: already taken (and buffered, in flight, or durable).
         this.counts.skipped++;
-        resolveOffset(m.offset);
         continue;
       }
-      const ts = Number(m.timestamp);
-      const meta: RecordMeta = Number.isFinite(ts) ? { topic: st.topic, partition: st.partition, offset: m.offset, eventTime: ts } : { topic: st.topic, partition: st.partition, offset: m.offset };
+      const meta = new MessageMeta(st, offset, Number(m.timestamp), now);
       const { record, sinks } = this.decodeAndRoute(m, source);
-      this.owner.set(meta, st);
       this.tracker.track(st.key, offset, sinks.length);
       st.next = offset + 1n;
       st.lastSeen = offset;
       st.lastMessageAt = now;
-      st.times.push({ offset, ts: Number.isFinite(ts) ? ts : now });
+      st.times.push(meta);
       if ((st.times.length & 1023) === 0) this.prune(st);
       this.counts.messages++;
-      // Taken: kafkajs fetches after it from now on, whether or not every sink had room.
-      resolveOffset(m.offset);
+      if (st.held) {
+        // Behind a refused message: keep the rest of this batch (already fetched and decoded by
+        // kafkajs) instead of fetching it again after the resume.
+        st.held.push({ record, meta, sinks });
+        continue;
+      }
       const rest = this.offer(record, meta, sinks);
       if (rest.length > 0) {
-        st.held = { record, meta, sinks: rest };
+        st.held = [{ record, meta, sinks: rest }];
+        st.heldHead = 0;
         this.heldCount++;
         this.pauseKafka(st);
         this.counts.pauses++;
         this.emit('pause', { topic: st.topic, partition: st.partition, sink: rest[0]!.name });
-        return;
       }
     }
+    // Once per batch: resolving is only a note of the next offset to fetch.
+    if (last !== undefined) resolveOffset(last);
   }
 
   private decodeAndRoute(m: KafkaMessage, source: KafkaSource): { record: unknown; sinks: AnySink[] } {
@@ -366,10 +415,11 @@ export class KafkaBridge<R> {
     if (decoded.ok) {
       try {
         const route = this.o.route(decoded.record, source);
-        if (route == null) return { record: decoded.record, sinks: [] };
+        if (route == null) return { record: decoded.record, sinks: NO_SINKS };
         const list = (Array.isArray(route) ? route : [route]) as AnySink[];
         for (const sink of list) this.watch(sink);
-        return { record: decoded.record, sinks: [...new Set(list)] };
+        // The bridge never mutates a route list, so the router's own array can be used as is.
+        return { record: decoded.record, sinks: hasDuplicates(list) ? [...new Set(list)] : list };
       } catch (error) {
         failure = new DecodeError(`route() threw: ${messageOf(error)}`, { cause: error });
       }
@@ -411,10 +461,10 @@ export class KafkaBridge<R> {
   private readonly onSettled = (e: SinkEvents['settled']): void => {
     for (const meta of e.metas) {
       if (meta === undefined) continue;
-      const st = this.owner.get(meta);
+      const st = MessageMeta.ownerOf(meta);
       // Not ours, or from a partition this member no longer owns (or owns anew).
       if (st === undefined || this.parts.get(st.key) !== st) continue;
-      this.tracker.complete(st.key, meta.offset!, 1);
+      this.tracker.complete(st.key, (meta as MessageMeta).offset, 1);
     }
     if (this.heldCount > 0) this.scheduleRetry();
   };
@@ -433,9 +483,15 @@ export class KafkaBridge<R> {
       for (const st of this.parts.values()) {
         const held = st.held;
         if (!held) continue;
-        held.sinks = this.offer(held.record, held.meta, held.sinks);
-        if (held.sinks.length === 0) {
+        while (st.heldHead < held.length) {
+          const h = held[st.heldHead]!;
+          h.sinks = this.offer(h.record, h.meta, h.sinks);
+          if (h.sinks.length > 0) break;
+          held[st.heldHead++] = undefined as never; // let the record go
+        }
+        if (st.heldHead === held.length) {
           st.held = undefined;
+          st.heldHead = 0;
           this.heldCount--;
           this.resumeKafka(st);
           this.emit('resume', { topic: st.topic, partition: st.partition });
@@ -472,6 +528,7 @@ export class KafkaBridge<R> {
       key,
       next: undefined,
       held: undefined,
+      heldHead: 0,
       paused: false,
       lastMessageAt: Date.now(),
       lastSeen: undefined,
@@ -542,7 +599,7 @@ export class KafkaBridge<R> {
     this.rejoinFlush ??= (async () => {
       this.counts.rebalanceFlushes++;
       try {
-        const ours = (meta: RecordMeta | undefined) => meta !== undefined && this.owner.has(meta);
+        const ours = (meta: RecordMeta | undefined) => meta !== undefined && MessageMeta.ownerOf(meta) !== undefined;
         const flushed = Promise.all([...this.sinks].filter((s) => s.state === 'open').map((s) => s.revoke(ours))).then(() => true);
         const ok = await within(flushed, this.o.rebalanceFlushMs, () => undefined).catch(() => false);
         if (!ok) this.counts.rebalanceFlushTimeouts++;
@@ -638,6 +695,7 @@ export class KafkaBridge<R> {
         idleMs: now - st.lastMessageAt,
         paused: st.paused,
         pendingMessages: this.tracker.pending(st.key),
+        heldMessages: st.held ? st.held.length - st.heldHead : 0,
       });
     }
     partitions.sort((a, b) => (a.topic === b.topic ? a.partition - b.partition : a.topic < b.topic ? -1 : 1));
@@ -673,6 +731,13 @@ export class KafkaBridge<R> {
     if (event === 'error' && this.events.listenerCount('error') === 0) return;
     this.events.emit(event, payload);
   }
+}
+
+const NO_SINKS: AnySink[] = [];
+
+function hasDuplicates(list: readonly AnySink[]): boolean {
+  for (let i = 1; i < list.length; i++) for (let j = 0; j < i; j++) if (list[i] === list[j]) return true;
+  return false;
 }
 
 /** Resolves as `work` does, or with `onTimeout()`'s value / rejection when `ms` passes first. */

@@ -115,12 +115,18 @@ class GatedAdapter implements SinkAdapter<{ n: number }> {
 
 const tick = () => new Promise((r) => setImmediate(r));
 
-/** Flushes the sinks while acknowledging every batch as it is written. */
+/**
+ * Flushes the sinks while acknowledging every batch as it is written, a few rounds, so that
+ * messages the bridge held for room get in and out too.
+ */
 async function flushAcking(sinks: Sink<{ n: number }>[], adapters: GatedAdapter[]): Promise<void> {
   const auto = setInterval(() => adapters.forEach((a) => a.releaseAll()), 1);
   try {
-    await Promise.all(sinks.map((s) => s.flush()));
-    await tick();
+    for (let round = 0; round < 4; round++) {
+      await Promise.all(sinks.map((s) => s.flush()));
+      await tick();
+      await tick();
+    }
   } finally {
     clearInterval(auto);
   }
@@ -209,7 +215,7 @@ describe('KafkaBridge', () => {
     await flushAcking(sinks, adapters);
     await bridge.stop({ timeoutMs: 5000 });
     expect(letters).toHaveLength(1);
-    expect(letters[0]).toMatchObject({ reason: 'decode', meta: { topic: TOPIC, partition: 2, offset: '41' } });
+    expect(letters[0]).toMatchObject({ reason: 'decode', meta: { topic: TOPIC, partition: 2, offset: 41n } });
     expect(letters[0]!.record.value?.equals(raw)).toBe(true);
     expect((letters[0]!.error as DecodeError).code).toBe('SPILLWAY_DECODE_ERROR');
     // 41 (dead-lettered) and 42 (routed nowhere) do not hold the commit point back.
@@ -217,30 +223,34 @@ describe('KafkaBridge', () => {
     expect(adapters[0]!.written).toEqual([1, 2]);
   });
 
-  it('holds the message a full sink refused, pauses its partition, and resumes once there is room', async () => {
+  it('holds the messages a full sink refused, pauses their partition, and resumes once there is room', async () => {
     const { consumer, adapters, sinks, bridge } = setup({ sinks: 2, maxRecords: 2, maxPendingRecords: 2 });
     await bridge.start();
     consumer.join([0, 1]);
     await consumer.deliver(0, 0, ['0', '1', '2', '3']);
-    // Both sinks took 0 and 1; sink 0 was full at 2, so 2 is held and partition 0 pauses.
+    // Both sinks took 0 and 1; sink 0 was full at 2, so 2 and the rest of the batch are held and
+    // partition 0 pauses. The batch is taken whole: kafkajs fetches from 4 after the resume.
     expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(true);
-    expect(consumer.resolved.get(0)).toBe('2'); // taken (held): kafkajs fetches from 3 after resume
-    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)?.paused).toBe(true);
+    expect(consumer.resolved.get(0)).toBe('3');
+    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)).toMatchObject({ paused: true, heldMessages: 2, pendingMessages: 4 });
     // A batch fetched before the pause is left unresolved for kafkajs to fetch again.
-    await consumer.deliver(0, 3, ['3']);
-    expect(consumer.resolved.get(0)).toBe('2');
+    await consumer.deliver(0, 4, ['4']);
+    expect(consumer.resolved.get(0)).toBe('3');
+    await bridge.commit();
+    expect(consumer.commits).toEqual([]);
     adapters[0]!.releaseAll();
     adapters[1]!.releaseAll();
     await tick();
     await tick();
     expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(false);
-    await consumer.deliver(0, 3, ['3']);
+    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)).toMatchObject({ paused: false, heldMessages: 0 });
+    await consumer.deliver(0, 4, ['4']);
     await flushAcking(sinks, adapters);
     await bridge.commit();
     // Each sink got each message exactly once, in order.
-    expect(adapters[0]!.written).toEqual([0, 1, 2, 3]);
-    expect(adapters[1]!.written).toEqual([0, 1, 2, 3]);
-    expect(consumer.lastCommit(0)).toBe('4');
+    expect(adapters[0]!.written).toEqual([0, 1, 2, 3, 4]);
+    expect(adapters[1]!.written).toEqual([0, 1, 2, 3, 4]);
+    expect(consumer.lastCommit(0)).toBe('5');
   });
 
   it('skips offsets redelivered after a rejoin that kept the partition', async () => {
