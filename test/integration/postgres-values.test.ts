@@ -84,6 +84,31 @@ afterAll(async () => {
 
 const tableFor = (label: string) => `hostile_${label.replace(/\W+/g, '_')}`;
 
+describe('insertForm unnest', () => {
+  it('returns every hostile value byte for byte through one array parameter per column', async () => {
+    await schema.pool.query('CREATE TABLE hostile_unnest (id int PRIMARY KEY, v text, bytes bytea, doc jsonb)');
+    const adapter = postgresAdapter<Row>({
+      pool: schema.pool,
+      table: 'hostile_unnest',
+      columns: [
+        { name: 'id', type: 'int' },
+        { name: 'v', type: 'text' },
+        { name: 'bytes', type: 'bytea' },
+        { name: 'doc', type: 'jsonb' },
+      ],
+      map: (r) => [r.id, r.v, r.bytes, r.doc],
+      insertForm: 'unnest',
+    });
+    const sink = new Sink(adapter, { maxRecords: 1000, maxBytes: 64 << 20 });
+    for (const r of rows) await sink.write(r);
+    await sink.close();
+    const back = await schema.pool.query<{ v: string | null; bytes: Buffer | null; doc: unknown }>('SELECT v, bytes, doc FROM hostile_unnest ORDER BY id');
+    expect(back.rows.map((r) => r.v)).toEqual(rows.map((r) => r.v));
+    expect(back.rows.map((r) => r.bytes?.toString('hex') ?? null)).toEqual(rows.map((r) => r.bytes?.toString('hex') ?? null));
+    expect(back.rows.map((r) => r.doc)).toEqual(rows.map((r) => r.doc));
+  });
+});
+
 describe.each(MODES)('%s mode', (label, modeOptions) => {
   it('returns every hostile value byte for byte, NULL apart from the empty string', async () => {
     const table = tableFor(label);

@@ -24,6 +24,12 @@ const status = (id: number): DockStatus => ({
   note: id % 5 === 0 ? null : `checked by crew ${id % 17}`,
 });
 const columns = ['id', 'dock', 'bikes', 'note'];
+const typedColumns = [
+  { name: 'id', type: 'int' },
+  { name: 'dock', type: 'text' },
+  { name: 'bikes', type: 'int' },
+  { name: 'note', type: 'text' },
+];
 const map = (s: DockStatus) => [s.id, s.dock, s.bikes, s.note];
 
 /** The same rendering of a row in JavaScript and in SQL (below), hashed: a checksum over content. */
@@ -72,12 +78,14 @@ describe('each mode writes 100,000 rows that land exactly', () => {
 
   it.each([
     ['insert', {}],
+    ['insert', { insertForm: 'unnest', columns: typedColumns }],
     ['copy', { copyFormat: 'csv' }],
     ['copy', { copyFormat: 'text' }],
     ['upsert', { upsertViaCopyAbove: 1_000_000 }],
+    ['upsert', { upsertViaCopyAbove: 1_000_000, insertForm: 'unnest', columns: typedColumns }],
     ['upsert', { upsertViaCopyAbove: 0 }],
   ] as const)('%s mode %j: count and checksum match what was written', async (mode, extra) => {
-    const table = `bulk_${mode}_${Object.values(extra).join('') || 'default'}`.toLowerCase().replace(/[^a-z0-9_]/g, '');
+    const table = `bulk_${mode}_${Object.entries(extra).filter(([k]) => k !== 'columns').map(([, v]) => v).join('') || 'default'}`.toLowerCase().replace(/[^a-z0-9_]/g, '');
     await createStatusTable(table);
     const adapter = postgresAdapter<DockStatus>({ pool: schema.pool, table, columns, map, ...modeOptions(mode), ...extra });
     const sink = new Sink(adapter, { maxRecords: 1000 });
@@ -135,6 +143,24 @@ describe('the 65,535-parameter limit of one statement', () => {
     expect(Number(rows[0]!.n)).toBe(ROWS);
     expect(Number(rows[0]!.s)).toBe((cells * (cells - 1)) / 2); // every cell value 0 … cells-1 exactly once
   });
+
+  it('insertForm unnest binds one array per column, so the same batch is one statement of 10 parameters', async () => {
+    await schema.pool.query(`CREATE TABLE wide_unnest (${wideColumns.map((c) => `${c} int`).join(', ')})`);
+    const adapter = postgresAdapter<number>({
+      pool: schema.pool,
+      table: 'wide_unnest',
+      columns: wideColumns.map((name) => ({ name, type: 'int' })),
+      map: (i) => wideColumns.map((_, c) => i * WIDTH + c),
+      insertForm: 'unnest',
+    });
+    const sink = new Sink(adapter, { maxRecords: ROWS, maxBytes: 64 << 20 });
+    for (let i = 0; i < ROWS; i++) await sink.write(i);
+    await sink.close();
+    expect(adapter.stats()).toMatchObject({ writes: 1, dataStatements: 1, maxParameters: WIDTH, rows: ROWS });
+    const { rows } = await schema.pool.query<{ n: string; s: string }>(`SELECT count(*) AS n, sum(${wideColumns.join(' + ')}::bigint) AS s FROM wide_unnest`);
+    const cells = ROWS * WIDTH;
+    expect([Number(rows[0]!.n), Number(rows[0]!.s)]).toEqual([ROWS, (cells * (cells - 1)) / 2]);
+  });
 });
 
 describe('poison rows', () => {
@@ -142,12 +168,14 @@ describe('poison rows', () => {
   const K = 5;
   const poison = new Set([17, 4_321, 9_999, 15_000, 19_998]);
 
-  it.each(MODES)('%s mode: 5 rows that violate a CHECK among 20,000 are dead-lettered with 23514 and the constraint; the rest land', async (mode) => {
-    const table = `poison_${mode}`;
+  it.each([...MODES, 'insert-unnest'] as const)('%s mode: 5 rows that violate a CHECK among 20,000 are dead-lettered with 23514 and the constraint; the rest land', async (variant) => {
+    const mode = variant === 'insert-unnest' ? 'insert' : variant;
+    const unnest = variant === 'insert-unnest' ? { insertForm: 'unnest' as const, columns: typedColumns } : {};
+    const table = `poison_${variant.replace('-', '_')}`;
     await createStatusTable(table, ', CONSTRAINT bikes_nonnegative CHECK (bikes >= 0)');
     const records = Array.from({ length: N }, (_, i) => ({ ...status(i + 1), bikes: poison.has(i + 1) ? -1 : (i + 1) % 23 }));
     const deadLetter = collectingDeadLetter<DockStatus>();
-    const adapter = postgresAdapter<DockStatus>({ pool: schema.pool, table, columns, map, ...modeOptions(mode), upsertViaCopyAbove: mode === 'upsert' ? 1000 : undefined });
+    const adapter = postgresAdapter<DockStatus>({ pool: schema.pool, table, columns, map, ...modeOptions(mode), upsertViaCopyAbove: mode === 'upsert' ? 1000 : undefined, ...unnest });
     const sink = new Sink(adapter, { maxRecords: N, maxBytes: 64 << 20, deadLetter });
     for (const r of records) await sink.write(r);
     await sink.close();
@@ -166,7 +194,7 @@ describe('poison rows', () => {
     // Bisection: each poison row costs about two writes per halving, never one write per row.
     const writes = adapter.stats().writes;
     const bound = 1 + 2 * K * Math.ceil(Math.log2(N));
-    console.log(`[postgres] poison ${mode}: ${writes} writes for ${K} bad rows in ${N} (bound ${bound})`);
+    console.log(`[postgres] poison ${variant}: ${writes} writes for ${K} bad rows in ${N} (bound ${bound})`);
     expect(writes).toBeLessThanOrEqual(bound);
   });
 });

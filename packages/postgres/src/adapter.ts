@@ -23,7 +23,7 @@ import {
 } from './options.js';
 import { makeEstimator } from './size.js';
 import { buildStatements, type Statements } from './statements.js';
-import { toWire, type WireValue } from './values.js';
+import { columnArrayLiteral, toWire, type WireValue } from './values.js';
 
 /** Counters of what the adapter sent. They only grow. */
 export interface PostgresAdapterStats {
@@ -303,11 +303,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const per = this.options.rowsPerStatement;
     for (let start = 0; start < rows; start += per) {
       const n = Math.min(per, rows - start);
-      const values = n === rows ? flat : flat.slice(start * this.width, (start + n) * this.width);
-      if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
-      this.counters.statements++;
-      this.counters.dataStatements++;
-      await client.query({ text: this.sql.values(n), values });
+      await this.sendInsert(client, n, n === rows ? flat : flat.slice(start * this.width, (start + n) * this.width));
     }
   }
 
@@ -322,11 +318,21 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         const row = rows[r]!;
         for (let c = 0; c < width; c++) values[k++] = row[c] as WireValue;
       }
-      if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
-      this.counters.statements++;
-      this.counters.dataStatements++;
-      await client.query({ text: this.sql.values(n), values });
+      await this.sendInsert(client, n, values);
     }
+  }
+
+  /** One INSERT of `rows` rows whose parameters are `flat` (row-major). */
+  private async sendInsert(client: PoolClient, rows: number, flat: WireValue[]): Promise<void> {
+    let values: WireValue[] = flat;
+    if (this.options.insertForm === 'unnest') {
+      values = new Array<WireValue>(this.width);
+      for (let c = 0; c < this.width; c++) values[c] = columnArrayLiteral(flat, c, this.width);
+    }
+    if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
+    this.counters.statements++;
+    this.counters.dataStatements++;
+    await client.query({ text: this.sql.values(rows), values });
   }
 
   private async copy(client: PoolClient, into: string, data: CopyChunks): Promise<void> {

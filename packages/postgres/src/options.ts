@@ -14,6 +14,9 @@ export type PostgresMode = 'insert' | 'copy' | 'upsert';
 /** COPY data format (PostgreSQL documentation, COPY, "File Formats"). */
 export type CopyFormat = 'csv' | 'text';
 
+/** How `insert` (and small `upsert`) batches are phrased. */
+export type InsertForm = 'values' | 'unnest';
+
 /** A target column, with its SQL type when one is needed. */
 export interface ColumnSpec {
   /** Column name as it is in the table (case and spaces kept; it is always quoted). */
@@ -112,6 +115,16 @@ export interface PostgresAdapterOptions<T> {
    */
   readonly upsertViaCopyAbove?: number;
   /**
+   * Statement form of `insert` batches (and of `upsert` batches at or below `upsertViaCopyAbove`).
+   * `values`: multi-row `INSERT … VALUES ($1, …), (…)`, split so that no statement binds more than
+   * 65,535 parameters. `unnest`: `INSERT … SELECT * FROM unnest($1::type[], …)`, one array
+   * parameter per column and one statement per batch; it needs a `type` for every column and no
+   * array-typed column (unnest would flatten it).
+   * @default 'values'
+   * @example 'unnest'
+   */
+  readonly insertForm?: InsertForm;
+  /**
    * Upper bound on rows per INSERT statement (`insert`, and `upsert` below `upsertViaCopyAbove`).
    * The adapter never binds more than 65,535 parameters in one statement whatever this says
    * (the Bind message counts parameters in an Int16).
@@ -132,6 +145,7 @@ export interface ResolvedPostgresOptions<T> {
   conflict: { key: string[]; action: 'update' | 'nothing'; update: string[] } | undefined;
   copyFormat: CopyFormat;
   upsertViaCopyAbove: number;
+  insertForm: InsertForm;
   rowsPerStatement: number;
 }
 
@@ -142,6 +156,7 @@ export const POSTGRES_DEFAULTS = {
   mode: 'insert',
   copyFormat: 'csv',
   upsertViaCopyAbove: 1000,
+  insertForm: 'values',
 } as const;
 
 const KNOWN = new Set([
@@ -154,6 +169,7 @@ const KNOWN = new Set([
   'conflict',
   'copyFormat',
   'upsertViaCopyAbove',
+  'insertForm',
   'maxRowsPerStatement',
 ]);
 
@@ -259,6 +275,14 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   if (copyFormat !== 'csv' && copyFormat !== 'text') throw invalidOption('copyFormat', '"csv" or "text"', o.copyFormat);
 
   const upsertViaCopyAbove = countOption('upsertViaCopyAbove', o.upsertViaCopyAbove, POSTGRES_DEFAULTS.upsertViaCopyAbove, 0, true);
+  const insertForm = (o.insertForm ?? POSTGRES_DEFAULTS.insertForm) as InsertForm;
+  if (insertForm !== 'values' && insertForm !== 'unnest') throw invalidOption('insertForm', '"values" or "unnest"', o.insertForm);
+  if (insertForm === 'unnest') {
+    for (const [i, c] of columns.entries()) {
+      if (c.type === undefined) throw invalidOption(`columns[${i}].type`, 'a SQL type (insertForm "unnest" casts one array per column)', c.type);
+      if (c.type.endsWith(']')) throw invalidOption(`columns[${i}].type`, 'a non-array type (unnest flattens arrays; use insertForm "values")', c.type);
+    }
+  }
   const limit = Math.floor(MAX_PARAMETERS / columns.length);
   if (limit < 1) throw invalidOption('columns', `at most ${MAX_PARAMETERS} columns`, columns.length);
   const rowsPerStatement = countOption('maxRowsPerStatement', o.maxRowsPerStatement, limit, 1, false);
@@ -273,7 +297,8 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
     conflict,
     copyFormat,
     upsertViaCopyAbove,
-    // The protocol bound wins over a larger request.
-    rowsPerStatement: Math.min(rowsPerStatement, limit),
+    insertForm,
+    // The protocol bound wins over a larger request; unnest binds one array per column, whatever the rows.
+    rowsPerStatement: insertForm === 'unnest' ? Number.MAX_SAFE_INTEGER : Math.min(rowsPerStatement, limit),
   };
 }

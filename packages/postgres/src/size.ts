@@ -82,12 +82,14 @@ function valueBytes(v: unknown): number | undefined {
 
 export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => number {
   const viaCopy = o.mode === 'copy';
-  const format = o.copyFormat;
+  // unnest: each value is a quoted array element and a comma, like a CSV field.
+  const unnest = !viaCopy && o.insertForm === 'unnest';
+  const format = unnest ? 'csv' : o.copyFormat;
   // Per value of a given text length: what the mode adds around it.
-  const fieldOverhead = viaCopy ? (format === 'csv' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
-  const nullBytes = viaCopy ? (format === 'text' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
-  const numberOverhead = viaCopy ? 1 : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
-  const rowOverhead = viaCopy ? 0 : TUPLE_BYTES;
+  const fieldOverhead = viaCopy || unnest ? (format === 'csv' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
+  const nullBytes = unnest ? 5 : viaCopy ? (format === 'text' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
+  const numberOverhead = unnest ? 3 : viaCopy ? 1 : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
+  const rowOverhead = viaCopy || unnest ? 0 : TUPLE_BYTES;
   return (record: T) => {
     let values: readonly unknown[];
     try {
@@ -112,7 +114,7 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
         // Bytes, arrays, JSON: rarer, and worth converting (and escaping: JSON is full of quotes)
         // to count them right.
         const w: WireValue = toWire(v);
-        if (!viaCopy) n += insertRowBytes([w]) - TUPLE_BYTES;
+        if (!viaCopy && !unnest) n += insertRowBytes([w]) - TUPLE_BYTES;
         else n += 1 + (typeof w === 'string' ? Buffer.byteLength(format === 'csv' ? csvField(w) : textField(w), 'utf8') : copyRowBytes([w], format) - 1);
       }
       return n;

@@ -7,7 +7,10 @@ import { qualifiedName, quoteIdentifier } from './identifiers.js';
 import type { ResolvedPostgresOptions } from './options.js';
 
 export interface Statements {
-  /** `INSERT INTO t (cols) VALUES ($1,…),(…)` (plus ON CONFLICT in upsert mode) for `rows` rows. */
+  /**
+   * `INSERT INTO t (cols) VALUES ($1,…),(…)` (plus ON CONFLICT in upsert mode) for `rows` rows;
+   * with insertForm `unnest`, `INSERT INTO t (cols) SELECT * FROM unnest($1::type[], …)` for any count.
+   */
   values(rows: number): string;
   /** `COPY <target> (cols) FROM STDIN WITH (FORMAT …)`. */
   copy(target: string): string;
@@ -43,7 +46,9 @@ export function buildStatements(o: ResolvedPostgresOptions<unknown>): Statements
   // Most batches are full-size: keep the text of the last few row counts instead of rebuilding
   // a string of up to 65,535 placeholders for every statement.
   const cache = new Map<number, string>();
+  const unnestSql = `INSERT INTO ${target} ${colList} SELECT * FROM unnest(${o.columns.map((c, i) => `$${i + 1}::${c.type}[]`).join(', ')})${onConflict}`;
   const values = (rows: number): string => {
+    if (o.insertForm === 'unnest') return unnestSql;
     let sql = cache.get(rows);
     if (sql !== undefined) return sql;
     const tuples = new Array<string>(rows);

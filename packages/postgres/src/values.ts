@@ -32,6 +32,25 @@ export function toWire(value: unknown): WireValue {
   }
 }
 
+/**
+ * A one-dimensional array literal of wire values, every element quoted (the `unnest` insert
+ * form binds one per column). Stride and offset pick one column out of a flat row-major array.
+ */
+export function columnArrayLiteral(flat: readonly WireValue[], offset: number, stride: number): string {
+  let out = '{';
+  for (let i = offset; i < flat.length; i += stride) {
+    if (i !== offset) out += ',';
+    const w = flat[i] as WireValue;
+    if (w === null) out += 'NULL';
+    else if (typeof w === 'string') out += ARRAY_SPECIAL.test(w) ? `"${w.replace(ARRAY_SPECIAL_ALL, '\\$&')}"` : `"${w}"`;
+    else out += `"\\\\x${w.toString('hex')}"`;
+  }
+  return `${out}}`;
+}
+
+const ARRAY_SPECIAL = /[\\"]/;
+const ARRAY_SPECIAL_ALL = /[\\"]/g;
+
 /** A PostgreSQL array literal, e.g. `{"a","b c",NULL}` (PostgreSQL documentation, Arrays, "Array Value Input"). */
 function arrayLiteral(values: readonly unknown[]): string {
   const parts = new Array<string>(values.length);

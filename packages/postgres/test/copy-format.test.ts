@@ -1,7 +1,7 @@
 import { describe, expect, it } from 'vitest';
 import { copyLine, copyRow, csvField, encodeCopy, textField } from '../src/copy-format.js';
 import { quoteIdentifier } from '../src/identifiers.js';
-import { toWire } from '../src/values.js';
+import { columnArrayLiteral, toWire } from '../src/values.js';
 
 // Source: PostgreSQL documentation, COPY, "File Formats" (text format: backslash escapes, \N for
 // NULL; CSV format: quoted values with doubled quotes, NULL as an unquoted empty field). The
@@ -94,5 +94,15 @@ describe('copyLine (the copy-mode hot path)', () => {
   it('writes numbers bare, which both formats read as the number', () => {
     expect(copyLine([1, -2.5, 10n, null, 'x'], 'csv')).toBe('1,-2.5,10,,"x"\n');
     expect(copyLine([1, -2.5, 10n, null, 'x'], 'text')).toBe('1\t-2.5\t10\t\\N\tx\n');
+  });
+});
+
+describe('columnArrayLiteral (the unnest insert form)', () => {
+  // Source: PostgreSQL documentation, Arrays, "Array Value Input": double quotes and backslashes
+  // inside a quoted element are backslash-escaped; an unquoted NULL is a null element.
+  it('picks one column out of row-major values, quoting and escaping each element', () => {
+    const flat = ['a', '1', 'b "c"', null, 'NULL', '\\x', '', Buffer.from([255])].map((v) => (typeof v === 'string' || v === null ? v : v));
+    expect(columnArrayLiteral(flat as never, 0, 2)).toBe('{"a","b \\"c\\"","NULL",""}');
+    expect(columnArrayLiteral(flat as never, 1, 2)).toBe('{"1",NULL,"\\\\x","\\\\xff"}');
   });
 });

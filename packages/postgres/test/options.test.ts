@@ -45,6 +45,9 @@ describe('postgresAdapter options', () => {
     [{ upsertViaCopyAbove: -1 }, '`upsertViaCopyAbove`'],
     [{ maxRowsPerStatement: 0 }, '`maxRowsPerStatement`'],
     [{ batchSize: 10 }, '`batchSize`'],
+    [{ insertForm: 'unnest' }, '`columns[0].type`'],
+    [{ insertForm: 'unnest', columns: [{ name: 'a', type: 'int' }, { name: 'b', type: 'text[]' }] }, '`columns[1].type`'],
+    [{ insertForm: 'rows' }, '`insertForm`'],
   ])('refuses %j with a TypeError naming %s', (patch, name) => {
     expect(() => postgresAdapter({ ...base, ...(patch as object) } as PostgresAdapterOptions<Dock>)).toThrow(TypeError);
     expect(() => postgresAdapter({ ...base, ...(patch as object) } as PostgresAdapterOptions<Dock>)).toThrow(name);
@@ -74,6 +77,11 @@ describe('SQL text', () => {
     );
     expect(sql.copy(sql.target)).toBe('COPY "tandem"."dock ""status""" ("dock_id", "bikes") FROM STDIN WITH (FORMAT csv)');
     expect(sql.createStage).toMatch(/^CREATE TEMP TABLE "spillway_stage_\d+_\d+" ON COMMIT DROP AS SELECT "dock_id", "bikes" FROM "tandem"."dock ""status""" WITH NO DATA$/);
+  });
+
+  it('phrases insertForm unnest as one typed array parameter per column', () => {
+    const o = resolvePostgresOptions({ ...base, columns: [{ name: 'dock_id', type: 'text' }, { name: 'bikes', type: 'int' }], insertForm: 'unnest' });
+    expect(buildStatements(o as never).values(50_000)).toBe('INSERT INTO "dock_status" ("dock_id", "bikes") SELECT * FROM unnest($1::text[], $2::int[])');
   });
 
   it('numbers placeholders up to exactly the 65,535th in a full statement', () => {
