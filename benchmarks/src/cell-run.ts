@@ -8,6 +8,7 @@ import {
   type SinkAdapter,
   estimateJsonBytes,
 } from '@spillway/core';
+import { round, roundDist } from './numbers.js';
 import { SeededRandom } from './random.js';
 import { type DockStatus, dockStatus } from './records.js';
 import { type ShapeParams, arrivals } from './shapes.js';
@@ -50,7 +51,7 @@ export interface LittleCheck {
   throughput: number;
   /** Mean accept → durable, as the batcher reported it. */
   meanTimeHeldMs: number;
-  /** meanHeld / (throughput × meanTimeHeld): 1 when both measurement paths agree; null with nothing durable. */
+  /** meanHeld / (throughput × meanTimeHeld): 1 when both measurement paths agree; null when a record was stuck or none landed. */
   ratio: number | null;
 }
 
@@ -91,6 +92,10 @@ const sleep = (ms: number) => new Promise<void>((resolve) => setTimeout(resolve,
 
 /** Runs one cell in this process and returns its measurements. */
 export async function runCell(spec: CellSpec): Promise<CellResult> {
+  if (spec.store.kind === 'bridge') {
+    const { runBridgeCell } = await import('./bridge-cell.js');
+    return runBridgeCell(spec);
+  }
   const store = await openStore(spec.store, spec.id);
   try {
     const estimate = store.adapter.estimateBytes?.bind(store.adapter) ?? estimateJsonBytes;
@@ -289,21 +294,9 @@ export async function drive(spec: CellSpec, subject: Subject, estimate: (r: Dock
       meanHeld: round(meanHeld),
       throughput: round(arrivalRate * 1000),
       meanTimeHeldMs: round(meanTimeHeldMs),
-      ratio: predicted === 0 ? null : round(meanHeld / predicted, 4),
+      // Only a window in which every record landed balances: a stuck record is held with no exit.
+      ratio: predicted === 0 || held.size > 0 ? null : round(meanHeld / predicted, 4),
     },
     windowMs: round(windowMs),
   };
-}
-
-function round(n: number, digits = 3): number {
-  if (!Number.isFinite(n)) return n;
-  const f = 10 ** digits;
-  return Math.round(n * f) / f;
-}
-
-// An HdrHistogram quantile is the top of its bucket, so it can sit a hair (< 0.1 %) above the
-// recorded max; clamp so that no report shows p99 > max.
-function roundDist(d: Distribution): Distribution {
-  const q = (v: number) => round(Math.min(v, d.max));
-  return { count: d.count, min: round(d.min), mean: round(d.mean), p50: q(d.p50), p90: q(d.p90), p99: q(d.p99), max: round(d.max) };
 }

@@ -6,6 +6,8 @@ import { type StoreSpec, storeLabel } from './stores.js';
 export interface StorePlan {
   store: StoreSpec;
   shapes: ShapeName[];
+  /** A grid of this store's own (slow stores get fewer cells). */
+  grid?: { maxRecords: number[]; maxAgeMs: number[] };
 }
 
 /** The settings grid and what else a run includes. */
@@ -43,16 +45,17 @@ export function graceFor(variant: Variant, s: Settings): number {
 export function cellsOf(plan: Plan): CellSpec[] {
   const cells: CellSpec[] = [];
   const defaults = { idleMs: plan.idleMs[0] ?? 100, concurrency: 1 };
-  for (const { store, shapes } of plan.stores) {
+  for (const { store, shapes, grid: own } of plan.stores) {
     for (const shapeName of shapes) {
       const shape = shapeParams(shapeName, plan.shapeOverrides[shapeName]);
       const add = (variant: Variant, settings: Settings) => {
         const id = cellId(store, shapeName, variant, settings);
         cells.push({ id, store, shape, variant, settings, graceMs: graceFor(variant, settings) });
       };
-      for (const n of plan.sizeOnly) add('size-only', { maxRecords: n, maxAgeMs: 0, idleMs: 0, concurrency: 1 });
+      // The bridge feeds a Spillway sink; a size-only batcher has no bridge to sit behind.
+      if (store.kind !== 'bridge') for (const n of plan.sizeOnly) add('size-only', { maxRecords: n, maxAgeMs: 0, idleMs: 0, concurrency: 1 });
       if (plan.perRecord) add('per-record', { maxRecords: 1, maxAgeMs: Math.min(...plan.maxAgeMs), ...defaults });
-      const grid = shapeName !== 'steady' && plan.sideGrid ? plan.sideGrid : plan;
+      const grid = own ?? (shapeName !== 'steady' && plan.sideGrid ? plan.sideGrid : plan);
       for (const concurrency of plan.concurrency) {
         for (const idleMs of plan.idleMs) {
           for (const maxAgeMs of grid.maxAgeMs) {

@@ -32,6 +32,7 @@ export interface OpenedStore {
 /** A short label such as `postgres/copy` or `sim(2ms)`. */
 export function storeLabel(s: StoreSpec): string {
   if (s.kind === 'sim') return `sim(${s.latencyMs ?? 2}ms)`;
+  if (s.kind === 'bridge') return `kafka→postgres/${s.mode ?? 'copy'}`;
   return s.mode ? `${s.kind}/${s.mode}` : s.kind;
 }
 

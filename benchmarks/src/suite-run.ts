@@ -44,8 +44,10 @@ export function parseStore(name: string, env: NodeJS.ProcessEnv = process.env): 
       return { kind: 'redis', url: redisUrl };
     case 'kafka':
       return { kind: 'kafka' };
+    case 'bridge':
+      return { kind: 'bridge', mode: mode ?? 'copy', url: pgUrl };
     default:
-      throw new TypeError(`Expected a store of noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka, got \`${name}\``);
+      throw new TypeError(`Expected a store of noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka, bridge[/<pg mode>], got \`${name}\``);
   }
 }
 
@@ -58,11 +60,16 @@ export function defaultPlan(env: NodeJS.ProcessEnv = process.env): Plan {
     ['postgres', ['steady', 'trickle', 'burst']],
     ['postgres/copy', ['steady']],
     ['postgres/upsert', ['steady']],
-    ['redis', ['steady', 'trickle']],
-    ['kafka', ['steady', 'trickle']],
+    // What a trickle does to a size-only batcher does not depend on the store: sim and postgres show it.
+    ['redis', ['steady']],
+    ['kafka', ['steady']],
   ];
   return {
-    stores: stores.map(([name, shapes]) => ({ store: parseStore(name, env), shapes })),
+    stores: [
+      ...stores.map(([name, shapes]) => ({ store: parseStore(name, env), shapes })),
+      // Each bridge cell joins a consumer group first (seconds): a small grid of its own.
+      { store: parseStore('bridge', env), shapes: ['steady'], grid: { maxRecords: [100, 1000], maxAgeMs: [10, 100] } },
+    ],
     maxRecords: [10, 100, 1000],
     maxAgeMs: [10, 100, 500],
     idleMs: [100],
@@ -71,7 +78,12 @@ export function defaultPlan(env: NodeJS.ProcessEnv = process.env): Plan {
     sizeOnly: [100, 1000],
     perRecord: true,
     repeats: 3,
-    shapeOverrides: { steady: { durationMs: 2000 }, burst: { durationMs: 2100 } },
+    shapeOverrides: {
+      steady: { durationMs: 2000 },
+      trickle: { durationMs: 3000 },
+      burst: { durationMs: 2100 },
+      gap: { durationMs: 3000, gapAtMs: 1000, gapMs: 1000 },
+    },
   };
 }
 
