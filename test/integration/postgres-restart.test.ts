@@ -41,18 +41,31 @@ describe.each(MODES)('%s mode across a server restart', (label, modeOptions) => 
     const N = 30_000;
     const table = `restart_${label}`;
     await admin.query(`CREATE TABLE ${table} (id int PRIMARY KEY, dock text NOT NULL, bikes int NOT NULL)`);
-    const adapter = postgresAdapter<DockStatus>({ pool, table, columns: ['id', 'dock', 'bikes'], map: (s) => [s.id, s.dock, s.bikes], ...modeOptions });
+    const adapter = postgresAdapter<DockStatus>({
+      pool,
+      table,
+      columns: ['id', 'dock', 'bikes'],
+      map: (s) => [s.id, s.dock, s.bikes],
+      ...modeOptions,
+    });
     const sink = new Sink(adapter, {
       maxRecords: 500,
       maxAgeMs: 50,
       concurrency: 2,
-      retry: { maxAttempts: Number.POSITIVE_INFINITY, baseDelayMs: 50, maxDelayMs: 500, maxElapsedMs: 60_000 },
+      retry: {
+        maxAttempts: Number.POSITIVE_INFINITY,
+        baseDelayMs: 50,
+        maxDelayMs: 500,
+        maxElapsedMs: 60_000,
+      },
     });
     const retries: string[] = [];
     sink.on('retry', (e) => retries.push((e.error as Error).message));
 
     let durable = 0;
-    sink.on('written', (e) => void (durable += e.records));
+    sink.on('written', (e) => {
+      durable += e.records;
+    });
 
     let restarted: Promise<void> | undefined;
     for (let i = 1; i <= N; i++) {
@@ -75,7 +88,12 @@ describe.each(MODES)('%s mode across a server restart', (label, modeOptions) => 
     expect(snap.retries).toBeGreaterThan(0);
     const { rows } = await waitFor(
       'the server to answer',
-      () => admin.query<{ n: string; d: string; s: string }>(`SELECT count(*) AS n, count(DISTINCT id) AS d, sum(id) AS s FROM ${table}`).catch(() => undefined),
+      () =>
+        admin
+          .query<{ n: string; d: string; s: string }>(
+            `SELECT count(*) AS n, count(DISTINCT id) AS d, sum(id) AS s FROM ${table}`,
+          )
+          .catch(() => undefined),
       { timeoutMs: 10_000, intervalMs: 100 },
     );
     expect(rows[0]).toEqual({ n: String(N), d: String(N), s: String((N * (N + 1)) / 2) });

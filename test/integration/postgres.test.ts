@@ -3,11 +3,24 @@
 // identifiers, real server errors classified, and the size estimator against bytes on the wire.
 import { createHash } from 'node:crypto';
 import type { Socket } from 'node:net';
-import { type DeadLetter, type DeadLetterTarget, Sink, SinkFailedError, StoreError, driverCodeOf } from '@spillway/core';
-import { MAX_PARAMETERS, type PostgresMode, classifyPostgresError, postgresAdapter, postgresSink } from '@spillway/postgres';
+import {
+  type DeadLetter,
+  type DeadLetterTarget,
+  driverCodeOf,
+  Sink,
+  SinkFailedError,
+  StoreError,
+} from '@spillway/core';
+import {
+  classifyPostgresError,
+  MAX_PARAMETERS,
+  type PostgresMode,
+  postgresAdapter,
+  postgresSink,
+} from '@spillway/postgres';
 import pg from 'pg';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { type TestSchema, services, withSchema } from '../harness/index.js';
+import { services, type TestSchema, withSchema } from '../harness/index.js';
 
 /** A Tandem Bikes dock status row. */
 interface DockStatus {
@@ -55,7 +68,8 @@ function collectingDeadLetter<T>(): DeadLetterTarget<T> & { letters: DeadLetter<
   };
 }
 
-const modeOptions = (mode: PostgresMode) => (mode === 'upsert' ? { mode, conflict: { key: ['id'] } } : { mode });
+const modeOptions = (mode: PostgresMode) =>
+  mode === 'upsert' ? { mode, conflict: { key: ['id'] } } : { mode };
 const MODES: PostgresMode[] = ['insert', 'copy', 'upsert'];
 
 let schema: TestSchema;
@@ -85,9 +99,23 @@ describe('each mode writes 100,000 rows that land exactly', () => {
     ['upsert', { upsertViaCopyAbove: 1_000_000, insertForm: 'unnest', columns: typedColumns }],
     ['upsert', { upsertViaCopyAbove: 0 }],
   ] as const)('%s mode %j: count and checksum match what was written', async (mode, extra) => {
-    const table = `bulk_${mode}_${Object.entries(extra).filter(([k]) => k !== 'columns').map(([, v]) => v).join('') || 'default'}`.toLowerCase().replace(/[^a-z0-9_]/g, '');
+    const table = `bulk_${mode}_${
+      Object.entries(extra)
+        .filter(([k]) => k !== 'columns')
+        .map(([, v]) => v)
+        .join('') || 'default'
+    }`
+      .toLowerCase()
+      .replace(/[^a-z0-9_]/g, '');
     await createStatusTable(table);
-    const adapter = postgresAdapter<DockStatus>({ pool: schema.pool, table, columns, map, ...modeOptions(mode), ...extra });
+    const adapter = postgresAdapter<DockStatus>({
+      pool: schema.pool,
+      table,
+      columns,
+      map,
+      ...modeOptions(mode),
+      ...extra,
+    });
     const sink = new Sink(adapter, { maxRecords: 1000 });
     for (const r of records) await sink.write(r);
     await sink.close();
@@ -110,7 +138,10 @@ describe('the 65,535-parameter limit of one statement', () => {
     // Int16, so 65,536 wraps to 0 and the server sees a mismatch.
     const placeholders = Array.from({ length: MAX_PARAMETERS + 1 }, (_, i) => `($${i + 1}::int)`).join(',');
     const error = await schema.pool
-      .query(`SELECT count(*) FROM (VALUES ${placeholders}) v(x)`, Array.from({ length: MAX_PARAMETERS + 1 }, (_, i) => i))
+      .query(
+        `SELECT count(*) FROM (VALUES ${placeholders}) v(x)`,
+        Array.from({ length: MAX_PARAMETERS + 1 }, (_, i) => i),
+      )
       .then(
         () => undefined,
         (e: unknown) => e,
@@ -120,29 +151,40 @@ describe('the 65,535-parameter limit of one statement', () => {
     expect(classifyPostgresError(error)).toBe('fatal');
   });
 
-  it.each(['insert', 'upsert'] as const)('%s mode splits a batch of rows × columns > 65,535 into statements that land whole', async (mode) => {
-    const table = `wide_${mode}`;
-    await schema.pool.query(`CREATE TABLE ${table} (${wideColumns.map((c) => `${c} int`).join(', ')}, PRIMARY KEY (c0))`);
-    const adapter = postgresAdapter<number>({
-      pool: schema.pool,
-      table,
-      columns: wideColumns,
-      map: (i) => wideColumns.map((_, c) => i * WIDTH + c),
-      ...(mode === 'upsert' ? { mode, conflict: { key: ['c0'] }, upsertViaCopyAbove: Number.POSITIVE_INFINITY } : { mode }),
-    });
-    const sink = new Sink(adapter, { maxRecords: ROWS, maxBytes: 64 << 20 });
-    for (let i = 0; i < ROWS; i++) await sink.write(i);
-    await sink.close();
+  it.each(['insert', 'upsert'] as const)(
+    '%s mode splits a batch of rows × columns > 65,535 into statements that land whole',
+    async (mode) => {
+      const table = `wide_${mode}`;
+      await schema.pool.query(
+        `CREATE TABLE ${table} (${wideColumns.map((c) => `${c} int`).join(', ')}, PRIMARY KEY (c0))`,
+      );
+      const adapter = postgresAdapter<number>({
+        pool: schema.pool,
+        table,
+        columns: wideColumns,
+        map: (i) => wideColumns.map((_, c) => i * WIDTH + c),
+        ...(mode === 'upsert'
+          ? { mode, conflict: { key: ['c0'] }, upsertViaCopyAbove: Number.POSITIVE_INFINITY }
+          : { mode }),
+      });
+      const sink = new Sink(adapter, { maxRecords: ROWS, maxBytes: 64 << 20 });
+      for (let i = 0; i < ROWS; i++) await sink.write(i);
+      await sink.close();
 
-    const stats = adapter.stats();
-    expect(stats.writes).toBe(1); // one batch, no retry, no split
-    expect(stats.maxParameters).toBeLessThanOrEqual(MAX_PARAMETERS);
-    expect(stats.dataStatements).toBe(Math.ceil((ROWS * WIDTH) / (Math.floor(MAX_PARAMETERS / WIDTH) * WIDTH))); // 2
-    const { rows } = await schema.pool.query<{ n: string; s: string }>(`SELECT count(*) AS n, sum(${wideColumns.join(' + ')}::bigint) AS s FROM ${table}`);
-    const cells = ROWS * WIDTH;
-    expect(Number(rows[0]!.n)).toBe(ROWS);
-    expect(Number(rows[0]!.s)).toBe((cells * (cells - 1)) / 2); // every cell value 0 … cells-1 exactly once
-  });
+      const stats = adapter.stats();
+      expect(stats.writes).toBe(1); // one batch, no retry, no split
+      expect(stats.maxParameters).toBeLessThanOrEqual(MAX_PARAMETERS);
+      expect(stats.dataStatements).toBe(
+        Math.ceil((ROWS * WIDTH) / (Math.floor(MAX_PARAMETERS / WIDTH) * WIDTH)),
+      ); // 2
+      const { rows } = await schema.pool.query<{ n: string; s: string }>(
+        `SELECT count(*) AS n, sum(${wideColumns.join(' + ')}::bigint) AS s FROM ${table}`,
+      );
+      const cells = ROWS * WIDTH;
+      expect(Number(rows[0]!.n)).toBe(ROWS);
+      expect(Number(rows[0]!.s)).toBe((cells * (cells - 1)) / 2); // every cell value 0 … cells-1 exactly once
+    },
+  );
 
   it('insertForm unnest binds one array per column, so the same batch is one statement of 10 parameters', async () => {
     await schema.pool.query(`CREATE TABLE wide_unnest (${wideColumns.map((c) => `${c} int`).join(', ')})`);
@@ -157,7 +199,9 @@ describe('the 65,535-parameter limit of one statement', () => {
     for (let i = 0; i < ROWS; i++) await sink.write(i);
     await sink.close();
     expect(adapter.stats()).toMatchObject({ writes: 1, dataStatements: 1, maxParameters: WIDTH, rows: ROWS });
-    const { rows } = await schema.pool.query<{ n: string; s: string }>(`SELECT count(*) AS n, sum(${wideColumns.join(' + ')}::bigint) AS s FROM wide_unnest`);
+    const { rows } = await schema.pool.query<{ n: string; s: string }>(
+      `SELECT count(*) AS n, sum(${wideColumns.join(' + ')}::bigint) AS s FROM wide_unnest`,
+    );
     const cells = ROWS * WIDTH;
     expect([Number(rows[0]!.n), Number(rows[0]!.s)]).toEqual([ROWS, (cells * (cells - 1)) / 2]);
   });
@@ -168,66 +212,101 @@ describe('poison rows', () => {
   const K = 5;
   const poison = new Set([17, 4_321, 9_999, 15_000, 19_998]);
 
-  it.each([...MODES, 'insert-unnest'] as const)('%s mode: 5 rows that violate a CHECK among 20,000 are dead-lettered with 23514 and the constraint; the rest land', async (variant) => {
-    const mode = variant === 'insert-unnest' ? 'insert' : variant;
-    const unnest = variant === 'insert-unnest' ? { insertForm: 'unnest' as const, columns: typedColumns } : {};
-    const table = `poison_${variant.replace('-', '_')}`;
-    await createStatusTable(table, ', CONSTRAINT bikes_nonnegative CHECK (bikes >= 0)');
-    const records = Array.from({ length: N }, (_, i) => ({ ...status(i + 1), bikes: poison.has(i + 1) ? -1 : (i + 1) % 23 }));
-    const deadLetter = collectingDeadLetter<DockStatus>();
-    const adapter = postgresAdapter<DockStatus>({ pool: schema.pool, table, columns, map, ...modeOptions(mode), upsertViaCopyAbove: mode === 'upsert' ? 1000 : undefined, ...unnest });
-    const sink = new Sink(adapter, { maxRecords: N, maxBytes: 64 << 20, deadLetter });
-    for (const r of records) await sink.write(r);
-    await sink.close();
+  it.each([...MODES, 'insert-unnest'] as const)(
+    '%s mode: 5 rows that violate a CHECK among 20,000 are dead-lettered with 23514 and the constraint; the rest land',
+    async (variant) => {
+      const mode = variant === 'insert-unnest' ? 'insert' : variant;
+      const unnest =
+        variant === 'insert-unnest' ? { insertForm: 'unnest' as const, columns: typedColumns } : {};
+      const table = `poison_${variant.replace('-', '_')}`;
+      await createStatusTable(table, ', CONSTRAINT bikes_nonnegative CHECK (bikes >= 0)');
+      const records = Array.from({ length: N }, (_, i) => ({
+        ...status(i + 1),
+        bikes: poison.has(i + 1) ? -1 : (i + 1) % 23,
+      }));
+      const deadLetter = collectingDeadLetter<DockStatus>();
+      const adapter = postgresAdapter<DockStatus>({
+        pool: schema.pool,
+        table,
+        columns,
+        map,
+        ...modeOptions(mode),
+        upsertViaCopyAbove: mode === 'upsert' ? 1000 : undefined,
+        ...unnest,
+      });
+      const sink = new Sink(adapter, { maxRecords: N, maxBytes: 64 << 20, deadLetter });
+      for (const r of records) await sink.write(r);
+      await sink.close();
 
-    const { rows } = await schema.pool.query<{ n: string }>(`SELECT count(*) AS n FROM ${table}`);
-    expect(Number(rows[0]!.n)).toBe(N - K);
-    expect(deadLetter.letters.map((l) => l.record.id).sort((a, b) => a - b)).toEqual([...poison].sort((a, b) => a - b));
-    for (const letter of deadLetter.letters) {
-      expect(letter.reason).toBe('rejected');
-      expect(letter.error).toBeInstanceOf(StoreError);
-      // Source: PostgreSQL documentation, Appendix A: 23514 is check_violation.
-      expect(driverCodeOf(letter.error)).toBe('23514');
-      expect((letter.error as StoreError).details.constraint).toBe('bikes_nonnegative');
-      expect(((letter.error as StoreError).cause as { code?: string }).code).toBe('23514');
-    }
-    // Bisection: each poison row costs about two writes per halving, never one write per row.
-    const writes = adapter.stats().writes;
-    const bound = 1 + 2 * K * Math.ceil(Math.log2(N));
-    console.log(`[postgres] poison ${variant}: ${writes} writes for ${K} bad rows in ${N} (bound ${bound})`);
-    expect(writes).toBeLessThanOrEqual(bound);
-  });
+      const { rows } = await schema.pool.query<{ n: string }>(`SELECT count(*) AS n FROM ${table}`);
+      expect(Number(rows[0]!.n)).toBe(N - K);
+      expect(deadLetter.letters.map((l) => l.record.id).sort((a, b) => a - b)).toEqual(
+        [...poison].sort((a, b) => a - b),
+      );
+      for (const letter of deadLetter.letters) {
+        expect(letter.reason).toBe('rejected');
+        expect(letter.error).toBeInstanceOf(StoreError);
+        // Source: PostgreSQL documentation, Appendix A: 23514 is check_violation.
+        expect(driverCodeOf(letter.error)).toBe('23514');
+        expect((letter.error as StoreError).details.constraint).toBe('bikes_nonnegative');
+        expect(((letter.error as StoreError).cause as { code?: string }).code).toBe('23514');
+      }
+      // Bisection: each poison row costs about two writes per halving, never one write per row.
+      const writes = adapter.stats().writes;
+      const bound = 1 + 2 * K * Math.ceil(Math.log2(N));
+      console.log(
+        `[postgres] poison ${variant}: ${writes} writes for ${K} bad rows in ${N} (bound ${bound})`,
+      );
+      expect(writes).toBeLessThanOrEqual(bound);
+    },
+  );
 });
 
 describe('a missing table', () => {
-  it.each(MODES)('%s mode: the sink fails with an error naming the table, and nothing is reported durable', async (mode) => {
-    const deadLetter = collectingDeadLetter<DockStatus>();
-    const sink = postgresSink<DockStatus>({ pool: schema.pool, schema: schema.schema, table: 'no_such_dock_table', columns, map, ...modeOptions(mode), deadLetter });
-    let durable = 0;
-    sink.on('settled', (e) => {
-      if (e.outcome === 'durable') durable += e.metas.length;
-    });
-    for (let i = 1; i <= 50; i++) await sink.write(status(i));
-    const error = await sink.flush().then(
-      () => undefined,
-      (e: unknown) => e,
-    );
-    expect(error).toBeInstanceOf(SinkFailedError);
-    expect(sink.state).toBe('failed');
-    const cause = (error as SinkFailedError).cause as StoreError;
-    expect(cause).toBeInstanceOf(StoreError);
-    expect(cause.driverCode).toBe('42P01');
-    expect(cause.message).toContain(`"${schema.schema}"."no_such_dock_table"`);
-    expect((cause.cause as { code?: string }).code).toBe('42P01');
-    expect(durable).toBe(0);
-    expect(sink.snapshot().written).toBe(0);
-    expect(deadLetter.letters).toHaveLength(0);
-    await expect(sink.write(status(51))).rejects.toBeInstanceOf(SinkFailedError);
-  });
+  it.each(MODES)(
+    '%s mode: the sink fails with an error naming the table, and nothing is reported durable',
+    async (mode) => {
+      const deadLetter = collectingDeadLetter<DockStatus>();
+      const sink = postgresSink<DockStatus>({
+        pool: schema.pool,
+        schema: schema.schema,
+        table: 'no_such_dock_table',
+        columns,
+        map,
+        ...modeOptions(mode),
+        deadLetter,
+      });
+      let durable = 0;
+      sink.on('settled', (e) => {
+        if (e.outcome === 'durable') durable += e.metas.length;
+      });
+      for (let i = 1; i <= 50; i++) await sink.write(status(i));
+      const error = await sink.flush().then(
+        () => undefined,
+        (e: unknown) => e,
+      );
+      expect(error).toBeInstanceOf(SinkFailedError);
+      expect(sink.state).toBe('failed');
+      const cause = (error as SinkFailedError).cause as StoreError;
+      expect(cause).toBeInstanceOf(StoreError);
+      expect(cause.driverCode).toBe('42P01');
+      expect(cause.message).toContain(`"${schema.schema}"."no_such_dock_table"`);
+      expect((cause.cause as { code?: string }).code).toBe('42P01');
+      expect(durable).toBe(0);
+      expect(sink.snapshot().written).toBe(0);
+      expect(deadLetter.letters).toHaveLength(0);
+      await expect(sink.write(status(51))).rejects.toBeInstanceOf(SinkFailedError);
+    },
+  );
 
   it('a missing column is fatal too, and names the column', async () => {
     await createStatusTable('no_column');
-    const sink = postgresSink<DockStatus>({ pool: schema.pool, table: 'no_column', columns: ['id', 'dock', 'bikes', 'remark'], map });
+    const sink = postgresSink<DockStatus>({
+      pool: schema.pool,
+      table: 'no_column',
+      columns: ['id', 'dock', 'bikes', 'remark'],
+      map,
+    });
     await sink.write(status(1));
     const error = (await sink.flush().catch((e: unknown) => e)) as SinkFailedError;
     expect(driverCodeOf(error)).toBe('42703');
@@ -242,63 +321,85 @@ describe('upsert', () => {
   it.each([
     ['values', 1_000_000],
     ['staging table', 0],
-  ] as const)('replaying the same 100,000 records through %s leaves the table unchanged; changed records update it', async (_path, upsertViaCopyAbove) => {
-    const table = `replay_${upsertViaCopyAbove === 0 ? 'stage' : 'values'}`;
-    await createStatusTable(table);
-    const write = async (rows: readonly DockStatus[]) => {
-      const sink = postgresSink<DockStatus>({ pool: schema.pool, table, columns, map, mode: 'upsert', conflict: { key: ['id'] }, upsertViaCopyAbove, maxRecords: 2000 });
-      for (const r of rows) await sink.write(r);
+  ] as const)(
+    'replaying the same 100,000 records through %s leaves the table unchanged; changed records update it',
+    async (_path, upsertViaCopyAbove) => {
+      const table = `replay_${upsertViaCopyAbove === 0 ? 'stage' : 'values'}`;
+      await createStatusTable(table);
+      const write = async (rows: readonly DockStatus[]) => {
+        const sink = postgresSink<DockStatus>({
+          pool: schema.pool,
+          table,
+          columns,
+          map,
+          mode: 'upsert',
+          conflict: { key: ['id'] },
+          upsertViaCopyAbove,
+          maxRecords: 2000,
+        });
+        for (const r of rows) await sink.write(r);
+        await sink.close();
+        expect(sink.snapshot().written).toBe(rows.length);
+      };
+      await write(records);
+      const first = await tableChecksum(schema.pool, table);
+      expect(first).toEqual({ count: N, md5: expectedChecksum(records) });
+
+      await write(records);
+      expect(await tableChecksum(schema.pool, table)).toEqual(first);
+
+      // The replay was not a no-op by accident: changed values do replace the stored ones.
+      const changed = records.map((r) => ({ ...r, bikes: r.bikes + 100 }));
+      await write(changed);
+      expect(await tableChecksum(schema.pool, table)).toEqual({ count: N, md5: expectedChecksum(changed) });
+    },
+  );
+
+  it.each([1_000_000, 0])(
+    'applies several records of one key in one batch in order, as writing them one by one would (upsertViaCopyAbove %s)',
+    async (upsertViaCopyAbove) => {
+      const table = `same_key_${upsertViaCopyAbove === 0 ? 'stage' : 'values'}`;
+      await createStatusTable(table);
+      const adapter = postgresAdapter<DockStatus>({
+        pool: schema.pool,
+        table,
+        columns,
+        map,
+        mode: 'upsert',
+        conflict: { key: ['id'], update: ['bikes'] },
+        upsertViaCopyAbove,
+      });
+      const sink = new Sink(adapter, { maxRecords: 100 });
+      // id 1 three times: inserted with the first note, then only `bikes` updated twice.
+      for (const r of [
+        { id: 1, dock: 'dock-A', bikes: 1, note: 'first' },
+        { id: 2, dock: 'dock-B', bikes: 5, note: null },
+        { id: 1, dock: 'dock-X', bikes: 2, note: 'second' },
+        { id: 1, dock: 'dock-Y', bikes: 3, note: 'third' },
+      ]) {
+        await sink.write(r);
+      }
       await sink.close();
-      expect(sink.snapshot().written).toBe(rows.length);
-    };
-    await write(records);
-    const first = await tableChecksum(schema.pool, table);
-    expect(first).toEqual({ count: N, md5: expectedChecksum(records) });
-
-    await write(records);
-    expect(await tableChecksum(schema.pool, table)).toEqual(first);
-
-    // The replay was not a no-op by accident: changed values do replace the stored ones.
-    const changed = records.map((r) => ({ ...r, bikes: r.bikes + 100 }));
-    await write(changed);
-    expect(await tableChecksum(schema.pool, table)).toEqual({ count: N, md5: expectedChecksum(changed) });
-  });
-
-  it.each([1_000_000, 0])('applies several records of one key in one batch in order, as writing them one by one would (upsertViaCopyAbove %s)', async (upsertViaCopyAbove) => {
-    const table = `same_key_${upsertViaCopyAbove === 0 ? 'stage' : 'values'}`;
-    await createStatusTable(table);
-    const adapter = postgresAdapter<DockStatus>({
-      pool: schema.pool,
-      table,
-      columns,
-      map,
-      mode: 'upsert',
-      conflict: { key: ['id'], update: ['bikes'] },
-      upsertViaCopyAbove,
-    });
-    const sink = new Sink(adapter, { maxRecords: 100 });
-    // id 1 three times: inserted with the first note, then only `bikes` updated twice.
-    for (const r of [
-      { id: 1, dock: 'dock-A', bikes: 1, note: 'first' },
-      { id: 2, dock: 'dock-B', bikes: 5, note: null },
-      { id: 1, dock: 'dock-X', bikes: 2, note: 'second' },
-      { id: 1, dock: 'dock-Y', bikes: 3, note: 'third' },
-    ]) {
-      await sink.write(r);
-    }
-    await sink.close();
-    expect(adapter.stats().writes).toBe(1);
-    const { rows } = await schema.pool.query(`SELECT id, dock, bikes, note FROM ${table} ORDER BY id`);
-    expect(rows).toEqual([
-      { id: 1, dock: 'dock-A', bikes: 3, note: 'first' },
-      { id: 2, dock: 'dock-B', bikes: 5, note: null },
-    ]);
-  });
+      expect(adapter.stats().writes).toBe(1);
+      const { rows } = await schema.pool.query(`SELECT id, dock, bikes, note FROM ${table} ORDER BY id`);
+      expect(rows).toEqual([
+        { id: 1, dock: 'dock-A', bikes: 3, note: 'first' },
+        { id: 2, dock: 'dock-B', bikes: 5, note: null },
+      ]);
+    },
+  );
 
   it('with DO NOTHING keeps the rows that were there', async () => {
     await createStatusTable('keep_first');
     await schema.pool.query(`INSERT INTO keep_first VALUES (1, 'dock-old', 9, 'kept')`);
-    const sink = postgresSink<DockStatus>({ pool: schema.pool, table: 'keep_first', columns, map, mode: 'upsert', conflict: { key: ['id'], action: 'nothing' } });
+    const sink = postgresSink<DockStatus>({
+      pool: schema.pool,
+      table: 'keep_first',
+      columns,
+      map,
+      mode: 'upsert',
+      conflict: { key: ['id'], action: 'nothing' },
+    });
     await sink.write({ id: 1, dock: 'dock-new', bikes: 0, note: 'dropped' });
     await sink.write({ id: 2, dock: 'dock-2', bikes: 2, note: null });
     await sink.close();
@@ -323,7 +424,14 @@ describe('hostile table and column names', () => {
     ['insert', { mode: 'insert' }],
     ['copy csv', { mode: 'copy', copyFormat: 'csv' }],
     ['copy text', { mode: 'copy', copyFormat: 'text' }],
-    ['upsert values', { mode: 'upsert', conflict: { key: ['bikes "count"; --'] }, upsertViaCopyAbove: Number.POSITIVE_INFINITY }],
+    [
+      'upsert values',
+      {
+        mode: 'upsert',
+        conflict: { key: ['bikes "count"; --'] },
+        upsertViaCopyAbove: Number.POSITIVE_INFINITY,
+      },
+    ],
     ['upsert staging', { mode: 'upsert', conflict: { key: ['bikes "count"; --'] }, upsertViaCopyAbove: 0 }],
   ] as const)('%s: are taken literally and cannot inject SQL', async (label, extra) => {
     const name = `${table} ${label}`;
@@ -341,7 +449,9 @@ describe('hostile table and column names', () => {
     });
     for (let i = 0; i < 300; i++) await sink.write(i);
     await sink.close();
-    const { rows } = await schema.pool.query(`SELECT count(*)::int AS n, sum(${pg.escapeIdentifier(hostileColumns[1]!)})::int AS s FROM ${pg.escapeIdentifier(name)}`);
+    const { rows } = await schema.pool.query(
+      `SELECT count(*)::int AS n, sum(${pg.escapeIdentifier(hostileColumns[1]!)})::int AS s FROM ${pg.escapeIdentifier(name)}`,
+    );
     expect(rows[0]).toEqual({ n: 300, s: (299 * 300) / 2 });
     const victim = await schema.pool.query('SELECT x FROM victim');
     expect(victim.rows).toEqual([{ x: 1 }]);
@@ -363,14 +473,28 @@ describe('errors from a real server are classified as the README says', () => {
     const cases: Array<[string, () => Promise<unknown>, string, string]> = [
       ['check', () => schema.pool.query(`INSERT INTO errors VALUES (1, 'd', -1, null)`), '23514', 'split'],
       ['not null', () => schema.pool.query(`INSERT INTO errors VALUES (2, null, 1, null)`), '23502', 'split'],
-      ['bad integer', () => schema.pool.query(`INSERT INTO errors VALUES ($1, 'd', 1, null)`, ['seven']), '22P02', 'split'],
-      ['NUL in text', () => schema.pool.query(`INSERT INTO errors VALUES (3, $1, 1, null)`, ['a\u0000b']), '22021', 'split'],
+      [
+        'bad integer',
+        () => schema.pool.query(`INSERT INTO errors VALUES ($1, 'd', 1, null)`, ['seven']),
+        '22P02',
+        'split',
+      ],
+      [
+        'NUL in text',
+        () => schema.pool.query(`INSERT INTO errors VALUES (3, $1, 1, null)`, ['a\u0000b']),
+        '22021',
+        'split',
+      ],
       ['missing table', () => schema.pool.query('SELECT * FROM no_such_table'), '42P01', 'fatal'],
       ['missing column', () => schema.pool.query('SELECT no_such_column FROM errors'), '42703', 'fatal'],
     ];
     for (const [label, query, code, cls] of cases) {
       const error = await errorOf(query());
-      expect({ label, code: driverCodeOf(error), cls: classifyPostgresError(error) }).toEqual({ label, code, cls });
+      expect({ label, code: driverCodeOf(error), cls: classifyPostgresError(error) }).toEqual({
+        label,
+        code,
+        cls,
+      });
     }
   });
 
@@ -383,9 +507,13 @@ describe('errors from a real server are classified as the README says', () => {
       c.on('error', () => undefined);
       return errorOf(c.connect());
     };
-    const noDb = await connectError((u) => void (u.pathname = '/no_such_database_spillway'));
+    const noDb = await connectError((u) => {
+      u.pathname = '/no_such_database_spillway';
+    });
     expect([driverCodeOf(noDb), classifyPostgresError(noDb)]).toEqual(['3D000', 'fatal']);
-    const noRole = await connectError((u) => void (u.username = 'no_such_role_spillway'));
+    const noRole = await connectError((u) => {
+      u.username = 'no_such_role_spillway';
+    });
     expect(driverCodeOf(noRole)?.slice(0, 2)).toBe('28');
     expect(classifyPostgresError(noRole)).toBe('fatal');
   });
@@ -463,33 +591,43 @@ describe('the size estimator', () => {
     ['insert', {}],
     ['copy', { copyFormat: 'csv' }],
     ['copy', { copyFormat: 'text' }],
-  ] as const)('%s %j: estimates add up to within 15 percent of the bytes the client wrote to its socket', async (mode, extra) => {
-    const table = `sized_${mode}_${Object.values(extra).join('')}`;
-    await createStatusTable(table);
-    const pool = new pg.Pool({ ...schema.clientConfig, max: 1 });
-    pool.on('error', () => undefined);
-    const sockets: Socket[] = [];
-    pool.on('connect', (client) => sockets.push((client as unknown as { connection: { stream: Socket } }).connection.stream));
-    const sent = () => sockets.reduce((n, s) => n + s.bytesWritten, 0);
-    try {
-      await pool.query('SELECT 1'); // the connection handshake is not part of a write
-      const adapter = postgresAdapter<DockStatus>({ pool, table, columns, map, mode, ...extra });
-      const sink = new Sink(adapter, { maxRecords: 1000 });
-      // Longer, non-ASCII notes, so that the estimate has to count UTF-8 bytes.
-      const records = Array.from({ length: 10_000 }, (_, i) => ({ ...status(i + 1), note: `Störung an Säule ${i} – 🚲 ${'x'.repeat(i % 50)}` }));
-      const before = sent();
-      let estimated = 0;
-      for (const r of records) {
-        estimated += adapter.estimateBytes(r);
-        await sink.write(r);
+  ] as const)(
+    '%s %j: estimates add up to within 15 percent of the bytes the client wrote to its socket',
+    async (mode, extra) => {
+      const table = `sized_${mode}_${Object.values(extra).join('')}`;
+      await createStatusTable(table);
+      const pool = new pg.Pool({ ...schema.clientConfig, max: 1 });
+      pool.on('error', () => undefined);
+      const sockets: Socket[] = [];
+      pool.on('connect', (client) =>
+        sockets.push((client as unknown as { connection: { stream: Socket } }).connection.stream),
+      );
+      const sent = () => sockets.reduce((n, s) => n + s.bytesWritten, 0);
+      try {
+        await pool.query('SELECT 1'); // the connection handshake is not part of a write
+        const adapter = postgresAdapter<DockStatus>({ pool, table, columns, map, mode, ...extra });
+        const sink = new Sink(adapter, { maxRecords: 1000 });
+        // Longer, non-ASCII notes, so that the estimate has to count UTF-8 bytes.
+        const records = Array.from({ length: 10_000 }, (_, i) => ({
+          ...status(i + 1),
+          note: `Störung an Säule ${i} – 🚲 ${'x'.repeat(i % 50)}`,
+        }));
+        const before = sent();
+        let estimated = 0;
+        for (const r of records) {
+          estimated += adapter.estimateBytes(r);
+          await sink.write(r);
+        }
+        await sink.close();
+        const actual = sent() - before;
+        console.log(
+          `[postgres] estimator ${mode} ${JSON.stringify(extra)}: estimated ${estimated} B, socket ${actual} B, ratio ${(estimated / actual).toFixed(3)}`,
+        );
+        expect(estimated / actual).toBeGreaterThan(0.85);
+        expect(estimated / actual).toBeLessThan(1.15);
+      } finally {
+        await pool.end();
       }
-      await sink.close();
-      const actual = sent() - before;
-      console.log(`[postgres] estimator ${mode} ${JSON.stringify(extra)}: estimated ${estimated} B, socket ${actual} B, ratio ${(estimated / actual).toFixed(3)}`);
-      expect(estimated / actual).toBeGreaterThan(0.85);
-      expect(estimated / actual).toBeLessThan(1.15);
-    } finally {
-      await pool.end();
-    }
-  });
+    },
+  );
 });

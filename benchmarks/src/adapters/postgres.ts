@@ -6,7 +6,8 @@
 // - per-row:  one autocommitted INSERT per row (the baseline batching must beat), measured once
 //             per repeat on a smaller row count.
 // Run: npx tsc --build && node benchmarks/dist/adapters/postgres.js [--rows 50000] [--repeats 5]
-//      [--sizes 100,1000,10000] [--per-row 3000] [--modes insert,copy,upsert]
+//      [--sizes 100,1000,10000] [--per-row 3000] [--modes insert,copy,upsert,unnest]
+//      (`unnest` is insert mode with insertForm 'unnest'; the raw side binds one JS array per column)
 //      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test); SPILLWAY_BENCH_ROWS /
 //      SPILLWAY_BENCH_REPEATS set the defaults of --rows / --repeats.
 // Nothing here asserts a time: it prints samples, medians, spreads and ratios.
@@ -34,18 +35,20 @@ const { values: flags } = parseArgs({
     repeats: { type: 'string', default: process.env.SPILLWAY_BENCH_REPEATS ?? '5' },
     sizes: { type: 'string', default: '100,1000,10000' },
     'per-row': { type: 'string', default: '3000' },
-    modes: { type: 'string', default: 'insert,copy,upsert' },
+    modes: { type: 'string', default: 'insert,copy,upsert,unnest' },
   },
 });
 const ROWS = Number(flags.rows);
 const REPEATS = Number(flags.repeats);
 const SIZES = String(flags.sizes).split(',').map(Number);
 const PER_ROW = Number(flags['per-row']);
-const MODES = String(flags.modes).split(',') as PostgresMode[];
+type Variant = PostgresMode | 'unnest';
+const MODES = String(flags.modes).split(',') as Variant[];
 const URL = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
 const SCHEMA = `spillway_bench_${randomBytes(4).toString('hex')}`;
 const TABLE = 'dock_status';
 const COLUMNS = ['id', 'dock', 'bikes', 'empty_slots', 'note'];
+const TYPES = ['int', 'text', 'int', 'int', 'text'];
 const MAX_PARAMS = 65_535;
 // The adapter's default: upsert batches above this many rows go through a staging table.
 const UPSERT_VIA_COPY_ABOVE = 1000;
@@ -62,7 +65,9 @@ const map = (r: DockStatus) => [r.id, r.dock, r.bikes, r.emptySlots, r.note];
 // ------------------------------------------------------------------ the raw driver, by hand
 
 const colList = `(${COLUMNS.join(', ')})`;
-const onConflict = ` ON CONFLICT (id) DO UPDATE SET ${COLUMNS.slice(1).map((c) => `${c} = EXCLUDED.${c}`).join(', ')}`;
+const onConflict = ` ON CONFLICT (id) DO UPDATE SET ${COLUMNS.slice(1)
+  .map((c) => `${c} = EXCLUDED.${c}`)
+  .join(', ')}`;
 const sqlCache = new Map<string, string>();
 function valuesSql(rows: number, conflict: boolean): string {
   const key = `${rows}:${conflict}`;
@@ -79,11 +84,16 @@ function valuesSql(rows: number, conflict: boolean): string {
 function csv(rows: readonly DockStatus[]): Buffer {
   let s = '';
   const q = (v: string) => (v.includes('"') ? `"${v.replace(/"/g, '""')}"` : `"${v}"`);
-  for (const r of rows) s += `"${r.id}",${q(r.dock)},"${r.bikes}","${r.emptySlots}",${r.note === null ? '' : q(r.note)}\n`;
+  for (const r of rows)
+    s += `"${r.id}",${q(r.dock)},"${r.bikes}","${r.emptySlots}",${r.note === null ? '' : q(r.note)}\n`;
   return Buffer.from(s, 'utf8');
 }
 
-async function rawInsert(client: pg.PoolClient, batch: readonly DockStatus[], conflict: boolean): Promise<void> {
+async function rawInsert(
+  client: pg.PoolClient,
+  batch: readonly DockStatus[],
+  conflict: boolean,
+): Promise<void> {
   const per = Math.floor(MAX_PARAMS / COLUMNS.length);
   const many = batch.length > per;
   if (many) await client.query('BEGIN');
@@ -97,19 +107,35 @@ async function rawInsert(client: pg.PoolClient, batch: readonly DockStatus[], co
 }
 
 async function rawCopy(client: pg.PoolClient, into: string, batch: readonly DockStatus[]): Promise<void> {
-  await pipeline(Readable.from([csv(batch)]), client.query(pgCopy.from(`COPY ${into} ${colList} FROM STDIN WITH (FORMAT csv)`)));
+  await pipeline(
+    Readable.from([csv(batch)]),
+    client.query(pgCopy.from(`COPY ${into} ${colList} FROM STDIN WITH (FORMAT csv)`)),
+  );
 }
 
 async function rawUpsert(client: pg.PoolClient, batch: readonly DockStatus[]): Promise<void> {
   if (batch.length <= UPSERT_VIA_COPY_ABOVE) return rawInsert(client, batch, true);
   await client.query('BEGIN');
-  await client.query(`CREATE TEMP TABLE stage ON COMMIT DROP AS SELECT ${COLUMNS.join(', ')} FROM ${TABLE} WITH NO DATA`);
+  await client.query(
+    `CREATE TEMP TABLE stage ON COMMIT DROP AS SELECT ${COLUMNS.join(', ')} FROM ${TABLE} WITH NO DATA`,
+  );
   await rawCopy(client, 'stage', batch);
   await client.query(`INSERT INTO ${TABLE} ${colList} SELECT ${COLUMNS.join(', ')} FROM stage${onConflict}`);
   await client.query('COMMIT');
 }
 
-async function raw(pool: pg.Pool, mode: PostgresMode, size: number): Promise<number> {
+const unnestSql = `INSERT INTO ${TABLE} ${colList} SELECT * FROM unnest(${TYPES.map((t, i) => `$${i + 1}::${t}[]`).join(', ')})`;
+async function rawUnnest(client: pg.PoolClient, batch: readonly DockStatus[]): Promise<void> {
+  await client.query(unnestSql, [
+    batch.map((r) => r.id),
+    batch.map((r) => r.dock),
+    batch.map((r) => r.bikes),
+    batch.map((r) => r.emptySlots),
+    batch.map((r) => r.note),
+  ]);
+}
+
+async function raw(pool: pg.Pool, mode: Variant, size: number): Promise<number> {
   const t0 = performance.now();
   for (let i = 0; i < records.length; i += size) {
     const batch = records.slice(i, i + size);
@@ -118,6 +144,7 @@ async function raw(pool: pg.Pool, mode: PostgresMode, size: number): Promise<num
     try {
       if (mode === 'insert') await rawInsert(client, batch, false);
       else if (mode === 'copy') await rawCopy(client, TABLE, batch);
+      else if (mode === 'unnest') await rawUnnest(client, batch);
       else await rawUpsert(client, batch);
     } finally {
       client.release();
@@ -128,13 +155,15 @@ async function raw(pool: pg.Pool, mode: PostgresMode, size: number): Promise<num
 
 // ------------------------------------------------------------------ Spillway
 
-async function viaSink(pool: pg.Pool, mode: PostgresMode, size: number): Promise<number> {
+async function viaSink(pool: pg.Pool, variant: Variant, size: number): Promise<number> {
+  const mode: PostgresMode = variant === 'unnest' ? 'insert' : variant;
   const adapter = postgresAdapter<DockStatus>({
     pool,
     table: TABLE,
-    columns: COLUMNS,
+    columns: variant === 'unnest' ? COLUMNS.map((name, i) => ({ name, type: TYPES[i]! })) : COLUMNS,
     map,
     mode,
+    ...(variant === 'unnest' ? { insertForm: 'unnest' as const } : {}),
     ...(mode === 'upsert' ? { conflict: { key: ['id'] }, upsertViaCopyAbove: UPSERT_VIA_COPY_ABOVE } : {}),
   });
   const sink = new Sink(adapter, { maxRecords: size, maxBytes: 1 << 30, maxAgeMs: 60_000, idleMs: 0 });
@@ -143,7 +172,8 @@ async function viaSink(pool: pg.Pool, mode: PostgresMode, size: number): Promise
   await sink.flush();
   const rate = records.length / ((performance.now() - t0) / 1000);
   await sink.close();
-  if (sink.snapshot().written !== records.length) throw new Error(`sink wrote ${sink.snapshot().written} of ${records.length}`);
+  if (sink.snapshot().written !== records.length)
+    throw new Error(`sink wrote ${sink.snapshot().written} of ${records.length}`);
   return rate;
 }
 
@@ -152,7 +182,8 @@ async function perRow(pool: pg.Pool): Promise<number> {
   const client = await pool.connect();
   try {
     const t0 = performance.now();
-    for (const r of records.slice(0, PER_ROW)) await client.query(sql, [r.id, r.dock, r.bikes, r.emptySlots, r.note]);
+    for (const r of records.slice(0, PER_ROW))
+      await client.query(sql, [r.id, r.dock, r.bikes, r.emptySlots, r.note]);
     return PER_ROW / ((performance.now() - t0) / 1000);
   } finally {
     client.release();
@@ -165,7 +196,12 @@ function summary(xs: number[]): { median: number; min: number; max: number; spre
   const s = [...xs].sort((a, b) => a - b);
   const mid = s.length >> 1;
   const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return { median, min: s[0]!, max: s[s.length - 1]!, spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100 };
+  return {
+    median,
+    min: s[0]!,
+    max: s[s.length - 1]!,
+    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
+  };
 }
 const fmt = (n: number) => Math.round(n).toLocaleString('en-US');
 
@@ -180,12 +216,23 @@ async function main(): Promise<void> {
     await setup.end();
     throw error;
   }
-  await setup.query(`CREATE TABLE ${SCHEMA}.${TABLE} (id int PRIMARY KEY, dock text NOT NULL, bikes int NOT NULL, empty_slots int NOT NULL, note text)`);
+  await setup.query(
+    `CREATE TABLE ${SCHEMA}.${TABLE} (id int PRIMARY KEY, dock text NOT NULL, bikes int NOT NULL, empty_slots int NOT NULL, note text)`,
+  );
   const pool = new pg.Pool({ connectionString: URL, max: 2, options: `-c search_path=${SCHEMA}` });
   pool.on('error', () => undefined);
   const truncate = () => setup.query(`TRUNCATE ${SCHEMA}.${TABLE}`);
   console.log(
-    JSON.stringify({ benchmark: 'postgres-adapter', machine: machineInfo({ postgresql: version }), rows: ROWS, repeats: REPEATS, sizes: SIZES, modes: MODES, perRow: PER_ROW, upsertViaCopyAbove: UPSERT_VIA_COPY_ABOVE }),
+    JSON.stringify({
+      benchmark: 'postgres-adapter',
+      machine: machineInfo({ postgresql: version }),
+      rows: ROWS,
+      repeats: REPEATS,
+      sizes: SIZES,
+      modes: MODES,
+      perRow: PER_ROW,
+      upsertViaCopyAbove: UPSERT_VIA_COPY_ABOVE,
+    }),
   );
   try {
     // Warm-up: JIT, connections, plan caches; not measured.
@@ -208,7 +255,10 @@ async function main(): Promise<void> {
           for (const side of order) {
             await truncate();
             const cpu0 = process.cpuUsage();
-            push(`${side}:${mode}@${size}`, side === 'raw' ? await raw(pool, mode, size) : await viaSink(pool, mode, size));
+            push(
+              `${side}:${mode}@${size}`,
+              side === 'raw' ? await raw(pool, mode, size) : await viaSink(pool, mode, size),
+            );
             const cpu = process.cpuUsage(cpu0);
             // Client CPU per row: less exposed to the shared machine's noise than wall time.
             push(`cpu:${side}:${mode}@${size}`, (cpu.user + cpu.system) / records.length);
@@ -219,14 +269,22 @@ async function main(): Promise<void> {
     }
 
     const one = summary(samples.get('per-row')!);
-    console.log(`\nrows/s (median of ${REPEATS}; ± = half the (max-min)/median spread; [a–b] = range of the sink/raw ratios of runs measured back to back)`);
-    console.log(`per-row INSERT: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)}, spread ${one.spreadPct.toFixed(0)}%)`);
-    console.log('mode   | batch  | raw driver           | sink                 | sink/raw [pairs]  | median pair | sink/per-row | client CPU µs/row raw → sink');
+    console.log(
+      `\nrows/s (median of ${REPEATS}; ± = half the (max-min)/median spread; [a–b] = range of the sink/raw ratios of runs measured back to back)`,
+    );
+    console.log(
+      `per-row INSERT: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)}, spread ${one.spreadPct.toFixed(0)}%)`,
+    );
+    console.log(
+      'mode   | batch  | raw driver           | sink                 | sink/raw [pairs]  | median pair | sink/per-row | client CPU µs/row raw → sink',
+    );
     for (const mode of MODES) {
       for (const size of SIZES) {
         const r = summary(samples.get(`raw:${mode}@${size}`)!);
         const s = summary(samples.get(`sink:${mode}@${size}`)!);
-        const pairs = samples.get(`sink:${mode}@${size}`)!.map((v, i) => v / samples.get(`raw:${mode}@${size}`)![i]!);
+        const pairs = samples
+          .get(`sink:${mode}@${size}`)!
+          .map((v, i) => v / samples.get(`raw:${mode}@${size}`)![i]!);
         const pr = summary(pairs);
         console.log(
           `${mode.padEnd(6)} | ${String(size).padEnd(6)} | ${`${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +

@@ -3,13 +3,13 @@ import { pipeline } from 'node:stream/promises';
 import {
   type Batch,
   type ErrorClass,
+  messageOf,
   type PartialWrite,
   Sink,
   type SinkAdapter,
   type SinkOptions,
   SpillwayError,
   StoreError,
-  messageOf,
 } from '@spillway/core';
 import type { PoolClient } from 'pg';
 import pgCopy from 'pg-copy-streams';
@@ -61,7 +61,11 @@ type Step =
   | { readonly kind: 'values'; readonly rows: number; readonly values: WireValue[] }
   | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[]; readonly values?: undefined }
   /** COPY: into the target (`copy` mode, with the data already encoded) or a staging table. */
-  | { readonly kind: 'stage'; readonly rows: number | readonly (readonly WireValue[])[]; readonly data?: CopyChunks };
+  | {
+      readonly kind: 'stage';
+      readonly rows: number | readonly (readonly WireValue[])[];
+      readonly data?: CopyChunks;
+    };
 
 const { from: copyFrom } = pgCopy;
 
@@ -127,6 +131,8 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     this.options.pool.off('error', this.onPoolError);
   }
 
+  // `void | PartialWrite` is the SinkAdapter contract's own return type.
+  // biome-ignore lint/suspicious/noConfusingVoidType: matches SinkAdapter.write
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
     this.counters.writes++;
     const rejected: Array<{ index: number; error: unknown }> = [];
@@ -179,17 +185,23 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
 
   private mapped(values: readonly unknown[]): readonly unknown[] {
     if (!Array.isArray(values) || values.length !== this.width) {
-      throw new TypeError(`map() returned ${Array.isArray(values) ? `${values.length} values` : typeof values}, expected ${this.width} values`);
+      throw new TypeError(
+        `map() returned ${Array.isArray(values) ? `${values.length} values` : typeof values}, expected ${this.width} values`,
+      );
     }
     return values;
   }
 
   private unmappable(error: unknown): SpillwayError {
     this.counters.unmappable++;
-    return new SpillwayError('SPILLWAY_RECORD_REJECTED', `A record for ${this.sql.target} could not be mapped to its columns: ${messageOf(error)}`, {
-      cause: error,
-      details: { table: this.options.table, schema: this.options.schema, mode: this.options.mode },
-    });
+    return new SpillwayError(
+      'SPILLWAY_RECORD_REJECTED',
+      `A record for ${this.sql.target} could not be mapped to its columns: ${messageOf(error)}`,
+      {
+        cause: error,
+        details: { table: this.options.table, schema: this.options.schema, mode: this.options.mode },
+      },
+    );
   }
 
   /** Cuts an upsert batch into the steps it is sent as. */
@@ -198,7 +210,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     // ON CONFLICT DO UPDATE refuses to touch one row twice in a statement (21000). Records of
     // one key are applied in rounds, in batch order, which is what writing them one by one would do.
     const rounds = conflict?.action === 'update' ? this.rounds(rows) : [rows];
-    return rounds.map((r): Step => (r.length > upsertViaCopyAbove ? { kind: 'stage', rows: r } : { kind: 'values', rows: r }));
+    return rounds.map(
+      (r): Step => (r.length > upsertViaCopyAbove ? { kind: 'stage', rows: r } : { kind: 'values', rows: r }),
+    );
   }
 
   private rounds(rows: WireValue[][]): WireValue[][][] {
@@ -206,10 +220,15 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const out: WireValue[][][] = [];
     const keys = this.keyIndexes;
     for (const row of rows) {
-      const k = keys.length === 1 ? keyPart(row[keys[0]!] as WireValue) : JSON.stringify(keys.map((i) => keyPart(row[i] as WireValue)));
+      const k =
+        keys.length === 1
+          ? keyPart(row[keys[0]!] as WireValue)
+          : JSON.stringify(keys.map((i) => keyPart(row[i] as WireValue)));
       const n = seen.get(k) ?? 0;
       seen.set(k, n + 1);
-      (out[n] ??= []).push(row);
+      const round = out[n];
+      if (round === undefined) out[n] = [row];
+      else round.push(row);
     }
     return out;
   }
@@ -218,7 +237,12 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     let n = 0;
     for (const s of steps) {
       const rows = typeof s.rows === 'number' ? s.rows : s.rows.length;
-      n += s.kind === 'values' ? Math.ceil(rows / this.options.rowsPerStatement) : this.options.mode === 'copy' ? 1 : 3;
+      n +=
+        s.kind === 'values'
+          ? Math.ceil(rows / this.options.rowsPerStatement)
+          : this.options.mode === 'copy'
+            ? 1
+            : 3;
     }
     return n;
   }
@@ -258,7 +282,8 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
           staged = true;
           step = 'copy';
           const data = new CopyChunks();
-          for (const row of s.rows as readonly (readonly WireValue[])[]) data.push(copyRow(row, this.options.copyFormat));
+          for (const row of s.rows as readonly (readonly WireValue[])[])
+            data.push(copyRow(row, this.options.copyFormat));
           await this.copy(client, this.sql.stage, data);
           step = 'merge';
           this.counters.dataStatements++;
@@ -303,7 +328,11 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const per = this.options.rowsPerStatement;
     for (let start = 0; start < rows; start += per) {
       const n = Math.min(per, rows - start);
-      await this.sendInsert(client, n, n === rows ? flat : flat.slice(start * this.width, (start + n) * this.width));
+      await this.sendInsert(
+        client,
+        n,
+        n === rows ? flat : flat.slice(start * this.width, (start + n) * this.width),
+      );
     }
   }
 
@@ -375,12 +404,14 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const driverMessage = messageOf(error);
     let message: string;
     if (sqlstate === '42P01') message = `Table ${target} does not exist (SQLSTATE 42P01): ${driverMessage}`;
-    else if (sqlstate === '42703') message = `A column of ${target} does not exist (SQLSTATE 42703): ${driverMessage}`;
+    else if (sqlstate === '42703')
+      message = `A column of ${target} does not exist (SQLSTATE 42703): ${driverMessage}`;
     else if (sqlstate !== undefined) {
       message = `PostgreSQL refused ${this.batchName} batch into ${target} (SQLSTATE ${sqlstate}${constraint ? `, constraint "${constraint}"` : ''}): ${driverMessage}`;
     } else if (isConnectionError(error)) {
       message = `Lost the connection to PostgreSQL during ${step} of ${this.batchName} batch into ${target}: ${driverMessage}`;
-    } else message = `${this.batchName[0]!.toUpperCase()}${this.batchName.slice(1)} batch into ${target} failed during ${step}: ${driverMessage}`;
+    } else
+      message = `${this.batchName[0]!.toUpperCase()}${this.batchName.slice(1)} batch into ${target} failed during ${step}: ${driverMessage}`;
     const errno = typeof e.code === 'string' ? e.code : undefined;
     return new StoreError(message, { cause: error, driverCode: sqlstate ?? errno, details });
   }

@@ -86,7 +86,12 @@ export function isConnectionError(error: unknown): boolean {
     if (CONNECTION_ERRNOS.has(code)) return true;
     if (SQLSTATE.test(code)) {
       // Class 08 and the shutdown codes end the session on the server's side.
-      return (code.startsWith('08') && code !== '08P01') || code === '57P01' || code === '57P02' || code === '57P03';
+      return (
+        (code.startsWith('08') && code !== '08P01') ||
+        code === '57P01' ||
+        code === '57P02' ||
+        code === '57P03'
+      );
     }
   }
   const message = (error as { message?: unknown }).message;
@@ -101,7 +106,9 @@ export function classifyPostgresError(error: unknown): ErrorClass {
   if (error instanceof SpillwayError) {
     if (error.code === 'SPILLWAY_RECORD_REJECTED') return 'split';
     if (error.cause !== undefined) return classifyPostgresError(error.cause);
-    return error.driverCode !== undefined && SQLSTATE.test(error.driverCode) ? classifySqlstate(error.driverCode) : 'fatal';
+    return error.driverCode !== undefined && SQLSTATE.test(error.driverCode)
+      ? classifySqlstate(error.driverCode)
+      : 'fatal';
   }
   const code = sqlstateOf(error);
   if (code !== undefined) return classifySqlstate(code);

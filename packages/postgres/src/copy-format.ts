@@ -94,7 +94,10 @@ export function copyRow(row: readonly WireValue[], format: CopyFormat): string {
 }
 
 /** COPY data for `rows`, as Buffers ready to stream; `bytes` is their total length. */
-export function encodeCopy(rows: readonly (readonly WireValue[])[], format: CopyFormat): { chunks: Buffer[]; bytes: number } {
+export function encodeCopy(
+  rows: readonly (readonly WireValue[])[],
+  format: CopyFormat,
+): { chunks: Buffer[]; bytes: number } {
   const data = new CopyChunks();
   for (const row of rows) data.push(copyRow(row, format));
   const chunks = data.finish();

@@ -11,5 +11,7 @@ export function quoteIdentifier(name: string): string {
 
 /** `"schema"."table"`, or `"table"` when no schema is given. */
 export function qualifiedName(table: string, schema: string | undefined): string {
-  return schema === undefined ? quoteIdentifier(table) : `${quoteIdentifier(schema)}.${quoteIdentifier(table)}`;
+  return schema === undefined
+    ? quoteIdentifier(table)
+    : `${quoteIdentifier(schema)}.${quoteIdentifier(table)}`;
 }

@@ -1,6 +1,13 @@
-export { PostgresAdapter, postgresAdapter, postgresSink } from './adapter.js';
 export type { PostgresAdapterStats, PostgresSinkOptions } from './adapter.js';
-export type { PostgresAdapterOptions, PostgresMode, CopyFormat, InsertForm, ColumnSpec, ConflictOptions } from './options.js';
-export { MAX_PARAMETERS, POSTGRES_DEFAULTS } from './options.js';
+export { PostgresAdapter, postgresAdapter, postgresSink } from './adapter.js';
 export { classifyPostgresError, classifySqlstate } from './classify.js';
 export { quoteIdentifier } from './identifiers.js';
+export type {
+  ColumnSpec,
+  ConflictOptions,
+  CopyFormat,
+  InsertForm,
+  PostgresAdapterOptions,
+  PostgresMode,
+} from './options.js';
+export { MAX_PARAMETERS, POSTGRES_DEFAULTS } from './options.js';

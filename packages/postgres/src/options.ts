@@ -182,13 +182,18 @@ const MAX_IDENTIFIER_BYTES = 63;
 
 // Type names go into DDL text: allow the shapes of real type names and nothing that could
 // close a parenthesis or start another clause.
-const TYPE_NAME = /^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)?( [A-Za-z_][A-Za-z0-9_]*)*(\(\s*\d+\s*(,\s*\d+\s*)?\))?( [A-Za-z_][A-Za-z0-9_]*)*(\[\d*\])*$/;
+const TYPE_NAME =
+  /^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)?( [A-Za-z_][A-Za-z0-9_]*)*(\(\s*\d+\s*(,\s*\d+\s*)?\))?( [A-Za-z_][A-Za-z0-9_]*)*(\[\d*\])*$/;
 
 function identifier(name: string, value: unknown): string {
   if (typeof value !== 'string' || value.length === 0) throw invalidOption(name, 'a non-empty string', value);
   if (value.includes('\0')) throw invalidOption(name, 'a name without NUL characters', value);
   if (Buffer.byteLength(value, 'utf8') > MAX_IDENTIFIER_BYTES) {
-    throw invalidOption(name, `a name of at most ${MAX_IDENTIFIER_BYTES} bytes (PostgreSQL truncates longer ones)`, value);
+    throw invalidOption(
+      name,
+      `a name of at most ${MAX_IDENTIFIER_BYTES} bytes (PostgreSQL truncates longer ones)`,
+      value,
+    );
   }
   return value;
 }
@@ -206,10 +211,18 @@ function nameList(name: string, value: unknown, columns: ReadonlySet<string>, al
   return [...seen];
 }
 
-function countOption(name: string, value: unknown, fallback: number, min: number, allowInfinity: boolean): number {
+function countOption(
+  name: string,
+  value: unknown,
+  fallback: number,
+  min: number,
+  allowInfinity: boolean,
+): number {
   if (value === undefined) return fallback;
   const ok =
-    typeof value === 'number' && value >= min && (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
+    typeof value === 'number' &&
+    value >= min &&
+    (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
   if (!ok) throw invalidOption(name, `an integer >= ${min}${allowInfinity ? ' (or Infinity)' : ''}`, value);
   return value;
 }
@@ -219,10 +232,16 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
   const o = options as unknown as Record<string, unknown>;
   for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+    if (!KNOWN.has(key))
+      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
   }
   const pool = o.pool as Pool | undefined;
-  if (typeof pool !== 'object' || pool === null || typeof pool.connect !== 'function' || typeof pool.on !== 'function') {
+  if (
+    typeof pool !== 'object' ||
+    pool === null ||
+    typeof pool.connect !== 'function' ||
+    typeof pool.on !== 'function'
+  ) {
     throw invalidOption('pool', 'a pg Pool (an object with connect() and on())', pool);
   }
   const table = identifier('table', o.table);
@@ -235,18 +254,24 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   const names = new Set<string>();
   for (const [i, c] of (o.columns as unknown[]).entries()) {
     const spec = typeof c === 'string' ? { name: c } : c;
-    if (typeof spec !== 'object' || spec === null) throw invalidOption(`columns[${i}]`, 'a column name or { name, type }', c);
+    if (typeof spec !== 'object' || spec === null)
+      throw invalidOption(`columns[${i}]`, 'a column name or { name, type }', c);
     const { name, type } = spec as { name?: unknown; type?: unknown };
     const n = identifier(`columns[${i}].name`, name);
     if (names.has(n)) throw invalidOption(`columns[${i}].name`, 'a column named once', n);
     if (type !== undefined && (typeof type !== 'string' || !TYPE_NAME.test(type))) {
-      throw invalidOption(`columns[${i}].type`, 'a SQL type name such as "int", "numeric(10,2)" or "text[]"', type);
+      throw invalidOption(
+        `columns[${i}].type`,
+        'a SQL type name such as "int", "numeric(10,2)" or "text[]"',
+        type,
+      );
     }
     names.add(n);
     columns.push(type === undefined ? { name: n } : { name: n, type: type as string });
   }
 
-  if (typeof o.map !== 'function') throw invalidOption('map', 'a function (record) => values in column order', o.map);
+  if (typeof o.map !== 'function')
+    throw invalidOption('map', 'a function (record) => values in column order', o.map);
 
   const mode = (o.mode ?? POSTGRES_DEFAULTS.mode) as PostgresMode;
   if (mode !== 'insert' && mode !== 'copy' && mode !== 'upsert') {
@@ -256,31 +281,59 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   let conflict: ResolvedPostgresOptions<T>['conflict'];
   if (mode === 'upsert') {
     const c = o.conflict as Record<string, unknown> | undefined;
-    if (typeof c !== 'object' || c === null) throw invalidOption('conflict', 'an object { key, action?, update? } in upsert mode', c);
+    if (typeof c !== 'object' || c === null)
+      throw invalidOption('conflict', 'an object { key, action?, update? } in upsert mode', c);
     const key = nameList('conflict.key', c.key, names, false);
     const action = (c.action ?? 'update') as 'update' | 'nothing';
-    if (action !== 'update' && action !== 'nothing') throw invalidOption('conflict.action', '"update" or "nothing"', c.action);
+    if (action !== 'update' && action !== 'nothing')
+      throw invalidOption('conflict.action', '"update" or "nothing"', c.action);
     const update =
-      c.update === undefined ? columns.map((x) => x.name).filter((n) => !key.includes(n)) : nameList('conflict.update', c.update, names, true);
+      c.update === undefined
+        ? columns.map((x) => x.name).filter((n) => !key.includes(n))
+        : nameList('conflict.update', c.update, names, true);
     for (const [i, u] of update.entries()) {
-      if (key.includes(u)) throw invalidOption(`conflict.update[${i}]`, 'a column that is not part of conflict.key', u);
+      if (key.includes(u))
+        throw invalidOption(`conflict.update[${i}]`, 'a column that is not part of conflict.key', u);
     }
-    if (action === 'nothing' && c.update !== undefined) throw invalidOption('conflict.update', 'undefined when action is "nothing"', c.update);
-    conflict = { key, action: update.length === 0 ? 'nothing' : action, update: action === 'nothing' ? [] : update };
+    if (action === 'nothing' && c.update !== undefined)
+      throw invalidOption('conflict.update', 'undefined when action is "nothing"', c.update);
+    conflict = {
+      key,
+      action: update.length === 0 ? 'nothing' : action,
+      update: action === 'nothing' ? [] : update,
+    };
   } else if (o.conflict !== undefined) {
     throw invalidOption('conflict', 'undefined unless mode is "upsert"', o.conflict);
   }
 
   const copyFormat = (o.copyFormat ?? POSTGRES_DEFAULTS.copyFormat) as CopyFormat;
-  if (copyFormat !== 'csv' && copyFormat !== 'text') throw invalidOption('copyFormat', '"csv" or "text"', o.copyFormat);
+  if (copyFormat !== 'csv' && copyFormat !== 'text')
+    throw invalidOption('copyFormat', '"csv" or "text"', o.copyFormat);
 
-  const upsertViaCopyAbove = countOption('upsertViaCopyAbove', o.upsertViaCopyAbove, POSTGRES_DEFAULTS.upsertViaCopyAbove, 0, true);
+  const upsertViaCopyAbove = countOption(
+    'upsertViaCopyAbove',
+    o.upsertViaCopyAbove,
+    POSTGRES_DEFAULTS.upsertViaCopyAbove,
+    0,
+    true,
+  );
   const insertForm = (o.insertForm ?? POSTGRES_DEFAULTS.insertForm) as InsertForm;
-  if (insertForm !== 'values' && insertForm !== 'unnest') throw invalidOption('insertForm', '"values" or "unnest"', o.insertForm);
+  if (insertForm !== 'values' && insertForm !== 'unnest')
+    throw invalidOption('insertForm', '"values" or "unnest"', o.insertForm);
   if (insertForm === 'unnest') {
     for (const [i, c] of columns.entries()) {
-      if (c.type === undefined) throw invalidOption(`columns[${i}].type`, 'a SQL type (insertForm "unnest" casts one array per column)', c.type);
-      if (c.type.endsWith(']')) throw invalidOption(`columns[${i}].type`, 'a non-array type (unnest flattens arrays; use insertForm "values")', c.type);
+      if (c.type === undefined)
+        throw invalidOption(
+          `columns[${i}].type`,
+          'a SQL type (insertForm "unnest" casts one array per column)',
+          c.type,
+        );
+      if (c.type.endsWith(']'))
+        throw invalidOption(
+          `columns[${i}].type`,
+          'a non-array type (unnest flattens arrays; use insertForm "values")',
+          c.type,
+        );
     }
   }
   const limit = Math.floor(MAX_PARAMETERS / columns.length);

@@ -86,8 +86,15 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
   const unnest = !viaCopy && o.insertForm === 'unnest';
   const format = unnest ? 'csv' : o.copyFormat;
   // Per value of a given text length: what the mode adds around it.
-  const fieldOverhead = viaCopy || unnest ? (format === 'csv' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
-  const nullBytes = unnest ? 5 : viaCopy ? (format === 'text' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
+  const fieldOverhead =
+    viaCopy || unnest ? (format === 'csv' ? 3 : 1) : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
+  const nullBytes = unnest
+    ? 5
+    : viaCopy
+      ? format === 'text'
+        ? 3
+        : 1
+      : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
   const numberOverhead = unnest ? 3 : viaCopy ? 1 : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
   const rowOverhead = viaCopy || unnest ? 0 : TUPLE_BYTES;
   return (record: T) => {
@@ -103,7 +110,9 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
         }
         if (typeof v === 'number' || typeof v === 'bigint') {
           // COPY writes numbers bare (no quotes in CSV either).
-          n += (typeof v === 'number' && Number.isSafeInteger(v) ? integerDigits(v) : String(v).length) + numberOverhead;
+          n +=
+            (typeof v === 'number' && Number.isSafeInteger(v) ? integerDigits(v) : String(v).length) +
+            numberOverhead;
           continue;
         }
         const b = valueBytes(v);
@@ -115,7 +124,12 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
         // to count them right.
         const w: WireValue = toWire(v);
         if (!viaCopy && !unnest) n += insertRowBytes([w]) - TUPLE_BYTES;
-        else n += 1 + (typeof w === 'string' ? Buffer.byteLength(format === 'csv' ? csvField(w) : textField(w), 'utf8') : copyRowBytes([w], format) - 1);
+        else
+          n +=
+            1 +
+            (typeof w === 'string'
+              ? Buffer.byteLength(format === 'csv' ? csvField(w) : textField(w), 'utf8')
+              : copyRowBytes([w], format) - 1);
       }
       return n;
     } catch {

@@ -42,7 +42,8 @@ export function columnArrayLiteral(flat: readonly WireValue[], offset: number, s
     if (i !== offset) out += ',';
     const w = flat[i] as WireValue;
     if (w === null) out += 'NULL';
-    else if (typeof w === 'string') out += ARRAY_SPECIAL.test(w) ? `"${w.replace(ARRAY_SPECIAL_ALL, '\\$&')}"` : `"${w}"`;
+    else if (typeof w === 'string')
+      out += ARRAY_SPECIAL.test(w) ? `"${w.replace(ARRAY_SPECIAL_ALL, '\\$&')}"` : `"${w}"`;
     else out += `"\\\\x${w.toString('hex')}"`;
   }
   return `${out}}`;

@@ -1,9 +1,10 @@
-import { StoreError, SpillwayError } from '@spillway/core';
+import { SpillwayError, StoreError } from '@spillway/core';
 import { describe, expect, it } from 'vitest';
 import { classifyPostgresError, classifySqlstate } from '../src/classify.js';
 
 /** A stand-in for pg's DatabaseError: what the classifier reads is `code` (the SQLSTATE). */
-const dbError = (code: string) => Object.assign(new Error(`server said ${code}`), { code, severity: 'ERROR' });
+const dbError = (code: string) =>
+  Object.assign(new Error(`server said ${code}`), { code, severity: 'ERROR' });
 
 describe('classifySqlstate', () => {
   // Source: PostgreSQL documentation, Appendix A "PostgreSQL Error Codes" (names of the codes);
@@ -62,7 +63,9 @@ describe('classifyPostgresError', () => {
 
   it("retries pg's uncoded messages for a dropped connection", () => {
     expect(classifyPostgresError(new Error('Connection terminated unexpectedly'))).toBe('retry');
-    expect(classifyPostgresError(new Error('Client has encountered a connection error and is not queryable'))).toBe('retry');
+    expect(
+      classifyPostgresError(new Error('Client has encountered a connection error and is not queryable')),
+    ).toBe('retry');
     expect(classifyPostgresError(new Error('timeout exceeded when trying to connect'))).toBe('retry');
   });
 

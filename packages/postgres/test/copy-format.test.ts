@@ -65,7 +65,12 @@ describe('toWire', () => {
   it('renders arrays as PostgreSQL array literals with quoted, escaped elements', () => {
     // Source: PostgreSQL documentation, Arrays, "Array Value Input".
     expect(toWire(['a', 'b "c"', null, 'back\\slash'])).toBe('{"a","b \\"c\\"",NULL,"back\\\\slash"}');
-    expect(toWire([[1, 2], [3, 4]])).toBe('{{"1","2"},{"3","4"}}');
+    expect(
+      toWire([
+        [1, 2],
+        [3, 4],
+      ]),
+    ).toBe('{{"1","2"},{"3","4"}}');
   });
 
   it('renders plain objects as JSON and bigints exactly', () => {
@@ -86,10 +91,13 @@ describe('quoteIdentifier', () => {
 describe('copyLine (the copy-mode hot path)', () => {
   const strings = ['tab\t', 'nl\n', 'cr\r', '\\N', '"q"', '', 'Zürich 🚲'];
 
-  it.each(['csv', 'text'] as const)('encodes strings and NULLs exactly as the general %s encoder does', (format) => {
-    const values = [...strings, null];
-    expect(copyLine(values, format)).toBe(copyRow(values.map(toWire), format));
-  });
+  it.each(['csv', 'text'] as const)(
+    'encodes strings and NULLs exactly as the general %s encoder does',
+    (format) => {
+      const values = [...strings, null];
+      expect(copyLine(values, format)).toBe(copyRow(values.map(toWire), format));
+    },
+  );
 
   it('writes numbers bare, which both formats read as the number', () => {
     expect(copyLine([1, -2.5, 10n, null, 'x'], 'csv')).toBe('1,-2.5,10,,"x"\n');
@@ -101,7 +109,9 @@ describe('columnArrayLiteral (the unnest insert form)', () => {
   // Source: PostgreSQL documentation, Arrays, "Array Value Input": double quotes and backslashes
   // inside a quoted element are backslash-escaped; an unquoted NULL is a null element.
   it('picks one column out of row-major values, quoting and escaping each element', () => {
-    const flat = ['a', '1', 'b "c"', null, 'NULL', '\\x', '', Buffer.from([255])].map((v) => (typeof v === 'string' || v === null ? v : v));
+    const flat = ['a', '1', 'b "c"', null, 'NULL', '\\x', '', Buffer.from([255])].map((v) =>
+      typeof v === 'string' || v === null ? v : v,
+    );
     expect(columnArrayLiteral(flat as never, 0, 2)).toBe('{"a","b \\"c\\"","NULL",""}');
     expect(columnArrayLiteral(flat as never, 1, 2)).toBe('{"1",NULL,"\\\\x","\\\\xff"}');
   });

@@ -21,10 +21,14 @@ const map = (r: Row) => r;
 const columns = ['a', 'b', 'c', 'd', 'e'];
 
 describe('the size estimator', () => {
-  it.each(['csv', 'text'] as const)('counts exactly the COPY %s bytes of rows without escaped characters', (copyFormat) => {
-    const adapter = postgresAdapter<Row>({ pool, table: 't', columns, map, mode: 'copy', copyFormat });
-    for (const r of rows) expect(adapter.estimateBytes(r)).toBe(Buffer.byteLength(copyLine(r, copyFormat), 'utf8'));
-  });
+  it.each(['csv', 'text'] as const)(
+    'counts exactly the COPY %s bytes of rows without escaped characters',
+    (copyFormat) => {
+      const adapter = postgresAdapter<Row>({ pool, table: 't', columns, map, mode: 'copy', copyFormat });
+      for (const r of rows)
+        expect(adapter.estimateBytes(r)).toBe(Buffer.byteLength(copyLine(r, copyFormat), 'utf8'));
+    },
+  );
 
   it('counts the parameter bytes and placeholder text of an INSERT row', () => {
     const adapter = postgresAdapter<Row>({ pool, table: 't', columns, map });
@@ -32,7 +36,14 @@ describe('the size estimator', () => {
   });
 
   it('gives an unmappable record a small fixed weight instead of throwing', () => {
-    const adapter = postgresAdapter<Row>({ pool, table: 't', columns, map: () => { throw new Error('bad'); } });
+    const adapter = postgresAdapter<Row>({
+      pool,
+      table: 't',
+      columns,
+      map: () => {
+        throw new Error('bad');
+      },
+    });
     expect(adapter.estimateBytes([])).toBe(64);
   });
 });
