@@ -6,9 +6,18 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import type { Producer } from 'kafkajs';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { type TestKafka, type TestSchema, services, sleep, uniqueName, waitFor, withKafka, withSchema } from '../harness/index.js';
+import {
+  services,
+  sleep,
+  type TestKafka,
+  type TestSchema,
+  uniqueName,
+  waitFor,
+  withKafka,
+  withSchema,
+} from '../harness/index.js';
 import { createDockTable, dockEvent, encodeEvent } from './workers/dock-rows.js';
-import { type Worker, messagesTaken, startWorker } from './workers/spawn.js';
+import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
 let kafka: TestKafka;
 let schema: TestSchema;
@@ -28,11 +37,18 @@ afterAll(async () => {
 });
 
 /** Sends dock events `from` … `to - 1`, event `seq` to partition `seq % partitions`. */
-async function produce(topic: string, partitions: number, from: number, to: number, chunk = 5000): Promise<void> {
+async function produce(
+  topic: string,
+  partitions: number,
+  from: number,
+  to: number,
+  chunk = 5000,
+): Promise<void> {
   for (let start = from; start < to; start += chunk) {
     const end = Math.min(to, start + chunk);
     const messages = [];
-    for (let seq = start; seq < end; seq++) messages.push({ partition: seq % partitions, value: encodeEvent(dockEvent(seq)) });
+    for (let seq = start; seq < end; seq++)
+      messages.push({ partition: seq % partitions, value: encodeEvent(dockEvent(seq)) });
     await producer.send({ topic, acks: -1, messages });
   }
 }
@@ -62,14 +78,29 @@ async function waitCommittedToEnd(groupId: string, topic: string, timeoutMs = 12
 }
 
 async function counts(table: string): Promise<{ rows: number; distinct: number; min: number; max: number }> {
-  const { rows } = await schema.pool.query<{ rows: string; distinct: string; min: string | null; max: string | null }>(
+  const { rows } = await schema.pool.query<{
+    rows: string;
+    distinct: string;
+    min: string | null;
+    max: string | null;
+  }>(
     `SELECT count(*) AS rows, count(DISTINCT seq) AS distinct, min(seq) AS min, max(seq) AS max FROM ${table}`,
   );
   const r = rows[0]!;
-  return { rows: Number(r.rows), distinct: Number(r.distinct), min: Number(r.min ?? -1), max: Number(r.max ?? -1) };
+  return {
+    rows: Number(r.rows),
+    distinct: Number(r.distinct),
+    min: Number(r.min ?? -1),
+    max: Number(r.max ?? -1),
+  };
 }
 
-function workerConfig(label: string, topic: string, groupId: string, tables: Array<{ table: string; mode: 'insert' | 'upsert' }>) {
+function workerConfig(
+  label: string,
+  topic: string,
+  groupId: string,
+  tables: Array<{ table: string; mode: 'insert' | 'upsert' }>,
+) {
   return {
     label,
     brokers: services().kafkaBrokers,
@@ -99,11 +130,18 @@ describe('consumer processes of the bridge', () => {
     const producing = produce(topic, PARTITIONS, 0, TOTAL);
     const first = startWorker(config);
     await first.waitFor('ready', (l) => l.event === 'ready');
-    await waitFor('the first worker to be mid-stream', () => (messagesTaken(first) >= TOTAL / 4 ? true : undefined), { timeoutMs: 120_000, intervalMs: 100 });
+    await waitFor(
+      'the first worker to be mid-stream',
+      () => (messagesTaken(first) >= TOTAL / 4 ? true : undefined),
+      { timeoutMs: 120_000, intervalMs: 100 },
+    );
     const atSignal = messagesTaken(first);
     const exit = await stopWorker(first, 'SIGTERM');
     const afterStop = await counts(table);
-    const committedAtStop = [...(await committed(groupId, topic)).values()].reduce((a, b) => a + Math.max(0, b), 0);
+    const committedAtStop = [...(await committed(groupId, topic)).values()].reduce(
+      (a, b) => a + Math.max(0, b),
+      0,
+    );
     await producing;
 
     const second = startWorker({ ...config, label: 'term2' });
@@ -142,7 +180,11 @@ describe('consumer processes of the bridge', () => {
     const producing = produce(topic, PARTITIONS, 0, TOTAL);
     const first = startWorker(config);
     await first.waitFor('ready', (l) => l.event === 'ready');
-    await waitFor('the first worker to be mid-stream', () => (messagesTaken(first) >= TOTAL / 3 ? true : undefined), { timeoutMs: 120_000, intervalMs: 100 });
+    await waitFor(
+      'the first worker to be mid-stream',
+      () => (messagesTaken(first) >= TOTAL / 3 ? true : undefined),
+      { timeoutMs: 120_000, intervalMs: 100 },
+    );
     const exit = await stopWorker(first, 'SIGKILL');
     // A statement the server had already received when the client died still commits: give it a
     // moment before reading what is durable but uncommitted.
@@ -197,7 +239,11 @@ describe('consumer processes of the bridge', () => {
     })();
     const owns = (ws: Worker[], sizes: number[]) => {
       const all = ws.flatMap((w) => w.assigned()).sort();
-      return all.length === PARTITIONS && new Set(all).size === PARTITIONS && ws.every((w, i) => w.assigned().length === sizes[i]) ? true : undefined;
+      return all.length === PARTITIONS &&
+        new Set(all).size === PARTITIONS &&
+        ws.every((w, i) => w.assigned().length === sizes[i])
+        ? true
+        : undefined;
     };
     const workers: Worker[] = [];
     try {
@@ -205,18 +251,34 @@ describe('consumer processes of the bridge', () => {
       workers.push(a);
       await a.waitFor('ready', (l) => l.event === 'ready');
       await waitFor('A to own all 6 partitions', () => owns([a], [6]), { timeoutMs: 60_000 });
-      await waitFor('A to take messages', () => (messagesTaken(a) > 4000 ? true : undefined), { timeoutMs: 60_000 });
+      await waitFor('A to take messages', () => (messagesTaken(a) > 4000 ? true : undefined), {
+        timeoutMs: 60_000,
+      });
 
       const b = startWorker(config('scale_b'));
       const c = startWorker(config('scale_c'));
       workers.push(b, c);
-      await waitFor('3 members with 2 partitions each', () => owns([a, b, c], [2, 2, 2]), { timeoutMs: 90_000, intervalMs: 100 });
-      await waitFor('B and C to take messages', () => (messagesTaken(b) > 1000 && messagesTaken(c) > 1000 ? true : undefined), { timeoutMs: 60_000 });
+      await waitFor('3 members with 2 partitions each', () => owns([a, b, c], [2, 2, 2]), {
+        timeoutMs: 90_000,
+        intervalMs: 100,
+      });
+      await waitFor(
+        'B and C to take messages',
+        () => (messagesTaken(b) > 1000 && messagesTaken(c) > 1000 ? true : undefined),
+        { timeoutMs: 60_000 },
+      );
 
       const cExit = await stopWorker(c, 'SIGTERM');
-      await waitFor('2 members with 3 partitions each', () => owns([a, b], [3, 3]), { timeoutMs: 90_000, intervalMs: 100 });
+      await waitFor('2 members with 3 partitions each', () => owns([a, b], [3, 3]), {
+        timeoutMs: 90_000,
+        intervalMs: 100,
+      });
       const bTaken = messagesTaken(b);
-      await waitFor('B to take more messages after the scale-in', () => (messagesTaken(b) > bTaken + 1000 ? true : undefined), { timeoutMs: 60_000 });
+      await waitFor(
+        'B to take more messages after the scale-in',
+        () => (messagesTaken(b) > bTaken + 1000 ? true : undefined),
+        { timeoutMs: 60_000 },
+      );
 
       producing = false;
       await producerLoop;
@@ -238,7 +300,8 @@ describe('consumer processes of the bridge', () => {
     } finally {
       producing = false;
       await producerLoop.catch(() => undefined);
-      for (const w of workers) if (w.child.exitCode === null && w.child.signalCode === null) w.child.kill('SIGKILL');
+      for (const w of workers)
+        if (w.child.exitCode === null && w.child.signalCode === null) w.child.kill('SIGKILL');
     }
   });
 });

@@ -3,24 +3,31 @@
 import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { type SinkAdapter, Sink, fileDeadLetter } from '@spillway/core';
+import { fileDeadLetter, Sink, type SinkAdapter } from '@spillway/core';
 import { KafkaBridge } from '@spillway/kafka';
 import type { Producer } from 'kafkajs';
 import pg from 'pg';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import {
+  sleep,
+  startPrivatePostgres,
   type TestKafka,
   type TestRedis,
   type TestSchema,
-  sleep,
-  startPrivatePostgres,
   uniqueName,
   waitFor,
   withKafka,
   withRedis,
   withSchema,
 } from '../harness/index.js';
-import { type DockRow, createDockTable, decodeDockEvent, dockEvent, encodeEvent, pgRowsAdapter } from './workers/dock-rows.js';
+import {
+  createDockTable,
+  type DockRow,
+  decodeDockEvent,
+  dockEvent,
+  encodeEvent,
+  pgRowsAdapter,
+} from './workers/dock-rows.js';
 
 let kafka: TestKafka;
 let schema: TestSchema;
@@ -41,18 +48,32 @@ afterAll(async () => {
 });
 
 // Short group timers: a join takes about a second instead of the 3-5 s defaults.
-const consumerConfig = { sessionTimeout: 10_000, rebalanceTimeout: 20_000, heartbeatInterval: 500, maxWaitTimeInMs: 100 };
+const consumerConfig = {
+  sessionTimeout: 10_000,
+  rebalanceTimeout: 20_000,
+  heartbeatInterval: 500,
+  maxWaitTimeInMs: 100,
+};
 
 async function committed(groupId: string, topic: string): Promise<Map<number, number>> {
   const [t] = await kafka.admin.fetchOffsets({ groupId, topics: [topic] });
   return new Map((t?.partitions ?? []).map((p) => [p.partition, Number(p.offset)]));
 }
 
-function readLines(path: string): Array<Record<string, any>> {
+/** A dead-letter line as the file target writes it (see core's `DeadLetterLine`). */
+interface LetterLine {
+  reason: string;
+  code?: string;
+  driverCode?: string;
+  meta: { topic: string; partition: number; offset: string };
+  record: { offset?: string; value?: { base64: string } };
+}
+
+function readLines(path: string): LetterLine[] {
   return readFileSync(path, 'utf8')
     .split('\n')
     .filter((l) => l.length > 0)
-    .map((l) => JSON.parse(l) as Record<string, any>);
+    .map((l) => JSON.parse(l) as LetterLine);
 }
 
 /** Live availability in Redis: one hash field per dock, written with a pipeline. */
@@ -90,7 +111,11 @@ describe('the consumer bridge', () => {
 
     const undecodablePath = join(dir, 'undecodable.ndjson');
     const rejectedPath = join(dir, 'rejected.ndjson');
-    const rows = new Sink<DockRow>(pgRowsAdapter(schema.pool, table, 'insert'), { name: 'dock-status', maxAgeMs: 100, deadLetter: fileDeadLetter(rejectedPath) });
+    const rows = new Sink<DockRow>(pgRowsAdapter(schema.pool, table, 'insert'), {
+      name: 'dock-status',
+      maxAgeMs: 100,
+      deadLetter: fileDeadLetter(rejectedPath),
+    });
     const live = new Sink<DockRow>(availabilityAdapter(hash), { name: 'availability', maxAgeMs: 100 });
     const bridge = new KafkaBridge<DockRow>({
       kafka: kafka.kafka,
@@ -106,15 +131,23 @@ describe('the consumer bridge', () => {
     await bridge.start();
     try {
       // The commit point passes every message, the poison ones included.
-      await waitFor('the commit point to pass all 20 messages', async () => ((await committed(groupId, topic)).get(0) === 20 ? true : undefined), {
-        timeoutMs: 60_000,
-      });
+      await waitFor(
+        'the commit point to pass all 20 messages',
+        async () => ((await committed(groupId, topic)).get(0) === 20 ? true : undefined),
+        {
+          timeoutMs: 60_000,
+        },
+      );
     } finally {
       await bridge.stop({ timeoutMs: 10_000 });
       await Promise.all([rows.close(), live.close()]);
     }
-    const stored = await schema.pool.query<{ seq: string; koffset: string }>(`SELECT seq, koffset FROM ${table} ORDER BY seq`);
-    expect(stored.rows.map((r) => Number(r.seq))).toEqual([0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 13, 14, 15, 16, 17, 18, 19]);
+    const stored = await schema.pool.query<{ seq: string; koffset: string }>(
+      `SELECT seq, koffset FROM ${table} ORDER BY seq`,
+    );
+    expect(stored.rows.map((r) => Number(r.seq))).toEqual([
+      0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 13, 14, 15, 16, 17, 18, 19,
+    ]);
     // The violating row reached Redis (it is valid there) and was dead-lettered by PostgreSQL alone.
     expect(await redis.redis.hget(hash, dockEvent(12).dock)).toBe('-1');
 
@@ -125,14 +158,18 @@ describe('the consumer bridge', () => {
     ]);
     expect(undecodable[0]!.code).toBe('SPILLWAY_DECODE_ERROR');
     // The raw bytes, copied out of the fetch buffer, as written by the file target.
-    expect(Buffer.from(undecodable[0]!.record.value.base64 as string, 'base64').equals(garbage)).toBe(true);
+    expect(Buffer.from(undecodable[0]!.record.value!.base64, 'base64').equals(garbage)).toBe(true);
     expect(undecodable[0]!.record.offset).toBe('10');
 
     const rejected = readLines(rejectedPath);
     expect(rejected).toHaveLength(1);
     // Source: PostgreSQL documentation, Appendix A "PostgreSQL Error Codes": 23514 check_violation.
     expect(rejected[0]!.driverCode).toBe('23514');
-    expect([rejected[0]!.meta.topic, rejected[0]!.meta.partition, rejected[0]!.meta.offset]).toEqual([topic, 0, '12']);
+    expect([rejected[0]!.meta.topic, rejected[0]!.meta.partition, rejected[0]!.meta.offset]).toEqual([
+      topic,
+      0,
+      '12',
+    ]);
   });
 
   it('commits a slow single-partition stream within maxAgeMs of each record while five partitions stay silent', async () => {
@@ -143,7 +180,12 @@ describe('the consumer bridge', () => {
     const table = uniqueName('dock_slow');
     await createDockTable(schema.pool, table, 'insert');
     // idleMs 0: only the age rule can flush these records (1000 would never be reached).
-    const rows = new Sink<DockRow>(pgRowsAdapter(schema.pool, table, 'insert'), { name: 'dock-status', maxRecords: 1000, maxAgeMs: MAX_AGE_MS, idleMs: 0 });
+    const rows = new Sink<DockRow>(pgRowsAdapter(schema.pool, table, 'insert'), {
+      name: 'dock-status',
+      maxRecords: 1000,
+      maxAgeMs: MAX_AGE_MS,
+      idleMs: 0,
+    });
     const bridge = new KafkaBridge<DockRow>({
       kafka: kafka.kafka,
       groupId,
@@ -158,15 +200,27 @@ describe('the consumer bridge', () => {
     await bridge.start();
     const COUNT = 16;
     try {
-      await waitFor('the assignment', () => (bridge.snapshot().partitions.length === PARTITIONS ? true : undefined), { timeoutMs: 60_000 });
+      await waitFor(
+        'the assignment',
+        () => (bridge.snapshot().partitions.length === PARTITIONS ? true : undefined),
+        { timeoutMs: 60_000 },
+      );
       // A trickle of 2 messages/s, all on partition 3 (one busy dock's key).
       for (let seq = 0; seq < COUNT; seq++) {
-        await producer.send({ topic, acks: -1, messages: [{ partition: 3, value: encodeEvent(dockEvent(seq)) }] });
+        await producer.send({
+          topic,
+          acks: -1,
+          messages: [{ partition: 3, value: encodeEvent(dockEvent(seq)) }],
+        });
         await sleep(500);
       }
-      await waitFor('partition 3 to be committed to its end', async () => ((await committed(groupId, topic)).get(3) === COUNT ? true : undefined), {
-        timeoutMs: 30_000,
-      });
+      await waitFor(
+        'partition 3 to be committed to its end',
+        async () => ((await committed(groupId, topic)).get(3) === COUNT ? true : undefined),
+        {
+          timeoutMs: 30_000,
+        },
+      );
       const snap = bridge.snapshot();
       const sink = rows.snapshot();
       const busy = snap.partitions.find((p) => p.partition === 3)!;
@@ -182,10 +236,22 @@ describe('the consumer bridge', () => {
       // flush itself as measured in this run; the 1 s allowance for timer slack on a loaded
       // two-core machine is common practice, not a published figure.
       expect(sink.acceptToDurableMs.max).toBeLessThanOrEqual(MAX_AGE_MS + sink.flushDurationMs.max + 1000);
-      expect(busy).toMatchObject({ durable: String(COUNT), committed: String(COUNT), lastSeen: String(COUNT - 1), lagMessages: 0, lagSeconds: 0, pendingMessages: 0 });
+      expect(busy).toMatchObject({
+        durable: String(COUNT),
+        committed: String(COUNT),
+        lastSeen: String(COUNT - 1),
+        lagMessages: 0,
+        lagSeconds: 0,
+        pendingMessages: 0,
+      });
       // Silent partitions hold nothing back and report how long they have been idle.
       for (const p of silent) {
-        expect(p).toMatchObject({ durable: undefined, lastSeen: undefined, lagMessages: 0, pendingMessages: 0 });
+        expect(p).toMatchObject({
+          durable: undefined,
+          lastSeen: undefined,
+          lagMessages: 0,
+          pendingMessages: 0,
+        });
         expect(p.idleMs).toBeGreaterThanOrEqual(COUNT * 500 - 1000);
       }
       expect(busy.idleMs).toBeLessThan(silent[0]!.idleMs);
@@ -219,7 +285,13 @@ describe('the consumer bridge', () => {
           ackedTotal += batch.length;
         },
       }),
-      { name: 'dock-status', maxRecords: 500, maxAgeMs: 100, maxPendingRecords: MAX_PENDING, retry: { maxAttempts: 1000, baseDelayMs: 100, maxDelayMs: 1000, maxElapsedMs: 60_000 } },
+      {
+        name: 'dock-status',
+        maxRecords: 500,
+        maxAgeMs: 100,
+        maxPendingRecords: MAX_PENDING,
+        retry: { maxAttempts: 1000, baseDelayMs: 100, maxDelayMs: 1000, maxElapsedMs: 60_000 },
+      },
     );
     // Small fetches, so that the messages held behind a full sink (at most one fetched batch per
     // partition) have a bound this test can check.
@@ -241,11 +313,14 @@ describe('the consumer bridge', () => {
     let commitsDuringOutage = 0;
     let down = false;
     const errors: string[] = [];
-    bridge.on('error', ({ error, fatal }) => errors.push(`${fatal ? 'fatal' : 'non-fatal'}: ${(error as Error).message}`));
+    bridge.on('error', ({ error, fatal }) =>
+      errors.push(`${fatal ? 'fatal' : 'non-fatal'}: ${(error as Error).message}`),
+    );
     bridge.on('commit', ({ offsets }) => {
       if (down) commitsDuringOutage++;
       for (const { partition, offset } of offsets) {
-        for (let o = checkedUpTo[partition]!; o < Number(offset); o++) if (!acked[partition]!.has(o)) violations.push(`${partition}:${o}`);
+        for (let o = checkedUpTo[partition]!; o < Number(offset); o++)
+          if (!acked[partition]!.has(o)) violations.push(`${partition}:${o}`);
         checkedUpTo[partition] = Math.max(checkedUpTo[partition]!, Number(offset));
       }
     });
@@ -266,27 +341,39 @@ describe('the consumer bridge', () => {
       const producing = (async () => {
         while (produced < TOTAL) {
           const messages = [];
-          for (let i = 0; i < 500; i++, produced++) messages.push({ partition: produced % PARTITIONS, value: encodeEvent(dockEvent(produced)) });
+          for (let i = 0; i < 500; i++, produced++)
+            messages.push({ partition: produced % PARTITIONS, value: encodeEvent(dockEvent(produced)) });
           await producer.send({ topic, acks: -1, messages });
           await sleep(50);
         }
       })();
-      await waitFor('rows to flow', () => (ackedTotal > 3000 ? true : undefined), { timeoutMs: 60_000, intervalMs: 20 });
+      await waitFor('rows to flow', () => (ackedTotal > 3000 ? true : undefined), {
+        timeoutMs: 60_000,
+        intervalMs: 20,
+      });
       down = true;
       const ackedBefore = ackedTotal;
       await server.restart({ downMs: 5000 });
       down = false;
       const ackedDuring = ackedTotal - ackedBefore;
       await producing;
-      await waitFor('every partition committed to its end', async () => {
-        const c = await committed(groupId, topic);
-        return [0, 1, 2].every((p) => c.get(p) === TOTAL / PARTITIONS) ? true : undefined;
-      }, { timeoutMs: 120_000 }).catch((error: unknown) => {
+      await waitFor(
+        'every partition committed to its end',
+        async () => {
+          const c = await committed(groupId, topic);
+          return [0, 1, 2].every((p) => c.get(p) === TOTAL / PARTITIONS) ? true : undefined;
+        },
+        { timeoutMs: 120_000 },
+      ).catch((error: unknown) => {
         const { partitions, ...counts } = bridge.snapshot();
         const { state, pendingRecords, waitingWriters, written, retries } = rows.snapshot();
-        throw new Error(`${(error as Error).message}; bridge ${JSON.stringify(counts)} ${JSON.stringify(partitions)}; sink ${JSON.stringify({ state, pendingRecords, waitingWriters, written, retries })}; errors ${errors.join(' | ')}`);
+        throw new Error(
+          `${(error as Error).message}; bridge ${JSON.stringify(counts)} ${JSON.stringify(partitions)}; sink ${JSON.stringify({ state, pendingRecords, waitingWriters, written, retries })}; errors ${errors.join(' | ')}`,
+        );
       });
-      const n = await pool.query<{ rows: string; distinct: string }>(`SELECT count(*) AS rows, count(DISTINCT seq) AS distinct FROM ${table}`);
+      const n = await pool.query<{ rows: string; distinct: string }>(
+        `SELECT count(*) AS rows, count(DISTINCT seq) AS distinct FROM ${table}`,
+      );
       const sink = rows.snapshot();
       console.log(
         `[bridge] outage: ${TOTAL} messages; ${sink.retries} retries; acked during the 5 s outage: ${ackedDuring}; commits during it: ${commitsDuringOutage}; ` +

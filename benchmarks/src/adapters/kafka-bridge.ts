@@ -55,7 +55,12 @@ const consumerConfig = { sessionTimeout: 30_000, heartbeatInterval: 3000, maxWai
 const pool = new pg.Pool({ connectionString: PG_URL, max: 4, options: `-c search_path=${SCHEMA}` });
 pool.on('error', () => undefined);
 
-const event = (seq: number): DockStatus => ({ seq, dock: `dock-${String(seq % 5000).padStart(4, '0')}`, bikes: seq % 13, emptySlots: 12 - (seq % 13) });
+const event = (seq: number): DockStatus => ({
+  seq,
+  dock: `dock-${String(seq % 5000).padStart(4, '0')}`,
+  bikes: seq % 13,
+  emptySlots: 12 - (seq % 13),
+});
 const decode = (m: KafkaMessage): DockStatus | DecodeError => {
   try {
     return JSON.parse(m.value!.toString('utf8')) as DockStatus;
@@ -67,9 +72,20 @@ const decode = (m: KafkaMessage): DockStatus | DecodeError => {
 function sink(): Sink<DockStatus> {
   // One batch in flight: with more, core's batch selection skips the keys already in flight and,
   // with six partitions in every batch, leaves mostly tiny batches (reported to the core owner).
-  const options: SinkOptions<DockStatus> = { name: 'dock-status', maxRecords: BATCH, maxAgeMs: 500, concurrency: 1 };
+  const options: SinkOptions<DockStatus> = {
+    name: 'dock-status',
+    maxRecords: BATCH,
+    maxAgeMs: 500,
+    concurrency: 1,
+  };
   return new Sink(
-    postgresAdapter<DockStatus>({ pool, table: TABLE, columns: ['seq', 'dock', 'bikes', 'empty_slots'], map: (r) => [r.seq, r.dock, r.bikes, r.emptySlots], mode: 'copy' }),
+    postgresAdapter<DockStatus>({
+      pool,
+      table: TABLE,
+      columns: ['seq', 'dock', 'bikes', 'empty_slots'],
+      map: (r) => [r.seq, r.dock, r.bikes, r.emptySlots],
+      mode: 'copy',
+    }),
     options,
   );
 }
@@ -80,7 +96,10 @@ async function waitUntil(check: () => boolean): Promise<void> {
 
 /** kafkajs alone: the source limit. */
 async function runSource(): Promise<Run> {
-  const consumer = kafka.consumer({ groupId: `bench-source-${tag}-${randomBytes(3).toString('hex')}`, ...consumerConfig });
+  const consumer = kafka.consumer({
+    groupId: `bench-source-${tag}-${randomBytes(3).toString('hex')}`,
+    ...consumerConfig,
+  });
   let seen = 0;
   let t0 = 0;
   let t1 = 0;
@@ -169,7 +188,12 @@ function summary(xs: number[]): { median: number; min: number; max: number; spre
   const s = [...xs].sort((a, b) => a - b);
   const mid = s.length >> 1;
   const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return { median, min: s[0]!, max: s[s.length - 1]!, spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100 };
+  return {
+    median,
+    min: s[0]!,
+    max: s[s.length - 1]!,
+    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
+  };
 }
 
 async function main(): Promise<void> {
@@ -179,9 +203,14 @@ async function main(): Promise<void> {
   await setup.connect();
   const version = (await setup.query<{ v: string }>('SHOW server_version')).rows[0]!.v;
   await setup.query(`CREATE SCHEMA ${SCHEMA}`);
-  await setup.query(`CREATE TABLE ${SCHEMA}.${TABLE} (seq bigint NOT NULL, dock text NOT NULL, bikes int NOT NULL, empty_slots int NOT NULL)`);
+  await setup.query(
+    `CREATE TABLE ${SCHEMA}.${TABLE} (seq bigint NOT NULL, dock text NOT NULL, bikes int NOT NULL, empty_slots int NOT NULL)`,
+  );
   try {
-    await admin.createTopics({ topics: [{ topic: TOPIC, numPartitions: PARTITIONS, replicationFactor: 1 }], waitForLeaders: true });
+    await admin.createTopics({
+      topics: [{ topic: TOPIC, numPartitions: PARTITIONS, replicationFactor: 1 }],
+      waitForLeaders: true,
+    });
     const producer = kafka.producer({ allowAutoTopicCreation: false });
     await producer.connect();
     const rows: DockStatus[] = [];
@@ -196,10 +225,23 @@ async function main(): Promise<void> {
     }
     await producer.disconnect();
     console.log(
-      JSON.stringify({ benchmark: 'kafka-bridge', machine: machineInfo({ postgresql: version, kafka: broker.version }), messages: MESSAGES, repeats: REPEATS, partitions: PARTITIONS, batch: BATCH, mode: 'copy' }),
+      JSON.stringify({
+        benchmark: 'kafka-bridge',
+        machine: machineInfo({ postgresql: version, kafka: broker.version }),
+        messages: MESSAGES,
+        repeats: REPEATS,
+        partitions: PARTITIONS,
+        batch: BATCH,
+        mode: 'copy',
+      }),
     );
 
-    const samples = { source: [] as number[], store: [] as number[], bridge: [] as number[], ratio: [] as number[] };
+    const samples = {
+      source: [] as number[],
+      store: [] as number[],
+      bridge: [] as number[],
+      ratio: [] as number[],
+    };
     const cpu = { source: [] as number[], store: [] as number[], bridge: [] as number[] };
     const order = ['source', 'store', 'bridge'] as const;
     for (let rep = 0; rep < REPEATS; rep++) {
@@ -211,7 +253,9 @@ async function main(): Promise<void> {
         else if (which === 'store') round.store = await runStore(rows);
         else {
           round.bridge = await runBridge();
-          const n = Number((await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n);
+          const n = Number(
+            (await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n,
+          );
           if (n !== MESSAGES) throw new Error(`bridge run wrote ${n} rows, expected ${MESSAGES}`);
         }
       }
@@ -234,12 +278,18 @@ async function main(): Promise<void> {
     console.log(`\nmessages/s, median of ${REPEATS} (range; spread = (max-min)/median)`);
     for (const k of ['source', 'store', 'bridge'] as const) {
       const s = summary(samples[k]);
-      console.log(`${k.padEnd(7)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`);
+      console.log(
+        `${k.padEnd(7)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
+      );
     }
     const r = summary(samples.ratio);
     const c = (k: 'source' | 'store' | 'bridge') => summary(cpu[k]).median.toFixed(1);
-    console.log(`process CPU per message, median µs: source ${c('source')}, store ${c('store')}, bridge ${c('bridge')} (one Node thread does the source's and the store's work in the bridge)`);
-    console.log(`bridge / min(source, store): median ${r.median.toFixed(2)} (range ${r.min.toFixed(2)}–${r.max.toFixed(2)}); target ≥ 0.80`);
+    console.log(
+      `process CPU per message, median µs: source ${c('source')}, store ${c('store')}, bridge ${c('bridge')} (one Node thread does the source's and the store's work in the bridge)`,
+    );
+    console.log(
+      `bridge / min(source, store): median ${r.median.toFixed(2)} (range ${r.min.toFixed(2)}–${r.max.toFixed(2)}); target ≥ 0.80`,
+    );
     console.log(JSON.stringify({ samples, cpuUsPerMessage: cpu }));
   } finally {
     await admin.deleteTopics({ topics: [TOPIC] }).catch(() => undefined);

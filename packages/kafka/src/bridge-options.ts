@@ -1,7 +1,7 @@
 /**
  * Options of the consumer bridge (`KafkaBridge`), their defaults and their validation.
  */
-import { type DeadLetterTarget, type ShutdownCoordinator, type Sink, invalidOption } from '@spillway/core';
+import { type DeadLetterTarget, invalidOption, type ShutdownCoordinator, type Sink } from '@spillway/core';
 import type { Consumer, ConsumerConfig, Kafka, KafkaMessage } from 'kafkajs';
 import type { DecodeError, KafkaSource, UndecodableMessage } from './decode.js';
 
@@ -130,7 +130,12 @@ const KNOWN = new Set([
 
 function positive(name: string, value: unknown, fallback: number, integer = false): number {
   if (value === undefined) return fallback;
-  if (typeof value !== 'number' || !Number.isFinite(value) || value <= 0 || (integer && !Number.isInteger(value))) {
+  if (
+    typeof value !== 'number' ||
+    !Number.isFinite(value) ||
+    value <= 0 ||
+    (integer && !Number.isInteger(value))
+  ) {
     throw invalidOption(name, `${integer ? 'an integer' : 'a finite number'} > 0`, value);
   }
   return value;
@@ -141,35 +146,59 @@ export function resolveBridgeOptions<R>(options: KafkaBridgeOptions<R>): Resolve
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
   const o = options as unknown as Record<string, unknown>;
   for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+    if (!KNOWN.has(key))
+      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
   }
   let consumer: Consumer;
   if (options.consumer !== undefined) {
-    if (options.kafka !== undefined) throw invalidOption('kafka', 'absent when `consumer` is given', 'a Kafka client');
-    if (typeof (options.consumer as { run?: unknown }).run !== 'function') throw invalidOption('consumer', 'a kafkajs Consumer', options.consumer);
+    if (options.kafka !== undefined)
+      throw invalidOption('kafka', 'absent when `consumer` is given', 'a Kafka client');
+    if (typeof (options.consumer as { run?: unknown }).run !== 'function')
+      throw invalidOption('consumer', 'a kafkajs Consumer', options.consumer);
     consumer = options.consumer;
   } else {
-    if (options.kafka === undefined || typeof (options.kafka as { consumer?: unknown }).consumer !== 'function') {
+    if (
+      options.kafka === undefined ||
+      typeof (options.kafka as { consumer?: unknown }).consumer !== 'function'
+    ) {
       throw invalidOption('kafka', 'a kafkajs Kafka client (or give `consumer`)', options.kafka);
     }
-    if (typeof options.groupId !== 'string' || options.groupId.length === 0) throw invalidOption('groupId', 'a non-empty string', options.groupId);
+    if (typeof options.groupId !== 'string' || options.groupId.length === 0)
+      throw invalidOption('groupId', 'a non-empty string', options.groupId);
     const config = options.consumerConfig ?? {};
-    if (typeof config !== 'object' || config === null) throw invalidOption('consumerConfig', 'an object', options.consumerConfig);
+    if (typeof config !== 'object' || config === null)
+      throw invalidOption('consumerConfig', 'an object', options.consumerConfig);
     consumer = options.kafka.consumer({ ...config, groupId: options.groupId });
   }
   const topics = options.topics;
-  if (!Array.isArray(topics) || topics.length === 0 || !topics.every((t) => (typeof t === 'string' && t.length > 0) || t instanceof RegExp)) {
+  if (
+    !Array.isArray(topics) ||
+    topics.length === 0 ||
+    !topics.every((t) => (typeof t === 'string' && t.length > 0) || t instanceof RegExp)
+  ) {
     throw invalidOption('topics', 'a non-empty array of topic names or RegExps', topics);
   }
-  if (options.fromBeginning !== undefined && typeof options.fromBeginning !== 'boolean') throw invalidOption('fromBeginning', 'a boolean', options.fromBeginning);
-  if (typeof options.decode !== 'function') throw invalidOption('decode', 'a function (message, source) => record | DecodeError', options.decode);
-  if (typeof options.route !== 'function') throw invalidOption('route', 'a function (record, source) => sink | sink[]', options.route);
+  if (options.fromBeginning !== undefined && typeof options.fromBeginning !== 'boolean')
+    throw invalidOption('fromBeginning', 'a boolean', options.fromBeginning);
+  if (typeof options.decode !== 'function')
+    throw invalidOption('decode', 'a function (message, source) => record | DecodeError', options.decode);
+  if (typeof options.route !== 'function')
+    throw invalidOption('route', 'a function (record, source) => sink | sink[]', options.route);
   const dl = options.deadLetter as { write?: unknown } | undefined;
-  if (!dl || typeof dl.write !== 'function') throw invalidOption('deadLetter', 'a DeadLetterTarget (an object with write(letters))', options.deadLetter);
+  if (!dl || typeof dl.write !== 'function')
+    throw invalidOption(
+      'deadLetter',
+      'a DeadLetterTarget (an object with write(letters))',
+      options.deadLetter,
+    );
   const name = options.name ?? 'kafka-bridge';
-  if (typeof name !== 'string' || name.length === 0) throw invalidOption('name', 'a non-empty string', options.name);
+  if (typeof name !== 'string' || name.length === 0)
+    throw invalidOption('name', 'a non-empty string', options.name);
   const shutdown = options.shutdown;
-  if (shutdown !== undefined && (typeof shutdown !== 'object' || typeof (shutdown as { add?: unknown }).add !== 'function')) {
+  if (
+    shutdown !== undefined &&
+    (typeof shutdown !== 'object' || typeof (shutdown as { add?: unknown }).add !== 'function')
+  ) {
     throw invalidOption('shutdown', 'a ShutdownCoordinator', shutdown);
   }
   return {

@@ -4,20 +4,31 @@
  */
 import { EventEmitter } from 'node:events';
 import {
-  ProgressTracker,
-  ShutdownTimeoutError,
-  Sink,
-  StoreError,
   messageOf,
   type PendingCounts,
+  ProgressTracker,
   type RecordMeta,
+  ShutdownTimeoutError,
+  Sink,
   type SinkEvents,
+  StoreError,
 } from '@spillway/core';
 import type { Consumer, EachBatchPayload, KafkaMessage } from 'kafkajs';
-import { type KafkaBridgeOptions, type ResolvedBridgeOptions, resolveBridgeOptions } from './bridge-options.js';
+import {
+  type KafkaBridgeOptions,
+  type ResolvedBridgeOptions,
+  resolveBridgeOptions,
+} from './bridge-options.js';
 import { kafkaErrorType } from './classify.js';
 import { CommitFence, isRebalanceError, isRejoinSignal, partitionKey } from './commits.js';
-import { type DecodeFailure, type KafkaSource, DecodeError, decodeDeadLetterAdapter, runDecoder, undecodable } from './decode.js';
+import {
+  DecodeError,
+  type DecodeFailure,
+  decodeDeadLetterAdapter,
+  type KafkaSource,
+  runDecoder,
+  undecodable,
+} from './decode.js';
 
 export type BridgeState = 'created' | 'running' | 'stopping' | 'stopped' | 'failed';
 
@@ -84,7 +95,7 @@ export interface BridgeEvents {
 export type BridgeEventName = keyof BridgeEvents;
 
 // Sinks of any record type: the bridge only calls tryWrite/flush/revoke and listens to events.
-// eslint-disable-next-line @typescript-eslint/no-explicit-any
+// biome-ignore lint/suspicious/noExplicitAny: a route may mix sinks of different record types
 type AnySink = Sink<any>;
 
 /**
@@ -186,20 +197,33 @@ export class KafkaBridge<R> {
   private stopping: Promise<void> | undefined;
   private starting: Promise<void> | undefined;
 
-  private counts = { messages: 0, undecodable: 0, skipped: 0, commits: 0, commitErrors: 0, pauses: 0, rebalances: 0, rebalanceFlushes: 0, rebalanceFlushTimeouts: 0 };
+  private counts = {
+    messages: 0,
+    undecodable: 0,
+    skipped: 0,
+    commits: 0,
+    commitErrors: 0,
+    pauses: 0,
+    rebalances: 0,
+    rebalanceFlushes: 0,
+    rebalanceFlushTimeouts: 0,
+  };
 
   constructor(options: KafkaBridgeOptions<R>) {
     this.o = resolveBridgeOptions(options);
     this.name = this.o.name;
     this.consumer = this.o.consumer;
     const maxPending = this.o.maxPendingDeadLetters;
-    this.decodeSink = new Sink(decodeDeadLetterAdapter(this.o.deadLetter, this.name, () => Date.now()), {
-      name: `${this.name}:undecodable`,
-      maxRecords: Math.min(100, maxPending),
-      maxPendingRecords: maxPending,
-      maxAgeMs: 200,
-      idleMs: 20,
-    });
+    this.decodeSink = new Sink(
+      decodeDeadLetterAdapter(this.o.deadLetter, this.name, () => Date.now()),
+      {
+        name: `${this.name}:undecodable`,
+        maxRecords: Math.min(100, maxPending),
+        maxPendingRecords: maxPending,
+        maxAgeMs: 200,
+        idleMs: 20,
+      },
+    );
     this.watch(this.decodeSink);
   }
 
@@ -242,7 +266,12 @@ export class KafkaBridge<R> {
     if (sd) {
       this.unsubscribe.push(
         sd.add('sources', `${this.name}: stop fetching`, () => this.stopFetching()),
-        sd.add('sinks', `${this.name}: flush`, ({ remainingMs }) => this.flushAll(remainingMs), () => this.pending()),
+        sd.add(
+          'sinks',
+          `${this.name}: flush`,
+          ({ remainingMs }) => this.flushAll(remainingMs),
+          () => this.pending(),
+        ),
         sd.add('progress', `${this.name}: commit`, () => this.commit()),
         sd.add('clients', `${this.name}: disconnect`, () => this.disconnect()),
       );
@@ -293,9 +322,15 @@ export class KafkaBridge<R> {
    */
   async flushAll(timeoutMs: number): Promise<void> {
     const all = Promise.all(
-      [...this.sinks].map((s) => (s.state === 'open' || s.state === 'closing' ? s.flush() : Promise.resolve())),
+      [...this.sinks].map((s) =>
+        s.state === 'open' || s.state === 'closing' ? s.flush() : Promise.resolve(),
+      ),
     ).then(() => undefined);
-    await within(all, timeoutMs, () => new ShutdownTimeoutError(`flush of bridge "${this.name}"`, timeoutMs, this.pending()));
+    await within(
+      all,
+      timeoutMs,
+      () => new ShutdownTimeoutError(`flush of bridge "${this.name}"`, timeoutMs, this.pending()),
+    );
     await this.decodeSink.close({ timeoutMs }).catch(() => undefined);
   }
 
@@ -340,7 +375,13 @@ export class KafkaBridge<R> {
     }
   }
 
-  private async handleBatch({ batch, resolveOffset, heartbeat, isRunning, isStale }: EachBatchPayload): Promise<void> {
+  private async handleBatch({
+    batch,
+    resolveOffset,
+    heartbeat,
+    isRunning,
+    isStale,
+  }: EachBatchPayload): Promise<void> {
     const st = this.partitionFor(batch.topic, batch.partition);
     if (st && !this.draining && this.stateValue === 'running') {
       st.highWatermark = BigInt(batch.highWatermark);
@@ -450,7 +491,12 @@ export class KafkaBridge<R> {
     if (this.sinks.has(sink)) return;
     // Duck-typed, so that two copies of @spillway/core in one app still work together.
     const s = sink as Partial<AnySink> | null;
-    if (!s || typeof s.tryWrite !== 'function' || typeof s.on !== 'function' || typeof s.revoke !== 'function') {
+    if (
+      !s ||
+      typeof s.tryWrite !== 'function' ||
+      typeof s.on !== 'function' ||
+      typeof s.revoke !== 'function'
+    ) {
       throw new TypeError(`Expected \`route\` to return Spillway sinks, got \`${String(sink)}\``);
     }
     this.sinks.add(sink);
@@ -553,11 +599,13 @@ export class KafkaBridge<R> {
     this.counts.rebalances++;
     // A new member id means this member was expelled and joined afresh: partitions it "kept" may
     // have been read and committed by another member meanwhile. Start them over from the broker.
-    if (this.memberId !== undefined && memberId !== this.memberId) for (const st of [...this.parts.values()]) this.dropPartition(st);
+    if (this.memberId !== undefined && memberId !== this.memberId)
+      for (const st of [...this.parts.values()]) this.dropPartition(st);
     this.memberId = memberId;
     const keys = new Map<string, { topic: string; partition: number }>();
     for (const [topic, partitions] of Object.entries(assignment)) {
-      for (const partition of partitions ?? []) keys.set(partitionKey(topic, partition), { topic, partition });
+      for (const partition of partitions ?? [])
+        keys.set(partitionKey(topic, partition), { topic, partition });
     }
     const revoked: string[] = [];
     const kept: string[] = [];
@@ -571,7 +619,8 @@ export class KafkaBridge<R> {
     this.fence.assign(keys.keys());
     // Pause flags survive a rejoin: make them match what the bridge wants.
     const paused = new Set<string>();
-    for (const t of this.consumer.paused()) for (const p of t.partitions) paused.add(partitionKey(t.topic, p));
+    for (const t of this.consumer.paused())
+      for (const p of t.partitions) paused.add(partitionKey(t.topic, p));
     for (const [key, tp] of keys) {
       const st = this.parts.get(key) ?? this.newPartition(tp.topic, tp.partition);
       const want = this.draining || st.held !== undefined;
@@ -599,8 +648,11 @@ export class KafkaBridge<R> {
     this.rejoinFlush ??= (async () => {
       this.counts.rebalanceFlushes++;
       try {
-        const ours = (meta: RecordMeta | undefined) => meta !== undefined && MessageMeta.ownerOf(meta) !== undefined;
-        const flushed = Promise.all([...this.sinks].filter((s) => s.state === 'open').map((s) => s.revoke(ours))).then(() => true);
+        const ours = (meta: RecordMeta | undefined) =>
+          meta !== undefined && MessageMeta.ownerOf(meta) !== undefined;
+        const flushed = Promise.all(
+          [...this.sinks].filter((s) => s.state === 'open').map((s) => s.revoke(ours)),
+        ).then(() => true);
         const ok = await within(flushed, this.o.rebalanceFlushMs, () => undefined).catch(() => false);
         if (!ok) this.counts.rebalanceFlushTimeouts++;
         await this.commit().catch(() => undefined);
@@ -634,16 +686,23 @@ export class KafkaBridge<R> {
     }
     const plan = this.fence.plan(points);
     if (plan.offsets.length === 0) return;
-    const offsets = plan.offsets.map((p) => ({ topic: p.topic, partition: p.partition, offset: p.offset.toString() }));
+    const offsets = plan.offsets.map((p) => ({
+      topic: p.topic,
+      partition: p.partition,
+      offset: p.offset.toString(),
+    }));
     try {
       await this.consumer.commitOffsets(offsets);
     } catch (error) {
       this.counts.commitErrors++;
       if (isRebalanceError(error)) return;
-      const wrapped = new StoreError(`Commit of ${offsets.length} partition offset(s) failed: ${messageOf(error)}`, {
-        cause: error,
-        driverCode: kafkaErrorType(error),
-      });
+      const wrapped = new StoreError(
+        `Commit of ${offsets.length} partition offset(s) failed: ${messageOf(error)}`,
+        {
+          cause: error,
+          driverCode: kafkaErrorType(error),
+        },
+      );
       this.emit('error', { error: wrapped, fatal: false });
       throw wrapped;
     }
@@ -681,8 +740,11 @@ export class KafkaBridge<R> {
       const durable = this.tracker.committable(st.key);
       const committed = this.fence.lastCommitted(st.key);
       const oldest = st.timesHead < st.times.length ? st.times[st.timesHead] : undefined;
-      const base = durable ?? (oldest?.offset ?? (st.lastSeen === undefined ? undefined : st.lastSeen + 1n));
-      const lag = st.highWatermark !== undefined && base !== undefined && st.highWatermark > base ? Number(st.highWatermark - base) : 0;
+      const base = durable ?? oldest?.offset ?? (st.lastSeen === undefined ? undefined : st.lastSeen + 1n);
+      const lag =
+        st.highWatermark !== undefined && base !== undefined && st.highWatermark > base
+          ? Number(st.highWatermark - base)
+          : 0;
       partitions.push({
         topic: st.topic,
         partition: st.partition,

@@ -79,7 +79,13 @@ export class CommitFence {
 }
 
 /** Kafka error types that mean "the group is rebalancing / this member must rejoin". */
-const REBALANCE_TYPES = new Set(['REBALANCE_IN_PROGRESS', 'ILLEGAL_GENERATION', 'UNKNOWN_MEMBER_ID', 'NOT_COORDINATOR_FOR_GROUP', 'FENCED_INSTANCE_ID']);
+const REBALANCE_TYPES = new Set([
+  'REBALANCE_IN_PROGRESS',
+  'ILLEGAL_GENERATION',
+  'UNKNOWN_MEMBER_ID',
+  'NOT_COORDINATOR_FOR_GROUP',
+  'FENCED_INSTANCE_ID',
+]);
 
 export function isRebalanceError(error: unknown): boolean {
   const type = kafkaErrorType(error);

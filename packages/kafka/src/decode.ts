@@ -1,7 +1,12 @@
 /**
  * Decoding Kafka messages into records, and the dead letter of a message that cannot be decoded.
  */
-import { SpillwayError, type DeadLetterTarget, type SinkAdapter, type SpillwayErrorOptions } from '@spillway/core';
+import {
+  type DeadLetterTarget,
+  type SinkAdapter,
+  SpillwayError,
+  type SpillwayErrorOptions,
+} from '@spillway/core';
 import type { IHeaders, KafkaMessage } from 'kafkajs';
 
 /** Where a message came from, as the decoder and the router see it. */
@@ -79,7 +84,9 @@ export function runDecoder<R>(
     if (error instanceof DecodeError) return { ok: false, error };
     return {
       ok: false,
-      error: new DecodeError(`decoder threw: ${error instanceof Error ? error.message : String(error)}`, { cause: error }),
+      error: new DecodeError(`decoder threw: ${error instanceof Error ? error.message : String(error)}`, {
+        cause: error,
+      }),
     };
   }
 }
@@ -95,13 +102,24 @@ export interface DecodeFailure {
  * through the same engine as every other record: batched, bounded (the partition pauses when the
  * target is slow) and settled only once the target has stored them.
  */
-export function decodeDeadLetterAdapter(target: DeadLetterTarget<UndecodableMessage>, bridgeName: string, wallNow: () => number): SinkAdapter<DecodeFailure> {
+export function decodeDeadLetterAdapter(
+  target: DeadLetterTarget<UndecodableMessage>,
+  bridgeName: string,
+  wallNow: () => number,
+): SinkAdapter<DecodeFailure> {
   return {
     kind: 'kafka-decode-dead-letter',
     async write(batch) {
       const time = wallNow();
       await target.write(
-        batch.records.map((r, i) => ({ sink: bridgeName, record: r.message, meta: batch.metas[i], reason: 'decode' as const, error: r.error, time })),
+        batch.records.map((r, i) => ({
+          sink: bridgeName,
+          record: r.message,
+          meta: batch.metas[i],
+          reason: 'decode' as const,
+          error: r.error,
+          time,
+        })),
       );
     },
     // A target that fails is retried with backoff; if it keeps failing the decode sink has no

@@ -8,11 +8,15 @@ import { describe, expect, it } from 'vitest';
 
 const TOPIC = 'tandem.dock-status';
 
-type Listener = (e: { payload: any }) => void;
+type Listener = (e: { payload: unknown }) => void;
 
 /** Just enough of a kafkajs Consumer for the bridge; records what the bridge asked of it. */
 class FakeConsumer {
-  readonly events = { GROUP_JOIN: 'consumer.group_join', REBALANCING: 'consumer.rebalancing', CRASH: 'consumer.crash' };
+  readonly events = {
+    GROUP_JOIN: 'consumer.group_join',
+    REBALANCING: 'consumer.rebalancing',
+    CRASH: 'consumer.crash',
+  };
   readonly listeners = new Map<string, Set<Listener>>();
   readonly commits: Array<Array<{ topic: string; partition: number; offset: string }>> = [];
   readonly calls: string[] = [];
@@ -23,7 +27,10 @@ class FakeConsumer {
 
   on(event: string, listener: Listener) {
     let set = this.listeners.get(event);
-    if (!set) this.listeners.set(event, (set = new Set()));
+    if (!set) {
+      set = new Set();
+      this.listeners.set(event, set);
+    }
     set.add(listener);
     return () => set!.delete(listener);
   }
@@ -67,9 +74,22 @@ class FakeConsumer {
   }
 
   /** Delivers a batch of `values` starting at `first` on `partition`, as kafkajs' runner would. */
-  async deliver(partition: number, first: number, values: Array<string | Buffer>, heartbeat: () => Promise<void> = async () => undefined) {
+  async deliver(
+    partition: number,
+    first: number,
+    values: Array<string | Buffer>,
+    heartbeat: () => Promise<void> = async () => undefined,
+  ) {
     const messages = values.map(
-      (v, i) => ({ offset: String(first + i), key: null, value: Buffer.isBuffer(v) ? v : Buffer.from(v), timestamp: String(Date.now()), attributes: 0, headers: {} }) as unknown as KafkaMessage,
+      (v, i) =>
+        ({
+          offset: String(first + i),
+          key: null,
+          value: Buffer.isBuffer(v) ? v : Buffer.from(v),
+          timestamp: String(Date.now()),
+          attributes: 0,
+          headers: {},
+        }) as unknown as KafkaMessage,
     );
     await this.eachBatch!({
       batch: { topic: TOPIC, partition, highWatermark: String(first + values.length), messages } as never,
@@ -120,7 +140,9 @@ const tick = () => new Promise((r) => setImmediate(r));
  * messages the bridge held for room get in and out too.
  */
 async function flushAcking(sinks: Sink<{ n: number }>[], adapters: GatedAdapter[]): Promise<void> {
-  const auto = setInterval(() => adapters.forEach((a) => a.releaseAll()), 1);
+  const auto = setInterval(() => {
+    for (const a of adapters) a.releaseAll();
+  }, 1);
   try {
     for (let round = 0; round < 4; round++) {
       await Promise.all(sinks.map((s) => s.flush()));
@@ -132,7 +154,14 @@ async function flushAcking(sinks: Sink<{ n: number }>[], adapters: GatedAdapter[
   }
 }
 
-function setup(options: { sinks?: number; maxRecords?: number; maxPendingRecords?: number; route?: (r: { n: number }) => Sink<{ n: number }>[] } = {}) {
+function setup(
+  options: {
+    sinks?: number;
+    maxRecords?: number;
+    maxPendingRecords?: number;
+    route?: (r: { n: number }) => Sink<{ n: number }>[];
+  } = {},
+) {
   const consumer = new FakeConsumer();
   const adapters = Array.from({ length: options.sinks ?? 1 }, () => new GatedAdapter());
   const sinks = adapters.map(
@@ -178,13 +207,25 @@ describe('KafkaBridge', () => {
     // Source: Apache Kafka documentation, consumer offset management: the committed offset is the
     // next offset to read, last processed + 1.
     expect(consumer.lastCommit(0)).toBe('3');
-    expect(bridge.snapshot().partitions[0]).toMatchObject({ committed: '3', durable: '3', lastSeen: '2', lagMessages: 0, pendingMessages: 0 });
+    expect(bridge.snapshot().partitions[0]).toMatchObject({
+      committed: '3',
+      durable: '3',
+      lastSeen: '2',
+      lagMessages: 0,
+      pendingMessages: 0,
+    });
   });
 
   it('never commits past a record still in flight, even when a later batch finishes first', async () => {
     const consumer = new FakeConsumer();
     const adapter = new GatedAdapter();
-    const sink = new Sink(adapter, { maxRecords: 2, maxAgeMs: 60_000, idleMs: 0, concurrency: 2, orderingKey: () => undefined });
+    const sink = new Sink(adapter, {
+      maxRecords: 2,
+      maxAgeMs: 60_000,
+      idleMs: 0,
+      concurrency: 2,
+      orderingKey: () => undefined,
+    });
     const bridge = new KafkaBridge<{ n: number }>({
       consumer: consumer as unknown as Consumer,
       topics: [TOPIC],
@@ -232,7 +273,11 @@ describe('KafkaBridge', () => {
     // partition 0 pauses. The batch is taken whole: kafkajs fetches from 4 after the resume.
     expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(true);
     expect(consumer.resolved.get(0)).toBe('3');
-    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)).toMatchObject({ paused: true, heldMessages: 2, pendingMessages: 4 });
+    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)).toMatchObject({
+      paused: true,
+      heldMessages: 2,
+      pendingMessages: 4,
+    });
     // A batch fetched before the pause is left unresolved for kafkajs to fetch again.
     await consumer.deliver(0, 4, ['4']);
     expect(consumer.resolved.get(0)).toBe('3');
@@ -243,7 +288,10 @@ describe('KafkaBridge', () => {
     await tick();
     await tick();
     expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(false);
-    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)).toMatchObject({ paused: false, heldMessages: 0 });
+    expect(bridge.snapshot().partitions.find((p) => p.partition === 0)).toMatchObject({
+      paused: false,
+      heldMessages: 0,
+    });
     await consumer.deliver(0, 4, ['4']);
     await flushAcking(sinks, adapters);
     await bridge.commit();
@@ -357,16 +405,29 @@ describe('KafkaBridge', () => {
     const f = sinks[0]!.flush();
     adapters[0]!.releaseAll();
     await f;
-    consumer.commitError = Object.assign(new Error('not the current generation'), { type: 'ILLEGAL_GENERATION' });
+    consumer.commitError = Object.assign(new Error('not the current generation'), {
+      type: 'ILLEGAL_GENERATION',
+    });
     await expect(bridge.commit()).resolves.toBeUndefined();
     consumer.commitError = Object.assign(new Error('denied'), { type: 'GROUP_AUTHORIZATION_FAILED' });
-    await expect(bridge.commit()).rejects.toMatchObject({ code: 'SPILLWAY_STORE_ERROR', driverCode: 'GROUP_AUTHORIZATION_FAILED' });
+    await expect(bridge.commit()).rejects.toMatchObject({
+      code: 'SPILLWAY_STORE_ERROR',
+      driverCode: 'GROUP_AUTHORIZATION_FAILED',
+    });
     expect(bridge.snapshot().commitErrors).toBe(2);
   });
 
   it('rejects bad options with a TypeError that names the option', () => {
-    const base = { consumer: new FakeConsumer() as unknown as Consumer, topics: [TOPIC], decode: () => 1, route: () => undefined, deadLetter: { write: async () => undefined } };
-    expect(() => new KafkaBridge({ ...base, commitIntervalMs: -5 })).toThrow(/Expected `commitIntervalMs` to be a finite number > 0, got `-5`/);
+    const base = {
+      consumer: new FakeConsumer() as unknown as Consumer,
+      topics: [TOPIC],
+      decode: () => 1,
+      route: () => undefined,
+      deadLetter: { write: async () => undefined },
+    };
+    expect(() => new KafkaBridge({ ...base, commitIntervalMs: -5 })).toThrow(
+      /Expected `commitIntervalMs` to be a finite number > 0, got `-5`/,
+    );
     expect(() => new KafkaBridge({ ...base, topics: [] })).toThrow(/`topics`/);
     expect(() => new KafkaBridge({ ...base, deadLetter: undefined as never })).toThrow(/`deadLetter`/);
     expect(() => new KafkaBridge({ ...base, consumer: undefined })).toThrow(/`kafka`/);

@@ -5,11 +5,11 @@
 // Run: TSX_TSCONFIG_PATH=test/integration/workers/tsconfig.json node --import tsx \
 //        test/integration/workers/bridge-worker.ts   with BRIDGE_WORKER='{"brokers":[…],…}'
 // Prints one JSON object per line on stdout: {"event":"ready"|"assign"|"stats"|"commit", …}.
-import { Sink, fileDeadLetter, installShutdown } from '@spillway/core';
+import { fileDeadLetter, installShutdown, Sink } from '@spillway/core';
 import { KafkaBridge } from '@spillway/kafka';
 import { Kafka, logLevel } from 'kafkajs';
 import pg from 'pg';
-import { type DockRow, type WriteMode, decodeDockEvent, pgRowsAdapter } from './dock-rows.js';
+import { type DockRow, decodeDockEvent, pgRowsAdapter, type WriteMode } from './dock-rows.js';
 
 export interface WorkerConfig {
   label: string;
@@ -26,9 +26,15 @@ export interface WorkerConfig {
 }
 
 const config = JSON.parse(process.env.BRIDGE_WORKER ?? '{}') as WorkerConfig;
-const out = (event: string, data: Record<string, unknown> = {}) => process.stdout.write(`${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`);
+const out = (event: string, data: Record<string, unknown> = {}) =>
+  process.stdout.write(
+    `${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`,
+  );
 
-const shutdown = installShutdown({ timeoutMs: 20_000, log: (line) => process.stderr.write(`[${config.label}] ${line}\n`) });
+const shutdown = installShutdown({
+  timeoutMs: 20_000,
+  log: (line) => process.stderr.write(`[${config.label}] ${line}\n`),
+});
 const pool = new pg.Pool({ connectionString: config.pgUrl, max: config.tables.length + 1 });
 pool.on('error', () => undefined);
 
@@ -48,7 +54,12 @@ const bridge = new KafkaBridge<DockRow>({
   kafka,
   groupId: config.groupId,
   // Short group timers so a rebalance takes about a second; the flush deadline stays well under them.
-  consumerConfig: { sessionTimeout: 10_000, rebalanceTimeout: 20_000, heartbeatInterval: 500, maxWaitTimeInMs: 200 },
+  consumerConfig: {
+    sessionTimeout: 10_000,
+    rebalanceTimeout: 20_000,
+    heartbeatInterval: 500,
+    maxWaitTimeInMs: 200,
+  },
   topics: [config.topic],
   fromBeginning: true,
   decode: decodeDockEvent,
@@ -67,7 +78,13 @@ bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Er
 
 const printStats = () => {
   const s = bridge.snapshot();
-  out('stats', { messages: s.messages, commits: s.commits, skipped: s.skippedRedeliveries, flushes: s.rebalanceFlushes, flushTimeouts: s.rebalanceFlushTimeouts });
+  out('stats', {
+    messages: s.messages,
+    commits: s.commits,
+    skipped: s.skippedRedeliveries,
+    flushes: s.rebalanceFlushes,
+    flushTimeouts: s.rebalanceFlushTimeouts,
+  });
 };
 const stats = setInterval(printStats, 500);
 stats.unref();

@@ -43,7 +43,11 @@ export function decodeDockEvent(message: KafkaMessage, source: KafkaSource): Doc
 }
 
 /** Insert mode keeps every copy (duplicates are counted); upsert mode keys on `seq`. */
-export async function createDockTable(pool: pg.Pool | pg.Client, table: string, mode: WriteMode): Promise<void> {
+export async function createDockTable(
+  pool: pg.Pool | pg.Client,
+  table: string,
+  mode: WriteMode,
+): Promise<void> {
   await pool.query(
     `CREATE TABLE ${table} (
        seq bigint NOT NULL${mode === 'upsert' ? ' PRIMARY KEY' : ''},
@@ -64,7 +68,12 @@ export interface RowsAdapterHooks {
  * The dock-status table through @spillway/postgres (insert mode keeps every copy; upsert keys on
  * `seq`), reporting each acknowledged batch to `hooks.onDurable`.
  */
-export function pgRowsAdapter(pool: pg.Pool, table: string, mode: WriteMode | 'copy', hooks: RowsAdapterHooks = {}): SinkAdapter<DockRow> {
+export function pgRowsAdapter(
+  pool: pg.Pool,
+  table: string,
+  mode: WriteMode | 'copy',
+  hooks: RowsAdapterHooks = {},
+): SinkAdapter<DockRow> {
   const inner = postgresAdapter<DockRow>({
     pool,
     table,
@@ -76,11 +85,13 @@ export function pgRowsAdapter(pool: pg.Pool, table: string, mode: WriteMode | 'c
   if (!hooks.onDurable) return inner;
   return {
     kind: inner.kind,
-    async write(batch: Batch<DockRow>): Promise<void | PartialWrite> {
+    async write(batch: Batch<DockRow>): Promise<PartialWrite | undefined> {
       const outcome = await inner.write(batch);
       const rejected = new Set((outcome?.rejected ?? []).map((r) => r.index));
-      hooks.onDurable?.(rejected.size === 0 ? batch.records : batch.records.filter((_, i) => !rejected.has(i)));
-      return outcome;
+      hooks.onDurable?.(
+        rejected.size === 0 ? batch.records : batch.records.filter((_, i) => !rejected.has(i)),
+      );
+      return outcome ?? undefined;
     },
     classify: (error) => inner.classify(error),
     estimateBytes: (r) => inner.estimateBytes(r),

@@ -1,8 +1,8 @@
 // The test side of bridge-worker.ts: spawns a worker process, follows its JSON lines, and stops it
 // with SIGTERM (graceful) or SIGKILL.
 import { type ChildProcess, spawn } from 'node:child_process';
-import { fileURLToPath } from 'node:url';
 import { createInterface } from 'node:readline';
+import { fileURLToPath } from 'node:url';
 import type { WorkerConfig } from './bridge-worker.js';
 
 const script = fileURLToPath(new URL('./bridge-worker.ts', import.meta.url));
@@ -55,7 +55,9 @@ export function startWorker(config: WorkerConfig): Worker {
       }
     }
   });
-  const exited = new Promise<{ code: number | null; signal: NodeJS.Signals | null }>((resolve) => child.once('exit', (code, signal) => resolve({ code, signal })));
+  const exited = new Promise<{ code: number | null; signal: NodeJS.Signals | null }>((resolve) =>
+    child.once('exit', (code, signal) => resolve({ code, signal })),
+  );
   return {
     label: config.label,
     child,
@@ -68,7 +70,13 @@ export function startWorker(config: WorkerConfig): Worker {
       const seen = lines.find(match);
       if (seen) return Promise.resolve(seen);
       return new Promise<WorkerLine>((resolve, reject) => {
-        const w = { match, resolve: (l: WorkerLine) => (clearTimeout(timer), resolve(l)) };
+        const w = {
+          match,
+          resolve: (l: WorkerLine) => {
+            clearTimeout(timer);
+            resolve(l);
+          },
+        };
         const timer = setTimeout(() => {
           waiters.delete(w);
           reject(new Error(`worker ${config.label}: timed out waiting for ${what}\n${err.slice(-3000)}`));
@@ -78,7 +86,11 @@ export function startWorker(config: WorkerConfig): Worker {
           if (!waiters.has(w)) return;
           waiters.delete(w);
           clearTimeout(timer);
-          reject(new Error(`worker ${config.label} exited (${code ?? signal}) while waiting for ${what}\n${err.slice(-3000)}`));
+          reject(
+            new Error(
+              `worker ${config.label} exited (${code ?? signal}) while waiting for ${what}\n${err.slice(-3000)}`,
+            ),
+          );
         });
       });
     },
