@@ -16,6 +16,7 @@ export type {
   SinkEvents,
   SinkEventName,
   SinkSnapshot,
+  SinkCounters,
   Distribution,
 } from './types.js';
 export { FLUSH_REASONS } from './types.js';

@@ -1,7 +1,8 @@
 /**
  * Per-partition durable progress. Offsets are tracked in the order they were received; the commit
  * point advances only over a contiguous prefix of finished offsets, so batches that finish out of
- * order never move it past an unfinished record. O(1) amortised per offset.
+ * order never move it past an unfinished record. O(1) amortised per offset when records finish
+ * in order, O(log n) for one that finishes ahead of n unfinished ones.
  */
 
 interface Slot {
@@ -10,20 +11,9 @@ interface Slot {
   open: number;
 }
 
-const MAX_SAFE = BigInt(Number.MAX_SAFE_INTEGER);
-
-/**
- * Map key of an offset: a number when it fits (Kafka offsets practically always do), since a
- * Map hashes bigint keys several times slower than numbers and this runs per record.
- */
-function slotKey(offset: bigint): number | bigint {
-  return offset <= MAX_SAFE && offset >= -MAX_SAFE ? Number(offset) : offset;
-}
-
 class PartitionProgress {
   private queue: Slot[] = [];
   private head = 0;
-  private byOffset = new Map<number | bigint, Slot>();
   /** Next offset to read: last finished contiguous offset + 1. */
   next: bigint | undefined;
   lastTracked: bigint | undefined;
@@ -41,21 +31,40 @@ class PartitionProgress {
       // Nothing to wait for: done at once, but only after every earlier offset.
       const slot = { offset, open: 0 };
       this.queue.push(slot);
-      this.byOffset.set(slotKey(offset), slot);
       this.advance();
       return true;
     }
     const slot = { offset, open: count };
     this.queue.push(slot);
-    this.byOffset.set(slotKey(offset), slot);
     return true;
   }
 
   complete(offset: bigint, count: number): void {
-    const slot = this.byOffset.get(slotKey(offset));
+    const slot = this.find(offset);
     if (!slot) return;
     slot.open -= count;
     if (slot.open <= 0) this.advance();
+  }
+
+  /**
+   * The unfinished slot of `offset`. The queue holds strictly increasing offsets, so no map is
+   * needed (a per-record Map insert, lookup and delete cost more than this search): completions
+   * mostly come in order and hit the oldest slot; others are found by binary search.
+   */
+  private find(offset: bigint): Slot | undefined {
+    const q = this.queue;
+    let lo = this.head;
+    let hi = q.length - 1;
+    if (lo > hi) return undefined;
+    if (q[lo]!.offset === offset) return q[lo];
+    while (lo <= hi) {
+      const mid = (lo + hi) >>> 1;
+      const slot = q[mid]!;
+      if (slot.offset === offset) return slot;
+      if (slot.offset < offset) lo = mid + 1;
+      else hi = mid - 1;
+    }
+    return undefined;
   }
 
   private advance(): void {
@@ -63,7 +72,6 @@ class PartitionProgress {
       const slot = this.queue[this.head]!;
       if (slot.open > 0) break;
       this.next = slot.offset + 1n;
-      this.byOffset.delete(slotKey(slot.offset));
       this.head++;
     }
     if (this.head > 1024 && this.head * 2 > this.queue.length) {

@@ -25,6 +25,7 @@ import {
   type SinkAdapter,
   type SinkEventName,
   type SinkEvents,
+  type SinkCounters,
   type SinkSnapshot,
   type SinkState,
 } from './types.js';
@@ -842,9 +843,9 @@ export class Sink<T> {
     this.events.emit(event, payload);
   }
 
-  snapshot(): SinkSnapshot {
+  /** The gauges and counters of `snapshot()` without the distributions: cheap enough per record. */
+  counters(): SinkCounters {
     const now = this.o.clock.now();
-    const h = this.h;
     return {
       name: this.name,
       kind: this.kind,
@@ -865,6 +866,14 @@ export class Sink<T> {
       flushes: { ...this.flushes },
       backpressureWaits: this.backpressureWaits,
       backpressureWaitMsTotal: this.backpressureWaitMsTotal,
+    };
+  }
+
+  /** Gauges, counters and distributions (summarising the histograms costs about a millisecond). */
+  snapshot(): SinkSnapshot {
+    const h = this.h;
+    return {
+      ...this.counters(),
       batchRecords: h.batchRecords.summary(),
       batchBytes: h.batchBytes.summary(),
       flushDurationMs: h.flushDurationMs.summary(),

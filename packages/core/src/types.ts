@@ -132,8 +132,8 @@ export interface Distribution {
   max: number;
 }
 
-/** A point-in-time view of one sink. Counters only grow; gauges are the state now. */
-export interface SinkSnapshot {
+/** The gauges and counters of one sink. Counters only grow; gauges are the state now. */
+export interface SinkCounters {
   name: string;
   kind: string;
   state: SinkState;
@@ -155,7 +155,10 @@ export interface SinkSnapshot {
   flushes: Record<FlushReason, number>;
   backpressureWaits: number;
   backpressureWaitMsTotal: number;
-  // distributions
+}
+
+/** A point-in-time view of one sink: `SinkCounters` plus distributions. */
+export interface SinkSnapshot extends SinkCounters {
   batchRecords: Distribution;
   batchBytes: Distribution;
   flushDurationMs: Distribution;

@@ -137,3 +137,16 @@ describe('flush triggers', () => {
     expect(flushes).toMatchObject({ size: 1, age: 1, manual: 1, idle: 0 });
   });
 });
+
+describe('counters()', () => {
+  it('gives the gauges and counters of snapshot() without the distributions', async () => {
+    const { sink } = setup({ maxRecords: 3 });
+    for (let i = 0; i < 7; i++) await sink.write(i);
+    await sink.flush();
+    const { batchRecords, batchBytes, flushDurationMs, acceptToDurableMs, eventToDurableMs, slotWaitMs, backpressureWaitMs, ...rest } =
+      sink.snapshot();
+    expect(sink.counters()).toEqual(rest);
+    expect(batchRecords.count).toBe(3);
+    expect(rest).toMatchObject({ accepted: 7, written: 7, batches: 3 });
+  });
+});
