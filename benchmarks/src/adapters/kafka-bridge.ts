@@ -8,7 +8,7 @@
 // bridge), so group-join time is left out of all three alike. The order of the three rotates per
 // repeat. Target: bridge ≥ 0.8 × min(source, store).
 // Run: npx tsc --build && node benchmarks/dist/adapters/kafka-bridge.js
-//      [--messages 200000] [--repeats 3] [--partitions 6] [--batch 5000]
+//      [--messages 200000] [--repeats 3] [--partitions 6] [--batch 5000] [--fetch-bytes 0]
 //      SPILLWAY_KAFKA_BROKERS (default: a private broker started through the test harness),
 //      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test).
 // Nothing here asserts a time: it prints samples, medians, spreads and ratios.
@@ -35,12 +35,15 @@ const { values: flags } = parseArgs({
     repeats: { type: 'string', default: '3' },
     partitions: { type: 'string', default: '6' },
     batch: { type: 'string', default: '5000' },
+    // kafkajs' maxBytesPerPartition for both consumers; 0 keeps kafkajs' default (1 MiB).
+    'fetch-bytes': { type: 'string', default: '0' },
   },
 });
 const MESSAGES = Number(flags.messages);
 const REPEATS = Number(flags.repeats);
 const PARTITIONS = Number(flags.partitions);
 const BATCH = Number(flags.batch);
+const FETCH_BYTES = Number(flags['fetch-bytes']);
 const PG_URL = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
 // SPILLWAY_KAFKA_BROKERS, or a private broker started for this run.
 const broker = await kafkaBrokers();
@@ -51,7 +54,12 @@ const SCHEMA = `spillway_bench_bridge_${tag}`;
 const TABLE = 'dock_status';
 
 const kafka = new Kafka({ clientId: `bench-${tag}`, brokers: BROKERS, logLevel: logLevel.NOTHING });
-const consumerConfig = { sessionTimeout: 30_000, heartbeatInterval: 3000, maxWaitTimeInMs: 100 };
+const consumerConfig = {
+  sessionTimeout: 30_000,
+  heartbeatInterval: 3000,
+  maxWaitTimeInMs: 100,
+  ...(FETCH_BYTES > 0 ? { maxBytesPerPartition: FETCH_BYTES } : {}),
+};
 const pool = new pg.Pool({ connectionString: PG_URL, max: 4, options: `-c search_path=${SCHEMA}` });
 pool.on('error', () => undefined);
 
@@ -232,6 +240,7 @@ async function main(): Promise<void> {
         repeats: REPEATS,
         partitions: PARTITIONS,
         batch: BATCH,
+        fetchBytesPerPartition: FETCH_BYTES || 'kafkajs default',
         mode: 'copy',
       }),
     );
