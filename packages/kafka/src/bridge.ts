@@ -26,7 +26,6 @@ import {
   type DecodeFailure,
   decodeDeadLetterAdapter,
   type KafkaSource,
-  runDecoder,
   undecodable,
 } from './decode.js';
 
@@ -422,7 +421,9 @@ export class KafkaBridge<R> {
         continue;
       }
       const meta = new MessageMeta(st, offset, Number(m.timestamp), now);
-      const { record, sinks } = this.decodeAndRoute(m, source);
+      this.decodeAndRoute(m, source);
+      const record = this.routedRecord;
+      const sinks = this.routedSinks;
       this.tracker.track(st.key, offset, sinks.length);
       st.next = offset + 1n;
       st.lastSeen = offset;
@@ -450,24 +451,43 @@ export class KafkaBridge<R> {
     if (last !== undefined) resolveOffset(last);
   }
 
-  private decodeAndRoute(m: KafkaMessage, source: KafkaSource): { record: unknown; sinks: AnySink[] } {
-    const decoded = runDecoder(this.o.decode, m, source);
+  // decodeAndRoute() leaves its result here rather than in a new object per message.
+  private routedRecord: unknown;
+  private routedSinks: AnySink[] = NO_SINKS;
+
+  /** Decodes and routes one message into `routedRecord` / `routedSinks`. */
+  private decodeAndRoute(m: KafkaMessage, source: KafkaSource): void {
     let failure: DecodeError;
-    if (decoded.ok) {
+    let record: R | DecodeError;
+    try {
+      record = this.o.decode(m, source);
+    } catch (error) {
+      record =
+        error instanceof DecodeError
+          ? error
+          : new DecodeError(`decoder threw: ${messageOf(error)}`, { cause: error });
+    }
+    if (!(record instanceof DecodeError)) {
       try {
-        const route = this.o.route(decoded.record, source);
-        if (route == null) return { record: decoded.record, sinks: NO_SINKS };
+        const route = this.o.route(record, source);
+        this.routedRecord = record;
+        if (route == null) {
+          this.routedSinks = NO_SINKS;
+          return;
+        }
         const list = (Array.isArray(route) ? route : [route]) as AnySink[];
         for (const sink of list) this.watch(sink);
         // The bridge never mutates a route list, so the router's own array can be used as is.
-        return { record: decoded.record, sinks: hasDuplicates(list) ? [...new Set(list)] : list };
+        this.routedSinks = hasDuplicates(list) ? [...new Set(list)] : list;
+        return;
       } catch (error) {
         failure = new DecodeError(`route() threw: ${messageOf(error)}`, { cause: error });
       }
-    } else failure = decoded.error;
+    } else failure = record;
     this.counts.undecodable++;
-    const record: DecodeFailure = { message: undecodable(m, source), error: failure };
-    return { record, sinks: [this.decodeSink] };
+    const letter: DecodeFailure = { message: undecodable(m, source), error: failure };
+    this.routedRecord = letter;
+    this.routedSinks = [this.decodeSink];
   }
 
   /** Writes to each sink in turn; returns the sinks that had no room (the first of them and after). */

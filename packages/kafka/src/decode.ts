@@ -70,27 +70,6 @@ function copyHeaders(headers: IHeaders | undefined): Record<string, Buffer | str
   return out;
 }
 
-/** Runs a decoder; a throw or a returned `DecodeError` both mean "undecodable". */
-export function runDecoder<R>(
-  decode: (message: KafkaMessage, source: KafkaSource) => R | DecodeError,
-  message: KafkaMessage,
-  source: KafkaSource,
-): { ok: true; record: R } | { ok: false; error: DecodeError } {
-  try {
-    const out = decode(message, source);
-    if (out instanceof DecodeError) return { ok: false, error: out };
-    return { ok: true, record: out };
-  } catch (error) {
-    if (error instanceof DecodeError) return { ok: false, error };
-    return {
-      ok: false,
-      error: new DecodeError(`decoder threw: ${error instanceof Error ? error.message : String(error)}`, {
-        cause: error,
-      }),
-    };
-  }
-}
-
 /** What the bridge buffers for one undecodable message. */
 export interface DecodeFailure {
   readonly message: UndecodableMessage;
