@@ -209,7 +209,8 @@ async function main(): Promise<void> {
   await admin.connect();
   const setup = new pg.Client({ connectionString: PG_URL });
   await setup.connect();
-  const version = (await setup.query<{ v: string }>("SELECT current_setting('server_version') AS v")).rows[0]!.v;
+  const versionSql = "SELECT current_setting('server_version') AS v";
+  const version = (await setup.query<{ v: string }>(versionSql)).rows[0]!.v;
   await setup.query(`CREATE SCHEMA ${SCHEMA}`);
   await setup.query(
     `CREATE TABLE ${SCHEMA}.${TABLE} (seq bigint NOT NULL, dock text NOT NULL, bikes int NOT NULL, empty_slots int NOT NULL)`,
