@@ -81,7 +81,10 @@ export class ManualClock implements Clock {
     for (;;) {
       let next: ManualTimer | undefined;
       for (const timer of this.timers.values()) {
-        if (timer.at <= end && (!next || timer.at < next.at || (timer.at === next.at && timer.seq < next.seq))) {
+        if (
+          timer.at <= end &&
+          (!next || timer.at < next.at || (timer.at === next.at && timer.seq < next.seq))
+        ) {
           next = timer;
         }
       }

@@ -30,7 +30,10 @@ export interface DeadLetterLine {
 }
 
 /** The JSON form of a dead letter, as written to files and as sent to a dead-letter sink. */
-export function deadLetterLine<T>(letter: DeadLetter<T>, serialize: (record: T) => unknown = (r) => r): DeadLetterLine {
+export function deadLetterLine<T>(
+  letter: DeadLetter<T>,
+  serialize: (record: T) => unknown = (r) => r,
+): DeadLetterLine {
   const err = letter.error;
   return {
     time: new Date(letter.time).toISOString(),
@@ -39,7 +42,8 @@ export function deadLetterLine<T>(letter: DeadLetter<T>, serialize: (record: T) 
     code: err instanceof SpillwayError ? err.code : undefined,
     driverCode: driverCodeOf(err),
     error: messageOf(err),
-    details: err instanceof SpillwayError && Object.keys(err.details).length > 0 ? { ...err.details } : undefined,
+    details:
+      err instanceof SpillwayError && Object.keys(err.details).length > 0 ? { ...err.details } : undefined,
     meta: letter.meta ? metaJson(letter.meta) : undefined,
     record: serialize(letter.record),
   };
@@ -54,7 +58,12 @@ function metaJson(meta: RecordMeta): Record<string, unknown> {
 /** JSON.stringify replacer: Buffers and byte arrays as base64, bigints as strings. */
 function replacer(_key: string, value: unknown): unknown {
   if (typeof value === 'bigint') return value.toString();
-  if (value && typeof value === 'object' && (value as { type?: unknown }).type === 'Buffer' && Array.isArray((value as { data?: unknown }).data)) {
+  if (
+    value &&
+    typeof value === 'object' &&
+    (value as { type?: unknown }).type === 'Buffer' &&
+    Array.isArray((value as { data?: unknown }).data)
+  ) {
     return { base64: Buffer.from((value as { data: number[] }).data).toString('base64') };
   }
   if (value instanceof Uint8Array) return { base64: Buffer.from(value).toString('base64') };
@@ -100,7 +109,9 @@ export class FileDeadLetter<T = unknown> implements DeadLetterTarget<T> {
 
   write(letters: readonly DeadLetter<T>[]): Promise<void> {
     const run = this.tail.then(async () => {
-      const text = letters.map((l) => `${JSON.stringify(deadLetterLine(l, this.serialize), replacer)}\n`).join('');
+      const text = letters
+        .map((l) => `${JSON.stringify(deadLetterLine(l, this.serialize), replacer)}\n`)
+        .join('');
       const fh = await this.file();
       await fh.appendFile(text, 'utf8');
       if (this.fsync) await fh.sync();
@@ -122,7 +133,10 @@ export class FileDeadLetter<T = unknown> implements DeadLetterTarget<T> {
   }
 }
 
-export function fileDeadLetter<T = unknown>(path: string, options?: FileDeadLetterOptions<T>): FileDeadLetter<T> {
+export function fileDeadLetter<T = unknown>(
+  path: string,
+  options?: FileDeadLetterOptions<T>,
+): FileDeadLetter<T> {
   return new FileDeadLetter<T>(path, options);
 }
 
@@ -136,7 +150,10 @@ export interface DeadLetterSinkLike {
  * Uses another sink as the dead-letter target: each dead letter is written to it as a
  * `DeadLetterLine`, and the write resolves only when that sink has made them durable.
  */
-export function sinkDeadLetter<T>(target: DeadLetterSinkLike, serialize?: (record: T) => unknown): DeadLetterTarget<T> {
+export function sinkDeadLetter<T>(
+  target: DeadLetterSinkLike,
+  serialize?: (record: T) => unknown,
+): DeadLetterTarget<T> {
   return {
     async write(letters) {
       // No meta: the source coordinates travel inside the line, and must not drive the target's progress.

@@ -42,4 +42,11 @@ export type { FileDeadLetterOptions, DeadLetterLine, DeadLetterSinkLike } from '
 export { toWritable, pipeInto } from './writable.js';
 export type { WritableOptions } from './writable.js';
 export { ShutdownCoordinator, installShutdown, SHUTDOWN_STAGES } from './shutdown.js';
-export type { ShutdownOptions, ShutdownStage, ShutdownStep, ShutdownReport, StepContext, ClosableSink } from './shutdown.js';
+export type {
+  ShutdownOptions,
+  ShutdownStage,
+  ShutdownStep,
+  ShutdownReport,
+  StepContext,
+  ClosableSink,
+} from './shutdown.js';

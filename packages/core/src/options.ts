@@ -197,33 +197,54 @@ export function defaultOrderingKey(_record: unknown, meta: RecordMeta | undefine
 }
 
 /** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
-export function resolveOptions<T>(options: SinkOptions<T> | undefined, adapterKind: string): ResolvedOptions<T> {
+export function resolveOptions<T>(
+  options: SinkOptions<T> | undefined,
+  adapterKind: string,
+): ResolvedOptions<T> {
   const o = (options ?? {}) as Record<string, unknown>;
   if (typeof o !== 'object' || o === null) throw invalidOption('options', 'an object', options);
   for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key) && o[key] !== undefined) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
+    if (!KNOWN.has(key) && o[key] !== undefined)
+      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
   }
   const name = o.name === undefined ? adapterKind : o.name;
-  if (typeof name !== 'string' || name.length === 0) throw invalidOption('name', 'a non-empty string', o.name);
+  if (typeof name !== 'string' || name.length === 0)
+    throw invalidOption('name', 'a non-empty string', o.name);
 
   const maxRecords = numberOption('maxRecords', o.maxRecords, DEFAULTS.maxRecords, { min: 1, integer: true });
   const maxBytes = numberOption('maxBytes', o.maxBytes, DEFAULTS.maxBytes, { min: 1, integer: true });
   const maxAgeMs = numberOption('maxAgeMs', o.maxAgeMs, DEFAULTS.maxAgeMs, { min: 0, exclusiveMin: true });
   const idleMs = numberOption('idleMs', o.idleMs, DEFAULTS.idleMs, { min: 0 });
-  const concurrency = numberOption('concurrency', o.concurrency, DEFAULTS.concurrency, { min: 1, integer: true });
-  const maxPendingRecords = numberOption('maxPendingRecords', o.maxPendingRecords, maxRecords * (concurrency + 2), {
+  const concurrency = numberOption('concurrency', o.concurrency, DEFAULTS.concurrency, {
     min: 1,
     integer: true,
   });
+  const maxPendingRecords = numberOption(
+    'maxPendingRecords',
+    o.maxPendingRecords,
+    maxRecords * (concurrency + 2),
+    {
+      min: 1,
+      integer: true,
+    },
+  );
   if (maxPendingRecords < maxRecords) {
-    throw invalidOption('maxPendingRecords', `an integer >= maxRecords (${maxRecords}), a bound of at least one batch`, maxPendingRecords);
+    throw invalidOption(
+      'maxPendingRecords',
+      `an integer >= maxRecords (${maxRecords}), a bound of at least one batch`,
+      maxPendingRecords,
+    );
   }
   const maxPendingBytes = numberOption('maxPendingBytes', o.maxPendingBytes, maxBytes * (concurrency + 2), {
     min: 1,
     integer: true,
   });
   if (maxPendingBytes < maxBytes) {
-    throw invalidOption('maxPendingBytes', `an integer >= maxBytes (${maxBytes}), a bound of at least one batch`, maxPendingBytes);
+    throw invalidOption(
+      'maxPendingBytes',
+      `an integer >= maxBytes (${maxBytes}), a bound of at least one batch`,
+      maxPendingBytes,
+    );
   }
 
   const r = (o.retry ?? {}) as Record<string, unknown>;
@@ -243,7 +264,10 @@ export function resolveOptions<T>(options: SinkOptions<T> | undefined, adapterKi
   };
 
   const deadLetter = o.deadLetter as DeadLetterTarget<T> | undefined;
-  if (deadLetter !== undefined && (typeof deadLetter !== 'object' || deadLetter === null || typeof deadLetter.write !== 'function')) {
+  if (
+    deadLetter !== undefined &&
+    (typeof deadLetter !== 'object' || deadLetter === null || typeof deadLetter.write !== 'function')
+  ) {
     throw invalidOption('deadLetter', 'an object with a write(letters) method', deadLetter);
   }
   const clock = (o.clock ?? systemClock) as Clock;

@@ -3,7 +3,12 @@
  * counts retries from 0. Spreading delays over the whole interval keeps many clients that failed
  * together from retrying together.
  */
-export function fullJitterDelay(retry: number, baseMs: number, capMs: number, random: () => number = Math.random): number {
+export function fullJitterDelay(
+  retry: number,
+  baseMs: number,
+  capMs: number,
+  random: () => number = Math.random,
+): number {
   const ceiling = Math.min(capMs, baseMs * 2 ** retry);
   return random() * ceiling;
 }

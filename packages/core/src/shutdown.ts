@@ -82,7 +82,8 @@ export class ShutdownCoordinator {
 
   /** Registers a step; returns a function that unregisters it. */
   add(stage: ShutdownStage, name: string, run: ShutdownStep, pending?: () => PendingCounts): () => void {
-    if (!SHUTDOWN_STAGES.includes(stage)) throw invalidOption('stage', `one of ${SHUTDOWN_STAGES.join(', ')}`, stage);
+    if (!SHUTDOWN_STAGES.includes(stage))
+      throw invalidOption('stage', `one of ${SHUTDOWN_STAGES.join(', ')}`, stage);
     const step: Registered = pending ? { stage, name, run, pending } : { stage, name, run };
     this.steps.push(step);
     return () => {
@@ -93,8 +94,11 @@ export class ShutdownCoordinator {
 
   /** Registers a sink: closed in the `sinks` stage with the time that is left. */
   addSink(sink: ClosableSink): () => void {
-    return this.add('sinks', `sink ${sink.name}`, ({ remainingMs }) => sink.close({ timeoutMs: Math.max(1, remainingMs) }), () =>
-      sink.pending(),
+    return this.add(
+      'sinks',
+      `sink ${sink.name}`,
+      ({ remainingMs }) => sink.close({ timeoutMs: Math.max(1, remainingMs) }),
+      () => sink.pending(),
     );
   }
 
@@ -134,15 +138,32 @@ export class ShutdownCoordinator {
             const remainingMs = Math.max(0, deadline - started);
             try {
               if (remainingMs <= 0) {
-                throw new ShutdownTimeoutError(`shutdown step "${s.name}"`, this.timeoutMs, s.pending?.() ?? { buffered: 0, inFlight: 0, retrying: 0 });
+                throw new ShutdownTimeoutError(
+                  `shutdown step "${s.name}"`,
+                  this.timeoutMs,
+                  s.pending?.() ?? { buffered: 0, inFlight: 0, retrying: 0 },
+                );
               }
-              await withDeadline(Promise.resolve(s.run({ remainingMs, signal: stepAbort.signal })), remainingMs, () =>
-                new ShutdownTimeoutError(`shutdown step "${s.name}"`, this.timeoutMs, s.pending?.() ?? { buffered: 0, inFlight: 0, retrying: 0 }),
+              await withDeadline(
+                Promise.resolve(s.run({ remainingMs, signal: stepAbort.signal })),
+                remainingMs,
+                () =>
+                  new ShutdownTimeoutError(
+                    `shutdown step "${s.name}"`,
+                    this.timeoutMs,
+                    s.pending?.() ?? { buffered: 0, inFlight: 0, retrying: 0 },
+                  ),
               );
               report.steps.push({ stage, name: s.name, ok: true, ms: performance.now() - started });
             } catch (error) {
               report.ok = false;
-              report.steps.push({ stage, name: s.name, ok: false, ms: performance.now() - started, error: messageOf(error) });
+              report.steps.push({
+                stage,
+                name: s.name,
+                ok: false,
+                ms: performance.now() - started,
+                error: messageOf(error),
+              });
               this.log(`spillway: ${stage}: ${s.name} failed: ${messageOf(error)}`);
             }
           }),
@@ -153,7 +174,9 @@ export class ShutdownCoordinator {
     }
     report.durationMs = performance.now() - t0;
     report.exitCode = report.ok ? (signalNumber === undefined ? 0 : 128 + signalNumber) : 1;
-    this.log(`spillway: shutdown ${report.ok ? 'complete' : 'incomplete'} in ${Math.round(report.durationMs)} ms`);
+    this.log(
+      `spillway: shutdown ${report.ok ? 'complete' : 'incomplete'} in ${Math.round(report.durationMs)} ms`,
+    );
     return report;
   }
 }
@@ -185,11 +208,16 @@ let installed: ShutdownCoordinator | undefined;
 export function installShutdown(options: ShutdownOptions = {}): ShutdownCoordinator {
   if (installed) return installed;
   const signals = options.signals ?? ['SIGTERM', 'SIGINT'];
-  if (!Array.isArray(signals) || signals.length === 0) throw invalidOption('signals', 'a non-empty array of signal names', signals);
+  if (!Array.isArray(signals) || signals.length === 0)
+    throw invalidOption('signals', 'a non-empty array of signal names', signals);
   const numbers = constants.signals as Record<string, number | undefined>;
   for (const s of signals) {
     if (typeof s !== 'string' || numbers[s] === undefined || s === 'SIGKILL' || s === 'SIGSTOP') {
-      throw invalidOption('signals', 'signal names such as "SIGTERM" or "SIGINT" (SIGKILL and SIGSTOP cannot be caught)', s);
+      throw invalidOption(
+        'signals',
+        'signal names such as "SIGTERM" or "SIGINT" (SIGKILL and SIGSTOP cannot be caught)',
+        s,
+      );
     }
   }
   const exit = options.exit ?? true;

@@ -126,6 +126,10 @@ export class Sink<T> {
   private nextBatchId = 1;
   /** When a flush first became due without a free slot (or with every due key busy). */
   private slotWaitSince: number | undefined;
+  /** Age deadline of the oldest record that could go but is not due yet (see take()). */
+  private keyWaitAt: number | undefined;
+  /** Set by take() when it skipped busy keys: why the records it took are due. */
+  private takenReason: FlushReason | undefined;
 
   private timer: unknown;
   private timerAt = Number.POSITIVE_INFINITY;
@@ -141,7 +145,10 @@ export class Sink<T> {
   private batches = 0;
   private backpressureWaits = 0;
   private backpressureWaitMsTotal = 0;
-  private readonly flushes = Object.fromEntries(FLUSH_REASONS.map((r) => [r, 0])) as Record<FlushReason, number>;
+  private readonly flushes = Object.fromEntries(FLUSH_REASONS.map((r) => [r, 0])) as Record<
+    FlushReason,
+    number
+  >;
   private readonly h = {
     batchRecords: new Histogram(1),
     batchBytes: new Histogram(1),
@@ -184,7 +191,12 @@ export class Sink<T> {
     return this.enqueue(record, meta, options?.signal, undefined);
   }
 
-  private enqueue(record: T, meta: RecordMeta | undefined, signal: AbortSignal | undefined, barrier: Barrier | undefined): Promise<void> {
+  private enqueue(
+    record: T,
+    meta: RecordMeta | undefined,
+    signal: AbortSignal | undefined,
+    barrier: Barrier | undefined,
+  ): Promise<void> {
     const refused = this.refusal();
     if (refused) return Promise.reject(refused);
     const bytes = this.sizeOf(record);
@@ -229,7 +241,11 @@ export class Sink<T> {
   }
 
   /** Accepts a record and resolves once it is terminal, with its outcome. */
-  async writeDurable(record: T, meta?: RecordMeta, options?: WriteOptions): Promise<'durable' | 'dead-lettered'> {
+  async writeDurable(
+    record: T,
+    meta?: RecordMeta,
+    options?: WriteOptions,
+  ): Promise<'durable' | 'dead-lettered'> {
     let outcome: 'durable' | 'dead-lettered' = 'durable';
     let barrier: Barrier | undefined;
     const done = new Promise<void>((resolve, reject) => {
@@ -269,7 +285,13 @@ export class Sink<T> {
     return this.pendingRecords === 0 || this.pendingBytes + bytes <= this.o.maxPendingBytes;
   }
 
-  private accept(record: T, meta: RecordMeta | undefined, bytes: number, barrier: Barrier | undefined, at?: number): void {
+  private accept(
+    record: T,
+    meta: RecordMeta | undefined,
+    bytes: number,
+    barrier: Barrier | undefined,
+    at?: number,
+  ): void {
     const now = at ?? this.o.clock.now();
     const entry: Entry<T> = {
       record,
@@ -294,7 +316,13 @@ export class Sink<T> {
     else if (this.timer === undefined) this.arm();
   }
 
-  private wait(record: T, meta: RecordMeta | undefined, bytes: number, signal: AbortSignal | undefined, barrier: Barrier | undefined): Promise<void> {
+  private wait(
+    record: T,
+    meta: RecordMeta | undefined,
+    bytes: number,
+    signal: AbortSignal | undefined,
+    barrier: Barrier | undefined,
+  ): Promise<void> {
     if (signal?.aborted) return Promise.reject(new AbortedError('write()', signal.reason));
     return new Promise<void>((resolve, reject) => {
       const waiter: Waiter<T> = { record, meta, bytes, since: this.o.clock.now(), barrier, resolve, reject };
@@ -351,6 +379,7 @@ export class Sink<T> {
   private pump(): void {
     if (this.stateValue === 'failed') return;
     const now = this.o.clock.now();
+    this.keyWaitAt = undefined;
     for (;;) {
       const reason = this.dueReason(now);
       if (reason === undefined) {
@@ -361,20 +390,26 @@ export class Sink<T> {
         this.slotWaitSince ??= now;
         break;
       }
-      const entries = this.take();
+      this.takenReason = undefined;
+      const entries = this.take(reason, now);
       if (entries.length === 0) {
-        // Every buffered key has a batch in flight; its completion pumps again.
+        // The due records' keys have batches in flight (their completion pumps again), and what
+        // could go now is not itself due (`keyWaitAt` arms the timer for it).
         this.slotWaitSince ??= now;
         break;
       }
-      this.start(entries, reason, now);
+      this.start(entries, this.takenReason ?? reason, now);
     }
     this.arm();
   }
 
-  /** Takes the next batch from the buffer, skipping keys that have a batch in flight. */
-  private take(): Entry<T>[] {
-    const { maxRecords, maxBytes } = this.o;
+  /**
+   * Takes the next batch from the buffer, skipping keys that have a batch in flight. When keys are
+   * skipped, the records that could go must themselves be due (full, old, forced, or idle):
+   * otherwise a buffer held up by one busy key would leak out in tiny batches.
+   */
+  private take(reason: FlushReason, now: number): Entry<T>[] {
+    const { maxRecords, maxBytes, maxAgeMs } = this.o;
     const out: Entry<T>[] = [];
     let bytes = 0;
     if (this.lockedKeys.size === 0) {
@@ -402,6 +437,24 @@ export class Sink<T> {
         out.push(e);
         bytes += e.bytes;
         if (out.length >= maxRecords) full = true;
+      }
+      // The reason this smaller set of records is due, if it is.
+      const forced = out.find((e) => e.forced !== undefined)?.forced;
+      const due: FlushReason | undefined = forced
+        ? forced
+        : full
+          ? reason === 'bytes'
+            ? 'bytes'
+            : 'size'
+          : out.length > 0 && now - out[0]!.acceptedAt >= maxAgeMs
+            ? 'age'
+            : reason === 'idle'
+              ? 'idle'
+              : undefined;
+      this.takenReason = due;
+      if (!due) {
+        this.keyWaitAt = out.length > 0 ? out[0]!.acceptedAt + maxAgeMs : undefined;
+        return [];
       }
       this.buffer = rest;
       this.head = 0;
@@ -484,7 +537,14 @@ export class Sink<T> {
         const rejected = outcome?.rejected ?? [];
         if (rejected.length === 0) {
           this.settle(batch, current, 'durable');
-          this.emit('written', { sink: this.name, batchId: batch.id, records: current.length, bytes: sumBytes(current), durationMs, attempts: attempt });
+          this.emit('written', {
+            sink: this.name,
+            batchId: batch.id,
+            records: current.length,
+            bytes: sumBytes(current),
+            durationMs,
+            attempts: attempt,
+          });
           return;
         }
         // Some records landed, some did not: settle the landed ones first (the store acknowledged
@@ -507,7 +567,14 @@ export class Sink<T> {
         const landed = current.filter((_, i) => !refusedIdx.has(i));
         if (landed.length > 0) {
           this.settle(batch, landed, 'durable');
-          this.emit('written', { sink: this.name, batchId: batch.id, records: landed.length, bytes: sumBytes(landed), durationMs, attempts: attempt });
+          this.emit('written', {
+            sink: this.name,
+            batchId: batch.id,
+            records: landed.length,
+            bytes: sumBytes(landed),
+            durationMs,
+            attempts: attempt,
+          });
         }
         if (fatal) {
           this.fail(fatal.error);
@@ -547,7 +614,10 @@ export class Sink<T> {
         await this.deadLetter(batch, current, 'retries-exhausted', exhausted);
         return;
       }
-      const delayMs = Math.min(fullJitterDelay(attempt - 1, baseDelayMs, maxDelayMs), Math.max(0, maxElapsedMs - elapsed));
+      const delayMs = Math.min(
+        fullJitterDelay(attempt - 1, baseDelayMs, maxDelayMs),
+        Math.max(0, maxElapsedMs - elapsed),
+      );
       this.retries++;
       this.emit('retry', { sink: this.name, batchId: batch.id, attempt, delayMs, error });
       batch.retrying += current.length;
@@ -582,7 +652,12 @@ export class Sink<T> {
   }
 
   /** Hands records to the dead-letter target; false when that failed (the sink is then failed). */
-  private async deadLetter(batch: InFlight<T>, entries: Entry<T>[], reason: DeadLetterReason, error: unknown): Promise<boolean> {
+  private async deadLetter(
+    batch: InFlight<T>,
+    entries: Entry<T>[],
+    reason: DeadLetterReason,
+    error: unknown,
+  ): Promise<boolean> {
     const target = this.o.deadLetter;
     if (!target) {
       this.fail(
@@ -595,11 +670,24 @@ export class Sink<T> {
       return false;
     }
     const time = this.o.clock.wallNow();
-    const letters: DeadLetter<T>[] = entries.map((e) => ({ sink: this.name, record: e.record, meta: e.meta, reason, error, time }));
+    const letters: DeadLetter<T>[] = entries.map((e) => ({
+      sink: this.name,
+      record: e.record,
+      meta: e.meta,
+      reason,
+      error,
+      time,
+    }));
     try {
       await target.write(letters);
     } catch (e) {
-      this.fail(new SpillwayError('SPILLWAY_DEAD_LETTER_FAILED', `Dead-letter target of sink "${this.name}" failed: ${messageOf(e)}`, { cause: e }));
+      this.fail(
+        new SpillwayError(
+          'SPILLWAY_DEAD_LETTER_FAILED',
+          `Dead-letter target of sink "${this.name}" failed: ${messageOf(e)}`,
+          { cause: e },
+        ),
+      );
       return false;
     }
     this.settle(batch, entries, 'dead-lettered');
@@ -654,7 +742,12 @@ export class Sink<T> {
     this.inflightRecords -= entries.length;
     this.inflightBytes -= bytes;
     if (wantEvent) {
-      this.emit('settled', { sink: this.name, outcome, metas: entries.map((e) => e.meta), latenciesMs: latencies });
+      this.emit('settled', {
+        sink: this.name,
+        outcome,
+        metas: entries.map((e) => e.meta),
+        latenciesMs: latencies,
+      });
     }
     this.wake();
   }
@@ -683,13 +776,19 @@ export class Sink<T> {
       this.disarm();
       return;
     }
-    // When a batch is due but waiting for a slot, the slot's release pumps: no timer needed.
+    let at: number;
     if (this.slotWaitSince !== undefined) {
-      this.disarm();
-      return;
+      // A batch is due but waits for a slot or a busy key: their release pumps. Only records that
+      // could go now but are not yet due need the timer.
+      if (this.keyWaitAt === undefined || this.inflight.size >= this.o.concurrency) {
+        this.disarm();
+        return;
+      }
+      at = this.keyWaitAt;
+    } else {
+      at = this.buffer[this.head]!.acceptedAt + this.o.maxAgeMs;
+      if (this.o.idleMs > 0) at = Math.min(at, this.lastWriteAt + this.o.idleMs);
     }
-    let at = this.buffer[this.head]!.acceptedAt + this.o.maxAgeMs;
-    if (this.o.idleMs > 0) at = Math.min(at, this.lastWriteAt + this.o.idleMs);
     // An armed timer that fires no later is kept: a write never moves a deadline earlier.
     if (this.timer !== undefined && this.timerAt <= at) return;
     this.disarm();
@@ -770,7 +869,9 @@ export class Sink<T> {
     if (this.closing) return this.closing;
     const timeoutMs = options.timeoutMs ?? 30_000;
     if (!(typeof timeoutMs === 'number' && timeoutMs > 0)) {
-      return Promise.reject(new TypeError(`Expected \`timeoutMs\` to be a finite number > 0, got \`${String(timeoutMs)}\``));
+      return Promise.reject(
+        new TypeError(`Expected \`timeoutMs\` to be a finite number > 0, got \`${String(timeoutMs)}\``),
+      );
     }
     const wasFailed = this.stateValue === 'failed';
     if (!wasFailed) this.stateValue = 'closing';
@@ -783,7 +884,10 @@ export class Sink<T> {
       const all = this.flushWhere(() => true, 'shutdown');
       let timer: unknown;
       const deadline = new Promise<never>((_, reject) => {
-        timer = this.o.clock.setTimeout(() => reject(new ShutdownTimeoutError(`close() of sink "${this.name}"`, timeoutMs, this.pending())), timeoutMs);
+        timer = this.o.clock.setTimeout(
+          () => reject(new ShutdownTimeoutError(`close() of sink "${this.name}"`, timeoutMs, this.pending())),
+          timeoutMs,
+        );
       });
       try {
         await Promise.race([all, deadline]);

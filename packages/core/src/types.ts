@@ -98,9 +98,23 @@ export type SinkState = 'open' | 'closing' | 'closed' | 'failed';
 /** Event payloads, by event name. */
 export interface SinkEvents {
   /** A batch started. `slotWaitMs`: how long it was due before a free in-flight slot let it go. */
-  flush: { sink: string; batchId: number; reason: FlushReason; records: number; bytes: number; slotWaitMs: number };
+  flush: {
+    sink: string;
+    batchId: number;
+    reason: FlushReason;
+    records: number;
+    bytes: number;
+    slotWaitMs: number;
+  };
   /** A batch (or a part of a split batch) became durable. */
-  written: { sink: string; batchId: number; records: number; bytes: number; durationMs: number; attempts: number };
+  written: {
+    sink: string;
+    batchId: number;
+    records: number;
+    bytes: number;
+    durationMs: number;
+    attempts: number;
+  };
   /** A write failed and will be retried after `delayMs`. */
   retry: { sink: string; batchId: number; attempt: number; delayMs: number; error: unknown };
   /** Records went to the dead-letter target. */

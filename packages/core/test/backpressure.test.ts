@@ -11,7 +11,14 @@ function gatedSink(options: Record<string, unknown> = {}) {
     gates.push(g);
     return g.promise;
   };
-  const sink = new Sink(adapter, { maxRecords: 2, maxPendingRecords: 4, maxAgeMs: 100, idleMs: 0, clock, ...options });
+  const sink = new Sink(adapter, {
+    maxRecords: 2,
+    maxPendingRecords: 4,
+    maxAgeMs: 100,
+    idleMs: 0,
+    clock,
+    ...options,
+  });
   return { clock, adapter, sink, gates };
 }
 
@@ -79,7 +86,13 @@ describe('backpressure', () => {
   });
 
   it('bounds bytes as well as records', async () => {
-    const { sink } = gatedSink({ maxRecords: 100, maxPendingRecords: 100, maxBytes: 100, maxPendingBytes: 250, estimateBytes: () => 100 });
+    const { sink } = gatedSink({
+      maxRecords: 100,
+      maxPendingRecords: 100,
+      maxBytes: 100,
+      maxPendingBytes: 250,
+      estimateBytes: () => 100,
+    });
     expect([sink.tryWrite(1), sink.tryWrite(2), sink.tryWrite(3)]).toEqual([true, true, false]);
   });
 });

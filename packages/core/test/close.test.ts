@@ -56,7 +56,11 @@ describe('close()', () => {
     adapter.behave = () => {
       throw new Transient('connection refused');
     };
-    const sink = new Sink(adapter, { maxRecords: 2, clock, retry: { baseDelayMs: 10_000, maxDelayMs: 10_000 } });
+    const sink = new Sink(adapter, {
+      maxRecords: 2,
+      clock,
+      retry: { baseDelayMs: 10_000, maxDelayMs: 10_000 },
+    });
     await sink.write(1);
     await sink.write(2);
     await settle();

@@ -46,7 +46,16 @@ describe('file dead-letter target', () => {
     const path = join(dir, 'dead.ndjson');
     await writeFile(path, '', { mode: 0o644 });
     const target = fileDeadLetter<Buffer>(path);
-    await target.write([{ sink: 's', record: Buffer.from([0, 1, 255]), meta: undefined, reason: 'decode', error: new Error('bad bytes'), time: 0 }]);
+    await target.write([
+      {
+        sink: 's',
+        record: Buffer.from([0, 1, 255]),
+        meta: undefined,
+        reason: 'decode',
+        error: new Error('bad bytes'),
+        time: 0,
+      },
+    ]);
     await target.close();
     const line = JSON.parse((await readFile(path, 'utf8')).trim());
     expect(line.record).toEqual({ base64: Buffer.from([0, 1, 255]).toString('base64') });

@@ -68,7 +68,9 @@ describe('failures', () => {
     };
     for (let i = 0; i < n; i++) await sink.write(i);
     await clock.advance(100);
-    expect(deadLetter.letters.map((l) => l.record).sort((a, b) => a - b)).toEqual([...bad].sort((a, b) => a - b));
+    expect(deadLetter.letters.map((l) => l.record).sort((a, b) => a - b)).toEqual(
+      [...bad].sort((a, b) => a - b),
+    );
     expect(deadLetter.letters.every((l) => l.reason === 'rejected')).toBe(true);
     expect(adapter.stored).toHaveLength(n - bad.size);
     expect(new Set(adapter.stored).size).toBe(n - bad.size);
@@ -81,7 +83,14 @@ describe('failures', () => {
   it('dead-letters the records a partial write refused and keeps the ones that landed', async () => {
     const { clock, adapter, sink, deadLetter } = setup({ maxRecords: 5 });
     adapter.behave = (batch) =>
-      batch.attempt === 1 ? { rejected: [{ index: 1, error: new BadRecord('WRONGTYPE') }, { index: 3, error: new Transient('busy') }] } : undefined;
+      batch.attempt === 1
+        ? {
+            rejected: [
+              { index: 1, error: new BadRecord('WRONGTYPE') },
+              { index: 3, error: new Transient('busy') },
+            ],
+          }
+        : undefined;
     for (let i = 0; i < 5; i++) await sink.write(i * 10);
     await clock.advance(5000);
     expect(deadLetter.letters.map((l) => l.record)).toEqual([10]);
@@ -161,7 +170,9 @@ describe('failures', () => {
 describe('partial writes with a fatal refusal', () => {
   it('reports the records that landed as durable before stopping the sink', async () => {
     const { clock, adapter, sink } = setup({ maxRecords: 4 });
-    adapter.behave = () => ({ rejected: [{ index: 2, error: new Misconfigured('partition 9 does not exist') }] });
+    adapter.behave = () => ({
+      rejected: [{ index: 2, error: new Misconfigured('partition 9 does not exist') }],
+    });
     for (let i = 0; i < 4; i++) await sink.write(i);
     await clock.advance(10);
     expect(sink.state).toBe('failed');

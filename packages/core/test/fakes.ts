@@ -1,4 +1,11 @@
-import type { Batch, DeadLetter, DeadLetterTarget, ErrorClass, PartialWrite, SinkAdapter } from '../src/index.js';
+import type {
+  Batch,
+  DeadLetter,
+  DeadLetterTarget,
+  ErrorClass,
+  PartialWrite,
+  SinkAdapter,
+} from '../src/index.js';
 
 /** A transient error as a store would raise it. */
 export class Transient extends Error {
@@ -33,7 +40,12 @@ export class FakeAdapter<T> implements SinkAdapter<T> {
   now: () => number = () => 0;
 
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
-    this.calls.push({ records: [...batch.records], reason: batch.reason, attempt: batch.attempt, startedAt: this.now() });
+    this.calls.push({
+      records: [...batch.records],
+      reason: batch.reason,
+      attempt: batch.attempt,
+      startedAt: this.now(),
+    });
     this.inFlight++;
     this.maxInFlight = Math.max(this.maxInFlight, this.inFlight);
     try {

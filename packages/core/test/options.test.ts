@@ -9,14 +9,18 @@ describe('option validation', () => {
     expect(make({ maxRecords: 0 })).toThrow(TypeError);
     expect(make({ maxRecords: 0 })).toThrow(/^Expected `maxRecords` to be an integer >= 1, got `0`$/);
     expect(make({ maxAgeMs: -5 })).toThrow(/^Expected `maxAgeMs` to be a finite number > 0, got `-5`$/);
-    expect(make({ maxAgeMs: Number.NaN })).toThrow(/^Expected `maxAgeMs` to be a finite number > 0, got `NaN`$/);
+    expect(make({ maxAgeMs: Number.NaN })).toThrow(
+      /^Expected `maxAgeMs` to be a finite number > 0, got `NaN`$/,
+    );
     expect(make({ idleMs: '100' })).toThrow(/Expected `idleMs` to be a finite number >= 0, got `"100"`/);
     expect(make({ concurrency: 1.5 })).toThrow(/`concurrency` to be an integer/);
     expect(make({ retry: { maxAttempts: 0 } })).toThrow(/`retry.maxAttempts`/);
   });
 
   it('refuses pending bounds smaller than one batch', () => {
-    expect(make({ maxRecords: 100, maxPendingRecords: 50 })).toThrow(/`maxPendingRecords` to be an integer >= maxRecords \(100\)/);
+    expect(make({ maxRecords: 100, maxPendingRecords: 50 })).toThrow(
+      /`maxPendingRecords` to be an integer >= maxRecords \(100\)/,
+    );
     expect(make({ maxBytes: 1000, maxPendingBytes: 999 })).toThrow(/`maxPendingBytes`/);
   });
 
@@ -38,7 +42,9 @@ describe('option validation', () => {
   });
 
   it('refuses unknown signal names for the shutdown coordinator', () => {
-    expect(() => installShutdown({ signals: ['SIGTERMINATE'], exit: false })).toThrow(/`signals`.*"SIGTERMINATE"/);
+    expect(() => installShutdown({ signals: ['SIGTERMINATE'], exit: false })).toThrow(
+      /`signals`.*"SIGTERMINATE"/,
+    );
     expect(() => installShutdown({ signals: ['SIGKILL'], exit: false })).toThrow(/cannot be caught/);
   });
 });

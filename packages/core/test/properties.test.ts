@@ -9,8 +9,18 @@ type Op =
   | { kind: 'flush' };
 
 const op: fc.Arbitrary<Op> = fc.oneof(
-  { weight: 5, arbitrary: fc.record({ kind: fc.constant('write' as const), count: fc.integer({ min: 1, max: 40 }), partition: fc.integer({ min: 0, max: 3 }) }) },
-  { weight: 4, arbitrary: fc.record({ kind: fc.constant('advance' as const), ms: fc.integer({ min: 0, max: 700 }) }) },
+  {
+    weight: 5,
+    arbitrary: fc.record({
+      kind: fc.constant('write' as const),
+      count: fc.integer({ min: 1, max: 40 }),
+      partition: fc.integer({ min: 0, max: 3 }),
+    }),
+  },
+  {
+    weight: 4,
+    arbitrary: fc.record({ kind: fc.constant('advance' as const), ms: fc.integer({ min: 0, max: 700 }) }),
+  },
   { weight: 1, arbitrary: fc.record({ kind: fc.constant('flush' as const) }) },
 );
 
@@ -71,7 +81,9 @@ async function runSchedule(
   sink.on('flush', (e) => firstOfBatch.set(e.batchId, clock.now() - e.slotWaitMs));
   const originalWrite = adapter.write.bind(adapter);
   adapter.write = async (batch) => {
-    for (const r of batch.records) if (!flushStart.has(r.id)) flushStart.set(r.id, { at: clock.now(), slotWaitMs: clock.now() - firstOfBatch.get(batch.id)! });
+    for (const r of batch.records)
+      if (!flushStart.has(r.id))
+        flushStart.set(r.id, { at: clock.now(), slotWaitMs: clock.now() - firstOfBatch.get(batch.id)! });
     return originalWrite(batch);
   };
   sink.on('settled', (e) => {
@@ -104,13 +116,20 @@ async function runSchedule(
         const rec = { id: id++, partition: o.partition, offset: offsets[o.partition]!++ };
         records.set(rec.id, rec);
         // A write still waiting for room when close() begins is refused, never half-accepted.
-        const w = sink.write(rec, { topic: 't', partition: rec.partition, offset: rec.offset, key: `p${rec.partition}#${rec.id}` }).then(
-          () => void acceptedAt.set(rec.id, clock.now()),
-          (e: { code?: string }) => {
-            if (e.code !== 'SPILLWAY_SINK_CLOSED') throw e;
-            refused.add(rec.id);
-          },
-        );
+        const w = sink
+          .write(rec, {
+            topic: 't',
+            partition: rec.partition,
+            offset: rec.offset,
+            key: `p${rec.partition}#${rec.id}`,
+          })
+          .then(
+            () => void acceptedAt.set(rec.id, clock.now()),
+            (e: { code?: string }) => {
+              if (e.code !== 'SPILLWAY_SINK_CLOSED') throw e;
+              refused.add(rec.id);
+            },
+          );
         pendingWrites.push(w);
         await settle(1);
         maxPending = Math.max(maxPending, sink.snapshot().pendingRecords);
@@ -127,7 +146,19 @@ async function runSchedule(
   for (let i = 0; i < 400 && sink.state !== 'closed'; i++) await clock.advance(100);
   await closing;
   await Promise.all(pendingWrites);
-  return { sink, adapter, deadLetter, acceptedAt, flushStart, terminal, maxPending, maxPendingRecords, records, id, refused };
+  return {
+    sink,
+    adapter,
+    deadLetter,
+    acceptedAt,
+    flushStart,
+    terminal,
+    maxPending,
+    maxPendingRecords,
+    records,
+    id,
+    refused,
+  };
 }
 
 describe('lifecycle properties over random schedules', () => {

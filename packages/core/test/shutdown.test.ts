@@ -7,7 +7,10 @@ const child = fileURLToPath(new URL('./fixtures/shutdown-child.ts', import.meta.
 
 function run(signal: NodeJS.Signals, env: Record<string, string> = {}, second = false) {
   return new Promise<{ code: number | null; stdout: string; stderr: string }>((resolve) => {
-    const p = spawn(process.execPath, ['--import', 'tsx', child], { env: { ...process.env, ...env }, stdio: ['ignore', 'pipe', 'pipe'] });
+    const p = spawn(process.execPath, ['--import', 'tsx', child], {
+      env: { ...process.env, ...env },
+      stdio: ['ignore', 'pipe', 'pipe'],
+    });
     let stdout = '';
     let stderr = '';
     p.stdout.on('data', (d: Buffer) => {
@@ -42,7 +45,12 @@ describe('shutdown coordinator', () => {
   it('reports a step that overruns the deadline and still runs the later stages', async () => {
     const order: string[] = [];
     const c = new ShutdownCoordinator({ timeoutMs: 50, log: () => {} });
-    c.add('sinks', 'stuck sink', () => new Promise(() => {}), () => ({ buffered: 3, inFlight: 2, retrying: 2 }));
+    c.add(
+      'sinks',
+      'stuck sink',
+      () => new Promise(() => {}),
+      () => ({ buffered: 3, inFlight: 2, retrying: 2 }),
+    );
     c.add('clients', 'pool', () => void order.push('clients'));
     const report = await c.shutdown('test', 15);
     expect(report.ok).toBe(false);

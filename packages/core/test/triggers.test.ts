@@ -143,8 +143,16 @@ describe('counters()', () => {
     const { sink } = setup({ maxRecords: 3 });
     for (let i = 0; i < 7; i++) await sink.write(i);
     await sink.flush();
-    const { batchRecords, batchBytes, flushDurationMs, acceptToDurableMs, eventToDurableMs, slotWaitMs, backpressureWaitMs, ...rest } =
-      sink.snapshot();
+    const {
+      batchRecords,
+      batchBytes,
+      flushDurationMs,
+      acceptToDurableMs,
+      eventToDurableMs,
+      slotWaitMs,
+      backpressureWaitMs,
+      ...rest
+    } = sink.snapshot();
     expect(sink.counters()).toEqual(rest);
     expect(batchRecords.count).toBe(3);
     expect(rest).toMatchObject({ accepted: 7, written: 7, batches: 3 });

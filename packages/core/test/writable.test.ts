@@ -12,7 +12,12 @@ describe('Writable adapter', () => {
     const adapter = new FakeAdapter<number>();
     const gate = deferred();
     adapter.behave = () => gate.promise;
-    const sink = new Sink(adapter, { maxRecords: 2, maxPendingRecords: 2, clock: new ManualClock(), idleMs: 0 });
+    const sink = new Sink(adapter, {
+      maxRecords: 2,
+      maxPendingRecords: 2,
+      clock: new ManualClock(),
+      idleMs: 0,
+    });
     const w = toWritable(sink, { highWaterMark: 3 });
     const results: boolean[] = [];
     for (let i = 0; i < 6; i++) results.push(w.write(i));
@@ -50,7 +55,9 @@ describe('Writable adapter', () => {
       throw new Error('permission denied for table dock_status');
     };
     const sink = new Sink(adapter, { maxRecords: 1 });
-    await expect(pipeline(Readable.from([1, 2, 3, 4]), toWritable(sink))).rejects.toMatchObject({ code: 'SPILLWAY_SINK_FAILED' });
+    await expect(pipeline(Readable.from([1, 2, 3, 4]), toWritable(sink))).rejects.toMatchObject({
+      code: 'SPILLWAY_SINK_FAILED',
+    });
   });
 });
 
