@@ -36,7 +36,8 @@ function pointsOf(cells: CellAggregate[]): Point[] {
  */
 export function chartSpec(title: string, subtitle: string, cells: CellAggregate[]): TopLevelSpec {
   const values = pointsOf(cells);
-  const ages = [...new Set(values.filter((v) => v.variant === 'spillway').map((v) => v.maxAgeMs))].sort((a, b) => a - b).map((a) => `maxAgeMs ${a}`);
+  const ageList = [...new Set(values.filter((v) => v.variant === 'spillway').map((v) => v.maxAgeMs))].sort((a, b) => a - b);
+  const ages = ageList.map((a) => `maxAgeMs ${a}`);
   const x = {
     field: 'p99',
     type: 'quantitative' as const,
@@ -62,11 +63,12 @@ export function chartSpec(title: string, subtitle: string, cells: CellAggregate[
           order: { field: 'maxRecords' },
         },
       },
-      {
-        transform: [{ filter: "datum.variant === 'spillway'" }],
-        mark: { type: 'text', dx: 0, dy: -9, fontSize: 9, color: '#444' },
+      // One label layer per line, each lifted a little higher, so labels of points that coincide stay readable.
+      ...ageList.map((age, i) => ({
+        transform: [{ filter: `datum.variant === 'spillway' && datum.maxAgeMs === ${age}` }],
+        mark: { type: 'text' as const, dy: -9 - 10 * i, fontSize: 9, color: '#444' },
         encoding: { x, y, text: { field: 'label' } },
-      },
+      })),
       {
         transform: [{ filter: "datum.variant !== 'spillway'" }],
         mark: { type: 'point', filled: true, size: 110, strokeWidth: 2 },
@@ -83,9 +85,15 @@ export function chartSpec(title: string, subtitle: string, cells: CellAggregate[
           color: { value: '#111' },
         },
       },
+      // Size-only sits at the right edge (its stuck records are old): label it leftwards.
       {
-        transform: [{ filter: "datum.variant !== 'spillway'" }],
+        transform: [{ filter: "datum.variant === 'per-record'" }],
         mark: { type: 'text', align: 'left', dx: 8, dy: -8, fontSize: 9, color: '#111' },
+        encoding: { x, y, text: { field: 'label' } },
+      },
+      {
+        transform: [{ filter: "datum.variant === 'size-only'" }],
+        mark: { type: 'text', align: 'right', dx: -8, dy: 12, fontSize: 9, color: '#111' },
         encoding: { x, y, text: { field: 'label' } },
       },
     ],

@@ -1,4 +1,4 @@
-import { mkdirSync, writeFileSync } from 'node:fs';
+import { mkdirSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { FLUSH_REASONS } from '@spillway/core';
 import { chartSpec, renderSvg } from './charts.js';
@@ -151,6 +151,8 @@ export interface WrittenReport {
 export async function writeReport(report: Report, options: { outDir: string; markdownPath: string; command: string }): Promise<WrittenReport> {
   const chartsDir = join(options.outDir, 'charts');
   mkdirSync(chartsDir, { recursive: true });
+  // Charts of an earlier run whose store or shape is not in this one would mislead: start clean.
+  for (const f of readdirSync(chartsDir)) if (f.endsWith('.svg')) rmSync(join(chartsDir, f));
   const jsonPath = join(options.outDir, 'results.json');
   writeFileSync(jsonPath, `${JSON.stringify(report, null, 1)}\n`);
   const charts: string[] = [];

@@ -1,7 +1,10 @@
 #!/usr/bin/env node
 // `npm run bench`: runs the benchmark grid and regenerates benchmarks/RESULTS.md, results/results.json
 // and the SVG charts. Flags narrow or widen the grid; see --help.
+import { readFileSync } from 'node:fs';
+import { dirname, join } from 'node:path';
 import { Command } from 'commander';
+import { type Report, reportProblems, writeReport } from './report.js';
 import type { Plan } from './plan.js';
 import { SHAPES } from './shapes.js';
 import { type BenchFlags, applyFlags, defaultPlan, quickPlan, runSuite } from './suite-run.js';
@@ -30,10 +33,24 @@ const program = new Command()
   .option('--duration <ms>', 'length of every shape, ms', Number)
   .option('--out <dir>', 'where results.json and charts/ go (default benchmarks/results)')
   .option('--markdown <file>', 'the results page (default benchmarks/RESULTS.md)')
-  .option('--full-grid', 'use the main grid on every shape, not the smaller one off steady');
+  .option('--full-grid', 'use the main grid on every shape, not the smaller one off steady')
+  .option('--report-only <results.json>', 'redraw RESULTS.md and the charts from a saved results.json, running nothing');
 
 program.parse();
-const o = program.opts<BenchFlags & { quick?: boolean; out?: string; markdown?: string }>();
+const o = program.opts<BenchFlags & { quick?: boolean; out?: string; markdown?: string; reportOnly?: string }>();
+
+if (o.reportOnly) {
+  const saved = JSON.parse(readFileSync(o.reportOnly, 'utf8')) as Report;
+  const problems = reportProblems(saved);
+  if (problems.length > 0) throw new TypeError(`${o.reportOnly} is not a well-formed report: ${problems[0]}`);
+  const written = await writeReport(saved, {
+    outDir: o.out ?? dirname(o.reportOnly),
+    markdownPath: o.markdown ?? join(dirname(o.reportOnly), '..', 'RESULTS.md'),
+    command: 'npm run bench',
+  });
+  process.stdout.write(`redrew ${written.markdownPath} and ${written.charts.length} chart(s)\n`);
+  process.exit(0);
+}
 
 const plan: Plan = applyFlags(o.quick ? quickPlan() : defaultPlan(), o);
 
