@@ -16,7 +16,8 @@ const outcome = await tune({
   p99Ms: 250,
   shapes: ['steady', 'trickle'],
   rate: 3000,
-  onProgress: (p) => process.stderr.write(`  trial ${p.done}/${p.total} ${p.cell.id}${p.error ? ' failed' : ''}\n`),
+  onProgress: (p) =>
+    process.stderr.write(`  trial ${p.done}/${p.total} ${p.cell.id}${p.error ? ' failed' : ''}\n`),
 });
 
 console.log(formatTune(outcome));

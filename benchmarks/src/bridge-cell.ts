@@ -1,11 +1,11 @@
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { FLUSH_REASONS, type FlushReason, Histogram, Sink, fileDeadLetter } from '@spillway/core';
+import { FLUSH_REASONS, type FlushReason, fileDeadLetter, Histogram, Sink } from '@spillway/core';
 import { KafkaBridge } from '@spillway/kafka';
-import { Kafka, type Message, logLevel } from 'kafkajs';
+import { Kafka, logLevel, type Message } from 'kafkajs';
 import type { CellResult, CellSpec } from './cell-run.js';
-import { roundDist, round } from './numbers.js';
+import { round, roundDist } from './numbers.js';
 import { SeededRandom } from './random.js';
 import { type DockStatus, dockStatus } from './records.js';
 import { arrivals } from './shapes.js';
@@ -22,9 +22,14 @@ const sleep = (ms: number) => new Promise<void>((resolve) => setTimeout(resolve,
  */
 export async function runBridgeCell(spec: CellSpec): Promise<CellResult> {
   const brokers = spec.store.brokers;
-  if (!brokers || brokers.length === 0) throw new TypeError('Expected `brokers` of the bridge store to be a non-empty list of host:port');
-  if (spec.variant === 'size-only') throw new TypeError('the bridge cells drive the Spillway sink only (size-only has no bridge)');
-  const pgStore = await openPostgres({ kind: 'postgres', mode: spec.store.mode ?? 'copy', ...(spec.store.url ? { url: spec.store.url } : {}) }, spec.id);
+  if (!brokers || brokers.length === 0)
+    throw new TypeError('Expected `brokers` of the bridge store to be a non-empty list of host:port');
+  if (spec.variant === 'size-only')
+    throw new TypeError('the bridge cells drive the Spillway sink only (size-only has no bridge)');
+  const pgStore = await openPostgres(
+    { kind: 'postgres', mode: spec.store.mode ?? 'copy', ...(spec.store.url ? { url: spec.store.url } : {}) },
+    spec.id,
+  );
   const kafka = new Kafka({ clientId: `spillway-bench-${process.pid}`, brokers, logLevel: logLevel.NOTHING });
   const admin = kafka.admin();
   const producer = kafka.producer({ allowAutoTopicCreation: false });
@@ -33,7 +38,10 @@ export async function runBridgeCell(spec: CellSpec): Promise<CellResult> {
   let bridge: KafkaBridge<DockStatus> | undefined;
   try {
     await admin.connect();
-    await admin.createTopics({ topics: [{ topic, numPartitions: PARTITIONS, replicationFactor: 1 }], waitForLeaders: true });
+    await admin.createTopics({
+      topics: [{ topic, numPartitions: PARTITIONS, replicationFactor: 1 }],
+      waitForLeaders: true,
+    });
     await producer.connect();
     const s = spec.settings;
     const sink = new Sink(pgStore.adapter, {
@@ -96,7 +104,10 @@ export async function runBridgeCell(spec: CellSpec): Promise<CellResult> {
     await bridge.start();
     // Wait until the group has its partitions and the first message lands: the join is not measured.
     const rnd = new SeededRandom(spec.shape.seed ^ 0x5eed);
-    await producer.send({ topic, messages: [{ partition: 0, value: JSON.stringify(dockStatus(rnd, -1, 0, Date.now())) }] });
+    await producer.send({
+      topic,
+      messages: [{ partition: 0, value: JSON.stringify(dockStatus(rnd, -1, 0, Date.now())) }],
+    });
     const warmDeadline = Date.now() + 60_000;
     while (!warmed && Date.now() < warmDeadline) await sleep(20);
     if (!warmed) throw new TypeError('the bridge did not deliver a warm-up message within 60 s');
@@ -125,7 +136,11 @@ export async function runBridgeCell(spec: CellSpec): Promise<CellResult> {
         await sleep(a.at - now);
       }
       const due = origin + start + a.at;
-      pending.push({ partition: a.partition % PARTITIONS, value: JSON.stringify(dockStatus(rnd, offered, a.partition, Math.round(due))), timestamp: String(Math.round(due)) });
+      pending.push({
+        partition: a.partition % PARTITIONS,
+        value: JSON.stringify(dockStatus(rnd, offered, a.partition, Math.round(due))),
+        timestamp: String(Math.round(due)),
+      });
       offered++;
     }
     sendPending();

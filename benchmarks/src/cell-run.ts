@@ -1,19 +1,19 @@
 import {
   type Distribution,
+  estimateJsonBytes,
   FLUSH_REASONS,
   type FlushReason,
   Histogram,
   type RecordMeta,
   Sink,
   type SinkAdapter,
-  estimateJsonBytes,
 } from '@spillway/core';
 import { round, roundDist } from './numbers.js';
 import { SeededRandom } from './random.js';
 import { type DockStatus, dockStatus } from './records.js';
-import { type ShapeParams, arrivals } from './shapes.js';
+import { arrivals, type ShapeParams } from './shapes.js';
 import { SizeOnlyBatcher } from './size-only.js';
-import { type StoreSpec, openStore } from './stores.js';
+import { openStore, type StoreSpec } from './stores.js';
 import { type Subject, sinkSubject } from './subject.js';
 
 /** Which batcher a cell drives. */
@@ -101,7 +101,14 @@ export async function runCell(spec: CellSpec): Promise<CellResult> {
     const estimate = store.adapter.estimateBytes?.bind(store.adapter) ?? estimateJsonBytes;
     // One write before the window opens, so connection setup is not charged to the first batch.
     const warm = dockStatus(new SeededRandom(7), -1, 0, Date.now());
-    await store.adapter.write({ id: 0, reason: 'manual', attempt: 1, records: [warm], metas: [undefined], bytes: estimate(warm) });
+    await store.adapter.write({
+      id: 0,
+      reason: 'manual',
+      attempt: 1,
+      records: [warm],
+      metas: [undefined],
+      bytes: estimate(warm),
+    });
     const subject = makeSubject(spec, store.adapter, estimate);
     const result = await drive(spec, subject, estimate);
     if (store.version !== undefined) result.storeVersion = store.version;
@@ -111,22 +118,46 @@ export async function runCell(spec: CellSpec): Promise<CellResult> {
   }
 }
 
-function makeSubject(spec: CellSpec, adapter: SinkAdapter<DockStatus>, estimate: (r: DockStatus) => number): Subject {
+function makeSubject(
+  spec: CellSpec,
+  adapter: SinkAdapter<DockStatus>,
+  estimate: (r: DockStatus) => number,
+): Subject {
   const s = spec.settings;
   switch (spec.variant) {
     case 'size-only':
       return new SizeOnlyBatcher(adapter, s.maxRecords, estimate);
     case 'per-record':
-      return sinkSubject(new Sink(adapter, { name: 'bench', maxRecords: 1, maxAgeMs: s.maxAgeMs, idleMs: s.idleMs, concurrency: s.concurrency, estimateBytes: estimate }));
+      return sinkSubject(
+        new Sink(adapter, {
+          name: 'bench',
+          maxRecords: 1,
+          maxAgeMs: s.maxAgeMs,
+          idleMs: s.idleMs,
+          concurrency: s.concurrency,
+          estimateBytes: estimate,
+        }),
+      );
     case 'spillway':
       return sinkSubject(
-        new Sink(adapter, { name: 'bench', maxRecords: s.maxRecords, maxAgeMs: s.maxAgeMs, idleMs: s.idleMs, concurrency: s.concurrency, estimateBytes: estimate }),
+        new Sink(adapter, {
+          name: 'bench',
+          maxRecords: s.maxRecords,
+          maxAgeMs: s.maxAgeMs,
+          idleMs: s.idleMs,
+          concurrency: s.concurrency,
+          estimateBytes: estimate,
+        }),
       );
   }
 }
 
 /** Drives the schedule into the subject in real time and measures what comes out. */
-export async function drive(spec: CellSpec, subject: Subject, estimate: (r: DockStatus) => number): Promise<CellResult> {
+export async function drive(
+  spec: CellSpec,
+  subject: Subject,
+  estimate: (r: DockStatus) => number,
+): Promise<CellResult> {
   const shape = spec.shape;
   const rnd = new SeededRandom(shape.seed ^ 0x5eed);
   const latency = new Histogram(1000);
@@ -251,7 +282,11 @@ export async function drive(spec: CellSpec, subject: Subject, estimate: (r: Dock
     if (age > oldest) oldest = age;
     withStuck.record(age);
   }
-  const stuck: Stuck = { records: held.size, oldestAgeMs: round(oldest), meanAgeMs: held.size === 0 ? 0 : round(ageSum / held.size) };
+  const stuck: Stuck = {
+    records: held.size,
+    oldestAgeMs: round(oldest),
+    meanAgeMs: held.size === 0 ? 0 : round(ageSum / held.size),
+  };
 
   // Throughput per second of load: the tail's latency shows on the latency axis, not here. A
   // setting that cannot keep up holds the generator back (backpressure), so fewer records are
@@ -280,7 +315,10 @@ export async function drive(spec: CellSpec, subject: Subject, estimate: (r: Dock
     throughput: round(throughput),
     latencyMs: roundDist(latency.summary()),
     scheduledLatencyMs: roundDist(scheduledLatency.summary()),
-    latencyWithStuckMs: { p99: round(Math.min(withStuck.percentile(99), withStuck.summary().max)), max: round(withStuck.summary().max) },
+    latencyWithStuckMs: {
+      p99: round(Math.min(withStuck.percentile(99), withStuck.summary().max)),
+      max: round(withStuck.summary().max),
+    },
     stuck,
     batches,
     meanBatchRecords: batches === 0 ? 0 : round(batchRecords / batches),

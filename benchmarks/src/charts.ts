@@ -23,10 +23,28 @@ function pointsOf(cells: CellAggregate[]): Point[] {
       const m = c.median;
       const stuck = m.stuckRecords > 0 ? `, ${m.stuckRecords} stuck` : '';
       const series =
-        c.spec.variant === 'spillway' ? `maxAgeMs ${s.maxAgeMs}` : c.spec.variant === 'size-only' ? 'size-only (no timer)' : 'one write per record';
-      const label = c.spec.variant === 'per-record' ? 'per record' : c.spec.variant === 'size-only' ? `size-only ${s.maxRecords}${stuck}` : `${s.maxRecords}`;
+        c.spec.variant === 'spillway'
+          ? `maxAgeMs ${s.maxAgeMs}`
+          : c.spec.variant === 'size-only'
+            ? 'size-only (no timer)'
+            : 'one write per record';
+      const label =
+        c.spec.variant === 'per-record'
+          ? 'per record'
+          : c.spec.variant === 'size-only'
+            ? `size-only ${s.maxRecords}${stuck}`
+            : `${s.maxRecords}`;
       // A log axis cannot show 0: a cell with nothing measured sits at 0.1 ms.
-      return { line: series, baseline: series, variant: c.spec.variant, maxRecords: s.maxRecords, maxAgeMs: s.maxAgeMs, throughput: m.throughput, p99: Math.max(0.1, m.p99WithStuck), label };
+      return {
+        line: series,
+        baseline: series,
+        variant: c.spec.variant,
+        maxRecords: s.maxRecords,
+        maxAgeMs: s.maxAgeMs,
+        throughput: m.throughput,
+        p99: Math.max(0.1, m.p99WithStuck),
+        label,
+      };
     });
 }
 
@@ -36,7 +54,9 @@ function pointsOf(cells: CellAggregate[]): Point[] {
  */
 export function chartSpec(title: string, subtitle: string, cells: CellAggregate[]): TopLevelSpec {
   const values = pointsOf(cells);
-  const ageList = [...new Set(values.filter((v) => v.variant === 'spillway').map((v) => v.maxAgeMs))].sort((a, b) => a - b);
+  const ageList = [...new Set(values.filter((v) => v.variant === 'spillway').map((v) => v.maxAgeMs))].sort(
+    (a, b) => a - b,
+  );
   const ages = ageList.map((a) => `maxAgeMs ${a}`);
   const x = {
     field: 'p99',
@@ -44,7 +64,11 @@ export function chartSpec(title: string, subtitle: string, cells: CellAggregate[
     scale: { type: 'log' as const },
     title: 'p99 accept → durable, ms (log; stuck records counted at their age)',
   };
-  const y = { field: 'throughput', type: 'quantitative' as const, title: 'throughput, records/s (median of runs)' };
+  const y = {
+    field: 'throughput',
+    type: 'quantitative' as const,
+    title: 'throughput, records/s (median of runs)',
+  };
   return {
     $schema: 'https://vega.github.io/schema/vega-lite/v6.json',
     title: { text: title, subtitle },
@@ -59,7 +83,13 @@ export function chartSpec(title: string, subtitle: string, cells: CellAggregate[
         encoding: {
           x,
           y,
-          color: { field: 'line', type: 'nominal', title: 'Spillway sink', sort: ages, legend: { labelLimit: 240 } },
+          color: {
+            field: 'line',
+            type: 'nominal',
+            title: 'Spillway sink',
+            sort: ages,
+            legend: { labelLimit: 240 },
+          },
           order: { field: 'maxRecords' },
         },
       },

@@ -13,9 +13,14 @@ export interface BrokerHandle {
  * through tsx, since the harness is not a built package).
  */
 export async function kafkaBrokers(env: NodeJS.ProcessEnv = process.env): Promise<BrokerHandle> {
-  const external = env.SPILLWAY_KAFKA_BROKERS?.split(',').map((s) => s.trim()).filter(Boolean);
-  if (external && external.length > 0) return { brokers: external, version: 'external (SPILLWAY_KAFKA_BROKERS)', stop: async () => {} };
-  const { tsImport } = (await import('tsx/esm/api')) as { tsImport: (specifier: string, parent: string) => Promise<unknown> };
+  const external = env.SPILLWAY_KAFKA_BROKERS?.split(',')
+    .map((s) => s.trim())
+    .filter(Boolean);
+  if (external && external.length > 0)
+    return { brokers: external, version: 'external (SPILLWAY_KAFKA_BROKERS)', stop: async () => {} };
+  const { tsImport } = (await import('tsx/esm/api')) as {
+    tsImport: (specifier: string, parent: string) => Promise<unknown>;
+  };
   const harness = fileURLToPath(new URL('../../test/harness/kafka.ts', import.meta.url));
   const mod = (await tsImport(harness, import.meta.url)) as {
     startKafka: (o?: { label?: string }) => Promise<{ brokers: string[]; stop(): Promise<void> }>;

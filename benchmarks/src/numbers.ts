@@ -11,5 +11,13 @@ export function round(n: number, digits = 3): number {
 // recorded max; clamp so that no report shows p99 > max.
 export function roundDist(d: Distribution): Distribution {
   const q = (v: number) => round(Math.min(v, d.max));
-  return { count: d.count, min: round(d.min), mean: round(d.mean), p50: q(d.p50), p90: q(d.p90), p99: q(d.p99), max: round(d.max) };
+  return {
+    count: d.count,
+    min: round(d.min),
+    mean: round(d.mean),
+    p50: q(d.p50),
+    p90: q(d.p90),
+    p99: q(d.p99),
+    max: round(d.max),
+  };
 }

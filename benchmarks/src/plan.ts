@@ -53,13 +53,17 @@ export function cellsOf(plan: Plan): CellSpec[] {
         cells.push({ id, store, shape, variant, settings, graceMs: graceFor(variant, settings) });
       };
       // The bridge feeds a Spillway sink; a size-only batcher has no bridge to sit behind.
-      if (store.kind !== 'bridge') for (const n of plan.sizeOnly) add('size-only', { maxRecords: n, maxAgeMs: 0, idleMs: 0, concurrency: 1 });
-      if (plan.perRecord) add('per-record', { maxRecords: 1, maxAgeMs: Math.min(...plan.maxAgeMs), ...defaults });
+      if (store.kind !== 'bridge')
+        for (const n of plan.sizeOnly)
+          add('size-only', { maxRecords: n, maxAgeMs: 0, idleMs: 0, concurrency: 1 });
+      if (plan.perRecord)
+        add('per-record', { maxRecords: 1, maxAgeMs: Math.min(...plan.maxAgeMs), ...defaults });
       const grid = own ?? (shapeName !== 'steady' && plan.sideGrid ? plan.sideGrid : plan);
       for (const concurrency of plan.concurrency) {
         for (const idleMs of plan.idleMs) {
           for (const maxAgeMs of grid.maxAgeMs) {
-            for (const maxRecords of grid.maxRecords) add('spillway', { maxRecords, maxAgeMs, idleMs, concurrency });
+            for (const maxRecords of grid.maxRecords)
+              add('spillway', { maxRecords, maxAgeMs, idleMs, concurrency });
           }
         }
       }

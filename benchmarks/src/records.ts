@@ -11,10 +11,21 @@ export interface DockStatus {
   reportedAt: number;
 }
 
-const STATUSES: readonly DockStatus['status'][] = ['in_service', 'in_service', 'in_service', 'full', 'offline'];
+const STATUSES: readonly DockStatus['status'][] = [
+  'in_service',
+  'in_service',
+  'in_service',
+  'full',
+  'offline',
+];
 
 /** Builds the `seq`-th event of partition `partition` (a partition is a district of stations). */
-export function dockStatus(rnd: SeededRandom, seq: number, partition: number, reportedAt: number): DockStatus {
+export function dockStatus(
+  rnd: SeededRandom,
+  seq: number,
+  partition: number,
+  reportedAt: number,
+): DockStatus {
   const bikes = rnd.int(20);
   return {
     seq,

@@ -27,9 +27,12 @@ export function reportProblems(report: unknown): string[] {
   const problems: string[] = [];
   const r = report as Partial<Report>;
   if (typeof r !== 'object' || r === null) return ['report is not an object'];
-  if (r.version !== REPORT_VERSION) problems.push(`version is ${String(r.version)}, expected ${REPORT_VERSION}`);
-  if (typeof r.generatedAt !== 'string' || Number.isNaN(Date.parse(r.generatedAt))) problems.push('generatedAt is not a date');
-  if (!r.machine || typeof r.machine.cores !== 'number' || typeof r.machine.node !== 'string') problems.push('machine info is missing');
+  if (r.version !== REPORT_VERSION)
+    problems.push(`version is ${String(r.version)}, expected ${REPORT_VERSION}`);
+  if (typeof r.generatedAt !== 'string' || Number.isNaN(Date.parse(r.generatedAt)))
+    problems.push('generatedAt is not a date');
+  if (!r.machine || typeof r.machine.cores !== 'number' || typeof r.machine.node !== 'string')
+    problems.push('machine info is missing');
   if (!Array.isArray(r.cells) || r.cells.length === 0) return [...problems, 'no cells'];
   for (const c of r.cells) {
     const where = `cell ${c?.id}`;
@@ -38,24 +41,47 @@ export function reportProblems(report: unknown): string[] {
       continue;
     }
     if (!Array.isArray(c.runs) || !Array.isArray(c.errors)) problems.push(`${where}: runs / errors missing`);
-    if (c.runs.length + c.errors.length !== r.plan?.repeats) problems.push(`${where}: ${c.runs.length} runs + ${c.errors.length} errors, expected ${r.plan?.repeats}`);
+    if (c.runs.length + c.errors.length !== r.plan?.repeats)
+      problems.push(
+        `${where}: ${c.runs.length} runs + ${c.errors.length} errors, expected ${r.plan?.repeats}`,
+      );
     for (const run of c.runs) {
       const l = run.latencyMs;
-      const finite = [run.throughput, run.realisedRate, l.p50, l.p90, l.p99, l.max, run.cpuSeconds, run.peakRssMb].every((v) => Number.isFinite(v) && v >= 0);
+      const finite = [
+        run.throughput,
+        run.realisedRate,
+        l.p50,
+        l.p90,
+        l.p99,
+        l.max,
+        run.cpuSeconds,
+        run.peakRssMb,
+      ].every((v) => Number.isFinite(v) && v >= 0);
       if (!finite) problems.push(`${where}: a figure is not a finite number >= 0`);
-      if (!(l.p50 <= l.p90 && l.p90 <= l.p99 && l.p99 <= l.max)) problems.push(`${where}: percentiles out of order`);
-      if (l.count !== run.durable) problems.push(`${where}: ${l.count} latency samples for ${run.durable} durable records`);
-      if (run.durable + run.stuck.records !== run.offered) problems.push(`${where}: durable ${run.durable} + stuck ${run.stuck.records} != offered ${run.offered}`);
+      if (!(l.p50 <= l.p90 && l.p90 <= l.p99 && l.p99 <= l.max))
+        problems.push(`${where}: percentiles out of order`);
+      if (l.count !== run.durable)
+        problems.push(`${where}: ${l.count} latency samples for ${run.durable} durable records`);
+      if (run.durable + run.stuck.records !== run.offered)
+        problems.push(
+          `${where}: durable ${run.durable} + stuck ${run.stuck.records} != offered ${run.offered}`,
+        );
       const flushes = FLUSH_REASONS.reduce((n, k) => n + (run.flushes[k] ?? 0), 0);
-      if (flushes !== run.batches) problems.push(`${where}: flushes by reason add up to ${flushes}, batches ${run.batches}`);
+      if (flushes !== run.batches)
+        problems.push(`${where}: flushes by reason add up to ${flushes}, batches ${run.batches}`);
     }
   }
   return problems;
 }
 
 const fmt = (n: number | null | undefined, digits = 1): string =>
-  n === null || n === undefined || !Number.isFinite(n) ? '–' : n >= 1000 ? Math.round(n).toLocaleString('en-US') : n.toFixed(digits);
-const range = ([a, b]: [number, number], digits = 1) => (a === b ? '' : ` (${fmt(a, digits)}–${fmt(b, digits)})`);
+  n === null || n === undefined || !Number.isFinite(n)
+    ? '–'
+    : n >= 1000
+      ? Math.round(n).toLocaleString('en-US')
+      : n.toFixed(digits);
+const range = ([a, b]: [number, number], digits = 1) =>
+  a === b ? '' : ` (${fmt(a, digits)}–${fmt(b, digits)})`;
 
 function settingsOf(c: CellAggregate): string {
   const s = c.spec.settings;
@@ -67,9 +93,11 @@ function settingsOf(c: CellAggregate): string {
 function flushesOf(c: CellAggregate): string {
   const run = c.runs[Math.floor(c.runs.length / 2)];
   if (!run) return '–';
-  return FLUSH_REASONS.filter((r) => run.flushes[r] > 0)
-    .map((r) => `${r} ${run.flushes[r]}`)
-    .join(', ') || 'none';
+  return (
+    FLUSH_REASONS.filter((r) => run.flushes[r] > 0)
+      .map((r) => `${r} ${run.flushes[r]}`)
+      .join(', ') || 'none'
+  );
 }
 
 /** The Markdown table of one store and shape. */
@@ -79,7 +107,8 @@ export function markdownTable(cells: CellAggregate[]): string {
     '|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|---:|---:|---:|---:|';
   const rows = cells.map((c) => {
     const m = c.median;
-    if (c.runs.length === 0) return `| ${settingsOf(c)} | failed: ${c.errors[0]?.split('\n')[0] ?? ''} ||||||||||||||`;
+    if (c.runs.length === 0)
+      return `| ${settingsOf(c)} | failed: ${c.errors[0]?.split('\n')[0] ?? ''} ||||||||||||||`;
     const stuck = m.stuckRecords > 0 ? `**${fmt(m.stuckRecords, 0)}** (${fmt(m.stuckOldestAgeMs, 0)})` : '0';
     return (
       `| ${settingsOf(c)} | ${fmt(m.realisedRate, 1)} | ${fmt(m.throughput, 1)}${range(c.spread.throughput)} | ${fmt(m.p50)} | ${fmt(m.p90)} | ` +
@@ -91,13 +120,18 @@ export function markdownTable(cells: CellAggregate[]): string {
 }
 
 /** Groups cells by store label and shape, in plan order. */
-export function groups(cells: CellAggregate[]): Array<{ store: string; shape: ShapeName; cells: CellAggregate[] }> {
+export function groups(
+  cells: CellAggregate[],
+): Array<{ store: string; shape: ShapeName; cells: CellAggregate[] }> {
   const out = new Map<string, { store: string; shape: ShapeName; cells: CellAggregate[] }>();
   for (const c of cells) {
     const store = storeLabel(c.spec.store);
     const key = `${store}|${c.spec.shape.shape}`;
     let g = out.get(key);
-    if (!g) out.set(key, (g = { store, shape: c.spec.shape.shape, cells: [] }));
+    if (!g) {
+      g = { store, shape: c.spec.shape.shape, cells: [] };
+      out.set(key, g);
+    }
     g.cells.push(c);
   }
   return [...out.values()];
@@ -123,7 +157,10 @@ export function headlines(cells: CellAggregate[]): string[] {
       if (per) {
         const ratio = fastest.median.throughput / Math.max(1, per.median.throughput);
         line += `; one write per record: ${fmt(per.median.throughput, 0)} records/s, p99 ${fmt(per.median.p99)} ms`;
-        line += ratio >= 1.1 ? ` — batching carried ${fmt(ratio, 1)}× its throughput` : ' — this store keeps up with one write per record at this rate';
+        line +=
+          ratio >= 1.1
+            ? ` — batching carried ${fmt(ratio, 1)}× its throughput`
+            : ' — this store keeps up with one write per record at this rate';
       }
       lines.push(`${line}.`);
     } else {
@@ -131,7 +168,10 @@ export function headlines(cells: CellAggregate[]): string[] {
       const spillStuck = Math.max(0, ...spill.map((c) => c.median.stuckRecords));
       const spillP99 = Math.max(...spill.map((c) => c.median.p99));
       if (worst.length > 0) {
-        const parts = worst.map((c) => `${c.spec.settings.maxRecords}: ${fmt(c.median.stuckRecords, 0)} of ${fmt(c.runs[0]?.offered ?? 0, 0)} never landed, oldest ${fmt(c.median.stuckOldestAgeMs / 1000, 1)} s`);
+        const parts = worst.map(
+          (c) =>
+            `${c.spec.settings.maxRecords}: ${fmt(c.median.stuckRecords, 0)} of ${fmt(c.runs[0]?.offered ?? 0, 0)} never landed, oldest ${fmt(c.median.stuckOldestAgeMs / 1000, 1)} s`,
+        );
         lines.push(
           `**${g.store}, ${g.shape}:** size-only batching (${parts.join('; ')}); every Spillway setting landed ${spillStuck === 0 ? 'everything' : `all but ${spillStuck}`}, worst p99 ${fmt(spillP99)} ms.`,
         );
@@ -148,7 +188,10 @@ export interface WrittenReport {
 }
 
 /** Writes results.json, one SVG chart per store and shape, and the Markdown results page. */
-export async function writeReport(report: Report, options: { outDir: string; markdownPath: string; command: string }): Promise<WrittenReport> {
+export async function writeReport(
+  report: Report,
+  options: { outDir: string; markdownPath: string; command: string },
+): Promise<WrittenReport> {
   const chartsDir = join(options.outDir, 'charts');
   mkdirSync(chartsDir, { recursive: true });
   // Charts of an earlier run whose store or shape is not in this one would mislead: start clean.
@@ -168,11 +211,18 @@ export async function writeReport(report: Report, options: { outDir: string; mar
       charts.push(file);
       chartLine = `\n![${g.store} ${g.shape}](${relative(join(options.markdownPath, '..'), file)})\n`;
     }
-    sections.push(`### ${g.store} — ${g.shape}\n\n${shapeSummary(g.cells[0]!.spec.shape)}.\n${chartLine}\n${markdownTable(g.cells)}\n`);
+    sections.push(
+      `### ${g.store} — ${g.shape}\n\n${shapeSummary(g.cells[0]!.spec.shape)}.\n${chartLine}\n${markdownTable(g.cells)}\n`,
+    );
   }
   const m = report.machine;
-  const servers = Object.entries(m.servers).map(([k, v]) => `${k}: ${v}`).join('; ') || 'none';
-  const steadyLittle = report.cells.filter((c) => c.spec.shape.shape === 'steady' && c.median.littleRatio !== null);
+  const servers =
+    Object.entries(m.servers)
+      .map(([k, v]) => `${k}: ${v}`)
+      .join('; ') || 'none';
+  const steadyLittle = report.cells.filter(
+    (c) => c.spec.shape.shape === 'steady' && c.median.littleRatio !== null,
+  );
   const littleBad = steadyLittle.filter((c) => Math.abs((c.median.littleRatio ?? 1) - 1) > 0.1);
   const md = `# Spillway benchmark results
 
@@ -184,7 +234,11 @@ Node process, ${report.plan.repeats} time(s); tables show the median and, in bra
 
 ## Headline
 
-${headlines(report.cells).map((l) => `- ${l}`).join('\n') || '- (no cell produced figures)'}
+${
+  headlines(report.cells)
+    .map((l) => `- ${l}`)
+    .join('\n') || '- (no cell produced figures)'
+}
 
 ## How to read this
 

@@ -39,7 +39,10 @@ export interface Figures {
 function cellCommand(): { command: string; args: string[] } {
   const here = import.meta.url;
   if (here.endsWith('.ts')) {
-    return { command: process.execPath, args: ['--import', 'tsx', fileURLToPath(new URL('./cell.ts', here))] };
+    return {
+      command: process.execPath,
+      args: ['--import', 'tsx', fileURLToPath(new URL('./cell.ts', here))],
+    };
   }
   return { command: process.execPath, args: [fileURLToPath(new URL('./cell.js', here))] };
 }
@@ -70,7 +73,11 @@ export function runCellProcess(spec: CellSpec, timeoutMs = 120_000): Promise<Cel
       if (code === 0 && parsed && parsed.error === undefined) resolve(parsed as CellResult);
       else {
         const why = parsed?.error ?? (signal ? `killed by ${signal}` : `exit code ${code}`);
-        reject(new TypeError(`cell ${spec.id} failed: ${why}${err ? `\n${err.trim().split('\n').slice(-5).join('\n')}` : ''}`));
+        reject(
+          new TypeError(
+            `cell ${spec.id} failed: ${why}${err ? `\n${err.trim().split('\n').slice(-5).join('\n')}` : ''}`,
+          ),
+        );
       }
     });
   });
@@ -169,7 +176,11 @@ export interface RunProgress {
 }
 
 /** Runs every cell `repeats` times, one process at a time (parallel cells would share the cores). */
-export async function runCells(cells: CellSpec[], repeats: number, onProgress?: (p: RunProgress) => void): Promise<CellAggregate[]> {
+export async function runCells(
+  cells: CellSpec[],
+  repeats: number,
+  onProgress?: (p: RunProgress) => void,
+): Promise<CellAggregate[]> {
   const out: CellAggregate[] = [];
   const total = cells.length * repeats;
   let done = 0;

@@ -74,7 +74,9 @@ function validate(p: ShapeParams): void {
   const positive = (name: string, v: number | undefined, optional = false) => {
     if (v === undefined && optional) return;
     if (typeof v !== 'number' || !Number.isFinite(v) || v <= 0) {
-      throw new TypeError(`Expected \`${name}\` of shape ${p.shape} to be a finite number > 0, got \`${String(v)}\``);
+      throw new TypeError(
+        `Expected \`${name}\` of shape ${p.shape} to be a finite number > 0, got \`${String(v)}\``,
+      );
     }
   };
   positive('durationMs', p.durationMs);
@@ -85,7 +87,8 @@ function validate(p: ShapeParams): void {
   positive('burstEveryMs', p.burstEveryMs, true);
   positive('burstSpanMs', p.burstSpanMs, true);
   positive('gapMs', p.gapMs, true);
-  if (!Number.isInteger(p.keys)) throw new TypeError(`Expected \`keys\` to be an integer >= 1, got \`${p.keys}\``);
+  if (!Number.isInteger(p.keys))
+    throw new TypeError(`Expected \`keys\` to be an integer >= 1, got \`${p.keys}\``);
 }
 
 /**
@@ -104,7 +107,9 @@ export function* arrivals(p: ShapeParams): Generator<Arrival> {
       // Partition 0 is busy; every other partition is mostly silent.
       const quiet = (p.quietRate ?? 0.5) * (p.keys - 1);
       const total = p.rate + quiet;
-      yield* poisson(rnd, total, p.durationMs, () => (p.keys === 1 || rnd.next() * total < p.rate ? 0 : 1 + rnd.int(p.keys - 1)));
+      yield* poisson(rnd, total, p.durationMs, () =>
+        p.keys === 1 || rnd.next() * total < p.rate ? 0 : 1 + rnd.int(p.keys - 1),
+      );
       return;
     }
     case 'burst': {
@@ -128,7 +133,12 @@ export function* arrivals(p: ShapeParams): Generator<Arrival> {
   }
 }
 
-function* poisson(rnd: SeededRandom, ratePerSec: number, durationMs: number, pick: () => number): Generator<Arrival> {
+function* poisson(
+  rnd: SeededRandom,
+  ratePerSec: number,
+  durationMs: number,
+  pick: () => number,
+): Generator<Arrival> {
   const meanGapMs = 1000 / ratePerSec;
   let t = rnd.exponential(meanGapMs);
   while (t < durationMs) {

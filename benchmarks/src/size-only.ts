@@ -1,4 +1,11 @@
-import { type Batch, type Distribution, type FlushReason, Histogram, type RecordMeta, type SinkAdapter } from '@spillway/core';
+import {
+  type Batch,
+  type Distribution,
+  type FlushReason,
+  Histogram,
+  type RecordMeta,
+  type SinkAdapter,
+} from '@spillway/core';
 import type { DockStatus } from './records.js';
 import type { Subject } from './subject.js';
 
@@ -20,7 +27,9 @@ export class SizeOnlyBatcher implements Subject {
   private nextId = 1;
   private readonly flushListeners: Array<(reason: FlushReason, records: number, bytes: number) => void> = [];
   private readonly writtenListeners: Array<(records: number, durationMs: number) => void> = [];
-  private readonly settledListeners: Array<(metas: readonly (RecordMeta | undefined)[], latencies: readonly number[], durable: boolean) => void> = [];
+  private readonly settledListeners: Array<
+    (metas: readonly (RecordMeta | undefined)[], latencies: readonly number[], durable: boolean) => void
+  > = [];
   private readonly durations = new Histogram(1000);
 
   constructor(
@@ -56,14 +65,23 @@ export class SizeOnlyBatcher implements Subject {
 
   private async writeOut(key: string, buf: Buffer, reason: FlushReason): Promise<void> {
     this.buffers.delete(key);
-    const batch: Batch<DockStatus> = { id: this.nextId++, reason, attempt: 1, records: buf.records, metas: buf.metas, bytes: buf.bytes };
+    const batch: Batch<DockStatus> = {
+      id: this.nextId++,
+      reason,
+      attempt: 1,
+      records: buf.records,
+      metas: buf.metas,
+      bytes: buf.bytes,
+    };
     for (const l of this.flushListeners) l(reason, buf.records.length, buf.bytes);
     const started = performance.now();
     // What a first version does: no retry, no partial-write handling; an error ends the run.
     const outcome = await this.adapter.write(batch);
     if (outcome && outcome.rejected.length > 0) {
       const first = outcome.rejected[0]?.error as { message?: string } | undefined;
-      throw new TypeError(`size-only baseline: the store refused ${outcome.rejected.length} record(s): ${first?.message ?? String(first)}`);
+      throw new TypeError(
+        `size-only baseline: the store refused ${outcome.rejected.length} record(s): ${first?.message ?? String(first)}`,
+      );
     }
     const now = performance.now();
     this.durations.record(now - started);
@@ -80,7 +98,13 @@ export class SizeOnlyBatcher implements Subject {
     this.writtenListeners.push(listener);
   }
 
-  onSettled(listener: (metas: readonly (RecordMeta | undefined)[], latencies: readonly number[], durable: boolean) => void): void {
+  onSettled(
+    listener: (
+      metas: readonly (RecordMeta | undefined)[],
+      latencies: readonly number[],
+      durable: boolean,
+    ) => void,
+  ): void {
     this.settledListeners.push(listener);
   }
 

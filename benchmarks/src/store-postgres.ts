@@ -12,11 +12,15 @@ const COLUMNS = ['seq', 'dock_id', 'station_id', 'bikes_available', 'docks_free'
 /** Opens a fresh `dock_status` table for one cell in the `spillway_bench` schema. */
 export async function openPostgres(spec: StoreSpec, cellId: string): Promise<OpenedStore> {
   const mode = (spec.mode ?? 'insert') as PostgresMode;
-  if (!MODES.includes(mode)) throw new TypeError(`Expected \`mode\` of the postgres store to be one of ${MODES.join(', ')}, got \`${mode}\``);
+  if (!MODES.includes(mode))
+    throw new TypeError(
+      `Expected \`mode\` of the postgres store to be one of ${MODES.join(', ')}, got \`${mode}\``,
+    );
   const pool = new pg.Pool({ connectionString: spec.url ?? DEFAULT_PG_URL, max: 4 });
   pool.on('error', () => undefined);
   const table = `dock_status_${cellId.replace(/[^a-z0-9_]/gi, '_').toLowerCase()}`.slice(0, 63);
-  const version = (await pool.query<{ server_version: string }>('SHOW server_version')).rows[0]?.server_version;
+  const version = (await pool.query<{ server_version: string }>('SHOW server_version')).rows[0]
+    ?.server_version;
   await pool.query(`CREATE SCHEMA IF NOT EXISTS ${SCHEMA}`).catch(() => undefined); // a parallel cell may race the create
   await pool.query(`DROP TABLE IF EXISTS ${SCHEMA}.${table}`);
   // upsert keeps the latest status per dock, the shape of the Tandem Bikes status table.

@@ -70,7 +70,10 @@ export async function openStore(spec: StoreSpec, cellId: string): Promise<Opened
     case 'noop':
       return { adapter: new NoopAdapter(), dispose: async () => {} };
     case 'sim':
-      return { adapter: new SimulatedAdapter(spec.latencyMs ?? 2, spec.perRecordUs ?? 1), dispose: async () => {} };
+      return {
+        adapter: new SimulatedAdapter(spec.latencyMs ?? 2, spec.perRecordUs ?? 1),
+        dispose: async () => {},
+      };
     case 'postgres': {
       const { openPostgres } = await import('./store-postgres.js');
       return openPostgres(spec, cellId);

@@ -11,7 +11,13 @@ export interface Subject {
   write(record: DockStatus, meta: RecordMeta): Promise<void>;
   onFlush(listener: (reason: FlushReason, records: number, bytes: number) => void): void;
   onWritten(listener: (records: number, durationMs: number) => void): void;
-  onSettled(listener: (metas: readonly (RecordMeta | undefined)[], latenciesMs: readonly number[], durable: boolean) => void): void;
+  onSettled(
+    listener: (
+      metas: readonly (RecordMeta | undefined)[],
+      latenciesMs: readonly number[],
+      durable: boolean,
+    ) => void,
+  ): void;
   /** Flushes what is left and closes: called after the measured window ends. */
   close(): Promise<void>;
   flushDurationMs(): Distribution | undefined;
@@ -24,7 +30,8 @@ export function sinkSubject(sink: Sink<DockStatus>): Subject {
     write: (record, meta) => sink.write(record, meta),
     onFlush: (listener) => void sink.on('flush', (e) => listener(e.reason, e.records, e.bytes)),
     onWritten: (listener) => void sink.on('written', (e) => listener(e.records, e.durationMs)),
-    onSettled: (listener) => void sink.on('settled', (e) => listener(e.metas, e.latenciesMs, e.outcome === 'durable')),
+    onSettled: (listener) =>
+      void sink.on('settled', (e) => listener(e.metas, e.latenciesMs, e.outcome === 'durable')),
     close: () => sink.close({ timeoutMs: 60_000 }),
     flushDurationMs: () => sink.snapshot().flushDurationMs,
   };

@@ -1,10 +1,10 @@
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import type { CellResult } from './cell-run.js';
-import { kafkaBrokers, type BrokerHandle } from './kafka-broker.js';
+import { type BrokerHandle, kafkaBrokers } from './kafka-broker.js';
 import { machineInfo } from './machine.js';
-import { type Plan, type StorePlan, cellsOf } from './plan.js';
-import { type Report, REPORT_VERSION, type WrittenReport, writeReport } from './report.js';
+import { cellsOf, type Plan, type StorePlan } from './plan.js';
+import { REPORT_VERSION, type Report, type WrittenReport, writeReport } from './report.js';
 import { type RunProgress, runCells } from './runner.js';
 import { SHAPES, type ShapeName } from './shapes.js';
 import { DEFAULT_PG_URL } from './store-postgres.js';
@@ -26,7 +26,10 @@ export interface SuiteOptions {
 
 /** Store addresses from the environment, with the defaults of this machine's servers. */
 export function storeUrls(env: NodeJS.ProcessEnv = process.env): { pgUrl: string; redisUrl: string } {
-  return { pgUrl: env.SPILLWAY_PG_URL ?? DEFAULT_PG_URL, redisUrl: env.SPILLWAY_REDIS_URL ?? DEFAULT_REDIS_URL };
+  return {
+    pgUrl: env.SPILLWAY_PG_URL ?? DEFAULT_PG_URL,
+    redisUrl: env.SPILLWAY_REDIS_URL ?? DEFAULT_REDIS_URL,
+  };
 }
 
 /** Parses a store name such as `postgres/copy`, `sim`, `redis`, `kafka`. */
@@ -47,7 +50,9 @@ export function parseStore(name: string, env: NodeJS.ProcessEnv = process.env): 
     case 'bridge':
       return { kind: 'bridge', mode: mode ?? 'copy', url: pgUrl };
     default:
-      throw new TypeError(`Expected a store of noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka, bridge[/<pg mode>], got \`${name}\``);
+      throw new TypeError(
+        `Expected a store of noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka, bridge[/<pg mode>], got \`${name}\``,
+      );
   }
 }
 
@@ -68,7 +73,11 @@ export function defaultPlan(env: NodeJS.ProcessEnv = process.env): Plan {
     stores: [
       ...stores.map(([name, shapes]) => ({ store: parseStore(name, env), shapes })),
       // Each bridge cell joins a consumer group first (seconds): a small grid of its own.
-      { store: parseStore('bridge', env), shapes: ['steady'], grid: { maxRecords: [100, 1000], maxAgeMs: [10, 100] } },
+      {
+        store: parseStore('bridge', env),
+        shapes: ['steady'],
+        grid: { maxRecords: [100, 1000], maxAgeMs: [10, 100] },
+      },
     ],
     maxRecords: [10, 100, 1000],
     maxAgeMs: [10, 100, 500],
@@ -122,10 +131,12 @@ export interface BenchFlags {
 /** Applies flags to a plan; a grid flag drops the smaller off-steady grid so the grid asked for runs everywhere. */
 export function applyFlags(plan: Plan, o: BenchFlags, env: NodeJS.ProcessEnv = process.env): Plan {
   for (const s of o.shapes ?? []) {
-    if (!SHAPES.includes(s as ShapeName)) throw new TypeError(`Expected shapes among ${SHAPES.join(', ')}, got \`${s}\``);
+    if (!SHAPES.includes(s as ShapeName))
+      throw new TypeError(`Expected shapes among ${SHAPES.join(', ')}, got \`${s}\``);
   }
   const shapes = o.shapes as ShapeName[] | undefined;
-  if (o.stores) plan.stores = o.stores.map((name) => ({ store: parseStore(name, env), shapes: shapes ?? ['steady'] }));
+  if (o.stores)
+    plan.stores = o.stores.map((name) => ({ store: parseStore(name, env), shapes: shapes ?? ['steady'] }));
   else if (shapes) for (const s of plan.stores) s.shapes = shapes;
   if (o.maxRecords) plan.maxRecords = o.maxRecords;
   if (o.maxAge) plan.maxAgeMs = o.maxAge;
@@ -133,7 +144,8 @@ export function applyFlags(plan: Plan, o: BenchFlags, env: NodeJS.ProcessEnv = p
   if (o.concurrency) plan.concurrency = o.concurrency;
   if (o.sizeOnly) plan.sizeOnly = o.sizeOnly;
   if (o.repeats !== undefined) {
-    if (!(Number.isInteger(o.repeats) && o.repeats >= 1)) throw new TypeError(`Expected \`repeats\` to be an integer >= 1, got \`${o.repeats}\``);
+    if (!(Number.isInteger(o.repeats) && o.repeats >= 1))
+      throw new TypeError(`Expected \`repeats\` to be an integer >= 1, got \`${o.repeats}\``);
     plan.repeats = o.repeats;
   }
   if (o.fullGrid || o.maxRecords || o.maxAge) delete plan.sideGrid;
@@ -161,10 +173,13 @@ export async function runSuite(options: SuiteOptions): Promise<{ report: Report;
       log('starting or finding a Kafka broker for the Kafka cells …');
       broker = await kafkaBrokers(options.env);
       servers.Kafka = broker.version;
-      for (const s of plan.stores) if (s.store.kind === 'kafka' || s.store.kind === 'bridge') s.store.brokers = broker.brokers;
+      for (const s of plan.stores)
+        if (s.store.kind === 'kafka' || s.store.kind === 'bridge') s.store.brokers = broker.brokers;
     } catch (e) {
       const why = (e as Error).message.split('\n')[0];
-      notes.push(`Kafka cells skipped: no broker (${why}). Set SPILLWAY_KAFKA_BROKERS, or install Java 17 for the harness broker.`);
+      notes.push(
+        `Kafka cells skipped: no broker (${why}). Set SPILLWAY_KAFKA_BROKERS, or install Java 17 for the harness broker.`,
+      );
       plan.stores = plan.stores.filter((s) => s.store.kind !== 'kafka' && s.store.kind !== 'bridge');
     }
   }
@@ -172,12 +187,19 @@ export async function runSuite(options: SuiteOptions): Promise<{ report: Report;
   try {
     const machine = machineInfo(servers);
     const cells = cellsOf(plan);
-    log(`${cells.length} cells × ${plan.repeats} run(s) over ${plan.stores.map((s: StorePlan) => storeLabel(s.store)).join(', ')}`);
+    log(
+      `${cells.length} cells × ${plan.repeats} run(s) over ${plan.stores.map((s: StorePlan) => storeLabel(s.store)).join(', ')}`,
+    );
     const results = await runCells(cells, plan.repeats, options.onProgress);
     for (const c of results) {
-      for (const r of c.runs as CellResult[]) if (r.storeVersion) machine.servers[r.storeVersion.split(' ')[0]!] = r.storeVersion;
-      if (c.runs.length === 0) notes.push(`${c.id}: every run failed — ${c.errors[0]?.split('\n')[0] ?? 'unknown error'}`);
-      else if (c.errors.length > 0) notes.push(`${c.id}: ${c.errors.length} of ${plan.repeats} runs failed — ${c.errors[0]?.split('\n')[0]}`);
+      for (const r of c.runs as CellResult[])
+        if (r.storeVersion) machine.servers[r.storeVersion.split(' ')[0]!] = r.storeVersion;
+      if (c.runs.length === 0)
+        notes.push(`${c.id}: every run failed — ${c.errors[0]?.split('\n')[0] ?? 'unknown error'}`);
+      else if (c.errors.length > 0)
+        notes.push(
+          `${c.id}: ${c.errors.length} of ${plan.repeats} runs failed — ${c.errors[0]?.split('\n')[0]}`,
+        );
     }
     const report: Report = {
       version: REPORT_VERSION,

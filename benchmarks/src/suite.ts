@@ -4,16 +4,21 @@
 import { readFileSync } from 'node:fs';
 import { dirname, join } from 'node:path';
 import { Command } from 'commander';
-import { type Report, reportProblems, writeReport } from './report.js';
 import type { Plan } from './plan.js';
+import { type Report, reportProblems, writeReport } from './report.js';
 import { SHAPES } from './shapes.js';
-import { type BenchFlags, applyFlags, defaultPlan, quickPlan, runSuite } from './suite-run.js';
+import { applyFlags, type BenchFlags, defaultPlan, quickPlan, runSuite } from './suite-run.js';
 
-const list = (v: string) => v.split(',').map((s) => s.trim()).filter(Boolean);
+const list = (v: string) =>
+  v
+    .split(',')
+    .map((s) => s.trim())
+    .filter(Boolean);
 const numbers = (name: string) => (v: string) =>
   list(v).map((s) => {
     const n = Number(s);
-    if (!Number.isFinite(n) || n < 0) throw new TypeError(`Expected \`${name}\` to be a comma-separated list of numbers >= 0, got \`${v}\``);
+    if (!Number.isFinite(n) || n < 0)
+      throw new TypeError(`Expected \`${name}\` to be a comma-separated list of numbers >= 0, got \`${v}\``);
     return n;
   });
 
@@ -21,7 +26,11 @@ const program = new Command()
   .name('spillway-bench')
   .description('Runs the Spillway benchmark grid; each cell in a fresh process.')
   .option('--quick', 'a small grid (a minute or two)')
-  .option('--stores <list>', 'stores: noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka, bridge[/<pg mode>]', list)
+  .option(
+    '--stores <list>',
+    'stores: noop, sim[/<ms>], postgres[/insert|copy|upsert], redis, kafka, bridge[/<pg mode>]',
+    list,
+  )
   .option('--shapes <list>', `shapes for every store: ${SHAPES.join(', ')}`, list)
   .option('--max-records <list>', 'maxRecords values', numbers('--max-records'))
   .option('--max-age <list>', 'maxAgeMs values', numbers('--max-age'))
@@ -34,10 +43,15 @@ const program = new Command()
   .option('--out <dir>', 'where results.json and charts/ go (default benchmarks/results)')
   .option('--markdown <file>', 'the results page (default benchmarks/RESULTS.md)')
   .option('--full-grid', 'use the main grid on every shape, not the smaller one off steady')
-  .option('--report-only <results.json>', 'redraw RESULTS.md and the charts from a saved results.json, running nothing');
+  .option(
+    '--report-only <results.json>',
+    'redraw RESULTS.md and the charts from a saved results.json, running nothing',
+  );
 
 program.parse();
-const o = program.opts<BenchFlags & { quick?: boolean; out?: string; markdown?: string; reportOnly?: string }>();
+const o = program.opts<
+  BenchFlags & { quick?: boolean; out?: string; markdown?: string; reportOnly?: string }
+>();
 
 if (o.reportOnly) {
   const saved = JSON.parse(readFileSync(o.reportOnly, 'utf8')) as Report;
@@ -70,4 +84,6 @@ const { report, written } = await runSuite({
   },
 });
 for (const n of report.notes) process.stderr.write(`note: ${n}\n`);
-process.stdout.write(`wrote ${written.markdownPath}, ${written.jsonPath} and ${written.charts.length} chart(s)\n`);
+process.stdout.write(
+  `wrote ${written.markdownPath}, ${written.jsonPath} and ${written.charts.length} chart(s)\n`,
+);

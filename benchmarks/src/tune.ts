@@ -49,8 +49,11 @@ export function ageCandidates(p99Ms: number): number[] {
 /** The settings the tuner tries: one write per record, and maxRecords × maxAgeMs around the target. */
 export function tuneGrid(p99Ms: number, maxRecords = [50, 200, 1000, 5000]): Settings[] {
   const idleMs = 100;
-  const out: Settings[] = [{ maxRecords: 1, maxAgeMs: Math.max(1, Math.round(p99Ms / 2)), idleMs, concurrency: 1 }];
-  for (const maxAgeMs of ageCandidates(p99Ms)) for (const n of maxRecords) out.push({ maxRecords: n, maxAgeMs, idleMs, concurrency: 1 });
+  const out: Settings[] = [
+    { maxRecords: 1, maxAgeMs: Math.max(1, Math.round(p99Ms / 2)), idleMs, concurrency: 1 },
+  ];
+  for (const maxAgeMs of ageCandidates(p99Ms))
+    for (const n of maxRecords) out.push({ maxRecords: n, maxAgeMs, idleMs, concurrency: 1 });
   return out;
 }
 
@@ -60,7 +63,8 @@ export function tuneGrid(p99Ms: number, maxRecords = [50, 200, 1000, 5000]): Set
  * within 2 % count as equal; then fewer batches (less load on the store) wins, then lower p99.
  */
 export async function tune(o: TuneOptions): Promise<TuneOutcome> {
-  if (!(Number.isFinite(o.p99Ms) && o.p99Ms > 0)) throw new TypeError(`Expected \`p99\` to be a finite number of ms > 0, got \`${o.p99Ms}\``);
+  if (!(Number.isFinite(o.p99Ms) && o.p99Ms > 0))
+    throw new TypeError(`Expected \`p99\` to be a finite number of ms > 0, got \`${o.p99Ms}\``);
   if (o.shapes.length === 0) throw new TypeError('Expected `shapes` to name at least one shape');
   const rate = o.rate ?? 5000;
   const grid = tuneGrid(o.p99Ms, o.maxRecords);
@@ -152,23 +156,30 @@ function describe(c: TuneCandidate, shapes: ShapeName[]): string[] {
 /** The tuner's verdict as the CLI prints it. */
 export function formatTune(t: TuneOutcome): string {
   const out: string[] = [];
-  out.push(`Target: p99 accept → durable ≤ ${t.p99Ms} ms on ${t.shapes.join(', ')}; store ${t.store}; ${t.candidates.length} settings tried.`);
+  out.push(
+    `Target: p99 accept → durable ≤ ${t.p99Ms} ms on ${t.shapes.join(', ')}; store ${t.store}; ${t.candidates.length} settings tried.`,
+  );
   if (t.best) {
-    out.push('', 'Use:        ' + describe(t.best, t.shapes).join('\n'));
-    if (t.runnerUp) out.push('', 'Runner-up:  ' + describe(t.runnerUp, t.shapes).join('\n'));
+    out.push('', `Use:        ${describe(t.best, t.shapes).join('\n')}`);
+    if (t.runnerUp) out.push('', `Runner-up:  ${describe(t.runnerUp, t.shapes).join('\n')}`);
     const over = t.candidates.filter((c) => !c.meets).length;
-    out.push('', `${t.candidates.length - over} of ${t.candidates.length} settings met the target; ranked by throughput on ${t.shapes[0]}, then fewer batches, then lower p99.`);
+    out.push(
+      '',
+      `${t.candidates.length - over} of ${t.candidates.length} settings met the target; ranked by throughput on ${t.shapes[0]}, then fewer batches, then lower p99.`,
+    );
   } else {
     out.push('', `No setting met p99 ≤ ${t.p99Ms} ms.`);
     const closest = [...t.candidates].sort((a, b) => a.worstP99 - b.worstP99)[0];
     if (t.storeWriteP99Ms >= t.p99Ms) {
-      out.push(`Why: the store's own write already takes ${num(t.storeWriteP99Ms)} ms at p99 (the fastest write of any trial), so no batching setting can bring a record's p99 under ${t.p99Ms} ms.`);
+      out.push(
+        `Why: the store's own write already takes ${num(t.storeWriteP99Ms)} ms at p99 (the fastest write of any trial), so no batching setting can bring a record's p99 under ${t.p99Ms} ms.`,
+      );
     } else if (closest) {
       out.push(
         `Why: the store writes in ${num(t.storeWriteP99Ms)} ms at p99, but waiting for a batch plus queueing behind earlier writes at this rate brings the best setting (maxRecords ${closest.settings.maxRecords}, maxAgeMs ${closest.settings.maxAgeMs}) to p99 ${num(closest.worstP99)} ms.`,
       );
     }
-    if (closest) out.push('', 'Closest:    ' + describe(closest, t.shapes).join('\n'));
+    if (closest) out.push('', `Closest:    ${describe(closest, t.shapes).join('\n')}`);
   }
   if (t.failures.length > 0) out.push('', `${t.failures.length} trial(s) failed: ${t.failures[0]}`);
   return out.join('\n');

@@ -32,7 +32,8 @@ describe('latency percentiles', () => {
       // Source: HdrHistogram (and the hdr-histogram-js reference library): with 3 significant
       // value digits a recorded value is reported within 0.1 % of itself; the cell records in
       // µs, so add one unit of 1 µs for rounding.
-      const close = (got: number, want: number) => expect(Math.abs(got - want)).toBeLessThanOrEqual(want * 0.001 + 0.001);
+      const close = (got: number, want: number) =>
+        expect(Math.abs(got - want)).toBeLessThanOrEqual(want * 0.001 + 0.001);
       close(s.p50, nearestRank(sorted, 50));
       close(s.p90, nearestRank(sorted, 90));
       close(s.p99, nearestRank(sorted, 99));
@@ -45,7 +46,11 @@ describe('latency percentiles', () => {
   it('report what the reference library reports for the same values', () => {
     const values = samples(5000, 3);
     const ours = new Histogram(1000);
-    const ref = hdr.build({ lowestDiscernibleValue: 1, highestTrackableValue: 2 ** 40, numberOfSignificantValueDigits: 3 });
+    const ref = hdr.build({
+      lowestDiscernibleValue: 1,
+      highestTrackableValue: 2 ** 40,
+      numberOfSignificantValueDigits: 3,
+    });
     for (const v of values) {
       ours.record(v);
       ref.recordValue(Math.round(v * 1000));

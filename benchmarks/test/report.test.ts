@@ -4,7 +4,7 @@ import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { type CellResult, type CellSpec, runCell } from '../src/cell-run.js';
 import { machineInfo } from '../src/machine.js';
-import { type Plan, cellsOf } from '../src/plan.js';
+import { cellsOf, type Plan } from '../src/plan.js';
 import { REPORT_VERSION, type Report, reportProblems, writeReport } from '../src/report.js';
 import { aggregate } from '../src/runner.js';
 
@@ -35,7 +35,15 @@ describe('a benchmark report', () => {
       results.set(cell.id, r);
       aggregates.push(aggregate(cell, [r], []));
     }
-    report = { version: REPORT_VERSION, generatedAt: new Date().toISOString(), durationSeconds: 1, machine: machineInfo(), plan, notes: [], cells: aggregates };
+    report = {
+      version: REPORT_VERSION,
+      generatedAt: new Date().toISOString(),
+      durationSeconds: 1,
+      machine: machineInfo(),
+      plan,
+      notes: [],
+      cells: aggregates,
+    };
   });
   afterAll(() => rmSync(dir, { recursive: true, force: true }));
 
@@ -55,8 +63,12 @@ describe('a benchmark report', () => {
   });
 
   it('shows the size-only baseline stranding every trickle record while the sink lands them all', () => {
-    const stuck = [...results.values()].find((r) => r.spec.variant === 'size-only' && r.spec.shape.shape === 'trickle')!;
-    const sink = [...results.values()].find((r) => r.spec.variant === 'spillway' && r.spec.shape.shape === 'trickle')!;
+    const stuck = [...results.values()].find(
+      (r) => r.spec.variant === 'size-only' && r.spec.shape.shape === 'trickle',
+    )!;
+    const sink = [...results.values()].find(
+      (r) => r.spec.variant === 'spillway' && r.spec.shape.shape === 'trickle',
+    )!;
     expect(stuck.offered).toBeGreaterThan(0);
     expect(stuck.stuck.records).toBe(stuck.offered);
     expect(stuck.durable).toBe(0);

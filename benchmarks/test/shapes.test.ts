@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import { SeededRandom } from '../src/random.js';
-import { SHAPES, arrivals, expectedRecords, shapeParams } from '../src/shapes.js';
+import { arrivals, expectedRecords, SHAPES, shapeParams } from '../src/shapes.js';
 
 describe('seeded load shapes', () => {
   it('replay the same arrivals and partitions for the same seed', () => {

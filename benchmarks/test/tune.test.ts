@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import type { CellResult } from '../src/cell-run.js';
-import { type TuneOutcome, ageCandidates, formatTune, tuneGrid } from '../src/tune.js';
+import { ageCandidates, formatTune, type TuneOutcome, tuneGrid } from '../src/tune.js';
 
 describe('the tuner', () => {
   it('tries ages of a tenth, a quarter and a half of the target, and one write per record once', () => {
@@ -12,7 +12,15 @@ describe('the tuner', () => {
   });
 
   it("says the store's own write time is the reason when no setting can meet the target", () => {
-    const result = { latencyMs: { p50: 30 }, latencyWithStuckMs: { p99: 60 }, throughput: 900, batches: 10, meanBatchRecords: 90, flushDurationMs: { p99: 45 }, stuck: { records: 0 } } as unknown as CellResult;
+    const result = {
+      latencyMs: { p50: 30 },
+      latencyWithStuckMs: { p99: 60 },
+      throughput: 900,
+      batches: 10,
+      meanBatchRecords: 90,
+      flushDurationMs: { p99: 45 },
+      stuck: { records: 0 },
+    } as unknown as CellResult;
     const outcome: TuneOutcome = {
       store: 'postgres/insert',
       p99Ms: 20,
@@ -20,7 +28,15 @@ describe('the tuner', () => {
       rate: 1000,
       best: undefined,
       runnerUp: undefined,
-      candidates: [{ settings: { maxRecords: 50, maxAgeMs: 2, idleMs: 100, concurrency: 1 }, results: { steady: result }, throughput: 900, worstP99: 60, meets: false }],
+      candidates: [
+        {
+          settings: { maxRecords: 50, maxAgeMs: 2, idleMs: 100, concurrency: 1 },
+          results: { steady: result },
+          throughput: 900,
+          worstP99: 60,
+          meets: false,
+        },
+      ],
       storeWriteP99Ms: 45,
       failures: [],
     };

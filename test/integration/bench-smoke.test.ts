@@ -4,7 +4,7 @@
 import { existsSync, mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { type Plan, type Report, SHAPES, reportProblems, runSuite } from '@spillway/benchmarks';
+import { type Plan, type Report, reportProblems, runSuite, SHAPES } from '@spillway/benchmarks';
 import { afterAll, describe, expect, it } from 'vitest';
 import { services } from '../harness/index.js';
 
@@ -40,7 +40,12 @@ describe('the benchmark suite', () => {
 
     expect(report.notes).toEqual([]);
     expect(report.cells).toHaveLength(2 * SHAPES.length);
-    for (const cell of report.cells) expect({ id: cell.id, errors: cell.errors, runs: cell.runs.length }).toEqual({ id: cell.id, errors: [], runs: 1 });
+    for (const cell of report.cells)
+      expect({ id: cell.id, errors: cell.errors, runs: cell.runs.length }).toEqual({
+        id: cell.id,
+        errors: [],
+        runs: 1,
+      });
     const json = JSON.parse(readFileSync(written.jsonPath, 'utf8')) as Report;
     expect(reportProblems(json)).toEqual([]);
     expect(json.machine.servers.PostgreSQL).toMatch(/^PostgreSQL \d+/);
