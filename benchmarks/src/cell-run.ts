@@ -333,7 +333,7 @@ export async function drive(
       throughput: round(arrivalRate * 1000),
       meanTimeHeldMs: round(meanTimeHeldMs),
       // Only a window in which every record landed balances: a stuck record is held with no exit.
-      ratio: predicted === 0 || held.size > 0 ? null : round(meanHeld / predicted, 4),
+      ratio: predicted === 0 || stuck.records > 0 ? null : round(meanHeld / predicted, 4),
     },
     windowMs: round(windowMs),
   };

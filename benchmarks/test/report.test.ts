@@ -72,6 +72,7 @@ describe('a benchmark report', () => {
     expect(stuck.offered).toBeGreaterThan(0);
     expect(stuck.stuck.records).toBe(stuck.offered);
     expect(stuck.durable).toBe(0);
+    expect(stuck.little.ratio).toBeNull(); // a window with stuck records cannot balance
     expect(sink.stuck.records).toBe(0);
     expect(sink.durable).toBe(sink.offered);
   });
