@@ -23,6 +23,7 @@ export default defineConfig({
         extends: true,
         test: {
           name: 'unit',
+          sequence: { groupOrder: 0 },
           include: ['packages/*/test/**/*.test.ts', 'benchmarks/test/**/*.test.ts'],
           testTimeout: 20_000,
         },
@@ -31,6 +32,7 @@ export default defineConfig({
         extends: true,
         test: {
           name: 'integration',
+          sequence: { groupOrder: 1 },
           include: ['test/**/*.test.ts'],
           globalSetup: ['test/harness/global-setup.ts'],
           testTimeout: 180_000,
