@@ -20,7 +20,9 @@ interface Dock {
 
 const arg = (name: string, fallback: number) => {
   const i = process.argv.indexOf(`--${name}`);
-  return i >= 0 ? Number(process.argv[i + 1]) : Number(process.env[`BENCH_${name.toUpperCase()}`] ?? fallback);
+  return i >= 0
+    ? Number(process.argv[i + 1])
+    : Number(process.env[`BENCH_${name.toUpperCase()}`] ?? fallback);
 };
 const variantArg = () => {
   const i = process.argv.indexOf('--variant');
@@ -51,7 +53,8 @@ class ArrayBatcher {
   async flush(): Promise<void> {
     const records = this.buf;
     this.buf = [];
-    if (records.length > 0) await this.adapter.write({ id: 0, reason: 'size', attempt: 1, records, metas: [], bytes: 0 });
+    if (records.length > 0)
+      await this.adapter.write({ id: 0, reason: 'size', attempt: 1, records, metas: [], bytes: 0 });
   }
 }
 
@@ -116,7 +119,14 @@ function heapPerRecord(kind: 'sink' | 'array', n: number): number {
   const before = process.memoryUsage().heapUsed;
   let keep: unknown;
   if (kind === 'sink') {
-    const sink = new Sink(noop, { maxRecords: n + 1, maxPendingRecords: n + 1, maxBytes: 2 ** 40, maxPendingBytes: 2 ** 50, maxAgeMs: 3_600_000, idleMs: 0 });
+    const sink = new Sink(noop, {
+      maxRecords: n + 1,
+      maxPendingRecords: n + 1,
+      maxBytes: 2 ** 40,
+      maxPendingBytes: 2 ** 50,
+      maxAgeMs: 3_600_000,
+      idleMs: 0,
+    });
     for (const r of records) sink.tryWrite(r);
     keep = sink;
   } else {
@@ -134,10 +144,18 @@ async function child(variant: string): Promise<void> {
   const n = arg('records', 2_000_000);
   const batch = arg('batch', 1000);
   if (variant.startsWith('heap-')) {
-    process.stdout.write(JSON.stringify({ bytes: heapPerRecord(variant === 'heap-sink' ? 'sink' : 'array', 200_000) }));
+    process.stdout.write(
+      JSON.stringify({ bytes: heapPerRecord(variant === 'heap-sink' ? 'sink' : 'array', 200_000) }),
+    );
     return;
   }
-  const run = { array: arrayBatcher, push: pushLoop, write: sinkWrite, tryWrite: sinkTryWrite, tryWriteMany: sinkTryWriteMany }[variant as 'array'];
+  const run = {
+    array: arrayBatcher,
+    push: pushLoop,
+    write: sinkWrite,
+    tryWrite: sinkTryWrite,
+    tryWriteMany: sinkTryWriteMany,
+  }[variant as 'array'];
   await run(20_000, batch); // warm-up
   const t0 = process.hrtime.bigint();
   await run(n, batch);
@@ -157,7 +175,11 @@ async function main(): Promise<void> {
   const repeats = arg('repeats', 5);
   const self = fileURLToPath(import.meta.url);
   const sample = (variant: string) =>
-    JSON.parse(execFileSync(process.execPath, ['--expose-gc', self, '--variant', variant, ...process.argv.slice(2)], { encoding: 'utf8' }));
+    JSON.parse(
+      execFileSync(process.execPath, ['--expose-gc', self, '--variant', variant, ...process.argv.slice(2)], {
+        encoding: 'utf8',
+      }),
+    );
   const rps: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
   // Interleave variants so machine noise hits them alike.
   for (let r = 0; r < repeats; r++) for (const k of Object.keys(rps)) rps[k]!.push(sample(k).rps);
@@ -165,18 +187,25 @@ async function main(): Promise<void> {
   const heapArray = sample('heap-array').bytes as number;
 
   const cpu = cpus()[0]?.model ?? 'unknown CPU';
-  console.log(`# core throughput — ${cpu}, ${cpus().length} cores, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, Node ${process.version}`);
-  console.log(`records per sample: ${arg('records', 2_000_000)}, batch: ${arg('batch', 1000)}, samples: ${repeats} per variant (fresh process each)`);
+  console.log(
+    `# core throughput — ${cpu}, ${cpus().length} cores, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, Node ${process.version}`,
+  );
+  console.log(
+    `records per sample: ${arg('records', 2_000_000)}, batch: ${arg('batch', 1000)}, samples: ${repeats} per variant (fresh process each)`,
+  );
   const limit = median(rps.array!);
   console.log('variant        median rec/s   min–max rec/s            ratio to limit');
   for (const [k, xs] of Object.entries(rps)) {
     const m = median(xs);
     console.log(
-      `${k.padEnd(14)} ${Math.round(m).toLocaleString('en').padStart(12)}   ${Math.round(Math.min(...xs)).toLocaleString('en')}–${Math.round(Math.max(...xs)).toLocaleString('en')}`.padEnd(58) +
-        (m / limit).toFixed(2),
+      `${k.padEnd(14)} ${Math.round(m).toLocaleString('en').padStart(12)}   ${Math.round(Math.min(...xs)).toLocaleString('en')}–${Math.round(Math.max(...xs)).toLocaleString('en')}`.padEnd(
+        58,
+      ) + (m / limit).toFixed(2),
     );
   }
-  console.log(`heap per buffered record: sink ${heapSink.toFixed(0)} B, plain array ${heapArray.toFixed(0)} B (engine overhead ${(heapSink - heapArray).toFixed(0)} B)`);
+  console.log(
+    `heap per buffered record: sink ${heapSink.toFixed(0)} B, plain array ${heapArray.toFixed(0)} B (engine overhead ${(heapSink - heapArray).toFixed(0)} B)`,
+  );
   console.log(`target: write() ≥ 0.5 of the limit → ${(median(rps.write!) / limit).toFixed(2)}`);
 }
 

@@ -183,7 +183,10 @@ describe('a partner file into PostgreSQL', () => {
     const path = join(dir, 'partner-corrections.csv');
     // SR-1 … SR-3000, then a correction of every tenth record: the corrections must win.
     const rows = Array.from({ length: 3000 }, (_, i) => good(i + 1));
-    const corrections = Array.from({ length: 300 }, (_, i) => `SR-${(i + 1) * 10},DK-0001,999,2024-06-01T00:00:00Z,0,true,chain,corrected\r\n`);
+    const corrections = Array.from(
+      { length: 300 },
+      (_, i) => `SR-${(i + 1) * 10},DK-0001,999,2024-06-01T00:00:00Z,0,true,chain,corrected\r\n`,
+    );
     await writeFile(path, HEADER + rows.join('') + corrections.join(''));
     const sink = postgresSink<Row>({
       pool: db.pool,
@@ -198,7 +201,9 @@ describe('a partner file into PostgreSQL', () => {
     const summary = await ingestFile(path, sink, { columns: COLUMNS });
     await sink.close();
     expect(summary.rowsWritten).toBe(3300);
-    const { rows: got } = await db.pool.query(`SELECT count(*)::int AS n, count(*) FILTER (WHERE bike_id = 999)::int AS corrected FROM ${name}`);
+    const { rows: got } = await db.pool.query(
+      `SELECT count(*)::int AS n, count(*) FILTER (WHERE bike_id = 999)::int AS corrected FROM ${name}`,
+    );
     expect(got[0]).toEqual({ n: 3000, corrected: 300 });
   });
 

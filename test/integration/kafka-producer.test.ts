@@ -1,11 +1,21 @@
 // The Kafka producer sink against a real broker: 100,000 records read back by a separate
 // consumer in key order per partition, an oversized record dead-lettered while the rest land,
 // an unknown topic stopping the sink, and a private broker killed and restarted mid-stream.
-import { Sink, type DeadLetter, type DeadLetterTarget, type SinkOptions } from '@spillway/core';
-import { kafkaProducerAdapter, type KafkaProducerAdapterOptions } from '@spillway/kafka';
+import { type DeadLetter, type DeadLetterTarget, Sink, type SinkOptions } from '@spillway/core';
+import { type KafkaProducerAdapterOptions, kafkaProducerAdapter } from '@spillway/kafka';
 import { type Admin, type Kafka, Partitioners } from 'kafkajs';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { createTopic, kafkaClient, sleep, startPrivateKafka, uniqueName, uniqueTopic, withKafka, type KafkaBroker, type TestKafka } from '../harness/index.js';
+import {
+  createTopic,
+  type KafkaBroker,
+  kafkaClient,
+  sleep,
+  startPrivateKafka,
+  type TestKafka,
+  uniqueName,
+  uniqueTopic,
+  withKafka,
+} from '../harness/index.js';
 
 /** An enriched Tandem Bikes dock event. */
 interface DockEvent {
@@ -25,14 +35,27 @@ function event(i: number, docks = 100): DockEvent {
   return { dock: `dock-${i % docks}`, seq: Math.floor(i / docks), payload: `bikes=${i % 13}` };
 }
 
-function sinkFor(options: Omit<KafkaProducerAdapterOptions<DockEvent>, 'mapper'>, sinkOptions: SinkOptions<DockEvent> = {}) {
+function sinkFor(
+  options: Omit<KafkaProducerAdapterOptions<DockEvent>, 'mapper'>,
+  sinkOptions: SinkOptions<DockEvent> = {},
+) {
   const deadLetters = new CollectedDeadLetters<DockEvent>();
   const adapter = kafkaProducerAdapter<DockEvent>({
-    mapper: (e) => ({ key: e.dock, value: JSON.stringify(e), headers: { source: 'tandem-test' }, timestamp: 1_700_000_000_000 + e.seq }),
+    mapper: (e) => ({
+      key: e.dock,
+      value: JSON.stringify(e),
+      headers: { source: 'tandem-test' },
+      timestamp: 1_700_000_000_000 + e.seq,
+    }),
     producer: { createPartitioner: Partitioners.DefaultPartitioner },
     ...options,
   });
-  const sink = new Sink(adapter, { maxRecords: 1000, retry: { baseDelayMs: 50, maxDelayMs: 1000 }, deadLetter: deadLetters, ...sinkOptions });
+  const sink = new Sink(adapter, {
+    maxRecords: 1000,
+    retry: { baseDelayMs: 50, maxDelayMs: 1000 },
+    deadLetter: deadLetters,
+    ...sinkOptions,
+  });
   return { sink, adapter, deadLetters };
 }
 
@@ -73,7 +96,10 @@ async function readTopic(kafka: Kafka, admin: Admin, topic: string): Promise<Rea
   });
   let timer: NodeJS.Timeout | undefined;
   const timeout = new Promise<never>((_, reject) => {
-    timer = setTimeout(() => reject(new Error(`read ${out.length} of ${total} messages of ${topic}`)), 120_000);
+    timer = setTimeout(
+      () => reject(new Error(`read ${out.length} of ${total} messages of ${topic}`)),
+      120_000,
+    );
   });
   try {
     await Promise.race([finished, timeout]);
@@ -93,7 +119,8 @@ function inspect(messages: Read[]) {
   let outOfOrder = 0;
   let partitionsPerKeyViolations = 0;
   const byPartition = new Map<number, Read[]>();
-  for (const m of messages) (byPartition.get(m.partition) ?? byPartition.set(m.partition, []).get(m.partition)!).push(m);
+  for (const m of messages)
+    (byPartition.get(m.partition) ?? byPartition.set(m.partition, []).get(m.partition)!).push(m);
   for (const list of byPartition.values()) {
     list.sort((a, b) => Number(BigInt(a.offset) - BigInt(b.offset)));
     for (const m of list) {
@@ -155,7 +182,12 @@ describe('Kafka producer sink on the shared broker', () => {
     const { sink } = sinkFor({
       kafka: k.kafka,
       topic,
-      mapper: (e) => ({ value: JSON.stringify(e), partition: e.seq % 3, timestamp: 1_600_000_000_000 + e.seq, ...(e.seq === 6 ? { topic: other } : {}) }),
+      mapper: (e) => ({
+        value: JSON.stringify(e),
+        partition: e.seq % 3,
+        timestamp: 1_600_000_000_000 + e.seq,
+        ...(e.seq === 6 ? { topic: other } : {}),
+      }),
     });
     for (let seq = 0; seq < 30; seq++) await sink.write({ dock: 'dock-1', seq, payload: '' });
     await sink.close();
@@ -174,16 +206,20 @@ describe('Kafka producer sink on the shared broker', () => {
   it('stops instead of losing records sent to a partition the topic does not have', async () => {
     // kafkajs resolves sendBatch without writing such records; the adapter checks the response.
     const topic = await k.topic(2, 'nopart');
-    const { sink, deadLetters } = sinkFor({ kafka: k.kafka, topic, mapper: (e) => ({ value: JSON.stringify(e), partition: e.seq === 5 ? 7 : e.seq % 2 }) });
+    const { sink, deadLetters } = sinkFor({
+      kafka: k.kafka,
+      topic,
+      mapper: (e) => ({ value: JSON.stringify(e), partition: e.seq === 5 ? 7 : e.seq % 2 }),
+    });
     const errors: unknown[] = [];
     sink.on('error', (e) => errors.push(e.error));
     for (let seq = 0; seq < 10; seq++) await sink.write({ dock: 'dock-1', seq, payload: '' });
     await expect(sink.flush()).rejects.toMatchObject({ code: 'SPILLWAY_SINK_FAILED' });
     expect(errors[0]).toMatchObject({ driverCode: 'UNKNOWN_TOPIC_OR_PARTITION', details: { partition: 7 } });
     expect(deadLetters.letters).toEqual([]);
-    // The engine stops at the fatal refusal before counting the others: it under-reports (the
-    // nine the broker took are in the topic) rather than report the lost one as durable.
-    expect(sink.snapshot().written).toBe(0);
+    // The nine the broker took are reported durable; the refused one is not (the sink stops).
+    expect(sink.snapshot().written).toBe(9);
+    expect(sink.pending().inFlight).toBe(1);
     expect(await readTopic(k.kafka, k.admin, topic)).toHaveLength(9);
     await sink.close().catch(() => undefined);
   });
@@ -192,7 +228,12 @@ describe('Kafka producer sink on the shared broker', () => {
     const topic = await k.topic(3, 'big');
     const { sink, adapter, deadLetters } = sinkFor(
       // No client-side check: the broker's own limit refuses the record.
-      { kafka: k.kafka, topic, maxRecordBytes: Number.POSITIVE_INFINITY, mapper: (e) => ({ key: e.dock, value: e.payload.length > 100 ? e.payload : JSON.stringify(e) }) },
+      {
+        kafka: k.kafka,
+        topic,
+        maxRecordBytes: Number.POSITIVE_INFINITY,
+        mapper: (e) => ({ key: e.dock, value: e.payload.length > 100 ? e.payload : JSON.stringify(e) }),
+      },
       { maxRecords: 500, maxBytes: 8 * 1024 * 1024, idleMs: 0, maxAgeMs: 60_000 },
     );
     const n = 500;
@@ -206,14 +247,22 @@ describe('Kafka producer sink on the shared broker', () => {
     expect(deadLetters.letters.map((l) => `${l.record.dock}/${l.record.seq}`)).toEqual(['dock-50/2']);
     expect(deadLetters.letters[0]!.error).toMatchObject({ driverCode: 'MESSAGE_TOO_LARGE' });
     const read = await readTopic(k.kafka, k.admin, topic);
-    const ids = new Set(read.map((m) => m.value.length > 100 ? 'big' : `${(JSON.parse(m.value) as DockEvent).dock}/${(JSON.parse(m.value) as DockEvent).seq}`));
+    const ids = new Set(
+      read.map((m) =>
+        m.value.length > 100
+          ? 'big'
+          : `${(JSON.parse(m.value) as DockEvent).dock}/${(JSON.parse(m.value) as DockEvent).seq}`,
+      ),
+    );
     expect(ids.has('big')).toBe(false);
     expect(ids.size).toBe(n - 1);
     const duplicates = read.length - ids.size;
     // A record larger than maxRequestBytes always travels alone, so the refused request holds
     // nothing else and no other record is sent twice.
     expect(duplicates).toBe(0);
-    console.log(`kafka oversize (broker check): ${read.length} read, ${ids.size} unique, ${duplicates} duplicates, ${adapter.producersCreated} producers`);
+    console.log(
+      `kafka oversize (broker check): ${read.length} read, ${ids.size} unique, ${duplicates} duplicates, ${adapter.producersCreated} producers`,
+    );
     expect(adapter.producersCreated).toBeGreaterThan(1);
   });
 
@@ -234,7 +283,10 @@ describe('Kafka producer sink on the shared broker', () => {
 
   it('sends a batch larger than the broker limit for one partition as several requests, each record once', async () => {
     const topic = await k.topic(1, 'chunks');
-    const { sink, adapter, deadLetters } = sinkFor({ kafka: k.kafka, topic }, { maxRecords: 5000, maxBytes: 64 * 1024 * 1024, idleMs: 0, maxAgeMs: 60_000 });
+    const { sink, adapter, deadLetters } = sinkFor(
+      { kafka: k.kafka, topic },
+      { maxRecords: 5000, maxBytes: 64 * 1024 * 1024, idleMs: 0, maxAgeMs: 60_000 },
+    );
     let flushes = 0;
     sink.on('flush', () => flushes++);
     // 5,000 records of ~600 bytes: ~3 MB for one partition in one batch.
@@ -272,7 +324,11 @@ describe('Kafka producer sink on the shared broker', () => {
   });
 
   it('stops the sink on an unknown topic (auto-creation off) and reports nothing durable', async () => {
-    const { sink } = sinkFor({ kafka: k.kafka, topic: uniqueTopic('missing'), producer: { retry: { retries: 1, initialRetryTime: 100 } } });
+    const { sink } = sinkFor({
+      kafka: k.kafka,
+      topic: uniqueTopic('missing'),
+      producer: { retry: { retries: 1, initialRetryTime: 100 } },
+    });
     const errors: unknown[] = [];
     sink.on('error', (e) => errors.push(e.error));
     await sink.write(event(1));
@@ -304,7 +360,14 @@ describe('Kafka producer sink against a private broker that is killed and restar
       const topic = await createTopic(admin, uniqueTopic(idempotent ? 'kill_idem' : 'kill_plain'), 3);
       const { sink, deadLetters } = sinkFor(
         { kafka, topic, idempotent },
-        { retry: { maxAttempts: Number.POSITIVE_INFINITY, baseDelayMs: 200, maxDelayMs: 2000, maxElapsedMs: 150_000 } },
+        {
+          retry: {
+            maxAttempts: Number.POSITIVE_INFINITY,
+            baseDelayMs: 200,
+            maxDelayMs: 2000,
+            maxElapsedMs: 150_000,
+          },
+        },
       );
       const n = 30_000;
       let outage: Promise<void> | undefined;
@@ -327,7 +390,9 @@ describe('Kafka producer sink against a private broker that is killed and restar
       const read = await readTopic(kafka, admin, topic);
       const r = inspect(read);
       const missing = n - r.unique.size;
-      console.log(`kafka kill/restart idempotent=${idempotent}: ${read.length} read, ${r.unique.size} unique, ${r.duplicates} duplicates, ${missing} missing, ${snap.retries} sink retries, out-of-order ${r.outOfOrder}`);
+      console.log(
+        `kafka kill/restart idempotent=${idempotent}: ${read.length} read, ${r.unique.size} unique, ${r.duplicates} duplicates, ${missing} missing, ${snap.retries} sink retries, out-of-order ${r.outOfOrder}`,
+      );
       expect(missing).toBe(0);
       expect(r.unique.size).toBe(n);
       if (idempotent) expect(r.duplicates).toBe(0);

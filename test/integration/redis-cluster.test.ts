@@ -6,11 +6,18 @@ import { type ChildProcess, spawn } from 'node:child_process';
 import { closeSync, mkdtempSync, openSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { Sink, type DeadLetter, type DeadLetterTarget } from '@spillway/core';
+import { type DeadLetter, type DeadLetterTarget, Sink } from '@spillway/core';
 import { counter, hashFields, keySlot, redisAdapter } from '@spillway/redis';
 import { Cluster, Redis } from 'ioredis';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { freePort, onProcessExit, run, stopGroup, waitFor, withParentDeathSignal } from '../harness/process.js';
+import {
+  freePort,
+  onProcessExit,
+  run,
+  stopGroup,
+  waitFor,
+  withParentDeathSignal,
+} from '../harness/process.js';
 
 interface DockStatus {
   seq: number;
@@ -37,7 +44,13 @@ describe('Redis adapter with a Cluster client', () => {
   beforeAll(async () => {
     root = mkdtempSync(join(tmpdir(), 'spillway-redis-cluster-'));
     removeHook = onProcessExit(() => {
-      for (const n of nodes) if (n.pid !== undefined) try { process.kill(-n.pid, 'SIGKILL'); } catch { /* gone */ }
+      for (const n of nodes)
+        if (n.pid !== undefined)
+          try {
+            process.kill(-n.pid, 'SIGKILL');
+          } catch {
+            /* gone */
+          }
       rmSync(root, { recursive: true, force: true });
     });
     for (let i = 0; i < 3; i++) {
@@ -45,8 +58,20 @@ describe('Redis adapter with a Cluster client', () => {
       ports.push(port);
       const fd = openSync(join(root, `node-${port}.log`), 'a');
       const [cmd, args] = withParentDeathSignal('redis-server', [
-        '--port', String(port), '--bind', '127.0.0.1', '--cluster-enabled', 'yes', '--cluster-config-file', join(root, `nodes-${port}.conf`),
-        '--save', '', '--appendonly', 'no', '--dir', root,
+        '--port',
+        String(port),
+        '--bind',
+        '127.0.0.1',
+        '--cluster-enabled',
+        'yes',
+        '--cluster-config-file',
+        join(root, `nodes-${port}.conf`),
+        '--save',
+        '',
+        '--appendonly',
+        'no',
+        '--dir',
+        root,
       ]);
       const child = spawn(cmd, args, { detached: true, stdio: ['ignore', fd, fd] });
       closeSync(fd);
@@ -54,30 +79,53 @@ describe('Redis adapter with a Cluster client', () => {
       nodes.push(child);
     }
     for (const port of ports) {
-      await waitFor(`cluster node ${port}`, async () => {
-        const r = new Redis(port, '127.0.0.1', { lazyConnect: true, maxRetriesPerRequest: 0, retryStrategy: () => null });
-        r.on('error', () => undefined);
-        try {
-          await r.connect();
-          return (await r.ping()) === 'PONG' ? true : undefined;
-        } finally {
-          r.disconnect();
-        }
-      }, { timeoutMs: 15_000, intervalMs: 100 });
+      await waitFor(
+        `cluster node ${port}`,
+        async () => {
+          const r = new Redis(port, '127.0.0.1', {
+            lazyConnect: true,
+            maxRetriesPerRequest: 0,
+            retryStrategy: () => null,
+          });
+          r.on('error', () => undefined);
+          try {
+            await r.connect();
+            return (await r.ping()) === 'PONG' ? true : undefined;
+          } finally {
+            r.disconnect();
+          }
+        },
+        { timeoutMs: 15_000, intervalMs: 100 },
+      );
     }
     // Source: Redis documentation, "Scale with Redis Cluster" (redis-cli --cluster create).
-    await run('redis-cli', ['--cluster', 'create', ...ports.map((p) => `127.0.0.1:${p}`), '--cluster-replicas', '0', '--cluster-yes'], { timeoutMs: 60_000 });
-    await waitFor('cluster_state:ok on every node', async () => {
-      for (const port of ports) {
-        const r = new Redis(port, '127.0.0.1');
-        try {
-          if (!/cluster_state:ok/.test(await r.cluster('INFO'))) return undefined;
-        } finally {
-          r.disconnect();
+    await run(
+      'redis-cli',
+      [
+        '--cluster',
+        'create',
+        ...ports.map((p) => `127.0.0.1:${p}`),
+        '--cluster-replicas',
+        '0',
+        '--cluster-yes',
+      ],
+      { timeoutMs: 60_000 },
+    );
+    await waitFor(
+      'cluster_state:ok on every node',
+      async () => {
+        for (const port of ports) {
+          const r = new Redis(port, '127.0.0.1');
+          try {
+            if (!/cluster_state:ok/.test(await r.cluster('INFO'))) return undefined;
+          } finally {
+            r.disconnect();
+          }
         }
-      }
-      return true;
-    }, { timeoutMs: 30_000, intervalMs: 200 });
+        return true;
+      },
+      { timeoutMs: 30_000, intervalMs: 200 },
+    );
     cluster = new Cluster(ports.map((port) => ({ host: '127.0.0.1', port })));
     await cluster.ping();
   });
@@ -98,7 +146,13 @@ describe('Redis adapter with a Cluster client', () => {
 
   it('writes a batch whose keys span all three nodes, one pipeline per node', async () => {
     const deadLetters = new CollectedDeadLetters<DockStatus>();
-    const sink = new Sink(redisAdapter<DockStatus>({ client: cluster, mapping: hashFields({ key: (r) => `cl:${r.dock}`, fields: (r) => ({ free: r.free }) }) }), { maxRecords: 1000, deadLetter: deadLetters });
+    const sink = new Sink(
+      redisAdapter<DockStatus>({
+        client: cluster,
+        mapping: hashFields({ key: (r) => `cl:${r.dock}`, fields: (r) => ({ free: r.free }) }),
+      }),
+      { maxRecords: 1000, deadLetter: deadLetters },
+    );
     const n = 20_000;
     for (let i = 0; i < n; i++) await sink.write(dock(i));
     await sink.close();
@@ -119,7 +173,13 @@ describe('Redis adapter with a Cluster client', () => {
   it('dead-letters only the record whose key holds the wrong type, on whichever node', async () => {
     await cluster.rpush('wt:dock-77', 'not a hash');
     const deadLetters = new CollectedDeadLetters<DockStatus>();
-    const sink = new Sink(redisAdapter<DockStatus>({ client: cluster, mapping: hashFields({ key: (r) => `wt:${r.dock}`, fields: (r) => ({ free: r.free }) }) }), { deadLetter: deadLetters });
+    const sink = new Sink(
+      redisAdapter<DockStatus>({
+        client: cluster,
+        mapping: hashFields({ key: (r) => `wt:${r.dock}`, fields: (r) => ({ free: r.free }) }),
+      }),
+      { deadLetter: deadLetters },
+    );
     for (let i = 0; i < 500; i++) await sink.write(dock(i));
     await sink.close();
     expect(deadLetters.letters.map((l) => l.record.seq)).toEqual([77]);
@@ -130,7 +190,11 @@ describe('Redis adapter with a Cluster client', () => {
     await cluster.set('at:{d1}:rentals', 'not a number');
     const deadLetters = new CollectedDeadLetters<DockStatus>();
     const sink = new Sink(
-      redisAdapter<DockStatus>({ client: cluster, atomic: true, mapping: counter({ key: (r) => `at:{d${r.seq % 10}}:rentals`, by: () => 1 }) }),
+      redisAdapter<DockStatus>({
+        client: cluster,
+        atomic: true,
+        mapping: counter({ key: (r) => `at:{d${r.seq % 10}}:rentals`, by: () => 1 }),
+      }),
       { deadLetter: deadLetters },
     );
     for (let i = 0; i < 1000; i++) await sink.write(dock(i));

@@ -1,21 +1,27 @@
 // The Redis adapter against real servers: 100,000 records through each ready-made mapping,
 // per-record attribution of error replies inside a pipeline and a transaction, a restart of a
 // private server mid-stream, unknown outcomes, and binary-safe / huge values.
-import { Sink, type DeadLetter, type DeadLetterTarget, type SinkOptions } from '@spillway/core';
+import { type DeadLetter, type DeadLetterTarget, Sink, type SinkOptions } from '@spillway/core';
 import {
   commandMapping,
   counter,
   hashFields,
   offsetStreamId,
+  type RedisAdapterOptions,
   redisAdapter,
   sortedSetMember,
   streamEntry,
   stringValue,
-  type RedisAdapterOptions,
 } from '@spillway/redis';
 import { Redis } from 'ioredis';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { deleteRedisPrefix, redisPrefix, services, startPrivateRedis, type PrivateServer } from '../harness/index.js';
+import {
+  deleteRedisPrefix,
+  type PrivateServer,
+  redisPrefix,
+  services,
+  startPrivateRedis,
+} from '../harness/index.js';
 
 /** A Tandem Bikes dock status event. */
 interface DockStatus {
@@ -42,11 +48,20 @@ class CollectedDeadLetters<T> implements DeadLetterTarget<T> {
 
 function sinkFor<T>(adapter: RedisAdapterOptions<T>, options: SinkOptions<T> = {}) {
   const deadLetters = new CollectedDeadLetters<T>();
-  const sink = new Sink(redisAdapter(adapter), { maxRecords: 1000, retry: { baseDelayMs: 20, maxDelayMs: 200 }, deadLetter: deadLetters, ...options });
+  const sink = new Sink(redisAdapter(adapter), {
+    maxRecords: 1000,
+    retry: { baseDelayMs: 20, maxDelayMs: 200 },
+    deadLetter: deadLetters,
+    ...options,
+  });
   return { sink, deadLetters };
 }
 
-async function writeAll<T>(sink: Sink<T>, records: Iterable<T>, metaOf?: (r: T) => { partition: number; offset: number }): Promise<void> {
+async function writeAll<T>(
+  sink: Sink<T>,
+  records: Iterable<T>,
+  metaOf?: (r: T) => { partition: number; offset: number },
+): Promise<void> {
   for (const r of records) await sink.write(r, metaOf?.(r));
   await sink.close({ timeoutMs: 120_000 });
 }
@@ -56,7 +71,11 @@ function* range(n: number, from = 0): Generator<number> {
 }
 
 /** Runs `read` for every key in chunks of one pipeline each. */
-async function readAll<R>(redis: Redis, keys: string[], read: (p: ReturnType<Redis['pipeline']>, key: string) => void): Promise<R[]> {
+async function readAll<R>(
+  redis: Redis,
+  keys: string[],
+  read: (p: ReturnType<Redis['pipeline']>, key: string) => void,
+): Promise<R[]> {
   const out: R[] = [];
   for (let i = 0; i < keys.length; i += 5000) {
     const p = redis.pipeline();
@@ -88,11 +107,18 @@ describe('Redis adapter on the shared server', () => {
     const client = new Redis(services().redisUrl);
     const { sink, deadLetters } = sinkFor<DockStatus>({
       client,
-      mapping: stringValue({ key: (r) => `${prefix}str:${r.dock}`, value: (r) => `${r.bikes}/${r.free}`, ttlMs: 600_000 }),
+      mapping: stringValue({
+        key: (r) => `${prefix}str:${r.dock}`,
+        value: (r) => `${r.bikes}/${r.free}`,
+        ttlMs: 600_000,
+      }),
     });
-    await writeAll(sink, (function* () {
-      for (const i of range(N)) yield dockStatus(i);
-    })());
+    await writeAll(
+      sink,
+      (function* () {
+        for (const i of range(N)) yield dockStatus(i);
+      })(),
+    );
     const keys = [...range(N)].map((i) => `${prefix}str:dock-${i}`);
     const values = await readAll<string | null>(redis, keys, (p, k) => p.get(k));
     expect(values.filter((v, i) => v !== `${i % 13}/${12 - (i % 13)}`)).toEqual([]);
@@ -108,16 +134,28 @@ describe('Redis adapter on the shared server', () => {
     const client = new Redis(services().redisUrl);
     const { sink } = sinkFor<DockStatus>({
       client,
-      mapping: hashFields({ key: (r) => `${prefix}hash:${r.dock}`, fields: (r) => ({ bikes: r.bikes, free: r.free, district: r.district }), ttlMs: 600_000 }),
+      mapping: hashFields({
+        key: (r) => `${prefix}hash:${r.dock}`,
+        fields: (r) => ({ bikes: r.bikes, free: r.free, district: r.district }),
+        ttlMs: 600_000,
+      }),
     });
-    await writeAll(sink, (function* () {
-      for (const i of range(N)) yield dockStatus(i);
-    })());
+    await writeAll(
+      sink,
+      (function* () {
+        for (const i of range(N)) yield dockStatus(i);
+      })(),
+    );
     const keys = [...range(N)].map((i) => `${prefix}hash:dock-${i}`);
     const hashes = await readAll<Record<string, string>>(redis, keys, (p, k) => p.hgetall(k));
     const wrong = hashes.filter((h, i) => {
       const d = dockStatus(i);
-      return h.bikes !== String(d.bikes) || h.free !== String(d.free) || h.district !== d.district || Object.keys(h).length !== 3;
+      return (
+        h.bikes !== String(d.bikes) ||
+        h.free !== String(d.free) ||
+        h.district !== d.district ||
+        Object.keys(h).length !== 3
+      );
     });
     expect(wrong).toEqual([]);
     const ttls = await readAll<number>(redis, keys.slice(0, 1000), (p, k) => p.pttl(k));
@@ -128,10 +166,20 @@ describe('Redis adapter on the shared server', () => {
   it('writes 100,000 sorted-set members with their scores', async () => {
     const client = new Redis(services().redisUrl);
     const key = (d: string) => `${prefix}zset:${d}`;
-    const { sink } = sinkFor<DockStatus>({ client, mapping: sortedSetMember({ key: (r) => key(r.district), member: (r) => r.dock, score: (r) => r.seq + 0.5 }) });
-    await writeAll(sink, (function* () {
-      for (const i of range(N)) yield dockStatus(i);
-    })());
+    const { sink } = sinkFor<DockStatus>({
+      client,
+      mapping: sortedSetMember({
+        key: (r) => key(r.district),
+        member: (r) => r.dock,
+        score: (r) => r.seq + 0.5,
+      }),
+    });
+    await writeAll(
+      sink,
+      (function* () {
+        for (const i of range(N)) yield dockStatus(i);
+      })(),
+    );
     let total = 0;
     for (let d = 0; d < 7; d++) {
       const flat = await redis.zrange(key(`d${d}`), 0, -1, 'WITHSCORES');
@@ -149,8 +197,14 @@ describe('Redis adapter on the shared server', () => {
     const client = new Redis(services().redisUrl);
     const full = `${prefix}stream:all`;
     const trimmed = `${prefix}stream:trimmed`;
-    const a = sinkFor<DockStatus>({ client, mapping: streamEntry({ key: () => full, fields: (r) => ({ seq: r.seq, dock: r.dock }) }) });
-    const b = sinkFor<DockStatus>({ client, mapping: streamEntry({ key: () => trimmed, fields: (r) => ({ seq: r.seq }), maxLen: 1000 }) });
+    const a = sinkFor<DockStatus>({
+      client,
+      mapping: streamEntry({ key: () => full, fields: (r) => ({ seq: r.seq, dock: r.dock }) }),
+    });
+    const b = sinkFor<DockStatus>({
+      client,
+      mapping: streamEntry({ key: () => trimmed, fields: (r) => ({ seq: r.seq }), maxLen: 1000 }),
+    });
     for (const i of range(N)) {
       await a.sink.write(dockStatus(i));
       await b.sink.write(dockStatus(i));
@@ -180,8 +234,14 @@ describe('Redis adapter on the shared server', () => {
 
   it('counts 100,000 increments with INCRBY and HINCRBY', async () => {
     const client = new Redis(services().redisUrl);
-    const a = sinkFor<DockStatus>({ client, mapping: counter({ key: (r) => `${prefix}rentals:${r.district}`, by: (r) => r.bikes }) });
-    const b = sinkFor<DockStatus>({ client, mapping: counter({ key: () => `${prefix}rentals:byDistrict`, field: (r) => r.district, by: () => 1 }) });
+    const a = sinkFor<DockStatus>({
+      client,
+      mapping: counter({ key: (r) => `${prefix}rentals:${r.district}`, by: (r) => r.bikes }),
+    });
+    const b = sinkFor<DockStatus>({
+      client,
+      mapping: counter({ key: () => `${prefix}rentals:byDistrict`, field: (r) => r.district, by: () => 1 }),
+    });
     for (const i of range(N)) {
       await a.sink.write(dockStatus(i));
       await b.sink.write(dockStatus(i));
@@ -194,7 +254,8 @@ describe('Redis adapter on the shared server', () => {
       sums.set(d.district, (sums.get(d.district) ?? 0) + d.bikes);
       counts.set(d.district, (counts.get(d.district) ?? 0) + 1);
     }
-    for (const [district, sum] of sums) expect(Number(await redis.get(`${prefix}rentals:${district}`))).toBe(sum);
+    for (const [district, sum] of sums)
+      expect(Number(await redis.get(`${prefix}rentals:${district}`))).toBe(sum);
     const byDistrict = await redis.hgetall(`${prefix}rentals:byDistrict`);
     expect(Object.fromEntries([...counts].map(([k, v]) => [k, String(v)]))).toEqual(byDistrict);
     client.disconnect();
@@ -204,7 +265,10 @@ describe('Redis adapter on the shared server', () => {
     const client = new Redis(services().redisUrl);
     const key = (r: DockStatus) => `${prefix}wt:${r.dock}`;
     await redis.rpush(`${prefix}wt:dock-500`, 'a list, not a hash');
-    const { sink, deadLetters } = sinkFor<DockStatus>({ client, mapping: hashFields({ key, fields: (r) => ({ free: r.free }) }) }, { maxRecords: 1000, idleMs: 0, maxAgeMs: 60_000 });
+    const { sink, deadLetters } = sinkFor<DockStatus>(
+      { client, mapping: hashFields({ key, fields: (r) => ({ free: r.free }) }) },
+      { maxRecords: 1000, idleMs: 0, maxAgeMs: 60_000 },
+    );
     let batches = 0;
     sink.on('flush', () => batches++);
     for (const i of range(1000)) await sink.write(dockStatus(i));
@@ -213,10 +277,17 @@ describe('Redis adapter on the shared server', () => {
     expect(deadLetters.letters.map((l) => l.record.seq)).toEqual([500]);
     // Source: Redis documentation, "Redis error replies": WRONGTYPE, "Operation against a key
     // holding the wrong kind of value".
-    expect(deadLetters.letters[0]!.error).toMatchObject({ code: 'SPILLWAY_STORE_ERROR', driverCode: 'WRONGTYPE' });
+    expect(deadLetters.letters[0]!.error).toMatchObject({
+      code: 'SPILLWAY_STORE_ERROR',
+      driverCode: 'WRONGTYPE',
+    });
     expect(deadLetters.letters[0]!.reason).toBe('rejected');
     const others = [...range(1000)].filter((i) => i !== 500);
-    const free = await readAll<string | null>(redis, others.map((i) => `${prefix}wt:dock-${i}`), (p, k) => p.hget(k, 'free'));
+    const free = await readAll<string | null>(
+      redis,
+      others.map((i) => `${prefix}wt:dock-${i}`),
+      (p, k) => p.hget(k, 'free'),
+    );
     expect(free.filter((v, j) => v !== String(12 - (others[j]! % 13)))).toEqual([]);
     expect(await redis.type(`${prefix}wt:dock-500`)).toBe('list');
     client.disconnect();
@@ -228,11 +299,18 @@ describe('Redis adapter on the shared server', () => {
     await redis.set(`${prefix}multi:dock-7`, 'a string');
     const { sink, deadLetters } = sinkFor<DockStatus>({
       client,
-      mapping: hashFields({ key: (r) => `${prefix}multi:${r.dock}`, fields: (r) => ({ free: r.free }), ttlMs: 60_000 }),
+      mapping: hashFields({
+        key: (r) => `${prefix}multi:${r.dock}`,
+        fields: (r) => ({ free: r.free }),
+        ttlMs: 60_000,
+      }),
     });
-    await writeAll(sink, (function* () {
-      for (const i of range(20)) yield dockStatus(i);
-    })());
+    await writeAll(
+      sink,
+      (function* () {
+        for (const i of range(20)) yield dockStatus(i);
+      })(),
+    );
     expect(deadLetters.letters.map((l) => l.record.seq)).toEqual([7]);
     expect(await redis.hget(`${prefix}multi:dock-8`, 'free')).toBe(String(12 - 8));
     client.disconnect();
@@ -241,12 +319,23 @@ describe('Redis adapter on the shared server', () => {
   it('in atomic mode applies the rest of a transaction when one command fails while executing', async () => {
     const client = new Redis(services().redisUrl);
     await redis.rpush(`${prefix}atomic:dock-3`, 'x');
-    const { sink, deadLetters } = sinkFor<DockStatus>({ client, atomic: true, mapping: stringValue({ key: (r) => `${prefix}atomic:${r.dock}`, value: (r) => String(r.free) }) });
+    const { sink, deadLetters } = sinkFor<DockStatus>({
+      client,
+      atomic: true,
+      mapping: stringValue({ key: (r) => `${prefix}atomic:${r.dock}`, value: (r) => String(r.free) }),
+    });
     // SET overwrites any type, so make record 3 fail with INCRBY's type check instead.
-    const inc = sinkFor<DockStatus>({ client, atomic: true, mapping: counter({ key: (r) => `${prefix}atomic:${r.dock}`, by: () => 1 }) });
-    await writeAll(inc.sink, (function* () {
-      for (const i of range(10)) yield dockStatus(i);
-    })());
+    const inc = sinkFor<DockStatus>({
+      client,
+      atomic: true,
+      mapping: counter({ key: (r) => `${prefix}atomic:${r.dock}`, by: () => 1 }),
+    });
+    await writeAll(
+      inc.sink,
+      (function* () {
+        for (const i of range(10)) yield dockStatus(i);
+      })(),
+    );
     // Source: Redis documentation, "Transactions": errors after EXEC do not roll back the others.
     expect(inc.deadLetters.letters.map((l) => l.record.seq)).toEqual([3]);
     expect(inc.deadLetters.letters[0]!.error).toMatchObject({ driverCode: 'WRONGTYPE' });
@@ -258,7 +347,14 @@ describe('Redis adapter on the shared server', () => {
 
   it('stops the sink on an unknown command (EXECABORT in a transaction) and reports nothing durable', async () => {
     const client = new Redis(services().redisUrl);
-    const adapter = redisAdapter<DockStatus>({ client, atomic: true, mapping: commandMapping({ idempotent: true, commands: (r) => (r.seq === 2 ? ['NOSUCHCOMMAND', 'k'] : ['SET', `${prefix}abort:${r.dock}`, '1']) }) });
+    const adapter = redisAdapter<DockStatus>({
+      client,
+      atomic: true,
+      mapping: commandMapping({
+        idempotent: true,
+        commands: (r) => (r.seq === 2 ? ['NOSUCHCOMMAND', 'k'] : ['SET', `${prefix}abort:${r.dock}`, '1']),
+      }),
+    });
     const deadLetters = new CollectedDeadLetters<DockStatus>();
     const sink = new Sink(adapter, { deadLetter: deadLetters });
     const errors: unknown[] = [];
@@ -279,7 +375,10 @@ describe('Redis adapter on the shared server', () => {
     const binary = Array.from({ length: 256 }, (_, i) => Buffer.from([0, i, 0, 255 - i, 0]));
     const huge = Buffer.alloc(64 * 1024 * 1024, 0);
     for (let i = 0; i < huge.length; i += 4099) huge[i] = i % 251;
-    const records = [...binary.map((v, i) => ({ key: Buffer.from(`${prefix}bin:\u0000${i}`), value: v })), { key: Buffer.from(`${prefix}bin:huge`), value: huge }];
+    const records = [
+      ...binary.map((v, i) => ({ key: Buffer.from(`${prefix}bin:\u0000${i}`), value: v })),
+      { key: Buffer.from(`${prefix}bin:huge`), value: huge },
+    ];
     const { sink, deadLetters } = sinkFor<{ key: Buffer; value: Buffer }>(
       { client, mapping: stringValue({ key: (r) => r.key, value: (r) => r.value }) },
       { maxBytes: 128 * 1024 * 1024 },
@@ -296,7 +395,11 @@ describe('Redis adapter on the shared server', () => {
   it('makes a stream idempotent with ids derived from source offsets: a replay adds nothing', async () => {
     const client = new Redis(services().redisUrl);
     const key = `${prefix}stream:offsets`;
-    const mapping = streamEntry<DockStatus>({ key: () => key, fields: (r) => ({ seq: r.seq }), id: offsetStreamId });
+    const mapping = streamEntry<DockStatus>({
+      key: () => key,
+      fields: (r) => ({ seq: r.seq }),
+      id: offsetStreamId,
+    });
     expect(mapping.idempotent).toBe(true);
     const meta = (r: DockStatus) => ({ partition: 0, offset: r.seq });
     const first = sinkFor<DockStatus>({ client, mapping });
@@ -314,10 +417,18 @@ describe('Redis adapter on the shared server', () => {
 
   it('makes a counter idempotent with per-record markers: a replay counts nothing', async () => {
     const client = new Redis(services().redisUrl);
-    const mapping = counter<DockStatus>({ key: () => `${prefix}{ded}count`, by: () => 1, dedupe: { key: (_r, m) => `${prefix}{ded}seen:${m?.offset}`, ttlMs: 60_000 } });
+    const mapping = counter<DockStatus>({
+      key: () => `${prefix}{ded}count`,
+      by: () => 1,
+      dedupe: { key: (_r, m) => `${prefix}{ded}seen:${m?.offset}`, ttlMs: 60_000 },
+    });
     const meta = (r: DockStatus) => ({ partition: 0, offset: r.seq });
     await writeAll(sinkFor<DockStatus>({ client, mapping }).sink, [...range(1000)].map(dockStatus), meta);
-    await writeAll(sinkFor<DockStatus>({ client, mapping }).sink, [...range(1000, 500)].map(dockStatus), meta);
+    await writeAll(
+      sinkFor<DockStatus>({ client, mapping }).sink,
+      [...range(1000, 500)].map(dockStatus),
+      meta,
+    );
     expect(Number(await redis.get(`${prefix}{ded}count`))).toBe(1500);
     client.disconnect();
   });
@@ -349,8 +460,21 @@ describe('Redis adapter against a private server', () => {
     client.on('error', () => undefined);
     const total = 60_000;
     const { sink, deadLetters } = sinkFor<DockStatus>(
-      { client, mapping: hashFields({ key: (r) => `restart:${r.dock}`, fields: (r) => ({ seq: r.seq, free: r.free }) }) },
-      { retry: { maxAttempts: Number.POSITIVE_INFINITY, baseDelayMs: 50, maxDelayMs: 500, maxElapsedMs: 120_000 } },
+      {
+        client,
+        mapping: hashFields({
+          key: (r) => `restart:${r.dock}`,
+          fields: (r) => ({ seq: r.seq, free: r.free }),
+        }),
+      },
+      {
+        retry: {
+          maxAttempts: Number.POSITIVE_INFINITY,
+          baseDelayMs: 50,
+          maxDelayMs: 500,
+          maxElapsedMs: 120_000,
+        },
+      },
     );
     let restarted: Promise<void> | undefined;
     for (const i of range(total)) {
@@ -363,7 +487,11 @@ describe('Redis adapter against a private server', () => {
     expect(deadLetters.letters).toEqual([]);
     expect(snap.written).toBe(total);
     expect(snap.retries).toBeGreaterThan(0);
-    const seqs = await readAll<string | null>(redis, [...range(total)].map((i) => `restart:dock-${i}`), (p, k) => p.hget(k, 'seq'));
+    const seqs = await readAll<string | null>(
+      redis,
+      [...range(total)].map((i) => `restart:dock-${i}`),
+      (p, k) => p.hget(k, 'seq'),
+    );
     const missing = seqs.flatMap((v, i) => (v === String(i) ? [] : [i]));
     expect(missing).toEqual([]);
     console.log(`redis restart: ${total} records, ${snap.retries} retries, ${snap.batches} batches`);
@@ -376,9 +504,15 @@ describe('Redis adapter against a private server', () => {
     const client = new Redis(server.url, { commandTimeout: 100 });
     client.on('error', () => undefined);
     const key = 'unknown:rentals';
-    const { sink, deadLetters } = sinkFor<DockStatus>({ client, mapping: counter({ key: () => key, by: () => 1 }) });
+    const { sink, deadLetters } = sinkFor<DockStatus>({
+      client,
+      mapping: counter({ key: () => key, by: () => 1 }),
+    });
     await client.ping(); // connected and ready: the command below is really sent
-    const busy = redis.eval("local t = redis.call('TIME'); local s = t[1] * 1000000 + t[2]; repeat t = redis.call('TIME') until t[1] * 1000000 + t[2] - s > 600000; return 1", 0);
+    const busy = redis.eval(
+      "local t = redis.call('TIME'); local s = t[1] * 1000000 + t[2]; repeat t = redis.call('TIME') until t[1] * 1000000 + t[2] - s > 600000; return 1",
+      0,
+    );
     await new Promise((r) => setTimeout(r, 50));
     await writeAll(sink, [dockStatus(1)]);
     await busy;
@@ -395,9 +529,15 @@ describe('Redis adapter against a private server', () => {
     const client = new Redis(server.url, { commandTimeout: 100 });
     client.on('error', () => undefined);
     const key = 'unknown:retried';
-    const { sink, deadLetters } = sinkFor<DockStatus>({ client, onUnknownOutcome: 'retry', mapping: counter({ key: () => key, by: () => 1 }) }, { retry: { baseDelayMs: 700, maxDelayMs: 700 } });
+    const { sink, deadLetters } = sinkFor<DockStatus>(
+      { client, onUnknownOutcome: 'retry', mapping: counter({ key: () => key, by: () => 1 }) },
+      { retry: { baseDelayMs: 700, maxDelayMs: 700 } },
+    );
     await client.ping(); // connected and ready: the command below is really sent
-    const busy = redis.eval("local t = redis.call('TIME'); local s = t[1] * 1000000 + t[2]; repeat t = redis.call('TIME') until t[1] * 1000000 + t[2] - s > 600000; return 1", 0);
+    const busy = redis.eval(
+      "local t = redis.call('TIME'); local s = t[1] * 1000000 + t[2]; repeat t = redis.call('TIME') until t[1] * 1000000 + t[2] - s > 600000; return 1",
+      0,
+    );
     await new Promise((r) => setTimeout(r, 50));
     await writeAll(sink, [dockStatus(1)]);
     await busy;

@@ -6,11 +6,12 @@
 //      [--repeats 5] [--sizes 100,1000,10000] [--per-record 1000] [--partitions 4].
 // Broker: SPILLWAY_KAFKA_BROKERS (comma-separated), else a private broker started through the test
 // harness (startKafka). Nothing here asserts a time: it prints samples, medians, spreads, ratios.
-import { parseArgs } from 'node:util';
+
 import { randomBytes } from 'node:crypto';
+import { parseArgs } from 'node:util';
 import { Sink } from '@spillway/core';
 import { kafkaProducerAdapter } from '@spillway/kafka';
-import { Kafka, logLevel, Partitioners, type Message, type Producer } from 'kafkajs';
+import { Kafka, logLevel, type Message, Partitioners, type Producer } from 'kafkajs';
 import { kafkaBrokers } from '../kafka-broker.js';
 import { machineInfo } from '../machine.js';
 
@@ -36,36 +37,64 @@ const SIZES = String(flags.sizes).split(',').map(Number);
 const PER_RECORD = Number(flags['per-record']);
 const PARTITIONS = Number(flags.partitions);
 
-const records: DockEvent[] = Array.from({ length: RECORDS }, (_, i) => ({ dock: `dock-${i % 500}`, seq: i, bikes: i % 13, district: `d${i % 7}` }));
+const records: DockEvent[] = Array.from({ length: RECORDS }, (_, i) => ({
+  dock: `dock-${i % 500}`,
+  seq: i,
+  bikes: i % 13,
+  district: `d${i % 7}`,
+}));
 // The same record → message work on both sides, inside the timed section.
 const toMessage = (e: DockEvent): Message => ({ key: e.dock, value: JSON.stringify(e) });
-const producerConfig = { idempotent: true, allowAutoTopicCreation: false, retry: { retries: 5 }, createPartitioner: Partitioners.DefaultPartitioner };
+const producerConfig = {
+  idempotent: true,
+  allowAutoTopicCreation: false,
+  retry: { retries: 5 },
+  createPartitioner: Partitioners.DefaultPartitioner,
+};
 
 async function raw(producer: Producer, topic: string, batch: number): Promise<number> {
   const t0 = performance.now();
   for (let i = 0; i < records.length; i += batch) {
-    await producer.sendBatch({ topicMessages: [{ topic, messages: records.slice(i, i + batch).map(toMessage) }], acks: -1, timeout: 30_000 });
+    await producer.sendBatch({
+      topicMessages: [{ topic, messages: records.slice(i, i + batch).map(toMessage) }],
+      acks: -1,
+      timeout: 30_000,
+    });
   }
   return records.length / ((performance.now() - t0) / 1000);
 }
 
 async function viaSink(kafka: Kafka, topic: string, batch: number): Promise<number> {
-  const adapter = kafkaProducerAdapter<DockEvent>({ kafka, topic, mapper: (e) => ({ key: e.dock, value: JSON.stringify(e) }), producer: { createPartitioner: Partitioners.DefaultPartitioner } });
+  const adapter = kafkaProducerAdapter<DockEvent>({
+    kafka,
+    topic,
+    mapper: (e) => ({ key: e.dock, value: JSON.stringify(e) }),
+    producer: { createPartitioner: Partitioners.DefaultPartitioner },
+  });
   const sink = new Sink(adapter, { maxRecords: batch, maxBytes: 1 << 30, maxAgeMs: 60_000, idleMs: 0 });
   // Connect outside the timed part, as the raw producer is.
-  await adapter.write({ id: 0, reason: 'manual', attempt: 1, records: [records[0]!], metas: [undefined], bytes: 0 });
+  await adapter.write({
+    id: 0,
+    reason: 'manual',
+    attempt: 1,
+    records: [records[0]!],
+    metas: [undefined],
+    bytes: 0,
+  });
   const t0 = performance.now();
   for (const r of records) if (!sink.tryWrite(r)) await sink.write(r);
   await sink.flush();
   const rate = records.length / ((performance.now() - t0) / 1000);
   await sink.close();
-  if (sink.snapshot().written !== records.length) throw new Error(`sink wrote ${sink.snapshot().written} of ${records.length}`);
+  if (sink.snapshot().written !== records.length)
+    throw new Error(`sink wrote ${sink.snapshot().written} of ${records.length}`);
   return rate;
 }
 
 async function perRecord(producer: Producer, topic: string): Promise<number> {
   const t0 = performance.now();
-  for (const r of records.slice(0, PER_RECORD)) await producer.send({ topic, messages: [toMessage(r)], acks: -1, timeout: 30_000 });
+  for (const r of records.slice(0, PER_RECORD))
+    await producer.send({ topic, messages: [toMessage(r)], acks: -1, timeout: 30_000 });
   return PER_RECORD / ((performance.now() - t0) / 1000);
 }
 
@@ -73,22 +102,44 @@ function summary(xs: number[]): { median: number; min: number; max: number; spre
   const s = [...xs].sort((a, b) => a - b);
   const mid = s.length >> 1;
   const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return { median, min: s[0]!, max: s[s.length - 1]!, spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100 };
+  return {
+    median,
+    min: s[0]!,
+    max: s[s.length - 1]!,
+    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
+  };
 }
 
 const fmt = (n: number) => Math.round(n).toLocaleString('en-US');
 
 async function main(): Promise<void> {
   const broker = await kafkaBrokers();
-  const kafka = new Kafka({ clientId: 'spillway-bench', brokers: broker.brokers, logLevel: logLevel.NOTHING });
+  const kafka = new Kafka({
+    clientId: 'spillway-bench',
+    brokers: broker.brokers,
+    logLevel: logLevel.NOTHING,
+  });
   const admin = kafka.admin();
   await admin.connect();
   const topic = `spw_bench_${randomBytes(4).toString('hex')}`;
-  await admin.createTopics({ topics: [{ topic, numPartitions: PARTITIONS, replicationFactor: 1 }], waitForLeaders: true });
+  await admin.createTopics({
+    topics: [{ topic, numPartitions: PARTITIONS, replicationFactor: 1 }],
+    waitForLeaders: true,
+  });
   const producer = kafka.producer(producerConfig);
   await producer.connect();
   try {
-    console.log(JSON.stringify({ benchmark: 'kafka-producer-adapter', machine: machineInfo({ kafka: broker.version }), records: RECORDS, repeats: REPEATS, sizes: SIZES, perRecord: PER_RECORD, partitions: PARTITIONS }));
+    console.log(
+      JSON.stringify({
+        benchmark: 'kafka-producer-adapter',
+        machine: machineInfo({ kafka: broker.version }),
+        records: RECORDS,
+        repeats: REPEATS,
+        sizes: SIZES,
+        perRecord: PER_RECORD,
+        partitions: PARTITIONS,
+      }),
+    );
     await raw(producer, topic, 1000); // warm-up, not measured
     await viaSink(kafka, topic, 1000);
     const samples = new Map<string, number[]>();
@@ -108,15 +159,21 @@ async function main(): Promise<void> {
     const one = summary(samples.get('per-record')!);
     console.log(`\nrecords/s (median of ${REPEATS}; ± = half of (max-min)/median)`);
     console.log(`per-record send: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)})`);
-    console.log('batch  | raw sendBatch          | sink                   | sink/raw: ratio of medians, paired median [range] | sink/per-record');
+    console.log(
+      'batch  | raw sendBatch          | sink                   | sink/raw: ratio of medians, paired median [range] | sink/per-record',
+    );
     for (const size of SIZES) {
       const r = summary(samples.get(`raw@${size}`)!);
       const s = summary(samples.get(`sink@${size}`)!);
       const pairs = summary(samples.get(`sink@${size}`)!.map((v, i) => v / samples.get(`raw@${size}`)![i]!));
       console.log(
-        `${String(size).padEnd(6)} | ${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(33) +
+        `${String(size).padEnd(6)} | ${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(
+          33,
+        ) +
           ` | ${fmt(s.median).padStart(9)} (±${(s.spreadPct / 2).toFixed(0)}%)`.padEnd(25) +
-          ` | ${(s.median / r.median).toFixed(2)}, paired ${pairs.median.toFixed(2)} [${pairs.min.toFixed(2)}–${pairs.max.toFixed(2)}]`.padEnd(40) +
+          ` | ${(s.median / r.median).toFixed(2)}, paired ${pairs.median.toFixed(2)} [${pairs.min.toFixed(2)}–${pairs.max.toFixed(2)}]`.padEnd(
+            40,
+          ) +
           ` | ${(s.median / one.median).toFixed(1)}×`,
       );
     }

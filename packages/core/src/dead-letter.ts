@@ -1,5 +1,5 @@
-import { type FileHandle, chmod, open } from 'node:fs/promises';
-import { SpillwayError, driverCodeOf, messageOf } from './errors.js';
+import { chmod, type FileHandle, open } from 'node:fs/promises';
+import { driverCodeOf, messageOf, SpillwayError } from './errors.js';
 import type { DeadLetter, DeadLetterTarget, RecordMeta } from './types.js';
 
 export interface FileDeadLetterOptions<T> {

@@ -1,52 +1,52 @@
-export { Sink, progressKey } from './sink.js';
-export type { WriteOptions, CloseOptions } from './sink.js';
-export type { SinkOptions, RetryOptions, ResolvedOptions } from './options.js';
+export type { Clock } from './clock.js';
+export { ManualClock, settle, sleep, systemClock } from './clock.js';
+export type { DeadLetterLine, DeadLetterSinkLike, FileDeadLetterOptions } from './dead-letter.js';
+export { deadLetterLine, FileDeadLetter, fileDeadLetter, sinkDeadLetter } from './dead-letter.js';
+export type { PendingCounts, SpillwayErrorCode, SpillwayErrorOptions } from './errors.js';
+export {
+  AbortedError,
+  driverCodeOf,
+  messageOf,
+  ShutdownTimeoutError,
+  SinkClosedError,
+  SinkFailedError,
+  SpillwayError,
+  StoreError,
+} from './errors.js';
+export { Histogram } from './metrics.js';
+export type { ResolvedOptions, RetryOptions, SinkOptions } from './options.js';
 export { DEFAULTS, defaultOrderingKey, invalidOption } from './options.js';
+export { ProgressTracker, toOffset } from './progress.js';
+export { fullJitterDelay } from './retry.js';
 export type {
-  RecordMeta,
-  FlushReason,
-  ErrorClass,
+  ClosableSink,
+  ShutdownOptions,
+  ShutdownReport,
+  ShutdownStage,
+  ShutdownStep,
+  StepContext,
+} from './shutdown.js';
+export { installShutdown, SHUTDOWN_STAGES, ShutdownCoordinator } from './shutdown.js';
+export type { CloseOptions, WriteOptions } from './sink.js';
+export { progressKey, Sink } from './sink.js';
+export { estimateJsonBytes } from './size.js';
+export type {
   Batch,
-  PartialWrite,
-  SinkAdapter,
   DeadLetter,
   DeadLetterReason,
   DeadLetterTarget,
-  SinkState,
-  SinkEvents,
-  SinkEventName,
-  SinkSnapshot,
-  SinkCounters,
   Distribution,
+  ErrorClass,
+  FlushReason,
+  PartialWrite,
+  RecordMeta,
+  SinkAdapter,
+  SinkCounters,
+  SinkEventName,
+  SinkEvents,
+  SinkSnapshot,
+  SinkState,
 } from './types.js';
 export { FLUSH_REASONS } from './types.js';
-export {
-  SpillwayError,
-  SinkClosedError,
-  SinkFailedError,
-  ShutdownTimeoutError,
-  AbortedError,
-  StoreError,
-  driverCodeOf,
-  messageOf,
-} from './errors.js';
-export type { SpillwayErrorCode, SpillwayErrorOptions, PendingCounts } from './errors.js';
-export { ProgressTracker, toOffset } from './progress.js';
-export { fullJitterDelay } from './retry.js';
-export { Histogram } from './metrics.js';
-export { estimateJsonBytes } from './size.js';
-export { systemClock, ManualClock, sleep, settle } from './clock.js';
-export type { Clock } from './clock.js';
-export { FileDeadLetter, fileDeadLetter, sinkDeadLetter, deadLetterLine } from './dead-letter.js';
-export type { FileDeadLetterOptions, DeadLetterLine, DeadLetterSinkLike } from './dead-letter.js';
-export { toWritable, pipeInto } from './writable.js';
 export type { WritableOptions } from './writable.js';
-export { ShutdownCoordinator, installShutdown, SHUTDOWN_STAGES } from './shutdown.js';
-export type {
-  ShutdownOptions,
-  ShutdownStage,
-  ShutdownStep,
-  ShutdownReport,
-  StepContext,
-  ClosableSink,
-} from './shutdown.js';
+export { pipeInto, toWritable } from './writable.js';

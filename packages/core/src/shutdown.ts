@@ -1,7 +1,7 @@
 import { constants } from 'node:os';
-import { ShutdownTimeoutError, SpillwayError, messageOf } from './errors.js';
-import { invalidOption, numberOption } from './options.js';
 import type { PendingCounts } from './errors.js';
+import { messageOf, ShutdownTimeoutError, SpillwayError } from './errors.js';
+import { invalidOption, numberOption } from './options.js';
 
 /** Stages run in this order; the steps of one stage run together. */
 export type ShutdownStage = 'sources' | 'sinks' | 'progress' | 'clients';

@@ -2,30 +2,30 @@ import { EventEmitter } from 'node:events';
 import { sleep } from './clock.js';
 import {
   AbortedError,
+  messageOf,
+  type PendingCounts,
   ShutdownTimeoutError,
   SinkClosedError,
   SinkFailedError,
   SpillwayError,
-  messageOf,
-  type PendingCounts,
 } from './errors.js';
 import { Histogram } from './metrics.js';
-import { type ResolvedOptions, type SinkOptions, resolveOptions } from './options.js';
+import { type ResolvedOptions, resolveOptions, type SinkOptions } from './options.js';
 import { ProgressTracker } from './progress.js';
 import { fullJitterDelay } from './retry.js';
 import { estimateJsonBytes } from './size.js';
 import {
-  FLUSH_REASONS,
   type Batch,
   type DeadLetter,
   type DeadLetterReason,
+  FLUSH_REASONS,
   type FlushReason,
   type PartialWrite,
   type RecordMeta,
   type SinkAdapter,
+  type SinkCounters,
   type SinkEventName,
   type SinkEvents,
-  type SinkCounters,
   type SinkSnapshot,
   type SinkState,
 } from './types.js';
@@ -523,9 +523,9 @@ export class Sink<T> {
       const started = clock.now();
       let error: unknown;
       let failed = false;
-      let outcome: void | PartialWrite = undefined;
+      let outcome: PartialWrite | undefined;
       try {
-        outcome = await this.adapter.write(this.toBatch(batch.id, reason, attempt, current));
+        outcome = (await this.adapter.write(this.toBatch(batch.id, reason, attempt, current))) ?? undefined;
       } catch (e) {
         failed = true;
         error = e;

@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import { ManualClock, ShutdownTimeoutError, Sink, settle } from '../src/index.js';
-import { FakeAdapter, Transient, deferred } from './fakes.js';
+import { deferred, FakeAdapter, Transient } from './fakes.js';
 
 describe('close()', () => {
   it('flushes what is buffered (shutdown) and resolves when every record is durable', async () => {

@@ -2,7 +2,7 @@ import { mkdtemp, readFile, stat, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, StoreError, fileDeadLetter } from '../src/index.js';
+import { fileDeadLetter, ManualClock, Sink, StoreError } from '../src/index.js';
 import { BadRecord, FakeAdapter } from './fakes.js';
 
 describe('file dead-letter target', () => {

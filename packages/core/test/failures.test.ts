@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, SpillwayError, settle } from '../src/index.js';
+import { ManualClock, Sink, type SpillwayError, settle } from '../src/index.js';
 import { BadRecord, FakeAdapter, MemoryDeadLetter, Misconfigured, Transient } from './fakes.js';
 
 function setup(options: Record<string, unknown> = {}) {

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { Sink, installShutdown } from '../src/index.js';
+import { installShutdown, Sink } from '../src/index.js';
 import { FakeAdapter } from './fakes.js';
 
 const make = (options: Record<string, unknown>) => () => new Sink(new FakeAdapter<number>(), options);

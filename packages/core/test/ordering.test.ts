@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import { ManualClock, Sink, settle } from '../src/index.js';
-import { FakeAdapter, Transient, seeded } from './fakes.js';
+import { FakeAdapter, seeded, Transient } from './fakes.js';
 
 interface Ev {
   key: string;

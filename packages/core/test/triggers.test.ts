@@ -1,6 +1,6 @@
 import { describe, expect, it } from 'vitest';
 import { ManualClock, Sink, settle } from '../src/index.js';
-import { FakeAdapter, deferred } from './fakes.js';
+import { deferred, FakeAdapter } from './fakes.js';
 
 function setup(options: Record<string, unknown> = {}) {
   const clock = new ManualClock();

@@ -1,8 +1,8 @@
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, pipeInto, settle, toWritable } from '../src/index.js';
-import { FakeAdapter, deferred } from './fakes.js';
+import { ManualClock, pipeInto, Sink, settle, toWritable } from '../src/index.js';
+import { deferred, FakeAdapter } from './fakes.js';
 
 describe('Writable adapter', () => {
   it('returns false from write() at its highWaterMark and emits drain once there is room', async () => {

@@ -4,7 +4,7 @@
  * original on `cause`, so the chain is walked and the most specific reading wins: the broker's
  * protocol `type` first, then the kafkajs class name, then its `retriable` flag.
  */
-import { SpillwayError, type ErrorClass } from '@spillway/core';
+import { type ErrorClass, SpillwayError } from '@spillway/core';
 
 /** Broker error types that mean one record (or the request built from it) is bad. */
 const RECORD_ERRORS: ReadonlySet<string> = new Set([
@@ -126,7 +126,8 @@ export function kafkaErrorType(error: unknown): string | undefined {
   for (const e of chain) {
     const type = field(e, 'type');
     if (typeof type === 'string' && /^[A-Z_]+$/.test(type)) return type;
-    if (e instanceof SpillwayError && e.driverCode !== undefined && /^[A-Z_]+$/.test(e.driverCode)) return e.driverCode;
+    if (e instanceof SpillwayError && e.driverCode !== undefined && /^[A-Z_]+$/.test(e.driverCode))
+      return e.driverCode;
   }
   for (let i = chain.length - 1; i >= 0; i--) {
     const name = field(chain[i], 'name');
@@ -155,7 +156,8 @@ export function classifyKafkaError(error: unknown, options: KafkaClassifyOptions
   }
   for (const e of chain) {
     const name = field(e, 'name');
-    if (typeof name === 'string' && (FATAL_NAMES.has(name) || name === 'KafkaJSSASLAuthenticationError')) return 'fatal';
+    if (typeof name === 'string' && (FATAL_NAMES.has(name) || name === 'KafkaJSSASLAuthenticationError'))
+      return 'fatal';
     if (typeof name === 'string' && TRANSIENT_NAMES.has(name)) return 'retry';
     const code = field(e, 'code');
     if (typeof code === 'string' && SOCKET_CODES.has(code)) return 'retry';

@@ -100,7 +100,10 @@ export interface KafkaProducerAdapterOptions<T> {
    * @default { retry: { retries: 5 }, allowAutoTopicCreation: false }
    * @example { retry: { retries: 3, initialRetryTime: 200 }, createPartitioner: Partitioners.DefaultPartitioner }
    */
-  producer?: Omit<ProducerConfig, 'idempotent' | 'maxInFlightRequests' | 'transactionalId' | 'transactionTimeout'>;
+  producer?: Omit<
+    ProducerConfig,
+    'idempotent' | 'maxInFlightRequests' | 'transactionalId' | 'transactionTimeout'
+  >;
 }
 
 export interface ResolvedKafkaProducerOptions<T> {
@@ -117,38 +120,82 @@ export interface ResolvedKafkaProducerOptions<T> {
   producer: ProducerConfig;
 }
 
-const KNOWN = new Set(['kafka', 'topic', 'mapper', 'acks', 'idempotent', 'ackTimeoutMs', 'compression', 'maxRecordBytes', 'maxRequestBytes', 'unknownTopic', 'producer']);
+const KNOWN = new Set([
+  'kafka',
+  'topic',
+  'mapper',
+  'acks',
+  'idempotent',
+  'ackTimeoutMs',
+  'compression',
+  'maxRecordBytes',
+  'maxRequestBytes',
+  'unknownTopic',
+  'producer',
+]);
 
-export function resolveKafkaProducerOptions<T>(options: KafkaProducerAdapterOptions<T>): ResolvedKafkaProducerOptions<T> {
+export function resolveKafkaProducerOptions<T>(
+  options: KafkaProducerAdapterOptions<T>,
+): ResolvedKafkaProducerOptions<T> {
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
   for (const key of Object.keys(options)) {
-    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, (options as unknown as Record<string, unknown>)[key]);
+    if (!KNOWN.has(key))
+      throw invalidOption(
+        key,
+        `one of the known options (${[...KNOWN].join(', ')})`,
+        (options as unknown as Record<string, unknown>)[key],
+      );
   }
   const { kafka, topic, mapper } = options;
-  if (typeof kafka !== 'object' || kafka === null || typeof (kafka as { producer?: unknown }).producer !== 'function') {
+  if (
+    typeof kafka !== 'object' ||
+    kafka === null ||
+    typeof (kafka as { producer?: unknown }).producer !== 'function'
+  ) {
     throw invalidOption('kafka', 'a kafkajs Kafka client', kafka);
   }
-  if (topic !== undefined && (typeof topic !== 'string' || topic.length === 0)) throw invalidOption('topic', 'a non-empty string', topic);
-  if (typeof mapper !== 'function') throw invalidOption('mapper', 'a function (record, meta) => { value, key?, headers?, partition?, timestamp?, topic? }', mapper);
+  if (topic !== undefined && (typeof topic !== 'string' || topic.length === 0))
+    throw invalidOption('topic', 'a non-empty string', topic);
+  if (typeof mapper !== 'function')
+    throw invalidOption(
+      'mapper',
+      'a function (record, meta) => { value, key?, headers?, partition?, timestamp?, topic? }',
+      mapper,
+    );
   const idempotent = options.idempotent ?? true;
   if (typeof idempotent !== 'boolean') throw invalidOption('idempotent', 'a boolean', idempotent);
   const acks = options.acks ?? -1;
   if (acks !== -1 && acks !== 0 && acks !== 1) throw invalidOption('acks', '-1, 0 or 1', acks);
-  if (idempotent && acks !== -1) throw invalidOption('acks', '-1 with `idempotent: true` (the idempotent producer needs every in-sync replica)', acks);
+  if (idempotent && acks !== -1)
+    throw invalidOption(
+      'acks',
+      '-1 with `idempotent: true` (the idempotent producer needs every in-sync replica)',
+      acks,
+    );
   const ackTimeoutMs = options.ackTimeoutMs ?? 30_000;
-  if (!(Number.isInteger(ackTimeoutMs) && ackTimeoutMs > 0)) throw invalidOption('ackTimeoutMs', 'an integer > 0', ackTimeoutMs);
+  if (!(Number.isInteger(ackTimeoutMs) && ackTimeoutMs > 0))
+    throw invalidOption('ackTimeoutMs', 'an integer > 0', ackTimeoutMs);
   const maxRecordBytes = options.maxRecordBytes ?? 1_048_576;
-  if (!(maxRecordBytes === Number.POSITIVE_INFINITY || (Number.isInteger(maxRecordBytes) && maxRecordBytes > 0))) {
+  if (
+    !(maxRecordBytes === Number.POSITIVE_INFINITY || (Number.isInteger(maxRecordBytes) && maxRecordBytes > 0))
+  ) {
     throw invalidOption('maxRecordBytes', 'an integer > 0 or Infinity', maxRecordBytes);
   }
   const maxRequestBytes = options.maxRequestBytes ?? 1_048_576;
-  if (!(maxRequestBytes === Number.POSITIVE_INFINITY || (Number.isInteger(maxRequestBytes) && maxRequestBytes > 0))) {
+  if (
+    !(
+      maxRequestBytes === Number.POSITIVE_INFINITY ||
+      (Number.isInteger(maxRequestBytes) && maxRequestBytes > 0)
+    )
+  ) {
     throw invalidOption('maxRequestBytes', 'an integer > 0 or Infinity', maxRequestBytes);
   }
   const unknownTopic = options.unknownTopic ?? 'fatal';
-  if (unknownTopic !== 'fatal' && unknownTopic !== 'retry') throw invalidOption('unknownTopic', "'fatal' or 'retry'", unknownTopic);
+  if (unknownTopic !== 'fatal' && unknownTopic !== 'retry')
+    throw invalidOption('unknownTopic', "'fatal' or 'retry'", unknownTopic);
   const extra = options.producer ?? {};
-  if (typeof extra !== 'object' || extra === null) throw invalidOption('producer', 'an object of kafkajs producer settings', extra);
+  if (typeof extra !== 'object' || extra === null)
+    throw invalidOption('producer', 'an object of kafkajs producer settings', extra);
   const producer: ProducerConfig = {
     retry: { retries: 5 },
     allowAutoTopicCreation: false,
@@ -158,5 +205,17 @@ export function resolveKafkaProducerOptions<T>(options: KafkaProducerAdapterOpti
     // Not idempotent: one request in flight per broker so a retried request cannot overtake.
     ...(idempotent ? {} : { maxInFlightRequests: 1 }),
   };
-  return { kafka, topic, mapper, acks, idempotent, ackTimeoutMs, compression: options.compression, maxRecordBytes, maxRequestBytes, unknownTopic, producer };
+  return {
+    kafka,
+    topic,
+    mapper,
+    acks,
+    idempotent,
+    ackTimeoutMs,
+    compression: options.compression,
+    maxRecordBytes,
+    maxRequestBytes,
+    unknownTopic,
+    producer,
+  };
 }

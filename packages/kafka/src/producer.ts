@@ -3,10 +3,22 @@
  * as a few consecutive ones when it is larger than `maxRequestBytes`, and is durable when they
  * have resolved.
  */
-import { StoreError, messageOf, type Batch, type ErrorClass, type PartialWrite, type SinkAdapter } from '@spillway/core';
+import {
+  type Batch,
+  type ErrorClass,
+  messageOf,
+  type PartialWrite,
+  type SinkAdapter,
+  StoreError,
+} from '@spillway/core';
 import type { Message, Producer, TopicMessages } from 'kafkajs';
 import { classifyKafkaError, kafkaErrorType } from './classify.js';
-import { resolveKafkaProducerOptions, type KafkaOutgoing, type KafkaProducerAdapterOptions, type ResolvedKafkaProducerOptions } from './producer-options.js';
+import {
+  type KafkaOutgoing,
+  type KafkaProducerAdapterOptions,
+  type ResolvedKafkaProducerOptions,
+  resolveKafkaProducerOptions,
+} from './producer-options.js';
 
 /**
  * After these, an idempotent producer's sequence numbers no longer match the broker's: kafkajs
@@ -110,22 +122,36 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
           throw new TypeError('the mapper must return an object with a `value`');
         }
       } catch (error) {
-        rejected.push({ index: i, error: new StoreError(`Kafka mapper failed for a record: ${messageOf(error)}`, { cause: error, details: { stage: 'mapping' } }) });
+        rejected.push({
+          index: i,
+          error: new StoreError(`Kafka mapper failed for a record: ${messageOf(error)}`, {
+            cause: error,
+            details: { stage: 'mapping' },
+          }),
+        });
         continue;
       }
       const topic = out.topic ?? this.o.topic;
       if (topic === undefined) {
-        rejected.push({ index: i, error: new StoreError('Kafka record has no topic: set `topic` or return one from the mapper', { details: { stage: 'mapping' } }) });
+        rejected.push({
+          index: i,
+          error: new StoreError('Kafka record has no topic: set `topic` or return one from the mapper', {
+            details: { stage: 'mapping' },
+          }),
+        });
         continue;
       }
       const size = byteLength(out.key) + byteLength(out.value) + headerBytes(out.headers);
       if (size > maxRecordBytes) {
         rejected.push({
           index: i,
-          error: new StoreError(`Kafka record of ${size} bytes exceeds maxRecordBytes (${maxRecordBytes}); not sent`, {
-            driverCode: 'MESSAGE_TOO_LARGE',
-            details: { topic, bytes: size, maxRecordBytes },
-          }),
+          error: new StoreError(
+            `Kafka record of ${size} bytes exceeds maxRecordBytes (${maxRecordBytes}); not sent`,
+            {
+              driverCode: 'MESSAGE_TOO_LARGE',
+              details: { topic, bytes: size, maxRecordBytes },
+            },
+          ),
         });
         continue;
       }
@@ -165,7 +191,8 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
             timeout: this.o.ackTimeoutMs,
             ...(this.o.compression === undefined ? {} : { compression: this.o.compression }),
           });
-          if (c.explicit !== undefined && this.o.acks !== 0) this.checkExplicit(c.explicit, written, rejected);
+          if (c.explicit !== undefined && this.o.acks !== 0)
+            this.checkExplicit(c.explicit, written, rejected);
         } catch (error) {
           const type = kafkaErrorType(error);
           if (this.o.idempotent && type !== undefined && RESET_PRODUCER.has(type)) await this.reset(producer);
@@ -179,12 +206,16 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
           const resend =
             cls === 'retry'
               ? wrapped
-              : new StoreError(`Kafka sendBatch refused a later part of a batch; sending it again on its own: ${wrapped.message}`, {
-                  cause: wrapped,
-                  driverCode: wrapped.driverCode,
-                  details: { stage: 'resend' },
-                });
-          for (let j = k; j < chunks.length; j++) for (const index of chunks[j]!.indexes) rejected.push({ index, error: resend });
+              : new StoreError(
+                  `Kafka sendBatch refused a later part of a batch; sending it again on its own: ${wrapped.message}`,
+                  {
+                    cause: wrapped,
+                    driverCode: wrapped.driverCode,
+                    details: { stage: 'resend' },
+                  },
+                );
+          for (let j = k; j < chunks.length; j++)
+            for (const index of chunks[j]!.indexes) rejected.push({ index, error: resend });
           break;
         }
       }
@@ -207,10 +238,13 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
     for (const [where, indexes] of explicit) {
       if (landed.has(where)) continue;
       const [topic, partition] = where.split('\u0000');
-      const error = new StoreError(`Kafka topic "${topic}" has no partition ${partition}: ${indexes.length} record(s) not written`, {
-        driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
-        details: { topic, partition: Number(partition), records: indexes.length },
-      });
+      const error = new StoreError(
+        `Kafka topic "${topic}" has no partition ${partition}: ${indexes.length} record(s) not written`,
+        {
+          driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
+          details: { topic, partition: Number(partition), records: indexes.length },
+        },
+      );
       for (const index of indexes) rejected.push({ index, error });
     }
   }
@@ -227,7 +261,8 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   classify(error: unknown): ErrorClass {
     if (error instanceof StoreError && error.details.stage === 'mapping') return 'split';
     if (error instanceof StoreError && error.details.stage === 'resend') return 'retry';
-    if (error instanceof StoreError && error.cause === undefined && error.driverCode === 'MESSAGE_TOO_LARGE') return 'split';
+    if (error instanceof StoreError && error.cause === undefined && error.driverCode === 'MESSAGE_TOO_LARGE')
+      return 'split';
     return classifyKafkaError(error, { unknownTopic: this.o.unknownTopic });
   }
 

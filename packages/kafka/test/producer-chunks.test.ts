@@ -20,12 +20,23 @@ function fakeKafka(failOnCall: number, error: unknown) {
   return { kafka: { producer: () => producer } as never, calls };
 }
 
-const batch = (n: number) => ({ id: 1, reason: 'size' as const, attempt: 1, records: Array.from({ length: n }, (_, i) => i), metas: Array.from({ length: n }, () => undefined), bytes: 0 });
+const batch = (n: number) => ({
+  id: 1,
+  reason: 'size' as const,
+  attempt: 1,
+  records: Array.from({ length: n }, (_, i) => i),
+  metas: Array.from({ length: n }, () => undefined),
+  bytes: 0,
+});
 
 describe('producer adapter chunking', () => {
   it('sends a batch within maxRequestBytes as one sendBatch', async () => {
     const { kafka, calls } = fakeKafka(0, undefined);
-    const a = new KafkaProducerAdapter<number>({ kafka, topic: 't', mapper: () => ({ value: 'x'.repeat(76) }) });
+    const a = new KafkaProducerAdapter<number>({
+      kafka,
+      topic: 't',
+      mapper: () => ({ value: 'x'.repeat(76) }),
+    });
     expect(await a.write(batch(1000))).toBeUndefined();
     expect(calls).toEqual([1000]);
   });
@@ -33,24 +44,47 @@ describe('producer adapter chunking', () => {
   it('splits a larger batch into consecutive calls of at most maxRequestBytes', async () => {
     const { kafka, calls } = fakeKafka(0, undefined);
     // 76 + 24 overhead = 100 estimated bytes per record; 1,000 per 100,000-byte request.
-    const a = new KafkaProducerAdapter<number>({ kafka, topic: 't', maxRequestBytes: 100_000, mapper: () => ({ value: 'x'.repeat(76) }) });
+    const a = new KafkaProducerAdapter<number>({
+      kafka,
+      topic: 't',
+      maxRequestBytes: 100_000,
+      mapper: () => ({ value: 'x'.repeat(76) }),
+    });
     expect(await a.write(batch(2500))).toBeUndefined();
     expect(calls).toEqual([1000, 1000, 500]);
   });
 
   it('reports only the records of the failed and later calls when a later call fails', async () => {
-    const retriable = new KafkaJSNumberOfRetriesExceeded(new KafkaJSConnectionError('Connection error'), { retryCount: 5, retryTime: 1 });
+    const retriable = new KafkaJSNumberOfRetriesExceeded(new KafkaJSConnectionError('Connection error'), {
+      retryCount: 5,
+      retryTime: 1,
+    });
     const { kafka } = fakeKafka(2, retriable);
-    const a = new KafkaProducerAdapter<number>({ kafka, topic: 't', maxRequestBytes: 100_000, mapper: () => ({ value: 'x'.repeat(76) }) });
+    const a = new KafkaProducerAdapter<number>({
+      kafka,
+      topic: 't',
+      maxRequestBytes: 100_000,
+      mapper: () => ({ value: 'x'.repeat(76) }),
+    });
     const out = await a.write(batch(2500));
     expect(out?.rejected.map((r) => r.index)).toEqual(Array.from({ length: 1500 }, (_, i) => 1000 + i));
     expect(a.classify(out!.rejected[0]!.error)).toBe('retry');
   });
 
   it('turns a refusal of a later call into a resend, so the next attempt can bisect it', async () => {
-    const tooLarge = new KafkaJSProtocolError({ type: 'MESSAGE_TOO_LARGE', code: 10, retriable: false, message: 'too large' } as never);
+    const tooLarge = new KafkaJSProtocolError({
+      type: 'MESSAGE_TOO_LARGE',
+      code: 10,
+      retriable: false,
+      message: 'too large',
+    } as never);
     const { kafka } = fakeKafka(2, tooLarge);
-    const a = new KafkaProducerAdapter<number>({ kafka, topic: 't', maxRequestBytes: 100_000, mapper: () => ({ value: 'x'.repeat(76) }) });
+    const a = new KafkaProducerAdapter<number>({
+      kafka,
+      topic: 't',
+      maxRequestBytes: 100_000,
+      mapper: () => ({ value: 'x'.repeat(76) }),
+    });
     const out = await a.write(batch(2500));
     expect(out?.rejected).toHaveLength(1500);
     expect(a.classify(out!.rejected[0]!.error)).toBe('retry');
@@ -60,7 +94,12 @@ describe('producer adapter chunking', () => {
   });
 
   it('throws when the first call fails, so the engine retries or bisects the whole batch', async () => {
-    const tooLarge = new KafkaJSProtocolError({ type: 'MESSAGE_TOO_LARGE', code: 10, retriable: false, message: 'too large' } as never);
+    const tooLarge = new KafkaJSProtocolError({
+      type: 'MESSAGE_TOO_LARGE',
+      code: 10,
+      retriable: false,
+      message: 'too large',
+    } as never);
     const { kafka } = fakeKafka(1, tooLarge);
     const a = new KafkaProducerAdapter<number>({ kafka, topic: 't', mapper: () => ({ value: 'v' }) });
     const error = await a.write(batch(10)).catch((e: unknown) => e);

@@ -5,7 +5,14 @@ import { classifyKafkaError, kafkaErrorType } from '../src/classify.js';
 
 // The errors are built with kafkajs' own classes and its own broker error table
 // (kafkajs 2.2.4, src/errors.js and src/protocol/error.js), the way its producer raises them.
-const { KafkaJSProtocolError, KafkaJSNonRetriableError, KafkaJSNumberOfRetriesExceeded, KafkaJSConnectionError, KafkaJSRequestTimeoutError, KafkaJSSASLAuthenticationError } = kafkajs;
+const {
+  KafkaJSProtocolError,
+  KafkaJSNonRetriableError,
+  KafkaJSNumberOfRetriesExceeded,
+  KafkaJSConnectionError,
+  KafkaJSRequestTimeoutError,
+  KafkaJSSASLAuthenticationError,
+} = kafkajs;
 
 function protocol(type: string, retriable: boolean, code = 0): InstanceType<typeof KafkaJSProtocolError> {
   return new KafkaJSProtocolError({ type, code, retriable, message: type } as never);
@@ -15,7 +22,12 @@ describe('classifyKafkaError', () => {
   it('splits a batch the broker refused for one record (too large, invalid, bad timestamp)', () => {
     // Source: Apache Kafka protocol guide, error codes 10 MESSAGE_TOO_LARGE, 18 RECORD_LIST_TOO_LARGE,
     // 32 INVALID_TIMESTAMP, 87 INVALID_RECORD (all non-retriable).
-    for (const type of ['MESSAGE_TOO_LARGE', 'RECORD_LIST_TOO_LARGE', 'INVALID_RECORD', 'INVALID_TIMESTAMP']) {
+    for (const type of [
+      'MESSAGE_TOO_LARGE',
+      'RECORD_LIST_TOO_LARGE',
+      'INVALID_RECORD',
+      'INVALID_TIMESTAMP',
+    ]) {
       const raw = protocol(type, false);
       // kafkajs' retrier bails with the protocol error itself, or wraps it as NonRetriable with cause.
       expect(classifyKafkaError(raw)).toBe('split');
@@ -35,17 +47,36 @@ describe('classifyKafkaError', () => {
   });
 
   it('retries disconnects, timeouts, leader moves and exhausted kafkajs retries', () => {
-    expect(classifyKafkaError(new KafkaJSConnectionError('Connection error: connect ECONNREFUSED', { code: 'ECONNREFUSED' }))).toBe('retry');
-    expect(classifyKafkaError(new KafkaJSRequestTimeoutError('Request Produce(key: 0, version: 7) timed out'))).toBe('retry');
+    expect(
+      classifyKafkaError(
+        new KafkaJSConnectionError('Connection error: connect ECONNREFUSED', { code: 'ECONNREFUSED' }),
+      ),
+    ).toBe('retry');
+    expect(
+      classifyKafkaError(new KafkaJSRequestTimeoutError('Request Produce(key: 0, version: 7) timed out')),
+    ).toBe('retry');
     // Source: Apache Kafka protocol guide, 6 NOT_LEADER_OR_FOLLOWER and 7 REQUEST_TIMED_OUT are retriable.
     const leader = protocol('NOT_LEADER_FOR_PARTITION', true);
-    expect(classifyKafkaError(new KafkaJSNumberOfRetriesExceeded(leader, { retryCount: 5, retryTime: 100 }))).toBe('retry');
-    expect(classifyKafkaError(new KafkaJSNumberOfRetriesExceeded(new KafkaJSConnectionError('closed'), { retryCount: 5, retryTime: 1 }))).toBe('retry');
+    expect(
+      classifyKafkaError(new KafkaJSNumberOfRetriesExceeded(leader, { retryCount: 5, retryTime: 100 })),
+    ).toBe('retry');
+    expect(
+      classifyKafkaError(
+        new KafkaJSNumberOfRetriesExceeded(new KafkaJSConnectionError('closed'), {
+          retryCount: 5,
+          retryTime: 1,
+        }),
+      ),
+    ).toBe('retry');
   });
 
   it('retries the idempotent producer sequence errors kafkajs marks non-retriable', () => {
     for (const type of ['OUT_OF_ORDER_SEQUENCE_NUMBER', 'UNKNOWN_PRODUCER_ID', 'INVALID_PRODUCER_EPOCH']) {
-      expect(classifyKafkaError(new KafkaJSNonRetriableError(protocol(type, false), { cause: protocol(type, false) }))).toBe('retry');
+      expect(
+        classifyKafkaError(
+          new KafkaJSNonRetriableError(protocol(type, false), { cause: protocol(type, false) }),
+        ),
+      ).toBe('retry');
     }
   });
 
@@ -64,6 +95,10 @@ describe('classifyKafkaError', () => {
     const wrapped = new StoreError('produce failed', { cause: raw, driverCode: 'MESSAGE_TOO_LARGE' });
     expect(kafkaErrorType(wrapped)).toBe('MESSAGE_TOO_LARGE');
     expect(classifyKafkaError(wrapped)).toBe('split');
-    expect(kafkaErrorType(new KafkaJSNumberOfRetriesExceeded(new KafkaJSConnectionError('x'), { retryCount: 1, retryTime: 1 }))).toBe('KafkaJSConnectionError');
+    expect(
+      kafkaErrorType(
+        new KafkaJSNumberOfRetriesExceeded(new KafkaJSConnectionError('x'), { retryCount: 1, retryTime: 1 }),
+      ),
+    ).toBe('KafkaJSConnectionError');
   });
 });

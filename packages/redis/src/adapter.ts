@@ -2,11 +2,18 @@
  * The Redis sink adapter: a batch goes out as one pipeline (or one MULTI/EXEC), and every reply
  * is checked and attributed to the record whose command it answers.
  */
-import { StoreError, messageOf, type Batch, type ErrorClass, type PartialWrite, type SinkAdapter } from '@spillway/core';
+import {
+  type Batch,
+  type ErrorClass,
+  messageOf,
+  type PartialWrite,
+  type SinkAdapter,
+  StoreError,
+} from '@spillway/core';
 import type { ChainableCommander, Cluster } from 'ioredis';
 import { classifyRedisError, isUnknownOutcome, redisErrorPrefix } from './classify.js';
 import { commandList, type RedisCommand, type RedisMapping } from './commands.js';
-import { resolveRedisOptions, type RedisAdapterOptions, type ResolvedRedisOptions } from './options.js';
+import { type RedisAdapterOptions, type ResolvedRedisOptions, resolveRedisOptions } from './options.js';
 import { keySlot } from './slot.js';
 
 type Reply = [error: Error | null, result: unknown];
@@ -17,7 +24,14 @@ const RANK: Record<ErrorClass, number> = { retry: 0, split: 1, fatal: 2 };
 /** Where a command's key is: after the script and key count for scripts, else the first argument. */
 function commandKey(command: RedisCommand): RedisCommand[1] | undefined {
   const name = command[0].toUpperCase();
-  if (name === 'EVAL' || name === 'EVALSHA' || name === 'FCALL' || name === 'EVAL_RO' || name === 'EVALSHA_RO' || name === 'FCALL_RO') {
+  if (
+    name === 'EVAL' ||
+    name === 'EVALSHA' ||
+    name === 'FCALL' ||
+    name === 'EVAL_RO' ||
+    name === 'EVALSHA_RO' ||
+    name === 'FCALL_RO'
+  ) {
     return Number(command[2]) > 0 ? command[3] : undefined;
   }
   return command[1];
@@ -52,10 +66,13 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
         list = commandList(mapping, batch.records[i] as T, batch.metas[i]);
         if (list.length === 0) continue;
       } catch (error) {
-        failed.set(i, new StoreError(`Mapping "${mapping.name}" failed for a record: ${messageOf(error)}`, {
-          cause: error,
-          details: { mapping: mapping.name, stage: 'mapping' },
-        }));
+        failed.set(
+          i,
+          new StoreError(`Mapping "${mapping.name}" failed for a record: ${messageOf(error)}`, {
+            cause: error,
+            details: { mapping: mapping.name, stage: 'mapping' },
+          }),
+        );
         continue;
       }
       for (const c of list) {
@@ -68,7 +85,10 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
       const groups = this.groups(commands);
       await Promise.all(
         groups.map(async (indexes) => {
-          const replies = await this.send(indexes.map((k) => commands[k]!), groups.length === 1);
+          const replies = await this.send(
+            indexes.map((k) => commands[k]!),
+            groups.length === 1,
+          );
           for (let j = 0; j < indexes.length; j++) {
             const k = indexes[j]!;
             const error = replies[j]?.[0];
@@ -87,7 +107,8 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
   /** Keeps the worst error of a record (fatal over split over retry). */
   private blame(failed: Map<number, StoreError>, index: number, error: StoreError): void {
     const before = failed.get(index);
-    if (before === undefined || RANK[this.classify(error)] > RANK[this.classify(before)]) failed.set(index, error);
+    if (before === undefined || RANK[this.classify(error)] > RANK[this.classify(before)])
+      failed.set(index, error);
   }
 
   /**
@@ -126,7 +147,10 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
       const replies = (await this.queue(this.o.client.multi(), commands).exec()) as Reply[] | null;
       // null: the transaction was discarded (a WATCHed key changed); nothing was applied.
       if (replies) return replies;
-      return commands.map(() => [new StoreError('Redis transaction was discarded (EXEC returned null)', { driverCode: 'EXECNULL' }), null]);
+      return commands.map(() => [
+        new StoreError('Redis transaction was discarded (EXEC returned null)', { driverCode: 'EXECNULL' }),
+        null,
+      ]);
     } catch (error) {
       if (redisErrorPrefix(error) === 'EXECABORT' && wholeBatch) {
         // Nothing was applied; let the engine bisect the batch to find the record(s) refused.
@@ -143,7 +167,14 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
     for (const c of commands) {
       try {
         const r = (await this.queue(this.o.client.multi(), [c]).exec()) as Reply[] | null;
-        out.push(r?.[0] ?? [new StoreError('Redis transaction was discarded (EXEC returned null)', { driverCode: 'EXECNULL' }), null]);
+        out.push(
+          r?.[0] ?? [
+            new StoreError('Redis transaction was discarded (EXEC returned null)', {
+              driverCode: 'EXECNULL',
+            }),
+            null,
+          ],
+        );
       } catch (error) {
         out.push([error as Error, null]);
       }
@@ -153,7 +184,8 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
 
   /** Queues commands by name (`call`), so any command the server knows can be sent. */
   private queue(pipeline: ChainableCommander, commands: readonly RedisCommand[]): ChainableCommander {
-    for (const c of commands) (pipeline.call as (...a: unknown[]) => unknown).apply(pipeline, c as unknown as unknown[]);
+    for (const c of commands)
+      (pipeline.call as (...a: unknown[]) => unknown).apply(pipeline, c as unknown as unknown[]);
     return pipeline;
   }
 
@@ -161,7 +193,9 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
     if (error instanceof StoreError) return error;
     const unknown = isUnknownOutcome(error);
     const name = String(command[0]).toUpperCase();
-    const driverCode = redisErrorPrefix(error) ?? (error instanceof Error ? ((error as { code?: string }).code ?? error.name) : undefined);
+    const driverCode =
+      redisErrorPrefix(error) ??
+      (error instanceof Error ? ((error as { code?: string }).code ?? error.name) : undefined);
     const what = unknown ? `outcome unknown for ${name}` : `${name} failed`;
     return new StoreError(`Redis ${what} (mapping "${this.o.mapping.name}"): ${safeMessage(error)}`, {
       cause: error,
@@ -172,9 +206,12 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
 
   classify(error: unknown): ErrorClass {
     if (error instanceof StoreError && error.details.stage === 'mapping') return 'split';
-    const cls = classifyRedisError(error, { unknownOutcome: this.o.onUnknownOutcome === 'retry' ? 'retry' : 'split' });
+    const cls = classifyRedisError(error, {
+      unknownOutcome: this.o.onUnknownOutcome === 'retry' ? 'retry' : 'split',
+    });
     // A client the user ended will not come back: retrying would only wait out the budget.
-    if (cls === 'retry' && this.o.client.status === 'end' && redisErrorPrefix(error) === undefined) return 'fatal';
+    if (cls === 'retry' && this.o.client.status === 'end' && redisErrorPrefix(error) === undefined)
+      return 'fatal';
     return cls;
   }
 

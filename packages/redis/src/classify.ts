@@ -3,7 +3,7 @@
  * Source: Redis documentation, "Redis error replies" (the first word of an error reply is its
  * prefix: LOADING, BUSY, TRYAGAIN, MOVED, ASK, WRONGTYPE, NOAUTH, NOPERM, …).
  */
-import { SpillwayError, type ErrorClass } from '@spillway/core';
+import { type ErrorClass, SpillwayError } from '@spillway/core';
 
 /** Transient server states: the same command succeeds later. */
 const RETRY_PREFIXES: ReadonlySet<string> = new Set([
@@ -21,12 +21,28 @@ const RETRY_PREFIXES: ReadonlySet<string> = new Set([
 ]);
 
 /** Misconfiguration: no retry and no other record will do better. */
-const FATAL_PREFIXES: ReadonlySet<string> = new Set(['NOAUTH', 'NOPERM', 'WRONGPASS', 'NOPROTO', 'CROSSSLOT', 'NOSCRIPT']);
+const FATAL_PREFIXES: ReadonlySet<string> = new Set([
+  'NOAUTH',
+  'NOPERM',
+  'WRONGPASS',
+  'NOPROTO',
+  'CROSSSLOT',
+  'NOSCRIPT',
+]);
 
 /** ioredis messages for commands that were never sent (safe to send again). */
 const NOT_SENT = /^(Connection is closed|Stream isn't writeable|Reached the max retries per request limit)/;
 /** Socket error codes of a lost or refused connection. */
-const SOCKET_CODES: ReadonlySet<string> = new Set(['ECONNREFUSED', 'ECONNRESET', 'EPIPE', 'ETIMEDOUT', 'EHOSTUNREACH', 'ENETUNREACH', 'EAI_AGAIN', 'ENOTFOUND']);
+const SOCKET_CODES: ReadonlySet<string> = new Set([
+  'ECONNREFUSED',
+  'ECONNRESET',
+  'EPIPE',
+  'ETIMEDOUT',
+  'EHOSTUNREACH',
+  'ENETUNREACH',
+  'EAI_AGAIN',
+  'ENOTFOUND',
+]);
 
 function field(error: unknown, name: string): unknown {
   return typeof error === 'object' && error !== null ? (error as Record<string, unknown>)[name] : undefined;
@@ -87,7 +103,8 @@ export function classifyRedisError(error: unknown, options: RedisClassifyOptions
     if (RETRY_PREFIXES.has(prefix)) return 'retry';
     if (FATAL_PREFIXES.has(prefix)) return 'fatal';
     const message = String(field(inner, 'message') ?? '');
-    if (/^ERR unknown command/i.test(message) || /^ERR wrong number of arguments/i.test(message)) return 'fatal';
+    if (/^ERR unknown command/i.test(message) || /^ERR wrong number of arguments/i.test(message))
+      return 'fatal';
     if (prefix === 'EXECABORT') {
       // A queue-time error: the causes tell whether it was the data or the command itself.
       const previous = field(inner, 'previousErrors');
@@ -106,7 +123,11 @@ export function classifyRedisError(error: unknown, options: RedisClassifyOptions
   const code = field(inner, 'code');
   if (typeof code === 'string' && SOCKET_CODES.has(code)) return 'retry';
   // Cluster topology errors: a slot moved between grouping and sending, or the slots are being refreshed.
-  if (/Failed to refresh slots cache|None of startup nodes is available|Too many Cluster redirections|should belong to the same slots? allocation group|Cluster isn't ready/.test(message)) {
+  if (
+    /Failed to refresh slots cache|None of startup nodes is available|Too many Cluster redirections|should belong to the same slots? allocation group|Cluster isn't ready/.test(
+      message,
+    )
+  ) {
     return 'retry';
   }
   return 'fatal';

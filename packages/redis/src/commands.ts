@@ -34,7 +34,11 @@ export interface RedisMapping<T> {
 }
 
 /** Normalises what `commands()` returned to a list. */
-export function commandList<T>(mapping: RedisMapping<T>, record: T, meta: RecordMeta | undefined): readonly RedisCommand[] {
+export function commandList<T>(
+  mapping: RedisMapping<T>,
+  record: T,
+  meta: RecordMeta | undefined,
+): readonly RedisCommand[] {
   const out = mapping.commands(record, meta);
   // One command is an array whose first element is the command name (a string).
   return typeof out[0] === 'string' ? [out as RedisCommand] : (out as readonly RedisCommand[]);

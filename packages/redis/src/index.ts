@@ -1,8 +1,23 @@
 export { RedisAdapter, redisAdapter } from './adapter.js';
-export type { RedisAdapterOptions } from './options.js';
-export type { RedisArg, RedisCommand, RedisMapping } from './commands.js';
-export { stringValue, hashFields, sortedSetMember, streamEntry, counter, commandMapping, offsetStreamId } from './mappings.js';
-export type { StringValueMapping, HashFieldsMapping, SortedSetMemberMapping, StreamEntryMapping, CounterMapping, CustomMapping } from './mappings.js';
-export { classifyRedisError, redisErrorPrefix, isUnknownOutcome } from './classify.js';
 export type { RedisClassifyOptions } from './classify.js';
+export { classifyRedisError, isUnknownOutcome, redisErrorPrefix } from './classify.js';
+export type { RedisArg, RedisCommand, RedisMapping } from './commands.js';
+export type {
+  CounterMapping,
+  CustomMapping,
+  HashFieldsMapping,
+  SortedSetMemberMapping,
+  StreamEntryMapping,
+  StringValueMapping,
+} from './mappings.js';
+export {
+  commandMapping,
+  counter,
+  hashFields,
+  offsetStreamId,
+  sortedSetMember,
+  streamEntry,
+  stringValue,
+} from './mappings.js';
+export type { RedisAdapterOptions } from './options.js';
 export { keySlot } from './slot.js';

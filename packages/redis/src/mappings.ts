@@ -20,7 +20,10 @@ function ttlOption<T>(name: string, value: unknown): From<T, number> | undefined
   throw invalidOption(name, 'an integer > 0 (milliseconds) or a function returning one', value);
 }
 
-function flatten(fields: Readonly<Record<string, RedisArg>> | ReadonlyMap<string, RedisArg>, into: RedisArg[]): void {
+function flatten(
+  fields: Readonly<Record<string, RedisArg>> | ReadonlyMap<string, RedisArg>,
+  into: RedisArg[],
+): void {
   if (fields instanceof Map) {
     for (const [k, v] of fields) into.push(k, v);
     return;
@@ -156,9 +159,11 @@ export function streamEntry<T>(options: StreamEntryMapping<T>): RedisMapping<T> 
   const key = fn<From<T, string | Buffer>>('key', options?.key);
   const fields = fn<StreamEntryMapping<T>['fields']>('fields', options.fields);
   const { maxLen, exactTrim = false, id = 'auto' } = options;
-  if (maxLen !== undefined && !(Number.isInteger(maxLen) && maxLen >= 0)) throw invalidOption('maxLen', 'an integer >= 0', maxLen);
+  if (maxLen !== undefined && !(Number.isInteger(maxLen) && maxLen >= 0))
+    throw invalidOption('maxLen', 'an integer >= 0', maxLen);
   if (typeof exactTrim !== 'boolean') throw invalidOption('exactTrim', 'a boolean', exactTrim);
-  if (id !== 'auto' && typeof id !== 'function') throw invalidOption('id', "'auto' or a function returning a stream id", id);
+  if (id !== 'auto' && typeof id !== 'function')
+    throw invalidOption('id', "'auto' or a function returning a stream id", id);
   const trim: RedisArg[] = maxLen === undefined ? [] : ['MAXLEN', exactTrim ? '=' : '~', maxLen];
   const explicit = id !== 'auto';
   return {
@@ -213,11 +218,13 @@ return false`;
 export function counter<T>(options: CounterMapping<T>): RedisMapping<T> {
   const key = fn<From<T, string | Buffer>>('key', options?.key);
   const by = fn<From<T, number>>('by', options.by);
-  const field = options.field === undefined ? undefined : fn<From<T, string | Buffer>>('field', options.field);
+  const field =
+    options.field === undefined ? undefined : fn<From<T, string | Buffer>>('field', options.field);
   const dedupe = options.dedupe;
   if (dedupe !== undefined) {
     fn('dedupe.key', dedupe?.key);
-    if (!(Number.isInteger(dedupe.ttlMs) && dedupe.ttlMs > 0)) throw invalidOption('dedupe.ttlMs', 'an integer > 0', dedupe.ttlMs);
+    if (!(Number.isInteger(dedupe.ttlMs) && dedupe.ttlMs > 0))
+      throw invalidOption('dedupe.ttlMs', 'an integer > 0', dedupe.ttlMs);
   }
   return {
     name: 'counter',
@@ -225,11 +232,20 @@ export function counter<T>(options: CounterMapping<T>): RedisMapping<T> {
     commands(record, meta): RedisCommand {
       const n = by(record, meta);
       if (dedupe !== undefined) {
-        const args: RedisArg[] = [DEDUPED_INCREMENT, 2, key(record, meta), dedupe.key(record, meta), n, dedupe.ttlMs];
+        const args: RedisArg[] = [
+          DEDUPED_INCREMENT,
+          2,
+          key(record, meta),
+          dedupe.key(record, meta),
+          n,
+          dedupe.ttlMs,
+        ];
         if (field !== undefined) args.push(field(record, meta));
         return ['EVAL', ...args];
       }
-      return field === undefined ? ['INCRBY', key(record, meta), n] : ['HINCRBY', key(record, meta), field(record, meta), n];
+      return field === undefined
+        ? ['INCRBY', key(record, meta), n]
+        : ['HINCRBY', key(record, meta), field(record, meta), n];
     },
   };
 }
@@ -248,7 +264,16 @@ export interface CustomMapping<T> {
 /** Any commands: the user says whether they are idempotent. */
 export function commandMapping<T>(options: CustomMapping<T>): RedisMapping<T> {
   const commands = fn<RedisMapping<T>['commands']>('commands', options?.commands);
-  if (typeof options.idempotent !== 'boolean') throw invalidOption('idempotent', 'a boolean', options.idempotent);
-  const isReplay = options.isReplay === undefined ? undefined : fn<NonNullable<RedisMapping<T>['isReplay']>>('isReplay', options.isReplay);
-  return { name: options.name ?? 'custom', idempotent: options.idempotent, commands, ...(isReplay ? { isReplay } : {}) };
+  if (typeof options.idempotent !== 'boolean')
+    throw invalidOption('idempotent', 'a boolean', options.idempotent);
+  const isReplay =
+    options.isReplay === undefined
+      ? undefined
+      : fn<NonNullable<RedisMapping<T>['isReplay']>>('isReplay', options.isReplay);
+  return {
+    name: options.name ?? 'custom',
+    idempotent: options.idempotent,
+    commands,
+    ...(isReplay ? { isReplay } : {}),
+  };
 }

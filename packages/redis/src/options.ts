@@ -61,14 +61,32 @@ const KNOWN = new Set(['client', 'mapping', 'atomic', 'onUnknownOutcome', 'close
 export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): ResolvedRedisOptions<T> {
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
   for (const key of Object.keys(options)) {
-    if (!KNOWN.has(key)) throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, (options as unknown as Record<string, unknown>)[key]);
+    if (!KNOWN.has(key))
+      throw invalidOption(
+        key,
+        `one of the known options (${[...KNOWN].join(', ')})`,
+        (options as unknown as Record<string, unknown>)[key],
+      );
   }
   const { client, mapping } = options;
-  if (typeof client !== 'object' || client === null || typeof (client as { pipeline?: unknown }).pipeline !== 'function') {
+  if (
+    typeof client !== 'object' ||
+    client === null ||
+    typeof (client as { pipeline?: unknown }).pipeline !== 'function'
+  ) {
     throw invalidOption('client', 'an ioredis Redis or Cluster client', client);
   }
-  if (typeof mapping !== 'object' || mapping === null || typeof mapping.commands !== 'function' || typeof mapping.idempotent !== 'boolean') {
-    throw invalidOption('mapping', 'a mapping with commands() and idempotent (e.g. stringValue({...}))', mapping);
+  if (
+    typeof mapping !== 'object' ||
+    mapping === null ||
+    typeof mapping.commands !== 'function' ||
+    typeof mapping.idempotent !== 'boolean'
+  ) {
+    throw invalidOption(
+      'mapping',
+      'a mapping with commands() and idempotent (e.g. stringValue({...}))',
+      mapping,
+    );
   }
   const atomic = options.atomic ?? false;
   if (typeof atomic !== 'boolean') throw invalidOption('atomic', 'a boolean', atomic);

@@ -18,7 +18,8 @@ const TABLE = (() => {
 /** CRC16-XMODEM (polynomial 0x1021, initial value 0) of some bytes. */
 export function crc16(bytes: Uint8Array): number {
   let crc = 0;
-  for (let i = 0; i < bytes.length; i++) crc = ((crc << 8) & 0xffff) ^ TABLE[((crc >> 8) ^ bytes[i]!) & 0xff]!;
+  for (let i = 0; i < bytes.length; i++)
+    crc = ((crc << 8) & 0xffff) ^ TABLE[((crc >> 8) ^ bytes[i]!) & 0xff]!;
   return crc;
 }
 

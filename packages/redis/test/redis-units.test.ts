@@ -37,26 +37,59 @@ describe('cluster key slots', () => {
 describe('classifyRedisError', () => {
   it('retries transient server states and lost connections', () => {
     // Source: Redis documentation, "Redis error replies" (LOADING, BUSY, TRYAGAIN, MOVED, ASK).
-    for (const m of ['LOADING Redis is loading the dataset in memory', 'BUSY Redis is busy running a script.', 'TRYAGAIN Multiple keys request during rehashing of slot', 'MOVED 3999 127.0.0.1:6381', 'ASK 3999 127.0.0.1:6381', 'READONLY You can\'t write against a read only replica.', 'CLUSTERDOWN The cluster is down']) {
+    for (const m of [
+      'LOADING Redis is loading the dataset in memory',
+      'BUSY Redis is busy running a script.',
+      'TRYAGAIN Multiple keys request during rehashing of slot',
+      'MOVED 3999 127.0.0.1:6381',
+      'ASK 3999 127.0.0.1:6381',
+      "READONLY You can't write against a read only replica.",
+      'CLUSTERDOWN The cluster is down',
+    ]) {
       expect(classifyRedisError(reply(m)), m).toBe('retry');
     }
-    expect(classifyRedisError(Object.assign(new Error('connect ECONNREFUSED 127.0.0.1:1'), { code: 'ECONNREFUSED' }))).toBe('retry');
-    expect(classifyRedisError(new Error('All keys in the pipeline should belong to the same slots allocation group'))).toBe('retry');
-    expect(classifyRedisError(named('MaxRetriesPerRequestError', 'Reached the max retries per request limit (which is 1). Refer to "maxRetriesPerRequest" option for details.'))).toBe('retry');
+    expect(
+      classifyRedisError(
+        Object.assign(new Error('connect ECONNREFUSED 127.0.0.1:1'), { code: 'ECONNREFUSED' }),
+      ),
+    ).toBe('retry');
+    expect(
+      classifyRedisError(
+        new Error('All keys in the pipeline should belong to the same slots allocation group'),
+      ),
+    ).toBe('retry');
+    expect(
+      classifyRedisError(
+        named(
+          'MaxRetriesPerRequestError',
+          'Reached the max retries per request limit (which is 1). Refer to "maxRetriesPerRequest" option for details.',
+        ),
+      ),
+    ).toBe('retry');
   });
 
   it('splits data errors of one record', () => {
-    expect(classifyRedisError(reply('WRONGTYPE Operation against a key holding the wrong kind of value'))).toBe('split');
+    expect(
+      classifyRedisError(reply('WRONGTYPE Operation against a key holding the wrong kind of value')),
+    ).toBe('split');
     expect(classifyRedisError(reply('ERR value is not an integer or out of range'))).toBe('split');
   });
 
   it('stops on authentication, permissions and unknown commands', () => {
     expect(classifyRedisError(reply('NOAUTH Authentication required.'))).toBe('fatal');
-    expect(classifyRedisError(reply("NOPERM User tandem has no permissions to run the 'set' command"))).toBe('fatal');
-    expect(classifyRedisError(reply("ERR unknown command 'NOSUCH', with args beginning with: 'k' "))).toBe('fatal');
-    const execabort = Object.assign(reply('EXECABORT Transaction discarded because of previous errors.'), { previousErrors: [reply("ERR unknown command 'NOSUCH'")] });
+    expect(classifyRedisError(reply("NOPERM User tandem has no permissions to run the 'set' command"))).toBe(
+      'fatal',
+    );
+    expect(classifyRedisError(reply("ERR unknown command 'NOSUCH', with args beginning with: 'k' "))).toBe(
+      'fatal',
+    );
+    const execabort = Object.assign(reply('EXECABORT Transaction discarded because of previous errors.'), {
+      previousErrors: [reply("ERR unknown command 'NOSUCH'")],
+    });
     expect(classifyRedisError(execabort)).toBe('fatal');
-    const oom = Object.assign(reply('EXECABORT Transaction discarded because of previous errors.'), { previousErrors: [reply("OOM command not allowed when used memory > 'maxmemory'.")] });
+    const oom = Object.assign(reply('EXECABORT Transaction discarded because of previous errors.'), {
+      previousErrors: [reply("OOM command not allowed when used memory > 'maxmemory'.")],
+    });
     expect(classifyRedisError(oom)).toBe('retry');
     expect(classifyRedisError(new TypeError('bug'))).toBe('fatal');
   });
@@ -66,7 +99,9 @@ describe('classifyRedisError', () => {
     const timeout = new Error('Command timed out');
     expect(isUnknownOutcome(abort)).toBe(true);
     expect(isUnknownOutcome(timeout)).toBe(true);
-    expect(isUnknownOutcome(named('MaxRetriesPerRequestError', 'Reached the max retries per request limit'))).toBe(false);
+    expect(
+      isUnknownOutcome(named('MaxRetriesPerRequestError', 'Reached the max retries per request limit')),
+    ).toBe(false);
     expect(classifyRedisError(abort)).toBe('retry');
     expect(classifyRedisError(abort, { unknownOutcome: 'split' })).toBe('split');
     const wrapped = new StoreError('x', { cause: timeout, details: { outcome: 'unknown' } });
@@ -74,7 +109,9 @@ describe('classifyRedisError', () => {
   });
 
   it('reads the prefix through Spillway errors', () => {
-    expect(redisErrorPrefix(new StoreError('x', { cause: reply('WRONGTYPE no'), driverCode: 'WRONGTYPE' }))).toBe('WRONGTYPE');
+    expect(
+      redisErrorPrefix(new StoreError('x', { cause: reply('WRONGTYPE no'), driverCode: 'WRONGTYPE' })),
+    ).toBe('WRONGTYPE');
     expect(redisErrorPrefix(new Error('WRONGTYPE but not a reply'))).toBeUndefined();
   });
 });
@@ -82,10 +119,30 @@ describe('classifyRedisError', () => {
 describe('mappings', () => {
   const r = { id: 'dock-1', free: 3 };
   it('build the documented commands', () => {
-    expect(stringValue<typeof r>({ key: (x) => x.id, value: (x) => String(x.free), ttlMs: 500 }).commands(r, undefined)).toEqual(['SET', 'dock-1', '3', 'PX', 500]);
-    expect(hashFields<typeof r>({ key: (x) => x.id, fields: (x) => ({ free: x.free }), ttlMs: 9 }).commands(r, undefined)).toEqual([['HSET', 'dock-1', 'free', 3], ['PEXPIRE', 'dock-1', 9]]);
-    expect(streamEntry<typeof r>({ key: () => 's', fields: (x) => ({ free: x.free }), maxLen: 10 }).commands(r, undefined)).toEqual(['XADD', 's', 'MAXLEN', '~', 10, '*', 'free', 3]);
-    expect(counter<typeof r>({ key: () => 'c', field: (x) => x.id, by: () => 2 }).commands(r, undefined)).toEqual(['HINCRBY', 'c', 'dock-1', 2]);
+    expect(
+      stringValue<typeof r>({ key: (x) => x.id, value: (x) => String(x.free), ttlMs: 500 }).commands(
+        r,
+        undefined,
+      ),
+    ).toEqual(['SET', 'dock-1', '3', 'PX', 500]);
+    expect(
+      hashFields<typeof r>({ key: (x) => x.id, fields: (x) => ({ free: x.free }), ttlMs: 9 }).commands(
+        r,
+        undefined,
+      ),
+    ).toEqual([
+      ['HSET', 'dock-1', 'free', 3],
+      ['PEXPIRE', 'dock-1', 9],
+    ]);
+    expect(
+      streamEntry<typeof r>({ key: () => 's', fields: (x) => ({ free: x.free }), maxLen: 10 }).commands(
+        r,
+        undefined,
+      ),
+    ).toEqual(['XADD', 's', 'MAXLEN', '~', 10, '*', 'free', 3]);
+    expect(
+      counter<typeof r>({ key: () => 'c', field: (x) => x.id, by: () => 2 }).commands(r, undefined),
+    ).toEqual(['HINCRBY', 'c', 'dock-1', 2]);
   });
 
   it('declare their idempotence', () => {
@@ -93,7 +150,9 @@ describe('mappings', () => {
     expect(streamEntry({ key: () => 's', fields: () => ({}) }).idempotent).toBe(false);
     expect(streamEntry({ key: () => 's', fields: () => ({}), id: offsetStreamId }).idempotent).toBe(true);
     expect(counter({ key: () => 'c', by: () => 1 }).idempotent).toBe(false);
-    expect(counter({ key: () => 'c', by: () => 1, dedupe: { key: () => 'm', ttlMs: 1000 } }).idempotent).toBe(true);
+    expect(counter({ key: () => 'c', by: () => 1, dedupe: { key: () => 'm', ttlMs: 1000 } }).idempotent).toBe(
+      true,
+    );
   });
 
   it('derive stream ids above 0-0 from offsets', () => {
@@ -108,11 +167,18 @@ describe('options', () => {
   const mapping = counter({ key: () => 'c', by: () => 1 });
   it('defaults onUnknownOutcome from the mapping’s idempotence', () => {
     expect(resolveRedisOptions({ client, mapping }).onUnknownOutcome).toBe('dead-letter');
-    expect(resolveRedisOptions({ client, mapping: stringValue({ key: () => 'k', value: () => 'v' }) }).onUnknownOutcome).toBe('retry');
+    expect(
+      resolveRedisOptions({ client, mapping: stringValue({ key: () => 'k', value: () => 'v' }) })
+        .onUnknownOutcome,
+    ).toBe('retry');
   });
   it('names the bad option', () => {
-    expect(() => resolveRedisOptions({ client, mapping, atomic: 'yes' as never })).toThrow('Expected `atomic` to be a boolean, got `"yes"`');
-    expect(() => resolveRedisOptions({ client, mapping, onUnknownOutcome: 'drop' as never })).toThrow(/onUnknownOutcome/);
+    expect(() => resolveRedisOptions({ client, mapping, atomic: 'yes' as never })).toThrow(
+      'Expected `atomic` to be a boolean, got `"yes"`',
+    );
+    expect(() => resolveRedisOptions({ client, mapping, onUnknownOutcome: 'drop' as never })).toThrow(
+      /onUnknownOutcome/,
+    );
     expect(() => resolveRedisOptions({ client: {} as never, mapping })).toThrow(/client/);
     expect(() => resolveRedisOptions({ client, mapping, batchSize: 3 } as never)).toThrow(/batchSize/);
     expect(() => stringValue({ key: 'k' as never, value: () => 'v' })).toThrow(/`key`/);
