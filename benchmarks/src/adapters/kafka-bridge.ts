@@ -21,6 +21,7 @@ import { Kafka, type KafkaMessage, logLevel } from 'kafkajs';
 import pg from 'pg';
 import { kafkaBrokers } from '../kafka-broker.js';
 import { machineInfo } from '../machine.js';
+import { summary } from '../numbers.js';
 
 interface DockStatus {
   seq: number;
@@ -190,18 +191,6 @@ async function runBridge(): Promise<Run> {
   await bridge.stop({ timeoutMs: 20_000 });
   await s.close();
   return { rate: MESSAGES / ((t1 - t0) / 1000), cpuUsPerMessage: (cpu * 1000) / MESSAGES, pauses };
-}
-
-function summary(xs: number[]): { median: number; min: number; max: number; spreadPct: number } {
-  const s = [...xs].sort((a, b) => a - b);
-  const mid = s.length >> 1;
-  const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return {
-    median,
-    min: s[0]!,
-    max: s[s.length - 1]!,
-    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
-  };
 }
 
 async function main(): Promise<void> {

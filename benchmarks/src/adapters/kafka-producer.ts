@@ -14,6 +14,7 @@ import { kafkaProducerAdapter } from '@spillway/kafka';
 import { Kafka, logLevel, type Message, Partitioners, type Producer } from 'kafkajs';
 import { kafkaBrokers } from '../kafka-broker.js';
 import { machineInfo } from '../machine.js';
+import { fmt, summary } from '../numbers.js';
 
 interface DockEvent {
   dock: string;
@@ -97,20 +98,6 @@ async function perRecord(producer: Producer, topic: string): Promise<number> {
     await producer.send({ topic, messages: [toMessage(r)], acks: -1, timeout: 30_000 });
   return PER_RECORD / ((performance.now() - t0) / 1000);
 }
-
-function summary(xs: number[]): { median: number; min: number; max: number; spreadPct: number } {
-  const s = [...xs].sort((a, b) => a - b);
-  const mid = s.length >> 1;
-  const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return {
-    median,
-    min: s[0]!,
-    max: s[s.length - 1]!,
-    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
-  };
-}
-
-const fmt = (n: number) => Math.round(n).toLocaleString('en-US');
 
 async function main(): Promise<void> {
   const broker = await kafkaBrokers();

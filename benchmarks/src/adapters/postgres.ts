@@ -20,6 +20,7 @@ import { type PostgresMode, postgresAdapter } from '@spillway/postgres';
 import pg from 'pg';
 import pgCopy from 'pg-copy-streams';
 import { machineInfo } from '../machine.js';
+import { fmt, summary } from '../numbers.js';
 
 interface DockStatus {
   id: number;
@@ -191,19 +192,6 @@ async function perRow(pool: pg.Pool): Promise<number> {
 }
 
 // ------------------------------------------------------------------ report
-
-function summary(xs: number[]): { median: number; min: number; max: number; spreadPct: number } {
-  const s = [...xs].sort((a, b) => a - b);
-  const mid = s.length >> 1;
-  const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return {
-    median,
-    min: s[0]!,
-    max: s[s.length - 1]!,
-    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
-  };
-}
-const fmt = (n: number) => Math.round(n).toLocaleString('en-US');
 
 async function main(): Promise<void> {
   const setup = new pg.Client({ connectionString: URL });

@@ -12,6 +12,7 @@ import { Sink } from '@spillway/core';
 import { hashFields, redisAdapter } from '@spillway/redis';
 import { Redis } from 'ioredis';
 import { machineInfo } from '../machine.js';
+import { fmt, summary } from '../numbers.js';
 
 interface DockStatus {
   dock: string;
@@ -82,20 +83,6 @@ async function perRecord(client: Redis): Promise<number> {
     await client.hset(`${prefix}${r.dock}`, 'bikes', r.bikes, 'free', r.free, 'district', r.district);
   return PER_RECORD / ((performance.now() - t0) / 1000);
 }
-
-function summary(xs: number[]): { median: number; min: number; max: number; spreadPct: number } {
-  const s = [...xs].sort((a, b) => a - b);
-  const mid = s.length >> 1;
-  const median = s.length % 2 ? s[mid]! : (s[mid - 1]! + s[mid]!) / 2;
-  return {
-    median,
-    min: s[0]!,
-    max: s[s.length - 1]!,
-    spreadPct: ((s[s.length - 1]! - s[0]!) / median) * 100,
-  };
-}
-
-const fmt = (n: number) => Math.round(n).toLocaleString('en-US');
 
 async function main(): Promise<void> {
   const client = new Redis(URL);
