@@ -17,6 +17,8 @@ export { Histogram } from './metrics.js';
 export type { ResolvedOptions, RetryOptions, SinkOptions } from './options.js';
 export { DEFAULTS, defaultOrderingKey, invalidOption } from './options.js';
 export { ProgressTracker, toOffset } from './progress.js';
+export type { CounterReading, GaugeReading } from './readings.js';
+export { bucketsOption, COUNTER_READINGS, DEFAULT_BUCKETS, GAUGE_READINGS } from './readings.js';
 export { fullJitterDelay } from './retry.js';
 export type {
   ClosableSink,

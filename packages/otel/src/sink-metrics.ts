@@ -9,7 +9,11 @@ import {
   type ObservableGauge,
 } from '@opentelemetry/api';
 import {
+  COUNTER_READINGS,
+  type CounterReading,
   FLUSH_REASONS,
+  GAUGE_READINGS,
+  type GaugeReading,
   invalidOption,
   type SinkEventName,
   type SinkEvents,
@@ -45,16 +49,6 @@ export interface InstrumentableSink {
 const METER_NAME = '@spillway/otel';
 const STATES: readonly SinkState[] = ['open', 'closing', 'closed', 'failed'];
 
-type GaugeKey =
-  | 'bufferedRecords'
-  | 'bufferedBytes'
-  | 'oldestAge'
-  | 'inFlightBatches'
-  | 'inFlightRecords'
-  | 'pendingRecords'
-  | 'pendingBytes'
-  | 'waitingWriters';
-type CounterKey = 'accepted' | 'written' | 'deadLettered' | 'retries';
 type HistogramKey =
   | 'acceptToDurable'
   | 'eventToDurable'
@@ -63,24 +57,6 @@ type HistogramKey =
   | 'flushDuration'
   | 'slotWait'
   | 'backpressureWait';
-
-const GAUGE_VALUES: Record<GaugeKey, (s: SinkSnapshot) => number> = {
-  bufferedRecords: (s) => s.bufferedRecords,
-  bufferedBytes: (s) => s.bufferedBytes,
-  oldestAge: (s) => s.oldestAgeMs / 1000,
-  inFlightBatches: (s) => s.inFlightBatches,
-  inFlightRecords: (s) => s.inFlightRecords,
-  pendingRecords: (s) => s.pendingRecords,
-  pendingBytes: (s) => s.pendingBytes,
-  waitingWriters: (s) => s.waitingWriters,
-};
-
-const COUNTER_VALUES: Record<CounterKey, (s: SinkSnapshot) => number> = {
-  accepted: (s) => s.accepted,
-  written: (s) => s.written,
-  deadLettered: (s) => s.deadLettered,
-  retries: (s) => s.retries,
-};
 
 interface Instrumented {
   readonly sink: InstrumentableSink;
@@ -97,9 +73,9 @@ interface Instrumented {
 export class OtelSinkMetrics {
   readonly meter: Meter;
   private readonly sinks = new Map<string, Instrumented>();
-  private readonly gauges: Record<GaugeKey, ObservableGauge>;
+  private readonly gauges: Record<GaugeReading, ObservableGauge>;
   private readonly stateGauge: ObservableGauge;
-  private readonly counters: Record<CounterKey, ObservableCounter>;
+  private readonly counters: Record<CounterReading, ObservableCounter>;
   private readonly flushes: ObservableCounter;
   private readonly histograms: Record<HistogramKey, Histogram>;
   private readonly observables: Observable[];
@@ -128,7 +104,7 @@ export class OtelSinkMetrics {
     this.meter = meter;
 
     const describe = (def: InstrumentDefinition) => ({ description: def.description, unit: def.unit });
-    const gauge = (key: GaugeKey) =>
+    const gauge = (key: GaugeReading) =>
       meter.createObservableGauge(INSTRUMENTS[key].name, describe(INSTRUMENTS[key]));
     this.gauges = {
       bufferedRecords: gauge('bufferedRecords'),
@@ -141,7 +117,7 @@ export class OtelSinkMetrics {
       waitingWriters: gauge('waitingWriters'),
     };
     this.stateGauge = meter.createObservableGauge(INSTRUMENTS.state.name, describe(INSTRUMENTS.state));
-    const counter = (key: CounterKey) =>
+    const counter = (key: CounterReading) =>
       meter.createObservableCounter(INSTRUMENTS[key].name, describe(INSTRUMENTS[key]));
     this.counters = {
       accepted: counter('accepted'),
@@ -175,15 +151,15 @@ export class OtelSinkMetrics {
     this.callback = (result) => {
       for (const { sink, attributes } of this.sinks.values()) {
         const snap = sink.snapshot();
-        for (const key of Object.keys(GAUGE_VALUES) as GaugeKey[])
-          result.observe(this.gauges[key], GAUGE_VALUES[key](snap), attributes);
+        for (const key of Object.keys(GAUGE_READINGS) as GaugeReading[])
+          result.observe(this.gauges[key], GAUGE_READINGS[key](snap), attributes);
         for (const state of STATES)
           result.observe(this.stateGauge, snap.state === state ? 1 : 0, {
             ...attributes,
             [ATTR_STATE]: state,
           });
-        for (const key of Object.keys(COUNTER_VALUES) as CounterKey[])
-          result.observe(this.counters[key], COUNTER_VALUES[key](snap), attributes);
+        for (const key of Object.keys(COUNTER_READINGS) as CounterReading[])
+          result.observe(this.counters[key], COUNTER_READINGS[key](snap), attributes);
         for (const reason of FLUSH_REASONS)
           result.observe(this.flushes, snap.flushes[reason], { ...attributes, [ATTR_REASON]: reason });
       }

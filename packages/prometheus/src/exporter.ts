@@ -1,5 +1,9 @@
 import {
+  COUNTER_READINGS,
+  type CounterReading,
   FLUSH_REASONS,
+  GAUGE_READINGS,
+  type GaugeReading,
   invalidOption,
   type SinkEventName,
   type SinkEvents,
@@ -38,36 +42,6 @@ interface Exported {
   readonly detach: () => void;
 }
 
-type SnapshotGaugeKey =
-  | 'bufferedRecords'
-  | 'bufferedBytes'
-  | 'oldestAge'
-  | 'inFlightBatches'
-  | 'inFlightRecords'
-  | 'pendingRecords'
-  | 'pendingBytes'
-  | 'waitingWriters';
-
-const GAUGE_VALUES: Record<SnapshotGaugeKey, (s: SinkSnapshot) => number> = {
-  bufferedRecords: (s) => s.bufferedRecords,
-  bufferedBytes: (s) => s.bufferedBytes,
-  oldestAge: (s) => s.oldestAgeMs / 1000,
-  inFlightBatches: (s) => s.inFlightBatches,
-  inFlightRecords: (s) => s.inFlightRecords,
-  pendingRecords: (s) => s.pendingRecords,
-  pendingBytes: (s) => s.pendingBytes,
-  waitingWriters: (s) => s.waitingWriters,
-};
-
-type SnapshotCounterKey = 'accepted' | 'written' | 'deadLettered' | 'retries';
-
-const COUNTER_VALUES: Record<SnapshotCounterKey, (s: SinkSnapshot) => number> = {
-  accepted: (s) => s.accepted,
-  written: (s) => s.written,
-  deadLettered: (s) => s.deadLettered,
-  retries: (s) => s.retries,
-};
-
 const registries = new WeakMap<Registry, PrometheusExporter>();
 
 /**
@@ -80,9 +54,9 @@ const registries = new WeakMap<Registry, PrometheusExporter>();
 export class PrometheusExporter {
   readonly registry: Registry;
   private readonly sinks = new Map<string, Exported>();
-  private readonly gauges: Record<SnapshotGaugeKey, Gauge<'sink' | 'store'>>;
+  private readonly gauges: Record<GaugeReading, Gauge<'sink' | 'store'>>;
   private readonly stateGauge: Gauge<'sink' | 'store' | 'state'>;
-  private readonly counters: Record<SnapshotCounterKey, Counter<'sink' | 'store'>>;
+  private readonly counters: Record<CounterReading, Counter<'sink' | 'store'>>;
   private readonly flushes: Counter<'sink' | 'store' | 'reason'>;
   private readonly histograms: {
     acceptToDurable: Histogram<'sink' | 'store'>;
@@ -122,7 +96,7 @@ export class PrometheusExporter {
 
     const registers = [registry];
     const common = [...COMMON_LABELS];
-    const gauge = (key: SnapshotGaugeKey) => {
+    const gauge = (key: GaugeReading) => {
       const def: MetricDefinition = METRICS[key];
       return new Gauge({
         name: def.name,
@@ -132,7 +106,7 @@ export class PrometheusExporter {
         collect: () => {
           for (const [name, snap] of this.currentSnapshots()) {
             const e = this.sinks.get(name);
-            if (e) this.gauges[key].set(e.labels, GAUGE_VALUES[key](snap));
+            if (e) this.gauges[key].set(e.labels, GAUGE_READINGS[key](snap));
           }
         },
       });
@@ -161,7 +135,7 @@ export class PrometheusExporter {
         }
       },
     });
-    const counter = (key: SnapshotCounterKey) => {
+    const counter = (key: CounterReading) => {
       const def: MetricDefinition = METRICS[key];
       return new Counter({
         name: def.name,
@@ -171,7 +145,7 @@ export class PrometheusExporter {
         collect: () => {
           for (const [name, snap] of this.currentSnapshots()) {
             const e = this.sinks.get(name);
-            if (e) this.advance(e, key, this.counters[key], e.labels, COUNTER_VALUES[key](snap));
+            if (e) this.advance(e, key, this.counters[key], e.labels, COUNTER_READINGS[key](snap));
           }
         },
       });

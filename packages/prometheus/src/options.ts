@@ -1,4 +1,4 @@
-import { invalidOption } from '@spillway/core';
+import { bucketsOption, DEFAULT_BUCKETS } from '@spillway/core';
 import type { Registry } from 'prom-client';
 
 /** Options of `PrometheusExporter` and `registerSinkMetrics()`. */
@@ -44,33 +44,8 @@ export interface PrometheusExporterOptions {
   batchBytesBuckets?: readonly number[];
 }
 
-export const DEFAULT_LATENCY_BUCKETS = [
-  0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 0.75, 1, 2.5, 5, 10, 30,
-] as const;
-export const DEFAULT_DURATION_BUCKETS = [
-  0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1, 2.5, 5, 10,
-] as const;
-export const DEFAULT_BATCH_RECORDS_BUCKETS = [
-  1, 5, 10, 25, 50, 100, 250, 500, 1000, 2500, 5000, 10000,
-] as const;
-export const DEFAULT_BATCH_BYTES_BUCKETS = [
-  1024, 4096, 16384, 65536, 262144, 1048576, 2097152, 4194304, 16777216,
-] as const;
-
-/** Checks a bucket list: finite, positive, strictly increasing, at least one. Returns a copy. */
-export function bucketsOption(
-  name: string,
-  value: readonly number[] | undefined,
-  fallback: readonly number[],
-): number[] {
-  if (value === undefined) return [...fallback];
-  const ok =
-    Array.isArray(value) &&
-    value.length > 0 &&
-    value.every(
-      (v, i) =>
-        typeof v === 'number' && Number.isFinite(v) && v > 0 && (i === 0 || v > (value[i - 1] as number)),
-    );
-  if (!ok) throw invalidOption(name, 'a non-empty array of finite numbers > 0 in increasing order', value);
-  return [...value];
-}
+export const DEFAULT_LATENCY_BUCKETS = DEFAULT_BUCKETS.latency;
+export const DEFAULT_DURATION_BUCKETS = DEFAULT_BUCKETS.duration;
+export const DEFAULT_BATCH_RECORDS_BUCKETS = DEFAULT_BUCKETS.batchRecords;
+export const DEFAULT_BATCH_BYTES_BUCKETS = DEFAULT_BUCKETS.batchBytes;
+export { bucketsOption };
