@@ -631,3 +631,62 @@ describe('the size estimator', () => {
     },
   );
 });
+
+describe('COPY data leaves with its statement', () => {
+  // The adapter sends CopyData right after the COPY statement instead of waiting for the server's
+  // CopyInResponse. Source: PostgreSQL documentation, Frontend/Backend Protocol, "COPY Operations":
+  // after an error "any subsequent CopyData, CopyDone, or CopyFail messages issued by the frontend
+  // will simply be dropped". One connection (max: 1) serves every statement below, so a leftover
+  // message of a failed COPY would show up as a broken next statement.
+  it('a COPY refused at its start or midway leaves the connection in order for the next batch', async () => {
+    const one = await withSchema('copyeager', { max: 1 });
+    const pool = one.pool;
+    try {
+      await pool.query(
+        'CREATE TABLE copy_eager (id int PRIMARY KEY, dock text NOT NULL, bikes int NOT NULL, note text, CONSTRAINT bikes_below_20 CHECK (bikes < 20))',
+      );
+      const long = 'Tandem Bikes dock audit '.repeat(40);
+      // ~1 KB a row: 5,000 rows are many 64 Ki-character chunks, all sent before any answer.
+      const rows = (from: number, n: number) =>
+        Array.from({ length: n }, (_, i) => ({ ...status(from + i), bikes: (from + i) % 20, note: long }));
+      const into = (table: string) =>
+        postgresAdapter<DockStatus>({ pool, table, columns, map, mode: 'copy' });
+      const batch = (records: DockStatus[]) => ({
+        id: 1,
+        reason: 'manual' as const,
+        attempt: 1,
+        records,
+        metas: records.map(() => undefined),
+        bytes: 0,
+      });
+
+      // Refused at its start: the table does not exist.
+      const missing = await into('copy_eager_missing')
+        .write(batch(rows(1, 5_000)))
+        .catch((e: unknown) => e);
+      expect(driverCodeOf(missing)).toBe('42P01');
+      // Refused midway: row 4,000 of 5,000 violates the CHECK, after the server read many chunks.
+      const bad = rows(1, 5_000);
+      bad[3_999] = { ...bad[3_999]!, bikes: 25 };
+      const midway = await into('copy_eager')
+        .write(batch(bad))
+        .catch((e: unknown) => e);
+      expect(driverCodeOf(midway)).toBe('23514');
+      expect((await pool.query('SELECT count(*)::int AS n FROM copy_eager')).rows[0].n).toBe(0);
+
+      // The same connection then takes a clean multi-chunk COPY and an ordinary query.
+      const adapter = into('copy_eager');
+      const good = rows(1, 5_000);
+      await adapter.write(batch(good));
+      expect(adapter.stats().copyBytes).toBeGreaterThan(4 * 65_536);
+      const { rows: landed } = await pool.query<{ n: number; notes: number }>(
+        'SELECT count(*)::int AS n, count(*) FILTER (WHERE note = $1)::int AS notes FROM copy_eager',
+        [long],
+      );
+      expect(landed[0]).toEqual({ n: 5_000, notes: 5_000 });
+      expect((await pool.query('SELECT 1 + 1 AS two')).rows[0].two).toBe(2);
+    } finally {
+      await one.drop();
+    }
+  });
+});

@@ -41,6 +41,7 @@ export type {
   ErrorClass,
   FlushReason,
   PartialWrite,
+  Prepared,
   RecordMeta,
   SinkAdapter,
   SinkCounters,

@@ -21,6 +21,7 @@ import {
   FLUSH_REASONS,
   type FlushReason,
   type PartialWrite,
+  type Prepared,
   type RecordMeta,
   type SinkAdapter,
   type SinkCounters,
@@ -35,6 +36,8 @@ interface Entry<T> {
   readonly record: T;
   readonly meta: RecordMeta | undefined;
   readonly bytes: number;
+  /** The adapter's `prepare()` result, if it has one. */
+  readonly prepared: unknown;
   readonly acceptedAt: number;
   readonly key: string | undefined;
   /** Set when a manual / shutdown / revoke flush asked for this record to leave now. */
@@ -57,6 +60,7 @@ interface Waiter<T> {
   readonly record: T;
   readonly meta: RecordMeta | undefined;
   readonly bytes: number;
+  readonly prepared: unknown;
   readonly since: number;
   readonly barrier: Barrier | undefined;
   resolve(): void;
@@ -106,6 +110,9 @@ export class Sink<T> {
   private readonly o: ResolvedOptions<T>;
   private readonly events = new EventEmitter();
   private readonly estimate: (record: T) => number;
+  private readonly prepareHook: ((record: T) => Prepared) | undefined;
+  /** What the last sizeOf() call prepared (read right after it, by the same caller). */
+  private prepared: unknown;
 
   private stateValue: SinkState = 'open';
   private fatal: unknown;
@@ -169,6 +176,7 @@ export class Sink<T> {
     this.name = this.o.name;
     const own = this.o.estimateBytes ?? adapter.estimateBytes?.bind(adapter);
     this.estimate = own ?? estimateJsonBytes;
+    this.prepareHook = adapter.prepare?.bind(adapter);
     this.lastWriteAt = this.o.clock.now();
   }
 
@@ -200,11 +208,12 @@ export class Sink<T> {
     const refused = this.refusal();
     if (refused) return Promise.reject(refused);
     const bytes = this.sizeOf(record);
+    const prepared = this.prepared;
     if (this.waiters.length === 0 && this.hasRoom(bytes)) {
-      this.accept(record, meta, bytes, barrier);
+      this.accept(record, meta, bytes, prepared, barrier);
       return RESOLVED;
     }
-    return this.wait(record, meta, bytes, signal, barrier);
+    return this.wait(record, meta, bytes, prepared, signal, barrier);
   }
 
   /**
@@ -216,7 +225,7 @@ export class Sink<T> {
     if (refused) throw refused;
     const bytes = this.sizeOf(record);
     if (this.waiters.length > 0 || !this.hasRoom(bytes)) return false;
-    this.accept(record, meta, bytes, undefined);
+    this.accept(record, meta, bytes, this.prepared, undefined);
     return true;
   }
 
@@ -235,7 +244,7 @@ export class Sink<T> {
       const record = records[n]!;
       const bytes = this.sizeOf(record);
       if (!this.hasRoom(bytes)) break;
-      this.accept(record, metas?.[n], bytes, undefined, now);
+      this.accept(record, metas?.[n], bytes, this.prepared, undefined, now);
     }
     return n;
   }
@@ -262,8 +271,20 @@ export class Sink<T> {
     return undefined;
   }
 
+  /** The record's size in bytes; with an adapter `prepare()`, also sets `this.prepared`. */
   private sizeOf(record: T): number {
-    const n = this.estimate(record);
+    let n: number;
+    if (this.prepareHook === undefined) n = this.estimate(record);
+    else {
+      let p: Prepared | undefined;
+      try {
+        p = this.prepareHook(record);
+      } catch {
+        p = undefined;
+      }
+      this.prepared = p?.value;
+      n = this.o.estimateBytes !== undefined || p === undefined ? this.estimate(record) : p.bytes;
+    }
     return Number.isFinite(n) && n > 0 ? n : 1;
   }
 
@@ -289,6 +310,7 @@ export class Sink<T> {
     record: T,
     meta: RecordMeta | undefined,
     bytes: number,
+    prepared: unknown,
     barrier: Barrier | undefined,
     at?: number,
   ): void {
@@ -297,6 +319,7 @@ export class Sink<T> {
       record,
       meta,
       bytes,
+      prepared,
       acceptedAt: now,
       key: this.o.orderingKey(record, meta),
       forced: undefined,
@@ -320,12 +343,22 @@ export class Sink<T> {
     record: T,
     meta: RecordMeta | undefined,
     bytes: number,
+    prepared: unknown,
     signal: AbortSignal | undefined,
     barrier: Barrier | undefined,
   ): Promise<void> {
     if (signal?.aborted) return Promise.reject(new AbortedError('write()', signal.reason));
     return new Promise<void>((resolve, reject) => {
-      const waiter: Waiter<T> = { record, meta, bytes, since: this.o.clock.now(), barrier, resolve, reject };
+      const waiter: Waiter<T> = {
+        record,
+        meta,
+        bytes,
+        prepared,
+        since: this.o.clock.now(),
+        barrier,
+        resolve,
+        reject,
+      };
       if (signal) {
         const onAbort = () => {
           const i = this.waiters.indexOf(waiter);
@@ -354,7 +387,7 @@ export class Sink<T> {
       this.backpressureWaitMsTotal += waited;
       this.h.backpressureWaitMs.record(waited);
       this.emit('backpressure', { sink: this.name, waitedMs: waited });
-      this.accept(w.record, w.meta, w.bytes, w.barrier);
+      this.accept(w.record, w.meta, w.bytes, w.prepared, w.barrier);
       w.resolve();
     }
   }
@@ -504,8 +537,14 @@ export class Sink<T> {
         if (n <= 0) this.lockedKeys.delete(e.key);
         else this.lockedKeys.set(e.key, n);
       }
+      // The next batch goes first: its write starts (and, where the adapter sends right away,
+      // reaches the store) before waiting writers refill the buffer. When one did start, writers
+      // are let in on the next turn of the event loop, after the connection work the adapter
+      // queued for it (a pool checkout, a socket write); otherwise right away.
+      const started = this.batches;
       this.pump();
-      this.wake();
+      if (this.batches === started || this.waiters.length === 0) this.wake();
+      else setImmediate(() => this.wake());
     }
   }
 
@@ -641,14 +680,18 @@ export class Sink<T> {
   private toBatch(id: number, reason: FlushReason, attempt: number, entries: Entry<T>[]): Batch<T> {
     const records = new Array<T>(entries.length);
     const metas = new Array<RecordMeta | undefined>(entries.length);
+    const prepared = this.prepareHook === undefined ? undefined : new Array<unknown>(entries.length);
     let bytes = 0;
     for (let i = 0; i < entries.length; i++) {
       const e = entries[i]!;
       records[i] = e.record;
       metas[i] = e.meta;
       bytes += e.bytes;
+      if (prepared !== undefined) prepared[i] = e.prepared;
     }
-    return { id, reason, attempt, records, metas, bytes };
+    return prepared === undefined
+      ? { id, reason, attempt, records, metas, bytes }
+      : { id, reason, attempt, records, metas, bytes, prepared };
   }
 
   /** Hands records to the dead-letter target; false when that failed (the sink is then failed). */
@@ -749,7 +792,8 @@ export class Sink<T> {
         latenciesMs: latencies,
       });
     }
-    this.wake();
+    // The last records of a batch: run() lets writers in once the next batch has started.
+    if (batch.open > 0) this.wake();
   }
 
   /** Fatal: stop accepting, reject every wait. Records not yet terminal stay pending, never durable. */

@@ -49,6 +49,19 @@ export interface Batch<T> {
   readonly metas: readonly (RecordMeta | undefined)[];
   /** Sum of the estimated sizes of the records. */
   readonly bytes: number;
+  /**
+   * `prepared[i]` is what the adapter's `prepare()` made of `records[i]` when it was accepted;
+   * absent when the adapter has no `prepare()`, and `undefined` for a record it failed on.
+   */
+  readonly prepared?: readonly unknown[];
+}
+
+/** What `SinkAdapter.prepare()` makes of one record. */
+export interface Prepared {
+  /** Handed back to `write()` in `batch.prepared`. */
+  readonly value: unknown;
+  /** What the record adds to a write, in bytes (used instead of `estimateBytes`). */
+  readonly bytes: number;
 }
 
 /** A batch write that landed for some records and not for others (e.g. a Redis pipeline). */
@@ -69,6 +82,14 @@ export interface SinkAdapter<T> {
   classify(error: unknown): ErrorClass;
   /** Estimated bytes a record adds to a write; the engine has a default estimator. */
   estimateBytes?(record: T): number;
+  /**
+   * The per-record part of a write (mapping, encoding), done when the record is accepted, while
+   * earlier batches are still in flight, instead of when its batch is written. What it returns
+   * reaches `write()` as `batch.prepared[i]`, and its `bytes` size the record. When it throws,
+   * the record is accepted with `prepared[i]` undefined: `write()` must then do the work itself
+   * (and reject the record if it fails again).
+   */
+  prepare?(record: T): Prepared;
   /** Called once by `Sink.close()` after every record is terminal. */
   close?(): Promise<void>;
 }

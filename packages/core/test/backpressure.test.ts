@@ -1,26 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, settle } from '../src/index.js';
-import { deferred, FakeAdapter } from './fakes.js';
-
-function gatedSink(options: Record<string, unknown> = {}) {
-  const clock = new ManualClock();
-  const adapter = new FakeAdapter<number>();
-  const gates: Array<ReturnType<typeof deferred>> = [];
-  adapter.behave = () => {
-    const g = deferred();
-    gates.push(g);
-    return g.promise;
-  };
-  const sink = new Sink(adapter, {
-    maxRecords: 2,
-    maxPendingRecords: 4,
-    maxAgeMs: 100,
-    idleMs: 0,
-    clock,
-    ...options,
-  });
-  return { clock, adapter, sink, gates };
-}
+import { settle } from '../src/index.js';
+import { gatedSink } from './fakes.js';
 
 describe('backpressure', () => {
   it('resolves write() at once while there is room and waits when the pending bound is reached', async () => {

@@ -6,6 +6,7 @@ import type {
   PartialWrite,
   SinkAdapter,
 } from '../src/index.js';
+import { ManualClock, Sink } from '../src/index.js';
 
 /** A transient error as a store would raise it. */
 export class Transient extends Error {
@@ -95,4 +96,28 @@ export function seeded(seed: number): () => number {
     t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
     return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
   };
+}
+
+/**
+ * A sink over a FakeAdapter whose every write waits until the test resolves its gate: 2 records a
+ * batch, 4 pending at most.
+ */
+export function gatedSink(options: Record<string, unknown> = {}) {
+  const clock = new ManualClock();
+  const adapter = new FakeAdapter<number>();
+  const gates: Array<ReturnType<typeof deferred>> = [];
+  adapter.behave = () => {
+    const g = deferred();
+    gates.push(g);
+    return g.promise;
+  };
+  const sink = new Sink(adapter, {
+    maxRecords: 2,
+    maxPendingRecords: 4,
+    maxAgeMs: 100,
+    idleMs: 0,
+    clock,
+    ...options,
+  });
+  return { clock, adapter, sink, gates };
 }

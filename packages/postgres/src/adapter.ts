@@ -1,10 +1,9 @@
-import { Readable } from 'node:stream';
-import { pipeline } from 'node:stream/promises';
 import {
   type Batch,
   type ErrorClass,
   messageOf,
   type PartialWrite,
+  type Prepared,
   Sink,
   type SinkAdapter,
   type SinkOptions,
@@ -12,16 +11,16 @@ import {
   StoreError,
 } from '@spillway/core';
 import type { PoolClient } from 'pg';
-import pgCopy from 'pg-copy-streams';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
 import { CopyChunks, copyLine, copyRow } from './copy-format.js';
+import { CopyIn } from './copy-in.js';
 import {
   ADAPTER_OPTION_NAMES,
   type PostgresAdapterOptions,
   type ResolvedPostgresOptions,
   resolvePostgresOptions,
 } from './options.js';
-import { makeEstimator } from './size.js';
+import { copyRowBytes, insertRowBytes, makeEstimator } from './size.js';
 import { buildStatements, type Statements } from './statements.js';
 import { columnArrayLiteral, toWire, type WireValue } from './values.js';
 
@@ -57,17 +56,12 @@ export interface PostgresAdapterStats {
 
 /** The parts of one batch, as the adapter will send them. */
 type Step =
-  /** INSERT statements: rows as arrays, or (`insert` mode) `rows` rows of parameters in one flat array. */
-  | { readonly kind: 'values'; readonly rows: number; readonly values: WireValue[] }
-  | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[]; readonly values?: undefined }
-  /** COPY: into the target (`copy` mode, with the data already encoded) or a staging table. */
-  | {
-      readonly kind: 'stage';
-      readonly rows: number | readonly (readonly WireValue[])[];
-      readonly data?: CopyChunks;
-    };
-
-const { from: copyFrom } = pgCopy;
+  /** INSERT statements over these rows. */
+  | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[] }
+  /** COPY into the target (`copy` mode): `fill` encodes the batch while its data goes out. */
+  | { readonly kind: 'copy'; readonly fill: (data: CopyChunks) => number }
+  /** COPY into a staging table, then a merge into the target (large upserts). */
+  | { readonly kind: 'stage'; readonly rows: readonly (readonly WireValue[])[] };
 
 /**
  * A `SinkAdapter` that writes batches into one PostgreSQL table through the application's pg
@@ -107,6 +101,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const names = this.options.columns.map((c) => c.name);
     this.keyIndexes = (this.options.conflict?.key ?? []).map((k) => names.indexOf(k));
     this.estimator = makeEstimator(this.options);
+    this.prepare = this.options.mode === 'copy' ? undefined : (record) => this.prepareRow(record);
     // Without a listener, an idle client's 'error' (57P01 on a server restart) crashes the process.
     this.options.pool.on('error', this.onPoolError);
   }
@@ -124,6 +119,29 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     return this.estimator(record);
   }
 
+  /**
+   * `insert` and `upsert` map a record when the sink accepts it (the row of wire values), so that
+   * a batch's statement is only joined up when it is written: the INSERT then leaves as soon as its
+   * batch starts, with the next batch's rows prepared while it runs. `copy` mode has none: a COPY
+   * line per buffered record weighs more on the garbage collector than encoding a batch in one go
+   * costs, and its chunks already leave while the batch is being encoded.
+   */
+  readonly prepare: ((record: T) => Prepared) | undefined;
+
+  private prepareRow(record: T): Prepared {
+    const row = this.wireRow(this.mapped(this.options.map(record)));
+    return {
+      value: row,
+      bytes: this.options.insertForm === 'unnest' ? copyRowBytes(row, 'csv') : insertRowBytes(row),
+    };
+  }
+
+  private wireRow(values: readonly unknown[]): WireValue[] {
+    const row = new Array<WireValue>(this.width);
+    for (let c = 0; c < this.width; c++) row[c] = toWire(values[c]);
+    return row;
+  }
+
   /** Detaches from the pool. The pool itself belongs to the application and stays open. */
   async close(): Promise<void> {
     if (this.closed) return;
@@ -138,47 +156,40 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const rejected: Array<{ index: number; error: unknown }> = [];
     const { map, mode, copyFormat } = this.options;
     if (mode === 'copy') {
-      // The hot path: COPY lines straight from the mapped values.
-      const data = new CopyChunks();
-      let count = 0;
-      for (let i = 0; i < batch.records.length; i++) {
+      // Encoded inside the transaction, once the COPY statement is on its way: the server parses
+      // the first chunks while the rest are encoded.
+      const fill = (data: CopyChunks): number => {
+        rejected.length = 0;
+        let count = 0;
+        for (let i = 0; i < batch.records.length; i++) {
+          try {
+            data.push(copyLine(this.mapped(map(batch.records[i] as T)), copyFormat));
+            count++;
+          } catch (error) {
+            rejected.push({ index: i, error: this.unmappable(error) });
+          }
+        }
+        return count;
+      };
+      await this.transact([{ kind: 'copy', fill }]);
+      return rejected.length > 0 ? { rejected } : undefined;
+    }
+    // What prepare() made of each record when it was accepted; redone here where it is missing.
+    const prepared = batch.prepared;
+    const rows: WireValue[][] = [];
+    for (let i = 0; i < batch.records.length; i++) {
+      const ready = prepared?.[i];
+      if (Array.isArray(ready)) rows.push(ready as WireValue[]);
+      else {
         try {
-          data.push(copyLine(this.mapped(map(batch.records[i] as T)), copyFormat));
-          count++;
+          rows.push(this.wireRow(this.mapped(map(batch.records[i] as T))));
         } catch (error) {
           rejected.push({ index: i, error: this.unmappable(error) });
         }
       }
-      if (count > 0) await this.transact([{ kind: 'stage', rows: count, data }]);
-    } else if (mode === 'insert') {
-      // Parameters straight into one flat array, in statement order.
-      const flat: WireValue[] = [];
-      let count = 0;
-      for (let i = 0; i < batch.records.length; i++) {
-        const base = flat.length;
-        try {
-          const values = this.mapped(map(batch.records[i] as T));
-          for (let c = 0; c < this.width; c++) flat.push(toWire(values[c]));
-          count++;
-        } catch (error) {
-          flat.length = base;
-          rejected.push({ index: i, error: this.unmappable(error) });
-        }
-      }
-      if (count > 0) await this.transact([{ kind: 'values', rows: count, values: flat }]);
-    } else {
-      const rows: WireValue[][] = [];
-      for (let i = 0; i < batch.records.length; i++) {
-        try {
-          const values = this.mapped(map(batch.records[i] as T));
-          const row = new Array<WireValue>(this.width);
-          for (let c = 0; c < this.width; c++) row[c] = toWire(values[c]);
-          rows.push(row);
-        } catch (error) {
-          rejected.push({ index: i, error: this.unmappable(error) });
-        }
-      }
-      if (rows.length > 0) await this.transact(this.plan(rows));
+    }
+    if (rows.length > 0) {
+      await this.transact(mode === 'insert' ? [{ kind: 'values', rows }] : this.plan(rows));
     }
     return rejected.length > 0 ? { rejected } : undefined;
   }
@@ -236,13 +247,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   private statementCount(steps: readonly Step[]): number {
     let n = 0;
     for (const s of steps) {
-      const rows = typeof s.rows === 'number' ? s.rows : s.rows.length;
-      n +=
-        s.kind === 'values'
-          ? Math.ceil(rows / this.options.rowsPerStatement)
-          : this.options.mode === 'copy'
-            ? 1
-            : 3;
+      if (s.kind === 'copy') n += 1;
+      else if (s.kind === 'values') n += Math.ceil(s.rows.length / this.options.rowsPerStatement);
+      else n += 3;
     }
     return n;
   }
@@ -268,23 +275,27 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     try {
       if (explicit) await this.run(client, 'BEGIN');
       let staged = false;
+      let rows = 0;
       for (const s of steps) {
         if (s.kind === 'values') {
           step = 'insert';
-          if (s.values !== undefined) await this.insertFlat(client, s.values, s.rows);
-          else await this.insertValues(client, s.rows);
-        } else if (s.data !== undefined) {
+          await this.insertValues(client, s.rows);
+          rows += s.rows.length;
+        } else if (s.kind === 'copy') {
           step = 'copy';
-          await this.copy(client, this.sql.target, s.data);
+          this.counters.dataStatements++;
+          rows += await this.copy(client, this.sql.target, s.fill);
         } else {
           step = 'stage';
           await this.run(client, staged ? this.sql.truncateStage : this.sql.createStage);
           staged = true;
           step = 'copy';
-          const data = new CopyChunks();
-          for (const row of s.rows as readonly (readonly WireValue[])[])
-            data.push(copyRow(row, this.options.copyFormat));
-          await this.copy(client, this.sql.stage, data);
+          const { copyFormat } = this.options;
+          await this.copy(client, this.sql.stage, (data) => {
+            for (const row of s.rows) data.push(copyRow(row, copyFormat));
+            return s.rows.length;
+          });
+          rows += s.rows.length;
           step = 'merge';
           this.counters.dataStatements++;
           await this.run(client, this.sql.mergeStage);
@@ -293,7 +304,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       step = 'commit';
       if (explicit) await this.run(client, 'COMMIT');
       this.counters.committed++;
-      for (const s of steps) this.counters.rows += typeof s.rows === 'number' ? s.rows : s.rows.length;
+      this.counters.rows += rows;
     } catch (error) {
       failure = error;
       this.counters.failed++;
@@ -324,18 +335,6 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     await client.query(text);
   }
 
-  private async insertFlat(client: PoolClient, flat: WireValue[], rows: number): Promise<void> {
-    const per = this.options.rowsPerStatement;
-    for (let start = 0; start < rows; start += per) {
-      const n = Math.min(per, rows - start);
-      await this.sendInsert(
-        client,
-        n,
-        n === rows ? flat : flat.slice(start * this.width, (start + n) * this.width),
-      );
-    }
-  }
-
   private async insertValues(client: PoolClient, rows: readonly (readonly WireValue[])[]): Promise<void> {
     const per = this.options.rowsPerStatement;
     const width = this.width;
@@ -364,14 +363,27 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     await client.query({ text: this.sql.values(rows), values });
   }
 
-  private async copy(client: PoolClient, into: string, data: CopyChunks): Promise<void> {
-    const chunks = data.finish();
+  /** One COPY into `into`; `fill` encodes the rows, whose chunks leave as they are made. */
+  private async copy(client: PoolClient, into: string, fill: (data: CopyChunks) => number): Promise<number> {
     this.counters.statements++;
-    if (this.options.mode === 'copy') this.counters.dataStatements++;
-    this.counters.copyBytes += data.bytes;
-    const stream = client.query(copyFrom(this.sql.copy(into)));
-    // pipeline() honours backpressure and rejects once when the server refuses the data.
-    await pipeline(Readable.from(chunks, { objectMode: false }), stream);
+    const copy = new CopyIn(this.sql.copy(into));
+    // The client is ours and idle: pg submits the statement right away, and each chunk follows.
+    client.query(copy as never);
+    const data = new CopyChunks((chunk) => copy.send(chunk));
+    let rows: number;
+    try {
+      rows = fill(data);
+      data.finish();
+      copy.end();
+    } catch (error) {
+      copy.fail(`encoding the batch failed: ${messageOf(error)}`);
+      await copy.done.catch(() => undefined);
+      throw error;
+    } finally {
+      this.counters.copyBytes += data.bytes;
+    }
+    await copy.done;
+    return rows;
   }
 
   private get batchName(): string {

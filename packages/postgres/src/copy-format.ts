@@ -36,8 +36,9 @@ export function copyOptions(format: CopyFormat): string {
 }
 
 // Strings are joined into chunks of about this many UTF-16 units before becoming Buffers: large
-// enough to keep the per-chunk cost low, small enough not to hold a second copy of a big batch.
-const CHUNK_CHARS = 1 << 18;
+// enough to keep the per-chunk cost low, small enough that the server gets the first rows of a
+// big batch while the rest is still being encoded.
+const CHUNK_CHARS = 1 << 16;
 
 /**
  * One COPY line (with its newline) straight from mapped values, without an intermediate array
@@ -57,11 +58,16 @@ export function copyLine(values: readonly unknown[], format: CopyFormat): string
   return `${line}\n`;
 }
 
-/** Collects COPY lines into Buffers of about CHUNK_CHARS characters. */
+/**
+ * Collects COPY lines into Buffers of about CHUNK_CHARS characters, handing each to `onChunk`
+ * when one is given (and keeping them otherwise).
+ */
 export class CopyChunks {
   readonly chunks: Buffer[] = [];
   bytes = 0;
   private text = '';
+
+  constructor(private readonly onChunk?: (chunk: Buffer) => void) {}
 
   push(line: string): void {
     this.text += line;
@@ -76,7 +82,8 @@ export class CopyChunks {
 
   private cut(): void {
     const b = Buffer.from(this.text, 'utf8');
-    this.chunks.push(b);
+    if (this.onChunk) this.onChunk(b);
+    else this.chunks.push(b);
     this.bytes += b.length;
     this.text = '';
   }

@@ -1,0 +1,88 @@
+import { describe, expect, it } from 'vitest';
+import { type Batch, ManualClock, type Prepared, Sink, settle } from '../src/index.js';
+import { FakeAdapter, gatedSink } from './fakes.js';
+
+/** A fake adapter whose prepare() doubles numbers and refuses negative ones. */
+class PreparingAdapter extends FakeAdapter<number> {
+  readonly preparedSeen: Array<readonly unknown[] | undefined> = [];
+  prepared = 0;
+  prepare(record: number): Prepared {
+    this.prepared++;
+    if (record < 0) throw new Error('cannot prepare a negative number');
+    return { value: record * 2, bytes: 10 + record };
+  }
+  override async write(batch: Batch<number>) {
+    this.preparedSeen.push(batch.prepared);
+    return super.write(batch);
+  }
+}
+
+describe("an adapter's prepare()", () => {
+  it('runs once per accepted record and its values reach write() beside the records', async () => {
+    const adapter = new PreparingAdapter();
+    const sink = new Sink(adapter, { maxRecords: 3, maxAgeMs: 1000, idleMs: 0, clock: new ManualClock() });
+    for (const r of [1, 2, 3]) await sink.write(r);
+    await sink.flush();
+    expect(adapter.prepared).toBe(3);
+    expect(adapter.calls[0]!.records).toEqual([1, 2, 3]);
+    expect(adapter.preparedSeen[0]).toEqual([2, 4, 6]);
+  });
+
+  it("sizes records by prepare()'s bytes, unless the sink's own estimateBytes is given", async () => {
+    const own = new Sink(new PreparingAdapter(), { maxAgeMs: 1000, clock: new ManualClock() });
+    await own.write(5);
+    expect(own.counters().bufferedBytes).toBe(15);
+    const user = new Sink(new PreparingAdapter(), {
+      maxAgeMs: 1000,
+      clock: new ManualClock(),
+      estimateBytes: () => 100,
+    });
+    await user.write(5);
+    expect(user.counters().bufferedBytes).toBe(100);
+  });
+
+  it('accepts a record prepare() throws on, with undefined in its place for write() to handle', async () => {
+    const adapter = new PreparingAdapter();
+    const sink = new Sink(adapter, { maxRecords: 2, maxAgeMs: 1000, idleMs: 0, clock: new ManualClock() });
+    await sink.write(-1);
+    await sink.write(4);
+    await sink.flush();
+    expect(adapter.calls[0]!.records).toEqual([-1, 4]);
+    expect(adapter.preparedSeen[0]).toEqual([undefined, 8]);
+  });
+
+  it('leaves batch.prepared out for an adapter without prepare()', async () => {
+    const adapter = new FakeAdapter<number>();
+    let seen: unknown = 'unset';
+    adapter.behave = (batch) => {
+      seen = batch.prepared;
+    };
+    const sink = new Sink(adapter, { maxRecords: 1, clock: new ManualClock() });
+    await sink.write(1);
+    await sink.flush();
+    expect(seen).toBeUndefined();
+  });
+});
+
+describe('when a batch completes with writers waiting', () => {
+  it('starts the next batch before it lets the writers refill the buffer', async () => {
+    const { adapter, sink, gates } = gatedSink({ maxAgeMs: 1000 });
+    const order: string[] = [];
+    const gate = adapter.behave;
+    adapter.behave = (batch, call) => {
+      order.push(`write ${batch.records.join(',')}`);
+      return gate(batch, call);
+    };
+    for (let i = 0; i < 4; i++) await sink.write(i); // [0,1] in flight, [2,3] buffered
+    const fifth = sink.write(4).then(() => order.push('writer admitted'));
+    await settle();
+    expect(order).toEqual(['write 0,1']);
+    gates[0]!.resolve();
+    await fifth;
+    expect(order).toEqual(['write 0,1', 'write 2,3', 'writer admitted']);
+    adapter.behave = () => {}; // later batches land at once
+    gates[1]!.resolve();
+    await sink.flush();
+    expect(adapter.stored).toEqual([0, 1, 2, 3, 4]);
+  });
+});
