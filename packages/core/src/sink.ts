@@ -1,5 +1,5 @@
 import { EventEmitter } from 'node:events';
-import { sleep } from './clock.js';
+import { sleep, systemClock } from './clock.js';
 import {
   AbortedError,
   messageOf,
@@ -87,6 +87,8 @@ export interface CloseOptions {
 }
 
 const RESOLVED = Promise.resolve();
+/** With the system clock, one clock reading stamps at most this many accepts (see acceptNow()). */
+const ACCEPTS_PER_READING = 32;
 /** Resolution of the accept → durable distribution: 10 µs. */
 const LATENCY_STEPS_PER_MS = 100;
 
@@ -113,6 +115,14 @@ export class Sink<T> {
   private readonly prepareHook: ((record: T) => Prepared) | undefined;
   /** What the last sizeOf() call prepared (read right after it, by the same caller). */
   private prepared: unknown;
+  /** acceptNow()'s reading and how many more accepts it may stamp. */
+  private reading = 0;
+  private readingUses = 0;
+  private readingExpiry = false;
+  private readonly expireReading = () => {
+    this.readingUses = 0;
+    this.readingExpiry = false;
+  };
 
   private stateValue: SinkState = 'open';
   private fatal: unknown;
@@ -314,7 +324,7 @@ export class Sink<T> {
     barrier: Barrier | undefined,
     at?: number,
   ): void {
-    const now = at ?? this.o.clock.now();
+    const now = at ?? this.acceptNow();
     const entry: Entry<T> = {
       record,
       meta,
@@ -337,6 +347,27 @@ export class Sink<T> {
     this.lastWriteAt = now;
     if (this.bufferedCount >= this.o.maxRecords || this.bufferedBytes >= this.o.maxBytes) this.pump();
     else if (this.timer === undefined) this.arm();
+  }
+
+  /**
+   * The accept time. With the system clock a reading (≈ 60 ns here, a sixth of an accept) serves
+   * up to ACCEPTS_PER_READING accepts within one turn of the event loop: a stamp can only be
+   * early, by the time those few accepts took, so records leave by age no later than they should
+   * and accept → durable latency reads at most that much longer. Any other clock is read every time.
+   */
+  private acceptNow(): number {
+    if (this.o.clock !== systemClock) return this.o.clock.now();
+    if (this.readingUses > 0) {
+      this.readingUses--;
+      return this.reading;
+    }
+    this.reading = performance.now();
+    this.readingUses = ACCEPTS_PER_READING - 1;
+    if (!this.readingExpiry) {
+      this.readingExpiry = true;
+      setImmediate(this.expireReading);
+    }
+    return this.reading;
   }
 
   private wait(
