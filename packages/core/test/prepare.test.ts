@@ -86,3 +86,28 @@ describe('when a batch completes with writers waiting', () => {
     expect(adapter.stored).toEqual([0, 1, 2, 3, 4]);
   });
 });
+
+describe('accept stamps with the system clock', () => {
+  it('share a reading only within one turn of the event loop: a later turn reads the clock again', async () => {
+    const adapter = new FakeAdapter<number>();
+    const sink = new Sink(adapter, { maxRecords: 100, maxAgeMs: 60_000, idleMs: 0 });
+    const latencies: number[] = [];
+    sink.on('settled', (e) => latencies.push(...e.latenciesMs));
+    sink.tryWrite(1);
+    sink.tryWrite(2); // same turn: may carry the first record's stamp
+    await new Promise((resolve) => setTimeout(resolve, 25));
+    sink.tryWrite(3); // a later turn: a fresh stamp, at least 25 ms later
+    const before = performance.now();
+    await sink.flush();
+    const flushedWithin = performance.now() - before;
+    expect(latencies).toHaveLength(3);
+    // Stamps are never late: each latency is at least the time since that record's write (less 1 ms
+    // for timers that fire early).
+    expect(latencies[0]!).toBeGreaterThanOrEqual(24);
+    expect(latencies[1]!).toBeGreaterThanOrEqual(24);
+    // The third record's stamp is fresh: 25 ms younger than the first two, up to the flush time.
+    expect(latencies[0]! - latencies[2]!).toBeGreaterThanOrEqual(24);
+    expect(latencies[2]!).toBeLessThanOrEqual(flushedWithin + 5);
+    await sink.close();
+  });
+});

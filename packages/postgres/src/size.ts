@@ -17,7 +17,7 @@ const UNMAPPABLE_BYTES = 64;
 
 function wireBytes(v: WireValue): number {
   if (v === null) return 0;
-  return typeof v === 'string' ? Buffer.byteLength(v, 'utf8') : v.length;
+  return typeof v === 'string' ? utf8Bytes(v) : v.length;
 }
 
 /** Bytes a row adds to a multi-row INSERT: the Bind values and the SQL text of its tuple. */
@@ -34,7 +34,7 @@ export function copyRowBytes(row: readonly WireValue[], format: 'csv' | 'text'):
     // one separator per field (the last one is the newline)
     n += 1;
     if (v === null) n += format === 'text' ? 2 : 0;
-    else if (typeof v === 'string') n += Buffer.byteLength(v, 'utf8') + (format === 'csv' ? 2 : 0);
+    else if (typeof v === 'string') n += utf8Bytes(v) + (format === 'csv' ? 2 : 0);
     else n += 2 * v.length + (format === 'csv' ? 4 : 3);
   }
   return n;
