@@ -9,10 +9,19 @@
 // repeat. Target: bridge ≥ 0.8 × min(source, store).
 // Run: npx tsc --build && node benchmarks/dist/adapters/kafka-bridge.js
 //      [--messages 200000] [--repeats 3] [--partitions 6] [--batch 5000] [--fetch-bytes 0]
+//      [--phases source,store,bridge] [--profile DIR]
 //      SPILLWAY_KAFKA_BROKERS (default: a private broker started through the test harness),
 //      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test).
 // Nothing here asserts a time: it prints samples, medians, spreads and ratios.
+// CPU budget: each phase also reports the CPU time per message of this Node process, of this run's
+// PostgreSQL backends, of the PostgreSQL server's background processes and of the Kafka broker
+// (read from /proc when the servers run on this machine), since all of them share the machine's
+// cores: the budget shows what the cores allow, whatever the bridge does.
+// --profile DIR writes a CPU profile (.cpuprofile) of each bridge phase into DIR.
 import { randomBytes } from 'node:crypto';
+import { mkdirSync, readdirSync, readFileSync, readlinkSync, writeFileSync } from 'node:fs';
+import { Session } from 'node:inspector';
+import { join } from 'node:path';
 import { parseArgs } from 'node:util';
 import { Sink, type SinkOptions } from '@spillway/core';
 import { DecodeError, KafkaBridge } from '@spillway/kafka';
@@ -21,7 +30,7 @@ import { Kafka, type KafkaMessage, logLevel } from 'kafkajs';
 import pg from 'pg';
 import { kafkaBrokers } from '../kafka-broker.js';
 import { machineInfo } from '../machine.js';
-import { summary } from '../numbers.js';
+import { fmt, summary } from '../numbers.js';
 
 interface DockStatus {
   seq: number;
@@ -38,8 +47,17 @@ const { values: flags } = parseArgs({
     batch: { type: 'string', default: '5000' },
     // kafkajs' maxBytesPerPartition for both consumers; 0 keeps kafkajs' default (1 MiB).
     'fetch-bytes': { type: 'string', default: '0' },
+    // A subset of the phases (e.g. `bridge` to profile it); the ratio needs all three.
+    phases: { type: 'string', default: 'source,store,bridge' },
+    profile: { type: 'string' },
   },
 });
+const PHASES = flags.phases.split(',').map((p) => p.trim()) as Phase[];
+type Phase = 'source' | 'store' | 'bridge';
+for (const p of PHASES)
+  if (p !== 'source' && p !== 'store' && p !== 'bridge')
+    throw new TypeError(`Expected \`--phases\` to list source, store, bridge, got \`${flags.phases}\``);
+const PROFILE_DIR = flags.profile;
 const MESSAGES = Number(flags.messages);
 const REPEATS = Number(flags.repeats);
 const PARTITIONS = Number(flags.partitions);
@@ -61,7 +79,16 @@ const consumerConfig = {
   maxWaitTimeInMs: 100,
   ...(FETCH_BYTES > 0 ? { maxBytesPerPartition: FETCH_BYTES } : {}),
 };
-const pool = new pg.Pool({ connectionString: PG_URL, max: 4, options: `-c search_path=${SCHEMA}` });
+// The application name finds this run's backends in pg_stat_activity (for the CPU budget); idle
+// connections are kept, so that a backend's CPU time is not lost with it between phases.
+const APP_NAME = `spillway-bench-${tag}`;
+const pool = new pg.Pool({
+  connectionString: PG_URL,
+  max: 4,
+  options: `-c search_path=${SCHEMA}`,
+  application_name: APP_NAME,
+  idleTimeoutMillis: 0,
+});
 pool.on('error', () => undefined);
 
 const event = (seq: number): DockStatus => ({
@@ -103,8 +130,211 @@ async function waitUntil(check: () => boolean): Promise<void> {
   while (!check()) await new Promise((r) => setTimeout(r, 2));
 }
 
+// ---------------------------------------------------------------- CPU budget
+
+/** Linux reports utime / stime in clock ticks; USER_HZ is 100 on every mainstream build. */
+const CLOCK_TICKS = 100;
+
+/** User + system CPU seconds of a whole process (all its threads, dead ones included), or NaN. */
+function processCpuSeconds(pid: number): number {
+  try {
+    const stat = readFileSync(`/proc/${pid}/stat`, 'utf8');
+    // Fields after "(comm) ": state ppid … utime (14th field overall) stime (15th).
+    const f = stat.slice(stat.lastIndexOf(')') + 2).split(' ');
+    return (Number(f[11]) + Number(f[12])) / CLOCK_TICKS;
+  } catch {
+    return Number.NaN;
+  }
+}
+
+function parentOf(pid: number): number | undefined {
+  try {
+    const stat = readFileSync(`/proc/${pid}/stat`, 'utf8');
+    return Number(stat.slice(stat.lastIndexOf(')') + 2).split(' ')[1]);
+  } catch {
+    return undefined;
+  }
+}
+
+function allPids(): number[] {
+  return readdirSync('/proc')
+    .filter((d) => /^\d+$/.test(d))
+    .map(Number);
+}
+
+/** The pid of the process listening on 127.0.0.1:`port` (or any address), when it runs here. */
+function pidListeningOn(port: number): number | undefined {
+  const inodes = new Set<string>();
+  for (const table of ['/proc/net/tcp', '/proc/net/tcp6']) {
+    let text = '';
+    try {
+      text = readFileSync(table, 'utf8');
+    } catch {
+      continue;
+    }
+    for (const line of text.split('\n').slice(1)) {
+      const cols = line.trim().split(/\s+/);
+      const local = cols[1];
+      // st 0A = LISTEN; the local address is HEXADDR:HEXPORT.
+      if (!local || cols[3] !== '0A') continue;
+      if (Number.parseInt(local.slice(local.lastIndexOf(':') + 1), 16) === port) inodes.add(cols[9]!);
+    }
+  }
+  if (inodes.size === 0) return undefined;
+  for (const pid of allPids()) {
+    let fds: string[];
+    try {
+      fds = readdirSync(`/proc/${pid}/fd`);
+    } catch {
+      continue;
+    }
+    for (const fd of fds) {
+      try {
+        const m = /^socket:\[(\d+)\]$/.exec(readlinkSync(`/proc/${pid}/fd/${fd}`));
+        if (m && inodes.has(m[1]!)) return pid;
+      } catch {
+        // the fd closed meanwhile
+      }
+    }
+  }
+  return undefined;
+}
+
+/** CPU µs per message of each process group that shares the machine's cores during a phase. */
+interface CpuBudget {
+  /** This Node process (the kafkajs consumer, the bridge, the sink and the pg client). */
+  node: number;
+  /** This run's PostgreSQL backends (found by application name). */
+  postgres: number;
+  /** The PostgreSQL server's own processes (WAL writer, checkpointer, background writer, …). */
+  postgresServer: number;
+  /** The Kafka broker's JVM. */
+  broker: number;
+  /** Wall-clock µs per message: total CPU / wall is how many cores were busy. */
+  wall: number;
+}
+
+/**
+ * Reads the CPU time of the processes in the budget at the start and the end of a phase. Both
+ * readings are synchronous (a few /proc files), so they can be taken inside a handler at the exact
+ * first and last message; which backends are this run's is asked afterwards.
+ */
+class CpuMeter {
+  private readonly postmaster: number | undefined;
+  private readonly broker: number | undefined;
+  private t0 = 0;
+  private node0: NodeJS.CpuUsage = process.cpuUsage();
+  private pg0 = new Map<number, number>();
+  private broker0 = Number.NaN;
+  private t1 = 0;
+  private nodeUs = 0;
+  private pg1 = new Map<number, number>();
+  private broker1 = Number.NaN;
+
+  constructor(pgPort: number, brokerPort: number | undefined) {
+    this.postmaster = pidListeningOn(pgPort);
+    this.broker = brokerPort === undefined ? undefined : pidListeningOn(brokerPort);
+  }
+
+  get found(): { postgres: boolean; broker: boolean } {
+    return { postgres: this.postmaster !== undefined, broker: this.broker !== undefined };
+  }
+
+  private postgresCpu(): Map<number, number> {
+    const out = new Map<number, number>();
+    if (this.postmaster === undefined) return out;
+    for (const pid of allPids()) {
+      if (pid === this.postmaster || parentOf(pid) === this.postmaster) out.set(pid, processCpuSeconds(pid));
+    }
+    return out;
+  }
+
+  // The /proc scan itself is left out of this process's CPU and of the wall time.
+  start(): void {
+    this.pg0 = this.postgresCpu();
+    this.broker0 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
+    this.node0 = process.cpuUsage();
+    this.t0 = performance.now();
+  }
+
+  stop(): void {
+    this.t1 = performance.now();
+    const u = process.cpuUsage(this.node0);
+    this.nodeUs = u.user + u.system;
+    this.broker1 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
+    this.pg1 = this.postgresCpu();
+  }
+
+  /** The budget per message; `ours` are this run's backend pids. */
+  budget(messages: number, ours: ReadonlySet<number>): CpuBudget {
+    let mine = 0;
+    let server = 0;
+    for (const [pid, end] of this.pg1) {
+      const used = end - (this.pg0.get(pid) ?? 0);
+      if (!Number.isFinite(used)) continue;
+      if (ours.has(pid)) mine += used;
+      else if (pid === this.postmaster || isServerProcess(pid)) server += used;
+    }
+    const per = (seconds: number) => (seconds * 1e6) / messages;
+    return {
+      node: this.nodeUs / messages,
+      postgres: this.postmaster === undefined ? Number.NaN : per(mine),
+      postgresServer: this.postmaster === undefined ? Number.NaN : per(server),
+      broker: per(this.broker1 - this.broker0),
+      wall: ((this.t1 - this.t0) * 1000) / messages,
+    };
+  }
+}
+
+/** A PostgreSQL auxiliary process, not a client backend (whose title names its client address). */
+function isServerProcess(pid: number): boolean {
+  try {
+    const title = readFileSync(`/proc/${pid}/cmdline`, 'utf8');
+    return !/\(\d+\)|\[local\]/.test(title);
+  } catch {
+    return false;
+  }
+}
+
+async function ourBackends(client: pg.Client): Promise<Set<number>> {
+  const r = await client.query<{ pid: number }>(
+    'SELECT pid FROM pg_stat_activity WHERE application_name = $1',
+    [APP_NAME],
+  );
+  return new Set(r.rows.map((row) => row.pid));
+}
+
+// ---------------------------------------------------------------- CPU profile
+
+/** Profiles this process between start() and stop(); writes `<dir>/<name>.cpuprofile`. */
+class Profiler {
+  private readonly session = new Session();
+
+  private post(method: string, params?: object): Promise<unknown> {
+    return new Promise((resolve, reject) =>
+      this.session.post(method, params ?? {}, (error, result) => (error ? reject(error) : resolve(result))),
+    );
+  }
+
+  async start(): Promise<void> {
+    this.session.connect();
+    await this.post('Profiler.enable');
+    await this.post('Profiler.setSamplingInterval', { interval: 200 });
+    await this.post('Profiler.start');
+  }
+
+  async stop(dir: string, name: string): Promise<string> {
+    const { profile } = (await this.post('Profiler.stop')) as { profile: unknown };
+    this.session.disconnect();
+    mkdirSync(dir, { recursive: true });
+    const file = join(dir, `${name}.cpuprofile`);
+    writeFileSync(file, JSON.stringify(profile));
+    return file;
+  }
+}
+
 /** kafkajs alone: the source limit. */
-async function runSource(): Promise<Run> {
+async function runSource(meter: CpuMeter): Promise<Run> {
   const consumer = kafka.consumer({
     groupId: `bench-source-${tag}-${randomBytes(3).toString('hex')}`,
     ...consumerConfig,
@@ -114,56 +344,45 @@ async function runSource(): Promise<Run> {
   let t1 = 0;
   await consumer.connect();
   await consumer.subscribe({ topics: [TOPIC], fromBeginning: true });
-  let cpu0 = process.cpuUsage();
   await consumer.run({
     eachBatch: async ({ batch }) => {
       if (t0 === 0) {
+        meter.start();
         t0 = performance.now();
-        cpu0 = process.cpuUsage();
       }
       seen += batch.messages.length;
       if (seen >= MESSAGES && t1 === 0) {
         t1 = performance.now();
-        cpu = cpuMs(cpu0);
+        meter.stop();
       }
     },
   });
-  let cpu = 0;
   await waitUntil(() => t1 > 0);
   await consumer.disconnect();
-  return { rate: MESSAGES / ((t1 - t0) / 1000), cpuUsPerMessage: (cpu * 1000) / MESSAGES };
-}
-
-/** Process CPU time (user + system) since `since`, ms. */
-function cpuMs(since: NodeJS.CpuUsage): number {
-  const u = process.cpuUsage(since);
-  return (u.user + u.system) / 1000;
+  return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
 interface Run {
   rate: number;
-  /** Process CPU per message, µs: where the time goes on a shared machine. */
-  cpuUsPerMessage: number;
   pauses?: number;
 }
 
 /** The sink alone, from memory: the store limit. */
-async function runStore(rows: DockStatus[]): Promise<Run> {
+async function runStore(rows: DockStatus[], meter: CpuMeter): Promise<Run> {
   const s = sink();
+  meter.start();
   const t0 = performance.now();
-  const cpu0 = process.cpuUsage();
   for (const r of rows) if (!s.tryWrite(r)) await s.write(r);
   await s.flush();
   const t1 = performance.now();
-  const cpu = cpuMs(cpu0);
+  meter.stop();
   await s.close();
-  return { rate: MESSAGES / ((t1 - t0) / 1000), cpuUsPerMessage: (cpu * 1000) / MESSAGES };
+  return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
-async function runBridge(): Promise<Run> {
+async function runBridge(meter: CpuMeter, rep: number): Promise<Run> {
   const s = sink();
   let t0 = 0;
-  let cpu0 = process.cpuUsage();
   const bridge = new KafkaBridge<DockStatus>({
     kafka,
     groupId: `bench-bridge-${tag}-${randomBytes(3).toString('hex')}`,
@@ -172,8 +391,8 @@ async function runBridge(): Promise<Run> {
     fromBeginning: true,
     decode: (m) => {
       if (t0 === 0) {
+        meter.start();
         t0 = performance.now();
-        cpu0 = process.cpuUsage();
       }
       return decode(m);
     },
@@ -182,15 +401,26 @@ async function runBridge(): Promise<Run> {
   });
   // Counted from events: snapshot() summarises histograms and is too costly to poll.
   let written = 0;
-  s.on('written', (e) => (written += e.records));
+  let t1 = 0;
+  s.on('written', (e) => {
+    written += e.records;
+    if (written >= MESSAGES && t1 === 0) {
+      t1 = performance.now();
+      meter.stop();
+    }
+  });
+  const profiler = PROFILE_DIR === undefined ? undefined : new Profiler();
+  await profiler?.start();
   await bridge.start();
-  await waitUntil(() => written >= MESSAGES);
-  const t1 = performance.now();
-  const cpu = cpuMs(cpu0);
+  await waitUntil(() => t1 > 0);
+  if (profiler && PROFILE_DIR !== undefined) {
+    const file = await profiler.stop(PROFILE_DIR, `bridge-${tag}-${rep + 1}`);
+    console.log(`CPU profile of bridge phase ${rep + 1}: ${file}`);
+  }
   const pauses = bridge.snapshot().pauses;
   await bridge.stop({ timeoutMs: 20_000 });
   await s.close();
-  return { rate: MESSAGES / ((t1 - t0) / 1000), cpuUsPerMessage: (cpu * 1000) / MESSAGES, pauses };
+  return { rate: MESSAGES / ((t1 - t0) / 1000), pauses };
 }
 
 async function main(): Promise<void> {
@@ -235,61 +465,103 @@ async function main(): Promise<void> {
       }),
     );
 
-    const samples = {
-      source: [] as number[],
-      store: [] as number[],
-      bridge: [] as number[],
-      ratio: [] as number[],
-    };
-    const cpu = { source: [] as number[], store: [] as number[], bridge: [] as number[] };
-    const order = ['source', 'store', 'bridge'] as const;
+    const pgPort = Number(new URL(PG_URL).port || 5432);
+    const brokerPort = BROKERS.length === 1 ? Number(BROKERS[0]!.split(':').pop()) : undefined;
+    const meter = new CpuMeter(pgPort, brokerPort);
+    const found = meter.found;
+    if (!found.postgres || !found.broker)
+      console.log(
+        `CPU budget: ${found.postgres ? '' : 'PostgreSQL '}${found.broker ? '' : 'Kafka broker '}not found on this machine (reported as NaN)`,
+      );
+    const samples: Record<Phase | 'ratio', number[]> = { source: [], store: [], bridge: [], ratio: [] };
+    const budgets: Record<Phase, CpuBudget[]> = { source: [], store: [], bridge: [] };
     for (let rep = 0; rep < REPEATS; rep++) {
-      const round: Partial<Record<'source' | 'store' | 'bridge', Run>> = {};
-      for (let k = 0; k < order.length; k++) {
-        const which = order[(k + rep) % order.length]!;
+      const round: Partial<Record<Phase, Run>> = {};
+      const parts: string[] = [];
+      for (let k = 0; k < PHASES.length; k++) {
+        const which = PHASES[(k + rep) % PHASES.length]!;
         await setup.query(`TRUNCATE ${SCHEMA}.${TABLE}`);
-        if (which === 'source') round.source = await runSource();
-        else if (which === 'store') round.store = await runStore(rows);
+        let run: Run;
+        if (which === 'source') run = await runSource(meter);
+        else if (which === 'store') run = await runStore(rows, meter);
         else {
-          round.bridge = await runBridge();
+          run = await runBridge(meter, rep);
           const n = Number(
             (await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n,
           );
           if (n !== MESSAGES) throw new Error(`bridge run wrote ${n} rows, expected ${MESSAGES}`);
         }
+        round[which] = run;
+        samples[which].push(run.rate);
+        const b = meter.budget(MESSAGES, await ourBackends(setup));
+        budgets[which].push(b);
+        parts.push(
+          `${which} ${Math.round(run.rate)}/s${run.pauses === undefined ? '' : ` (${run.pauses} partition pauses)`} ` +
+            `[CPU µs/msg node ${b.node.toFixed(2)}, pg ${b.postgres.toFixed(2)}, pg-server ${b.postgresServer.toFixed(2)}, broker ${b.broker.toFixed(2)}; wall ${b.wall.toFixed(2)}]`,
+        );
       }
-      const { source, store, bridge } = round as Record<'source' | 'store' | 'bridge', Run>;
-      const ratio = bridge.rate / Math.min(source.rate, store.rate);
-      samples.source.push(source.rate);
-      samples.store.push(store.rate);
-      samples.bridge.push(bridge.rate);
-      samples.ratio.push(ratio);
-      cpu.source.push(source.cpuUsPerMessage);
-      cpu.store.push(store.cpuUsPerMessage);
-      cpu.bridge.push(bridge.cpuUsPerMessage);
-      console.log(
-        `repeat ${rep + 1}: source ${Math.round(source.rate)} msg/s, store ${Math.round(store.rate)} rows/s, bridge ${Math.round(bridge.rate)} msg/s ` +
-          `(${bridge.pauses} partition pauses), bridge / min = ${ratio.toFixed(2)}; CPU µs/message: source ${source.cpuUsPerMessage.toFixed(1)}, ` +
-          `store ${store.cpuUsPerMessage.toFixed(1)}, bridge ${bridge.cpuUsPerMessage.toFixed(1)}`,
-      );
+      const { source, store, bridge } = round;
+      let ratio = '';
+      if (source && store && bridge) {
+        const r = bridge.rate / Math.min(source.rate, store.rate);
+        samples.ratio.push(r);
+        ratio = `; bridge / min = ${r.toFixed(2)}`;
+      }
+      console.log(`repeat ${rep + 1}: ${parts.join(', ')}${ratio}`);
     }
-    const fmt = (x: number) => Math.round(x).toLocaleString('en-US');
     console.log(`\nmessages/s, median of ${REPEATS} (range; spread = (max-min)/median)`);
-    for (const k of ['source', 'store', 'bridge'] as const) {
+    for (const k of PHASES) {
       const s = summary(samples[k]);
       console.log(
         `${k.padEnd(7)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
       );
     }
-    const r = summary(samples.ratio);
-    const c = (k: 'source' | 'store' | 'bridge') => summary(cpu[k]).median.toFixed(1);
     console.log(
-      `process CPU per message, median µs: source ${c('source')}, store ${c('store')}, bridge ${c('bridge')} (one Node thread does the source's and the store's work in the bridge)`,
+      '\nCPU budget, µs per message, median (range) — node = this process; pg = its PostgreSQL backends;\n' +
+        'pg-server = PostgreSQL auxiliary processes (machine-wide); broker = the Kafka JVM; busy = CPU / wall, in cores',
     );
+    const cores = machineInfo().cores;
+    const med = (xs: number[]) => summary(xs).median;
+    const cell = (xs: number[]) => {
+      const s = summary(xs);
+      return `${s.median.toFixed(2)} (${s.min.toFixed(2)}–${s.max.toFixed(2)})`.padEnd(20);
+    };
     console.log(
-      `bridge / min(source, store): median ${r.median.toFixed(2)} (range ${r.min.toFixed(2)}–${r.max.toFixed(2)}); target ≥ 0.80`,
+      `${'phase'.padEnd(7)} ${['node', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
     );
-    console.log(JSON.stringify({ samples, cpuUsPerMessage: cpu }));
+    for (const k of PHASES) {
+      const bs = budgets[k];
+      const total = bs.map((b) => b.node + b.postgres + b.postgresServer + b.broker);
+      console.log(
+        `${k.padEnd(7)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
+          `${cell(bs.map((b) => b.broker))}${cell(total)}${cell(bs.map((b) => b.wall))}${med(bs.map((b, i) => total[i]! / b.wall)).toFixed(2)}`,
+      );
+    }
+    if (budgets.bridge.length > 0) {
+      const node = med(budgets.bridge.map((b) => b.node));
+      const total = med(budgets.bridge.map((b) => b.node + b.postgres + b.postgresServer + b.broker));
+      console.log(
+        `bridge ceilings from its own CPU: one Node thread ${fmt(1e6 / node)} msg/s; ${cores} cores shared by all ${fmt((cores * 1e6) / total)} msg/s`,
+      );
+    }
+    if (samples.ratio.length > 0) {
+      const r = summary(samples.ratio);
+      const s = budgets.source;
+      const t = budgets.store;
+      // What the bridge must do at least: the source's and the store's work, in one Node thread.
+      const floorNode = med(s.map((b) => b.node)) + med(t.map((b) => b.node));
+      const floorAll =
+        floorNode + med(s.map((b) => b.broker)) + med(t.map((b) => b.postgres + b.postgresServer));
+      const target = 0.8 * Math.min(med(samples.source), med(samples.store));
+      console.log(
+        `source + store work alone (no decode, no bridge): node ${floorNode.toFixed(2)} µs/msg → at most ${fmt(1e6 / floorNode)} msg/s on one thread; ` +
+          `all processes ${floorAll.toFixed(2)} µs/msg → at most ${fmt((cores * 1e6) / floorAll)} msg/s on ${cores} cores; target 0.8 × min = ${fmt(target)} msg/s`,
+      );
+      console.log(
+        `bridge / min(source, store): median ${r.median.toFixed(2)} (range ${r.min.toFixed(2)}–${r.max.toFixed(2)}); target ≥ 0.80`,
+      );
+    }
+    console.log(JSON.stringify({ samples, cpuBudgetUsPerMessage: budgets }));
   } finally {
     await admin.deleteTopics({ topics: [TOPIC] }).catch(() => undefined);
     await admin.disconnect();
