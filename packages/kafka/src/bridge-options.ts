@@ -78,6 +78,17 @@ export interface KafkaBridgeOptions<R> {
    */
   rebalanceFlushMs?: number;
   /**
+   * When a sink has no room for a batch: how long the batch handler waits for room (heartbeats
+   * continue) before it pauses the partition and returns, ms. A sink that drains within this
+   * time costs no pause: kafkajs sleeps `maxWaitTimeInMs` when every partition it could fetch is
+   * paused, and drops fetched data of partitions paused meanwhile. While a handler waits, kafkajs
+   * hands out no other batch (with `partitionsConsumedConcurrently: 1`). `0` pauses at once.
+   * Keep it well under the consumer's `sessionTimeout`.
+   * @default 1000
+   * @example 0
+   */
+  pauseAfterMs?: number;
+  /**
    * The process's shutdown coordinator. The bridge registers its steps in the coordinator's
    * stages: stop fetching (`sources`), flush (`sinks`), commit (`progress`), disconnect (`clients`).
    * @example installShutdown({ timeoutMs: 25_000 })
@@ -106,6 +117,7 @@ export interface ResolvedBridgeOptions<R> {
   deadLetter: DeadLetterTarget<UndecodableMessage>;
   commitIntervalMs: number;
   rebalanceFlushMs: number;
+  pauseAfterMs: number;
   shutdown: ShutdownCoordinator | undefined;
   name: string;
   maxPendingDeadLetters: number;
@@ -123,6 +135,7 @@ const KNOWN = new Set([
   'deadLetter',
   'commitIntervalMs',
   'rebalanceFlushMs',
+  'pauseAfterMs',
   'shutdown',
   'name',
   'maxPendingDeadLetters',
@@ -138,6 +151,13 @@ function positive(name: string, value: unknown, fallback: number, integer = fals
   ) {
     throw invalidOption(name, `${integer ? 'an integer' : 'a finite number'} > 0`, value);
   }
+  return value;
+}
+
+function nonNegative(name: string, value: unknown, fallback: number): number {
+  if (value === undefined) return fallback;
+  if (typeof value !== 'number' || !Number.isFinite(value) || value < 0)
+    throw invalidOption(name, 'a finite number >= 0', value);
   return value;
 }
 
@@ -210,6 +230,7 @@ export function resolveBridgeOptions<R>(options: KafkaBridgeOptions<R>): Resolve
     deadLetter: options.deadLetter,
     commitIntervalMs: positive('commitIntervalMs', options.commitIntervalMs, 1000),
     rebalanceFlushMs: positive('rebalanceFlushMs', options.rebalanceFlushMs, 5000),
+    pauseAfterMs: nonNegative('pauseAfterMs', options.pauseAfterMs, 1000),
     shutdown,
     name,
     maxPendingDeadLetters: positive('maxPendingDeadLetters', options.maxPendingDeadLetters, 1000, true),

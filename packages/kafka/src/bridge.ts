@@ -6,7 +6,6 @@ import { EventEmitter } from 'node:events';
 import {
   messageOf,
   type PendingCounts,
-  ProgressTracker,
   type RecordMeta,
   ShutdownTimeoutError,
   Sink,
@@ -28,6 +27,7 @@ import {
   type KafkaSource,
   undecodable,
 } from './decode.js';
+import { type AnySink, type Hold, MessageMeta, PartitionState, type Run } from './partition.js';
 
 export type BridgeState = 'created' | 'running' | 'stopping' | 'stopped' | 'failed';
 
@@ -93,74 +93,6 @@ export interface BridgeEvents {
 }
 export type BridgeEventName = keyof BridgeEvents;
 
-// Sinks of any record type: the bridge only calls tryWrite/flush/revoke and listens to events.
-// biome-ignore lint/suspicious/noExplicitAny: a route may mix sinks of different record types
-type AnySink = Sink<any>;
-
-/**
- * The meta of a message the bridge took. Its private fields (never copied by spread, never in
- * JSON, so never in a dead-letter file) tie it to the partition ownership it was taken in.
- */
-class MessageMeta implements RecordMeta {
-  readonly topic: string;
-  readonly partition: number;
-  /** A bigint, so that the sinks' own progress tracking does not parse it again. */
-  readonly offset: bigint;
-  readonly eventTime?: number;
-  /** `topic:partition`, the sinks' default ordering key, computed once per partition. */
-  readonly key: string;
-  readonly #owner: PartitionState;
-  /** Kafka timestamp, or the time it was taken when the message has none. */
-  readonly #ts: number;
-
-  constructor(owner: PartitionState, offset: bigint, ts: number, now: number) {
-    this.topic = owner.topic;
-    this.partition = owner.partition;
-    this.offset = offset;
-    if (Number.isFinite(ts)) this.eventTime = ts;
-    this.key = owner.key;
-    this.#owner = owner;
-    this.#ts = Number.isFinite(ts) ? ts : now;
-  }
-
-  static ownerOf(meta: RecordMeta): PartitionState | undefined {
-    return #owner in meta ? (meta as MessageMeta).#owner : undefined;
-  }
-
-  get ts(): number {
-    return this.#ts;
-  }
-}
-
-interface Held {
-  readonly record: unknown;
-  readonly meta: RecordMeta;
-  /** Sinks that have not taken the record yet. */
-  sinks: AnySink[];
-}
-
-interface PartitionState {
-  readonly topic: string;
-  readonly partition: number;
-  readonly key: string;
-  /** Next offset to take; anything below was taken in this ownership (a redelivery). */
-  next: bigint | undefined;
-  /**
-   * Messages taken but not yet accepted by every sink, oldest first: from the refused message to
-   * the end of its batch. While there are any the partition is paused, so this never exceeds one
-   * fetched batch (kafkajs' `maxBytesPerPartition`) per partition.
-   */
-  held: Held[] | undefined;
-  heldHead: number;
-  paused: boolean;
-  lastMessageAt: number;
-  lastSeen: bigint | undefined;
-  highWatermark: bigint | undefined;
-  /** Taken messages, oldest first, pruned past the commit point (for lag in seconds). */
-  times: MessageMeta[];
-  timesHead: number;
-}
-
 export interface StopOptions {
   /** Deadline for stop fetching → flush → commit → disconnect, ms. @default 25000 */
   timeoutMs?: number;
@@ -177,11 +109,11 @@ export class KafkaBridge<R> {
   private readonly o: ResolvedBridgeOptions<R>;
   private readonly consumer: Consumer;
   private readonly events = new EventEmitter();
-  private readonly tracker = new ProgressTracker();
   private readonly fence = new CommitFence();
   private readonly parts = new Map<string, PartitionState>();
   private readonly sinks = new Set<AnySink>();
   private readonly decodeSink: Sink<DecodeFailure>;
+  private readonly decodeSinks: AnySink[];
   private readonly running = new Set<Promise<void>>();
   private readonly unsubscribe: Array<() => void> = [];
 
@@ -223,6 +155,7 @@ export class KafkaBridge<R> {
         idleMs: 20,
       },
     );
+    this.decodeSinks = [this.decodeSink];
     this.watch(this.decodeSink);
   }
 
@@ -311,6 +244,7 @@ export class KafkaBridge<R> {
     if (this.commitTimer) clearInterval(this.commitTimer);
     this.commitTimer = undefined;
     for (const st of this.parts.values()) this.pauseKafka(st);
+    for (const wake of [...this.roomWaiters]) wake();
     await Promise.allSettled([...this.running]);
   }
 
@@ -382,13 +316,14 @@ export class KafkaBridge<R> {
     isStale,
   }: EachBatchPayload): Promise<void> {
     const st = this.partitionFor(batch.topic, batch.partition);
-    if (st && !this.draining && this.stateValue === 'running') {
-      st.highWatermark = BigInt(batch.highWatermark);
-      // With held messages the partition is paused: a batch fetched before the pause is left
-      // unresolved, so kafkajs fetches it again after resume.
-      if (st.held === undefined) this.take(st, batch.messages, resolveOffset, isRunning, isStale);
-    }
     try {
+      if (st && this.taking(st, isRunning, isStale)) {
+        st.highWatermark = BigInt(batch.highWatermark);
+        // With held messages the partition is paused: a batch fetched before the pause is left
+        // unresolved, so kafkajs fetches it again after resume.
+        if (st.hold === undefined)
+          await this.take(st, batch.messages, resolveOffset, heartbeat, isRunning, isStale);
+      }
       await heartbeat();
     } catch (error) {
       // The group is rebalancing and waits for this member's join: flush and commit now, so the
@@ -398,62 +333,137 @@ export class KafkaBridge<R> {
     }
   }
 
-  private take(
+  /** Whether messages of `st` may be taken now. */
+  private taking(st: PartitionState, isRunning: () => boolean, isStale: () => boolean): boolean {
+    return st.live && !this.draining && this.stateValue === 'running' && isRunning() && !isStale();
+  }
+
+  /**
+   * Takes a batch in chunks of `TAKE_CHUNK` messages: decodes, routes and tracks a chunk, hands it
+   * to its sinks, and lets I/O run before the next one, so that the sinks' writes (completions,
+   * the next batch) go on while a large fetched batch is decoded. A chunk a sink has no room for
+   * is held while the handler waits for room; if it comes too late the partition pauses and the
+   * rest of the batch, not resolved, is fetched again after the resume.
+   */
+  private async take(
     st: PartitionState,
     messages: KafkaMessage[],
     resolveOffset: (offset: string) => void,
+    heartbeat: () => Promise<void>,
     isRunning: () => boolean,
     isStale: () => boolean,
-  ): void {
-    // The loop is synchronous: nothing can stop the consumer or make the batch stale inside it.
-    if (!isRunning() || isStale()) return;
+  ): Promise<void> {
+    for (let from = 0; from < messages.length; ) {
+      const to = Math.min(messages.length, from + TAKE_CHUNK);
+      const hold = this.takeChunk(st, messages, from, to);
+      // Taken (or skipped): kafkajs fetches after them from now on, whether or not every sink
+      // had room. Resolving is only a note of the next offset to fetch.
+      resolveOffset(messages[to - 1]!.offset);
+      from = to;
+      if (hold !== undefined && !this.push(hold)) {
+        st.hold = hold;
+        this.heldCount++;
+        await this.waitForRoom(st, heartbeat, isRunning, isStale);
+        if (st.hold !== undefined) return;
+      } else if (from < messages.length) await yieldToIo();
+      if (from < messages.length && !this.taking(st, isRunning, isStale)) return;
+    }
+  }
+
+  /** Decodes, routes and tracks `messages[from, to)`; undefined when all were redeliveries. */
+  private takeChunk(
+    st: PartitionState,
+    messages: KafkaMessage[],
+    from: number,
+    to: number,
+  ): Hold | undefined {
     const source: KafkaSource = { topic: st.topic, partition: st.partition };
     const now = Date.now();
-    let last: string | undefined;
-    for (const m of messages) {
-      if (this.stateValue !== 'running') break;
-      const offset = BigInt(m.offset);
-      // Taken (or skipped): kafkajs fetches after it from now on, whether or not every sink had room.
-      last = m.offset;
-      if (st.next !== undefined && offset < st.next) {
+    const since = st.next;
+    const records: unknown[] = [];
+    const metas: MessageMeta[] = [];
+    const runs: Run[] = [];
+    let runSinks: AnySink[] | undefined;
+    let runFrom = 0;
+    let offset = 0n;
+    for (let i = from; i < to; i++) {
+      const m = messages[i]!;
+      offset = toOffset(m.offset);
+      if (since !== undefined && offset < since) {
         // Redelivered after a rejoin: already taken (and buffered, in flight, or durable).
         this.counts.skipped++;
         continue;
       }
-      const meta = new MessageMeta(st, offset, Number(m.timestamp), now);
       this.decodeAndRoute(m, source);
-      const record = this.routedRecord;
       const sinks = this.routedSinks;
-      this.tracker.track(st.key, offset, sinks.length);
-      st.next = offset + 1n;
-      st.lastSeen = offset;
-      st.lastMessageAt = now;
-      st.times.push(meta);
-      if ((st.times.length & 1023) === 0) this.prune(st);
-      this.counts.messages++;
-      if (st.held) {
-        // Behind a refused message: keep the rest of this batch (already fetched and decoded by
-        // kafkajs) instead of fetching it again after the resume.
-        st.held.push({ record, meta, sinks });
-        continue;
+      const meta = new MessageMeta(st, offset, Number(m.timestamp), now, sinks.length);
+      if (runSinks === undefined || (sinks !== runSinks && !sameSinks(sinks, runSinks))) {
+        if (runSinks !== undefined) runs.push(newRun(runFrom, metas.length, runSinks));
+        runSinks = sinks;
+        runFrom = metas.length;
       }
-      const rest = this.offer(record, meta, sinks);
-      if (rest.length > 0) {
-        st.held = [{ record, meta, sinks: rest }];
-        st.heldHead = 0;
-        this.heldCount++;
-        this.pauseKafka(st);
-        this.counts.pauses++;
-        this.emit('pause', { topic: st.topic, partition: st.partition, sink: rest[0]!.name });
-      }
+      records.push(this.routedRecord);
+      metas.push(meta);
+      st.queue.push(meta);
     }
-    // Once per batch: resolving is only a note of the next offset to fetch.
-    if (last !== undefined) resolveOffset(last);
+    if (runSinks === undefined) return undefined;
+    runs.push(newRun(runFrom, metas.length, runSinks));
+    st.next = offset + 1n;
+    st.lastSeen = offset;
+    st.lastMessageAt = now;
+    this.counts.messages += metas.length;
+    // Messages routed nowhere are done at once.
+    st.advance();
+    return { records, metas, runs, run: 0 };
+  }
+
+  /**
+   * Waits inside the batch handler, at most `pauseAfterMs`, for the partition's held messages to
+   * be taken, calling `heartbeat()` between waits (a rebalance error from it propagates). Pauses
+   * the partition if they are still held then. Returns early when the bridge stops taking.
+   */
+  private async waitForRoom(
+    st: PartitionState,
+    heartbeat: () => Promise<void>,
+    isRunning: () => boolean,
+    isStale: () => boolean,
+  ): Promise<void> {
+    const until = Date.now() + this.o.pauseAfterMs;
+    while (st.hold !== undefined && st.live && !this.draining && this.stateValue === 'running') {
+      const left = until - Date.now();
+      if (left <= 0 || !isRunning() || isStale()) break;
+      await this.room(Math.min(left, ROOM_SLICE_MS));
+      await heartbeat();
+    }
+    if (st.hold === undefined || !st.live || st.paused) return;
+    this.pauseKafka(st);
+    this.counts.pauses++;
+    this.emit('pause', { topic: st.topic, partition: st.partition, sink: waitingSink(st.hold) });
+  }
+
+  // Handlers waiting for held messages to be taken; woken after every retry round.
+  private readonly roomWaiters = new Set<() => void>();
+
+  private room(ms: number): Promise<void> {
+    return new Promise((resolve) => {
+      const done = () => {
+        clearTimeout(timer);
+        this.roomWaiters.delete(done);
+        resolve();
+      };
+      const timer = setTimeout(done, ms);
+      this.roomWaiters.add(done);
+    });
   }
 
   // decodeAndRoute() leaves its result here rather than in a new object per message.
   private routedRecord: unknown;
   private routedSinks: AnySink[] = NO_SINKS;
+  // The last single sink the router returned, and the list made for it: a router that returns the
+  // same sink every time costs no array per message. (Arrays are not cached: a router may change
+  // the contents of an array it returns again.)
+  private lastRoute: unknown;
+  private lastSinks: AnySink[] = NO_SINKS;
 
   /** Decodes and routes one message into `routedRecord` / `routedSinks`. */
   private decodeAndRoute(m: KafkaMessage, source: KafkaSource): void {
@@ -475,7 +485,18 @@ export class KafkaBridge<R> {
           this.routedSinks = NO_SINKS;
           return;
         }
-        const list = (Array.isArray(route) ? route : [route]) as AnySink[];
+        if (route === this.lastRoute) {
+          this.routedSinks = this.lastSinks;
+          return;
+        }
+        if (!Array.isArray(route)) {
+          this.watch(route as AnySink);
+          this.lastRoute = route;
+          this.lastSinks = [route as AnySink];
+          this.routedSinks = this.lastSinks;
+          return;
+        }
+        const list = route as AnySink[];
         for (const sink of list) this.watch(sink);
         // The bridge never mutates a route list, so the router's own array can be used as is.
         this.routedSinks = hasDuplicates(list) ? [...new Set(list)] : list;
@@ -487,24 +508,52 @@ export class KafkaBridge<R> {
     this.counts.undecodable++;
     const letter: DecodeFailure = { message: undecodable(m, source), error: failure };
     this.routedRecord = letter;
-    this.routedSinks = [this.decodeSink];
+    this.routedSinks = this.decodeSinks;
   }
 
-  /** Writes to each sink in turn; returns the sinks that had no room (the first of them and after). */
-  private offer(record: unknown, meta: RecordMeta, sinks: AnySink[]): AnySink[] {
-    for (let i = 0; i < sinks.length; i++) {
-      const sink = sinks[i]!;
-      let taken: boolean;
-      try {
-        taken = sink.tryWrite(record, meta);
-      } catch (error) {
-        // A failed or closed sink: its partitions stop here and are never committed past.
-        this.fail(error);
-        return sinks.slice(i);
+  /**
+   * Offers held messages to their sinks, run after run; true once every sink took all of them.
+   * Sinks of one run take their messages independently (one full sink does not hold the others
+   * back), but a run starts only once the one before it is taken everywhere.
+   */
+  private push(hold: Hold): boolean {
+    const { records, metas, runs } = hold;
+    while (hold.run < runs.length) {
+      const run = runs[hold.run]!;
+      let taken = true;
+      for (let k = 0; k < run.sinks.length; k++) {
+        const from = run.cursors[k]!;
+        if (from >= run.to) continue;
+        const at = this.feed(run.sinks[k]!, records, metas, from, run.to);
+        run.cursors[k] = at;
+        if (at < run.to) taken = false;
+        // A sink failed while taking (its own call stack): stop here, nothing more is taken.
+        if (this.stateValue !== 'running') return false;
       }
-      if (!taken) return sinks.slice(i);
+      if (!taken) return false;
+      hold.run++;
     }
-    return [];
+    return true;
+  }
+
+  /** Hands `records[from, to)` to `sink` in bulk while it has room; returns the first not taken. */
+  private feed(sink: AnySink, records: unknown[], metas: MessageMeta[], from: number, to: number): number {
+    let at = from;
+    try {
+      // The usual case, a whole chunk for one sink, goes without a copy.
+      if (from === 0 && to === records.length) return sink.tryWriteMany(records, metas);
+      // Bounded chunks: a sink with little room copies little on each retry.
+      while (at < to) {
+        const end = Math.min(to, at + FEED_CHUNK);
+        const n = sink.tryWriteMany(records.slice(at, end), metas.slice(at, end));
+        at += n;
+        if (at < end) break;
+      }
+    } catch (error) {
+      // A failed or closed sink: its partitions stop here and are never committed past.
+      this.fail(error);
+    }
+    return at;
   }
 
   private watch(sink: AnySink): void {
@@ -525,12 +574,12 @@ export class KafkaBridge<R> {
   }
 
   private readonly onSettled = (e: SinkEvents['settled']): void => {
-    for (const meta of e.metas) {
+    const metas = e.metas;
+    for (let i = 0; i < metas.length; i++) {
+      const meta = metas[i];
       if (meta === undefined) continue;
-      const st = MessageMeta.ownerOf(meta);
-      // Not ours, or from a partition this member no longer owns (or owns anew).
-      if (st === undefined || this.parts.get(st.key) !== st) continue;
-      this.tracker.complete(st.key, (meta as MessageMeta).offset, 1);
+      // Not ours, or from a partition this member no longer owns (or owns anew): undefined.
+      MessageMeta.settle(meta)?.advance();
     }
     if (this.heldCount > 0) this.scheduleRetry();
   };
@@ -545,24 +594,20 @@ export class KafkaBridge<R> {
     this.retryScheduled = true;
     setImmediate(() => {
       this.retryScheduled = false;
-      if (this.draining || this.stateValue !== 'running') return;
-      for (const st of this.parts.values()) {
-        const held = st.held;
-        if (!held) continue;
-        while (st.heldHead < held.length) {
-          const h = held[st.heldHead]!;
-          h.sinks = this.offer(h.record, h.meta, h.sinks);
-          if (h.sinks.length > 0) break;
-          held[st.heldHead++] = undefined as never; // let the record go
-        }
-        if (st.heldHead === held.length) {
-          st.held = undefined;
-          st.heldHead = 0;
+      if (!this.draining && this.stateValue === 'running') {
+        for (const st of this.parts.values()) {
+          const hold = st.hold;
+          if (!hold || !this.push(hold)) continue;
+          st.hold = undefined;
           this.heldCount--;
-          this.resumeKafka(st);
-          this.emit('resume', { topic: st.topic, partition: st.partition });
+          // Not paused when its handler is still waiting for room (and wakes up below).
+          if (st.paused) {
+            this.resumeKafka(st);
+            this.emit('resume', { topic: st.topic, partition: st.partition });
+          }
         }
       }
+      for (const wake of [...this.roomWaiters]) wake();
     });
   }
 
@@ -587,30 +632,16 @@ export class KafkaBridge<R> {
   }
 
   private newPartition(topic: string, partition: number): PartitionState {
-    const key = partitionKey(topic, partition);
-    const st: PartitionState = {
-      topic,
-      partition,
-      key,
-      next: undefined,
-      held: undefined,
-      heldHead: 0,
-      paused: false,
-      lastMessageAt: Date.now(),
-      lastSeen: undefined,
-      highWatermark: undefined,
-      times: [],
-      timesHead: 0,
-    };
-    this.parts.set(key, st);
+    const st = new PartitionState(topic, partition, Date.now());
+    this.parts.set(st.key, st);
     return st;
   }
 
   private dropPartition(st: PartitionState): void {
-    if (st.held) this.heldCount--;
-    st.held = undefined;
+    if (st.hold) this.heldCount--;
+    st.hold = undefined;
+    st.live = false;
     this.parts.delete(st.key);
-    this.tracker.forget(st.key);
   }
 
   // ---------------------------------------------------------------- rebalances
@@ -643,7 +674,7 @@ export class KafkaBridge<R> {
       for (const p of t.partitions) paused.add(partitionKey(t.topic, p));
     for (const [key, tp] of keys) {
       const st = this.parts.get(key) ?? this.newPartition(tp.topic, tp.partition);
-      const want = this.draining || st.held !== undefined;
+      const want = this.draining || st.hold !== undefined;
       if (want) this.pauseKafka(st);
       else if (paused.has(key) || st.paused) {
         st.paused = false;
@@ -700,9 +731,8 @@ export class KafkaBridge<R> {
     if (this.stateValue === 'created' || this.stateValue === 'stopped') return;
     const points: Array<{ topic: string; partition: number; offset: bigint }> = [];
     for (const st of this.parts.values()) {
-      const offset = this.tracker.committable(st.key);
+      const offset = st.committable();
       if (offset !== undefined) points.push({ topic: st.topic, partition: st.partition, offset });
-      this.prune(st);
     }
     const plan = this.fence.plan(points);
     if (plan.offsets.length === 0) return;
@@ -738,28 +768,17 @@ export class KafkaBridge<R> {
     this.stateValue = 'failed';
     // Committing stays correct (a failed sink never settles its records); taking more does not.
     for (const st of this.parts.values()) this.pauseKafka(st);
+    for (const wake of [...this.roomWaiters]) wake();
     this.emit('error', { error, fatal: true });
-  }
-
-  /** Drops lag timestamps of offsets the commit point has passed. */
-  private prune(st: PartitionState): void {
-    const point = this.tracker.committable(st.key);
-    if (point === undefined) return;
-    while (st.timesHead < st.times.length && st.times[st.timesHead]!.offset < point) st.timesHead++;
-    if (st.timesHead > 1024 && st.timesHead * 2 > st.times.length) {
-      st.times = st.times.slice(st.timesHead);
-      st.timesHead = 0;
-    }
   }
 
   snapshot(): BridgeSnapshot {
     const now = Date.now();
     const partitions: PartitionSnapshot[] = [];
     for (const st of this.parts.values()) {
-      this.prune(st);
-      const durable = this.tracker.committable(st.key);
+      const durable = st.committable();
       const committed = this.fence.lastCommitted(st.key);
-      const oldest = st.timesHead < st.times.length ? st.times[st.timesHead] : undefined;
+      const oldest = st.oldest;
       const base = durable ?? oldest?.offset ?? (st.lastSeen === undefined ? undefined : st.lastSeen + 1n);
       const lag =
         st.highWatermark !== undefined && base !== undefined && st.highWatermark > base
@@ -776,8 +795,8 @@ export class KafkaBridge<R> {
         lagSeconds: oldest === undefined ? 0 : Math.max(0, (now - oldest.ts) / 1000),
         idleMs: now - st.lastMessageAt,
         paused: st.paused,
-        pendingMessages: this.tracker.pending(st.key),
-        heldMessages: st.held ? st.held.length - st.heldHead : 0,
+        pendingMessages: st.pending,
+        heldMessages: st.heldMessages,
       });
     }
     partitions.sort((a, b) => (a.topic === b.topic ? a.partition - b.partition : a.topic < b.topic ? -1 : 1));
@@ -816,6 +835,42 @@ export class KafkaBridge<R> {
 }
 
 const NO_SINKS: AnySink[] = [];
+/**
+ * Messages decoded and handed to the sinks between two turns of the event loop: small enough that
+ * a sink's completed write starts the next one soon, large enough that the turn costs nothing.
+ */
+const TAKE_CHUNK = 1000;
+/** A handler waiting for room wakes up at least this often to heartbeat, ms. */
+const ROOM_SLICE_MS = 100;
+/** Records per bulk hand-off to a sink once it has refused some (bounds the copy per retry). */
+const FEED_CHUNK = 1024;
+
+/** Kafka offsets are decimal strings of up to 19 digits; up to 15 a double is exact and faster. */
+function toOffset(offset: string): bigint {
+  return offset.length <= 15 ? BigInt(Number(offset)) : BigInt(offset);
+}
+
+function yieldToIo(): Promise<void> {
+  return new Promise((resolve) => setImmediate(resolve));
+}
+
+function newRun(from: number, to: number, sinks: AnySink[]): Run {
+  return { from, to, sinks, cursors: sinks.map(() => from) };
+}
+
+/** Same sinks in the same order (a router may build a new array for every record). */
+function sameSinks(a: readonly AnySink[], b: readonly AnySink[]): boolean {
+  if (a.length !== b.length) return false;
+  for (let i = 0; i < a.length; i++) if (a[i] !== b[i]) return false;
+  return true;
+}
+
+/** The name of the first sink that has not taken all messages of the current run. */
+function waitingSink(hold: Hold): string {
+  const run = hold.runs[hold.run]!;
+  for (let k = 0; k < run.sinks.length; k++) if (run.cursors[k]! < run.to) return run.sinks[k]!.name;
+  return run.sinks[0]?.name ?? '';
+}
 
 function hasDuplicates(list: readonly AnySink[]): boolean {
   for (let i = 1; i < list.length; i++) for (let j = 0; j < i; j++) if (list[i] === list[j]) return true;

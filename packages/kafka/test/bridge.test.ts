@@ -160,6 +160,7 @@ function setup(
     maxRecords?: number;
     maxPendingRecords?: number;
     route?: (r: { n: number }) => Sink<{ n: number }>[];
+    pauseAfterMs?: number;
   } = {},
 ) {
   const consumer = new FakeConsumer();
@@ -186,6 +187,7 @@ function setup(
     route: options.route ?? ((r) => (r.n < 0 ? [] : sinks)),
     deadLetter: { write: async (l) => void letters.push(...l) },
     commitIntervalMs: 60_000,
+    pauseAfterMs: options.pauseAfterMs ?? 0,
   });
   return { consumer, adapters, sinks, bridge, letters };
 }
@@ -299,6 +301,83 @@ describe('KafkaBridge', () => {
     expect(adapters[0]!.written).toEqual([0, 1, 2, 3, 4]);
     expect(adapters[1]!.written).toEqual([0, 1, 2, 3, 4]);
     expect(consumer.lastCommit(0)).toBe('5');
+  });
+
+  it('waits in the handler for room before pausing, so a sink that drains in time costs no pause', async () => {
+    const { consumer, adapters, sinks, bridge } = setup({
+      sinks: 2,
+      maxRecords: 2,
+      maxPendingRecords: 2,
+      pauseAfterMs: 60_000,
+    });
+    await bridge.start();
+    consumer.join([0]);
+    const beats: number[] = [];
+    // Both sinks are full after 0 and 1: the handler holds 2 and 3 and waits instead of pausing.
+    const delivered = consumer.deliver(0, 0, ['0', '1', '2', '3'], async () => {
+      beats.push(bridge.snapshot().partitions[0]!.heldMessages);
+    });
+    await tick();
+    expect(consumer.pausedSet.size).toBe(0);
+    expect(bridge.snapshot().partitions[0]).toMatchObject({ paused: false, heldMessages: 2 });
+    // Room frees up: the held messages go in and the handler returns without a pause.
+    adapters[0]!.releaseAll();
+    adapters[1]!.releaseAll();
+    await delivered;
+    expect(consumer.pausedSet.size).toBe(0);
+    expect(bridge.snapshot()).toMatchObject({ pauses: 0 });
+    expect(beats.at(-1)).toBe(0);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    expect(adapters[0]!.written).toEqual([0, 1, 2, 3]);
+    expect(adapters[1]!.written).toEqual([0, 1, 2, 3]);
+    expect(consumer.lastCommit(0)).toBe('4');
+  });
+
+  it('pauses a partition whose held messages find no room within pauseAfterMs, and resumes it later', async () => {
+    const { consumer, adapters, sinks, bridge } = setup({
+      maxRecords: 2,
+      maxPendingRecords: 2,
+      pauseAfterMs: 50,
+    });
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['0', '1', '2']);
+    // The handler gave up waiting (the sink never wrote) and paused the partition.
+    expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(true);
+    expect(bridge.snapshot()).toMatchObject({ pauses: 1 });
+    adapters[0]!.releaseAll();
+    await tick();
+    await tick();
+    expect(consumer.pausedSet.has(`${TOPIC}:0`)).toBe(false);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    expect(adapters[0]!.written).toEqual([0, 1, 2]);
+    expect(consumer.lastCommit(0)).toBe('3');
+  });
+
+  it('stops promptly while a handler waits for room', async () => {
+    const { consumer, adapters, bridge } = setup({
+      maxRecords: 2,
+      maxPendingRecords: 2,
+      pauseAfterMs: 60_000,
+    });
+    await bridge.start();
+    consumer.join([0]);
+    const delivered = consumer.deliver(0, 0, ['0', '1', '2']);
+    await tick();
+    const auto = setInterval(() => adapters[0]!.releaseAll(), 1);
+    try {
+      // stop() waits for the running handler, which leaves its wait when the bridge drains
+      // (not after pauseAfterMs: the test would time out).
+      await bridge.stop({ timeoutMs: 5000 });
+      await delivered;
+    } finally {
+      clearInterval(auto);
+    }
+    expect(consumer.calls.at(-1)).toBe('disconnect');
+    // 2 was held, never taken by the sink: not committed.
+    expect(consumer.lastCommit(0)).toBe('2');
   });
 
   it('skips offsets redelivered after a rejoin that kept the partition', async () => {
@@ -428,6 +507,10 @@ describe('KafkaBridge', () => {
     expect(() => new KafkaBridge({ ...base, commitIntervalMs: -5 })).toThrow(
       /Expected `commitIntervalMs` to be a finite number > 0, got `-5`/,
     );
+    expect(() => new KafkaBridge({ ...base, pauseAfterMs: -1 })).toThrow(
+      /Expected `pauseAfterMs` to be a finite number >= 0, got `-1`/,
+    );
+    expect(() => new KafkaBridge({ ...base, pauseAfterMs: 0 })).not.toThrow();
     expect(() => new KafkaBridge({ ...base, topics: [] })).toThrow(/`topics`/);
     expect(() => new KafkaBridge({ ...base, deadLetter: undefined as never })).toThrow(/`deadLetter`/);
     expect(() => new KafkaBridge({ ...base, consumer: undefined })).toThrow(/`kafka`/);

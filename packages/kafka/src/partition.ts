@@ -1,0 +1,158 @@
+/**
+ * What the bridge keeps per owned partition: the messages taken and not yet durable everywhere
+ * (oldest first: the commit point, the pending count and the lag in seconds all come from it),
+ * and the messages of a batch still waiting for room in a sink.
+ */
+import type { RecordMeta, Sink } from '@spillway/core';
+import { partitionKey } from './commits.js';
+
+// Sinks of any record type: the bridge only calls tryWriteMany/flush/revoke and listens to events.
+// biome-ignore lint/suspicious/noExplicitAny: a route may mix sinks of different record types
+export type AnySink = Sink<any>;
+
+/**
+ * The meta of a message the bridge took. Its private fields (never copied by spread, never in
+ * JSON, so never in a dead-letter file) tie it to the partition ownership it was taken in and
+ * count the sinks that have not yet made its record terminal: the meta is the message's progress
+ * slot, so no second structure per message is needed.
+ */
+export class MessageMeta implements RecordMeta {
+  readonly topic: string;
+  readonly partition: number;
+  /** A bigint, so that the sinks' own progress tracking does not parse it again. */
+  readonly offset: bigint;
+  /** Always present (possibly undefined), so that every meta has one shape. */
+  readonly eventTime: number | undefined;
+  /** `topic:partition`, the sinks' default ordering key, computed once per partition. */
+  readonly key: string;
+  readonly #owner: PartitionState;
+  /** Kafka timestamp, or the time it was taken when the message has none. */
+  readonly #ts: number;
+  /** Sinks the record was routed to that have not yet made it durable or dead-lettered it. */
+  #open: number;
+
+  constructor(owner: PartitionState, offset: bigint, ts: number, now: number, sinks: number) {
+    this.topic = owner.topic;
+    this.partition = owner.partition;
+    this.offset = offset;
+    const known = Number.isFinite(ts);
+    this.eventTime = known ? ts : undefined;
+    this.key = owner.key;
+    this.#owner = owner;
+    this.#ts = known ? ts : now;
+    this.#open = sinks;
+  }
+
+  static ownerOf(meta: RecordMeta): PartitionState | undefined {
+    return #owner in meta ? (meta as MessageMeta).#owner : undefined;
+  }
+
+  /**
+   * One sink made this message's record terminal. Returns the partition whose commit point may
+   * have moved (the message was the oldest pending one), if it is still owned.
+   */
+  static settle(meta: RecordMeta): PartitionState | undefined {
+    if (!(#owner in meta)) return undefined;
+    const m = meta as MessageMeta;
+    if (--m.#open > 0) return undefined;
+    const st = m.#owner;
+    return st.live && st.queue[st.head] === m ? st : undefined;
+  }
+
+  static done(meta: MessageMeta): boolean {
+    return meta.#open <= 0;
+  }
+
+  get ts(): number {
+    return this.#ts;
+  }
+}
+
+/** A stretch of a held batch whose messages all go to the same sinks. */
+export interface Run {
+  readonly from: number;
+  readonly to: number;
+  readonly sinks: AnySink[];
+  /** Per sink: the index of the first message that sink has not taken yet. */
+  readonly cursors: number[];
+}
+
+/**
+ * The messages of one batch from the first one some sink refused, decoded and routed, waiting
+ * for room. Each sink of a run takes its messages in order; a run starts only once the one before
+ * it is taken by all its sinks, so every sink sees a partition's records in offset order.
+ */
+export interface Hold {
+  readonly records: unknown[];
+  readonly metas: MessageMeta[];
+  readonly runs: Run[];
+  /** The first run not yet taken by all its sinks. */
+  run: number;
+}
+
+export class PartitionState {
+  readonly topic: string;
+  readonly partition: number;
+  readonly key: string;
+  /** False once the partition is revoked (or the member lost it): late settles are ignored. */
+  live = true;
+  /** Next offset to take; anything below was taken in this ownership (a redelivery). */
+  next: bigint | undefined;
+  /** While set the partition is paused, so this never exceeds one fetched batch per partition. */
+  hold: Hold | undefined;
+  paused = false;
+  lastMessageAt: number;
+  lastSeen: bigint | undefined;
+  highWatermark: bigint | undefined;
+  /** Taken messages not yet durable everywhere start at `head`, in offset order. */
+  queue: MessageMeta[] = [];
+  head = 0;
+  /** The commit point when `head` is 0 (kept when the queue is compacted). */
+  private doneBefore: bigint | undefined;
+
+  constructor(topic: string, partition: number, now: number) {
+    this.topic = topic;
+    this.partition = partition;
+    this.key = partitionKey(topic, partition);
+    this.lastMessageAt = now;
+  }
+
+  /** Moves the commit point over the finished messages at the front. O(1) amortised per message. */
+  advance(): void {
+    const q = this.queue;
+    let h = this.head;
+    while (h < q.length && MessageMeta.done(q[h]!)) h++;
+    this.head = h;
+    if (h > 1024 && h * 2 > q.length) {
+      this.doneBefore = q[h - 1]!.offset + 1n;
+      this.queue = q.slice(h);
+      this.head = 0;
+    }
+  }
+
+  /** The next offset to read: every message before it is durable or dead-lettered everywhere. */
+  committable(): bigint | undefined {
+    return this.head > 0 ? this.queue[this.head - 1]!.offset + 1n : this.doneBefore;
+  }
+
+  /** Taken messages not yet durable everywhere. */
+  get pending(): number {
+    return this.queue.length - this.head;
+  }
+
+  /** The oldest taken message not yet durable everywhere. */
+  get oldest(): MessageMeta | undefined {
+    return this.head < this.queue.length ? this.queue[this.head] : undefined;
+  }
+
+  /** Messages taken from a batch but not yet accepted by every sink. */
+  get heldMessages(): number {
+    const h = this.hold;
+    if (!h) return 0;
+    const run = h.runs[h.run];
+    if (!run) return 0;
+    let first = run.to;
+    for (const c of run.cursors) if (c < first) first = c;
+    return h.metas.length - first;
+  }
+}
