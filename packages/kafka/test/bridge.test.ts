@@ -380,6 +380,60 @@ describe('KafkaBridge', () => {
     expect(consumer.lastCommit(0)).toBe('2');
   });
 
+  it('lets a sink with room take a chunk while another sink of the same route is full, and commits only what both made durable', async () => {
+    const big = new GatedAdapter();
+    const bigSink = new Sink(big, { name: 'big', maxRecords: 100, maxAgeMs: 60_000, idleMs: 0 });
+    let small: Sink<{ n: number }> | undefined;
+    const { consumer, adapters, sinks, bridge } = setup({
+      maxRecords: 2,
+      maxPendingRecords: 2,
+      pauseAfterMs: 0,
+      route: () => [small!, bigSink],
+    });
+    small = sinks[0]!;
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['0', '1', '2', '3', '4']);
+    // The small sink took 0 and 1 and is full; the big one took the whole chunk.
+    expect(bigSink.pending().buffered).toBe(5);
+    expect(bridge.snapshot().partitions[0]).toMatchObject({ paused: true, heldMessages: 3 });
+    const flushed = bigSink.flush();
+    big.releaseAll();
+    await flushed;
+    await bridge.commit();
+    // Durable in the big sink only: nothing may be committed yet.
+    expect(consumer.commits).toEqual([]);
+    await flushAcking([small, bigSink], [adapters[0]!, big]);
+    await bridge.commit();
+    expect(adapters[0]!.written).toEqual([0, 1, 2, 3, 4]);
+    expect(big.written).toEqual([0, 1, 2, 3, 4]);
+    expect(consumer.lastCommit(0)).toBe('5');
+  });
+
+  it('keeps offset order per sink when the router alternates between single sinks', async () => {
+    const a = new GatedAdapter();
+    const b = new GatedAdapter();
+    const sinkA = new Sink(a, { name: 'a', maxRecords: 100, maxAgeMs: 60_000, idleMs: 0 });
+    const sinkB = new Sink(b, { name: 'b', maxRecords: 100, maxAgeMs: 60_000, idleMs: 0 });
+    const consumer = new FakeConsumer();
+    const bridge = new KafkaBridge<{ n: number }>({
+      consumer: consumer as unknown as Consumer,
+      topics: [TOPIC],
+      decode: (m) => ({ n: Number(m.value?.toString()) }),
+      route: (r) => (r.n % 3 === 0 ? sinkA : sinkB),
+      deadLetter: { write: async () => undefined },
+      commitIntervalMs: 60_000,
+    });
+    await bridge.start();
+    consumer.join([0]);
+    await consumer.deliver(0, 0, ['0', '1', '2', '3', '4', '5', '6', '7']);
+    await flushAcking([sinkA, sinkB], [a, b]);
+    await bridge.commit();
+    expect(a.written).toEqual([0, 3, 6]);
+    expect(b.written).toEqual([1, 2, 4, 5, 7]);
+    expect(consumer.lastCommit(0)).toBe('8');
+  });
+
   it('skips offsets redelivered after a rejoin that kept the partition', async () => {
     const { consumer, adapters, bridge } = setup();
     await bridge.start();
