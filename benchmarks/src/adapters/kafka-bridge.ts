@@ -541,7 +541,7 @@ async function main(): Promise<void> {
       const node = med(budgets.bridge.map((b) => b.node));
       const total = med(budgets.bridge.map((b) => b.node + b.postgres + b.postgresServer + b.broker));
       console.log(
-        `bridge ceilings from its own CPU: one Node thread ${fmt(1e6 / node)} msg/s; ${cores} cores shared by all ${fmt((cores * 1e6) / total)} msg/s`,
+        `bridge ceilings from its own CPU: this process on one core ${fmt(1e6 / node)} msg/s (its GC threads can exceed it a little); ${cores} cores shared by all ${fmt((cores * 1e6) / total)} msg/s`,
       );
     }
     if (samples.ratio.length > 0) {
