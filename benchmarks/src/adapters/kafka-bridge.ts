@@ -23,7 +23,7 @@ import { mkdirSync, readdirSync, readFileSync, readlinkSync, writeFileSync } fro
 import { Session } from 'node:inspector';
 import { join } from 'node:path';
 import { parseArgs } from 'node:util';
-import { Sink, type SinkOptions } from '@spillway/core';
+import { type RecordMeta, Sink, type SinkOptions } from '@spillway/core';
 import { DecodeError, KafkaBridge } from '@spillway/kafka';
 import { postgresAdapter } from '@spillway/postgres';
 import { Kafka, type KafkaMessage, logLevel } from 'kafkajs';
@@ -53,10 +53,15 @@ const { values: flags } = parseArgs({
   },
 });
 const PHASES = flags.phases.split(',').map((p) => p.trim()) as Phase[];
-type Phase = 'source' | 'store' | 'bridge';
+// store-meta (not in the default run): the store phase with a Kafka-like meta per row (topic,
+// partition, bigint offset, ordering key, event time), which the sink tracks as it does the
+// bridge's: what the sink's own per-record bookkeeping of metas costs.
+type Phase = 'source' | 'store' | 'store-meta' | 'bridge';
 for (const p of PHASES)
-  if (p !== 'source' && p !== 'store' && p !== 'bridge')
-    throw new TypeError(`Expected \`--phases\` to list source, store, bridge, got \`${flags.phases}\``);
+  if (p !== 'source' && p !== 'store' && p !== 'store-meta' && p !== 'bridge')
+    throw new TypeError(
+      `Expected \`--phases\` to list source, store, store-meta, bridge, got \`${flags.phases}\``,
+    );
 const PROFILE_DIR = flags.profile;
 const MESSAGES = Number(flags.messages);
 const REPEATS = Number(flags.repeats);
@@ -368,11 +373,14 @@ interface Run {
 }
 
 /** The sink alone, from memory: the store limit. */
-async function runStore(rows: DockStatus[], meter: CpuMeter): Promise<Run> {
+async function runStore(rows: DockStatus[], meter: CpuMeter, metas?: RecordMeta[]): Promise<Run> {
   const s = sink();
   meter.start();
   const t0 = performance.now();
-  for (const r of rows) if (!s.tryWrite(r)) await s.write(r);
+  if (metas) {
+    for (let i = 0; i < rows.length; i++)
+      if (!s.tryWrite(rows[i]!, metas[i])) await s.write(rows[i]!, metas[i]);
+  } else for (const r of rows) if (!s.tryWrite(r)) await s.write(r);
   await s.flush();
   const t1 = performance.now();
   meter.stop();
@@ -473,8 +481,27 @@ async function main(): Promise<void> {
       console.log(
         `CPU budget: ${found.postgres ? '' : 'PostgreSQL '}${found.broker ? '' : 'Kafka broker '}not found on this machine (reported as NaN)`,
       );
-    const samples: Record<Phase | 'ratio', number[]> = { source: [], store: [], bridge: [], ratio: [] };
-    const budgets: Record<Phase, CpuBudget[]> = { source: [], store: [], bridge: [] };
+    const samples: Record<Phase | 'ratio', number[]> = {
+      source: [],
+      store: [],
+      'store-meta': [],
+      bridge: [],
+      ratio: [],
+    };
+    const budgets: Record<Phase, CpuBudget[]> = { source: [], store: [], 'store-meta': [], bridge: [] };
+    // Metas as the bridge makes them, built before the phase like the rows (offsets per partition).
+    const metas: RecordMeta[] = PHASES.includes('store-meta')
+      ? rows.map((r) => {
+          const partition = r.seq % PARTITIONS;
+          return {
+            topic: TOPIC,
+            partition,
+            offset: BigInt(Math.floor(r.seq / PARTITIONS)),
+            key: `${TOPIC}:${partition}`,
+            eventTime: Date.now(),
+          };
+        })
+      : [];
     for (let rep = 0; rep < REPEATS; rep++) {
       const round: Partial<Record<Phase, Run>> = {};
       const parts: string[] = [];
@@ -484,6 +511,7 @@ async function main(): Promise<void> {
         let run: Run;
         if (which === 'source') run = await runSource(meter);
         else if (which === 'store') run = await runStore(rows, meter);
+        else if (which === 'store-meta') run = await runStore(rows, meter, metas);
         else {
           run = await runBridge(meter, rep);
           const n = Number(
@@ -513,7 +541,7 @@ async function main(): Promise<void> {
     for (const k of PHASES) {
       const s = summary(samples[k]);
       console.log(
-        `${k.padEnd(7)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
+        `${k.padEnd(10)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
       );
     }
     console.log(
@@ -527,13 +555,13 @@ async function main(): Promise<void> {
       return `${s.median.toFixed(2)} (${s.min.toFixed(2)}–${s.max.toFixed(2)})`.padEnd(20);
     };
     console.log(
-      `${'phase'.padEnd(7)} ${['node', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
+      `${'phase'.padEnd(10)} ${['node', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
     );
     for (const k of PHASES) {
       const bs = budgets[k];
       const total = bs.map((b) => b.node + b.postgres + b.postgresServer + b.broker);
       console.log(
-        `${k.padEnd(7)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
+        `${k.padEnd(10)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
           `${cell(bs.map((b) => b.broker))}${cell(total)}${cell(bs.map((b) => b.wall))}${med(bs.map((b, i) => total[i]! / b.wall)).toFixed(2)}`,
       );
     }
