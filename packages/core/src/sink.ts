@@ -340,7 +340,8 @@ export class Sink<T> {
       this.barriers.add(barrier);
       entry.barriers = [barrier];
     }
-    if (meta?.offset !== undefined) this.progress.track(progressKey(meta), meta.offset);
+    if (meta?.offset !== undefined && meta.externalProgress !== true)
+      this.progress.track(progressKey(meta), meta.offset);
     this.buffer.push(entry);
     this.bufferedBytes += bytes;
     this.accepted++;
@@ -781,6 +782,8 @@ export class Sink<T> {
     const durable = outcome === 'durable';
     let runValue = Number.NaN;
     let runCount = 0;
+    let eventValue = Number.NaN;
+    let eventCount = 0;
     for (let i = 0; i < entries.length; i++) {
       const e = entries[i]!;
       e.done = true;
@@ -795,9 +798,20 @@ export class Sink<T> {
           runValue = v;
           runCount = 1;
         }
-        if (e.meta?.eventTime !== undefined) this.h.eventToDurableMs.record(wall - e.meta.eventTime);
+        const eventTime = e.meta?.eventTime;
+        if (eventTime !== undefined) {
+          // Source timestamps are in whole milliseconds: neighbours mostly share one.
+          const ev = wall - eventTime;
+          if (ev === eventValue) eventCount++;
+          else {
+            if (eventCount > 0) this.h.eventToDurableMs.recordMany(eventValue, eventCount);
+            eventValue = ev;
+            eventCount = 1;
+          }
+        }
       }
-      if (e.meta?.offset !== undefined) this.progress.complete(progressKey(e.meta), e.meta.offset);
+      if (e.meta?.offset !== undefined && e.meta.externalProgress !== true)
+        this.progress.complete(progressKey(e.meta), e.meta.offset);
       if (e.barriers) {
         for (const b of e.barriers) {
           b.onOutcome?.(outcome);
@@ -810,6 +824,7 @@ export class Sink<T> {
       }
     }
     if (runCount > 0) this.h.acceptToDurableMs.recordMany(runValue, runCount);
+    if (eventCount > 0) this.h.eventToDurableMs.recordMany(eventValue, eventCount);
     if (outcome === 'durable') this.written += entries.length;
     else this.deadLettered += entries.length;
     batch.open -= entries.length;

@@ -15,6 +15,12 @@ export interface RecordMeta {
   readonly eventTime?: number;
   /** Ordering key that overrides the partition. Records of one key are written in accept order. */
   readonly key?: string;
+  /**
+   * True when the source keeps this record's progress itself (the Kafka bridge does, across all
+   * the sinks a message went to): the sink's own `progress` tracker then skips it, which saves
+   * a lookup and a slot per record.
+   */
+  readonly externalProgress?: boolean;
 }
 
 /** Why a batch was started. Metrics count flushes by reason. */

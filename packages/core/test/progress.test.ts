@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { ProgressTracker } from '../src/index.js';
+import { ManualClock, ProgressTracker, Sink } from '../src/index.js';
+import { FakeAdapter } from './fakes.js';
 
 describe('ProgressTracker', () => {
   it('commits the next offset to read: last contiguous terminal offset + 1', () => {
@@ -98,5 +99,40 @@ describe('ProgressTracker', () => {
     q.complete('k', 2n ** 60n + 1n);
     expect(q.committable('k')).toBeUndefined();
     expect(q.pending('k')).toBe(2);
+  });
+});
+
+describe('a meta with externalProgress', () => {
+  it("is left to its source: the sink's own tracker neither tracks nor completes it", async () => {
+    const sink = new Sink(new FakeAdapter<number>(), { maxRecords: 10, clock: new ManualClock() });
+    await sink.write(1, { topic: 'rides', partition: 0, offset: '5' });
+    await sink.write(2, { topic: 'rides', partition: 1, offset: '7', externalProgress: true });
+    await sink.flush();
+    expect(sink.progress.committable('rides:0')).toBe(6n);
+    expect(sink.progress.lastTracked('rides:1')).toBeUndefined();
+    expect([...sink.progress.keys()]).toEqual(['rides:0']);
+  });
+});
+
+describe('event time → durable', () => {
+  it('counts every record, runs of one event time and single ones alike', async () => {
+    const clock = new ManualClock(0, 1_700_000_000_000);
+    const sink = new Sink(new FakeAdapter<number>(), { maxRecords: 10, clock });
+    const at = (ms: number) => ({ eventTime: 1_700_000_000_000 - ms });
+    // 100 ms old, twice in a row, then 50 ms old, then 100 ms again: three runs of one value.
+    for (const [r, old] of [
+      [1, 100],
+      [2, 100],
+      [3, 50],
+      [4, 100],
+    ] as const)
+      await sink.write(r, at(old));
+    await clock.advance(20);
+    await sink.flush();
+    const d = sink.snapshot().eventToDurableMs;
+    expect(d.count).toBe(4);
+    expect(d.min).toBeCloseTo(70, 0);
+    expect(d.max).toBeCloseTo(120, 0);
+    expect(d.mean).toBeCloseTo((120 * 3 + 70) / 4, 0);
   });
 });

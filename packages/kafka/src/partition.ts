@@ -43,6 +43,11 @@ export class MessageMeta implements RecordMeta {
     this.#open = sinks;
   }
 
+  /** The bridge keeps each message's progress itself: the sinks' own trackers skip it. */
+  get externalProgress(): true {
+    return true;
+  }
+
   static ownerOf(meta: RecordMeta): PartitionState | undefined {
     return #owner in meta ? (meta as MessageMeta).#owner : undefined;
   }
