@@ -5,7 +5,7 @@
 // - sink:     Sink + postgresAdapter in that mode, flushing by size at the same batch size;
 // - per-row:  one autocommitted INSERT per row (the baseline batching must beat), measured once
 //             per repeat on a smaller row count.
-// Run: npx tsc --build && node benchmarks/dist/adapters/postgres.js [--rows 50000] [--repeats 5]
+// Run: npx tsc --build && node benchmarks/dist/adapters/postgres.js [--rows 100000] [--repeats 5]
 //      [--sizes 100,1000,10000] [--per-row 3000] [--modes insert,copy,upsert,unnest]
 //      (`unnest` is insert mode with insertForm 'unnest'; the raw side binds one JS array per column)
 //      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test); SPILLWAY_BENCH_ROWS /
@@ -32,7 +32,9 @@ interface DockStatus {
 
 const { values: flags } = parseArgs({
   options: {
-    rows: { type: 'string', default: process.env.SPILLWAY_BENCH_ROWS ?? '50000' },
+    // 100,000 rows: ten batches of 10,000 per sample, so that a sample measures the steady flow
+    // more than the filling and draining of the first and last batch.
+    rows: { type: 'string', default: process.env.SPILLWAY_BENCH_ROWS ?? '100000' },
     repeats: { type: 'string', default: process.env.SPILLWAY_BENCH_REPEATS ?? '5' },
     sizes: { type: 'string', default: '100,1000,10000' },
     'per-row': { type: 'string', default: '3000' },
