@@ -270,9 +270,29 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     client.on('error', onError);
     // One statement is a transaction of its own; more need BEGIN / COMMIT to stay one.
     const explicit = this.statementCount(steps) > 1;
+    // A batch that is one staging round goes as one simple query, BEGIN to COMMIT, with its COPY
+    // data right behind it: one round trip, and the server has the whole batch to work on while
+    // this process does anything else.
+    const only = steps.length === 1 ? steps[0] : undefined;
+    const oneTrip = only?.kind === 'stage';
     let step = 'begin';
     let failure: unknown;
     try {
+      if (oneTrip) {
+        step = 'merge';
+        this.counters.statements += 4;
+        this.counters.dataStatements++;
+        const { copyFormat } = this.options;
+        const { createStage, mergeStage, stage } = this.sql;
+        const text = `BEGIN; ${createStage}; ${this.sql.copy(stage)}; ${mergeStage}; COMMIT`;
+        const rows = await this.copy(client, text, (data) => {
+          for (const row of only.rows) data.push(copyRow(row, copyFormat));
+          return only.rows.length;
+        });
+        this.counters.committed++;
+        this.counters.rows += rows;
+        return;
+      }
       if (explicit) await this.run(client, 'BEGIN');
       let staged = false;
       let rows = 0;
@@ -284,14 +304,14 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         } else if (s.kind === 'copy') {
           step = 'copy';
           this.counters.dataStatements++;
-          rows += await this.copy(client, this.sql.target, s.fill);
+          rows += await this.copy(client, this.sql.copy(this.sql.target), s.fill);
         } else {
           step = 'stage';
           await this.run(client, staged ? this.sql.truncateStage : this.sql.createStage);
           staged = true;
           step = 'copy';
           const { copyFormat } = this.options;
-          await this.copy(client, this.sql.stage, (data) => {
+          await this.copy(client, this.sql.copy(this.sql.stage), (data) => {
             for (const row of s.rows) data.push(copyRow(row, copyFormat));
             return s.rows.length;
           });
@@ -317,9 +337,10 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
           broken = rollbackError;
         }
       }
-      // A connection lost while the last statement (COMMIT, or the one autocommitted statement)
-      // was on its way may have committed: say so, since a retry can then write the rows twice.
-      const unknown = isConnectionError(error) && (step === 'commit' || !explicit);
+      // A connection lost while the last statement (COMMIT, or the one autocommitted statement,
+      // or the one query that ends in COMMIT) was on its way may have committed: say so, since a
+      // retry can then write the rows twice.
+      const unknown = isConnectionError(error) && (step === 'commit' || !explicit || oneTrip);
       throw this.wrap(error, step, unknown);
     } finally {
       client.off('error', onError);
@@ -363,10 +384,13 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     await client.query({ text: this.sql.values(rows), values });
   }
 
-  /** One COPY into `into`; `fill` encodes the rows, whose chunks leave as they are made. */
-  private async copy(client: PoolClient, into: string, fill: (data: CopyChunks) => number): Promise<number> {
+  /**
+   * A query holding one `COPY … FROM STDIN` (`text`); `fill` encodes the rows, whose chunks leave
+   * as they are made. Resolves with the rows the COPY took.
+   */
+  private async copy(client: PoolClient, text: string, fill: (data: CopyChunks) => number): Promise<number> {
     this.counters.statements++;
-    const copy = new CopyIn(this.sql.copy(into));
+    const copy = new CopyIn(text);
     // The client is ours and idle: pg submits the statement right away, and each chunk follows.
     client.query(copy as never);
     const data = new CopyChunks((chunk) => copy.send(chunk));
