@@ -3,14 +3,13 @@
  * the view shows the buffers live; at the end (or on Ctrl-C, through the shutdown coordinator)
  * every sink is flushed and closed and each store is checked against what was produced.
  */
-import { mkdtemp, rm } from 'node:fs/promises';
+import { rm } from 'node:fs/promises';
 import { createServer, type Server } from 'node:http';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
 import { messageOf, type ShutdownCoordinator, type SinkSnapshot, SpillwayError } from '@spillway/core';
 import { PrometheusExporter } from '@spillway/prometheus';
 import { type EmbeddedPostgres, startEmbeddedPostgres } from './embedded-postgres-server.js';
 import { type DemoOptions, resolveDemoOptions } from './options.js';
+import { makeRunDir, removeStaleRunDirs } from './run-dir.js';
 import { type DockEvent, Scenario } from './scenario.js';
 import {
   DEMO_SINK_SETTINGS,
@@ -68,7 +67,9 @@ export async function runDemo(
 ): Promise<DemoResult> {
   const o = resolveDemoOptions(input);
   const say = (line = '') => out.log(line);
-  const runDir = await mkdtemp(join(tmpdir(), 'spillway-demo-'));
+  // Dead-letter files of runs that were killed before they could remove them.
+  await removeStaleRunDirs();
+  const runDir = await makeRunDir();
   coordinator.add('clients', 'demo temp files', () => rm(runDir, { recursive: true, force: true }));
 
   say(`Tandem Bikes — a day of dock events compressed into ${Math.round(o.durationMs / 1000)} s`);
