@@ -48,10 +48,15 @@ export interface StartKafkaOptions {
   readyTimeoutMs?: number;
   /** Max heap in MiB. Default 512. */
   heapMb?: number;
-  /** Extra server.properties lines (key → value), applied after the template. */
+  /**
+   * Extra server.properties lines (key → value), applied after the template (a later line wins);
+   * `{{BROKER_PORT}}` and `{{CONTROLLER_PORT}}` in them are filled in like the template's.
+   */
   properties?: Record<string, string | number | boolean>;
   /** Short label used in the temp dir name and messages. */
   label?: string;
+  /** SASL/PLAIN credentials the harness's readiness check logs in with (a broker with SASL listeners). */
+  sasl?: { username: string; password: string };
 }
 
 export interface KafkaBroker {
@@ -146,12 +151,13 @@ function renderProperties(
   logDir: string,
   extra: StartKafkaOptions['properties'],
 ): string {
-  let text = readFileSync(join(kafkaDir, 'server.properties.template'), 'utf8')
+  let text = readFileSync(join(kafkaDir, 'server.properties.template'), 'utf8');
+  for (const [key, value] of Object.entries(extra ?? {})) text += `${key}=${String(value)}\n`;
+  // After the extras, so that they can name the ports too (a listener of their own).
+  return text
     .replaceAll('{{BROKER_PORT}}', String(ports.broker))
     .replaceAll('{{CONTROLLER_PORT}}', String(ports.controller))
     .replaceAll('{{LOG_DIR}}', logDir);
-  for (const [key, value] of Object.entries(extra ?? {})) text += `${key}=${String(value)}\n`;
-  return text;
 }
 
 function jvmArgs(jarDir: string, heapMb: number): string[] {
@@ -214,6 +220,7 @@ export async function startKafka(options: StartKafkaOptions = {}): Promise<Kafka
       ports,
       readyTimeoutMs,
       fetched,
+      sasl: options.sasl,
     });
     try {
       await broker.start();
@@ -238,6 +245,7 @@ interface BrokerConfig {
   ports: { broker: number; controller: number };
   readyTimeoutMs: number;
   fetched: boolean;
+  sasl: StartKafkaOptions['sasl'];
 }
 
 class Broker implements KafkaBroker {
@@ -298,11 +306,13 @@ class Broker implements KafkaBroker {
       await Promise.race([sleep(150), spawnError]);
     }
     // Readiness 2: a metadata round trip through the same client library the tests use.
+    const sasl = this.config.sasl;
     const kafka = new Kafka({
       clientId: 'spillway-harness-ready',
       brokers: this.brokers,
       logLevel: logLevel.NOTHING,
       retry: { retries: 0 },
+      ...(sasl ? { sasl: { mechanism: 'plain' as const, ...sasl } } : {}),
     });
     const admin = kafka.admin();
     try {

@@ -180,7 +180,7 @@ export class KafkaBridge<R> {
         // open: flush and commit as best effort while kafkajs rejoins.
         if (this.running.size === 0 && !this.draining) void this.beforeRejoin();
       }),
-      c.on(c.events.CRASH, (e) => this.onCrash(e.payload.error, e.payload.restart)),
+      c.on(c.events.CRASH, (e) => this.onCrash(e.payload.error, e.payload.restart, e.payload.groupId)),
     );
     await c.connect();
     await c.subscribe({ topics: [...this.o.topics], fromBeginning: this.o.fromBeginning });
@@ -189,6 +189,8 @@ export class KafkaBridge<R> {
       eachBatchAutoResolve: false,
       eachBatch: (payload) => this.onBatch(payload),
     });
+    // The consumer can crash for good while run() joins the group (a refused group, say).
+    if (this.stateValue === 'failed') throw this.fatal;
     this.stateValue = 'running';
     this.commitTimer = setInterval(() => {
       this.commit().catch(() => undefined);
@@ -441,6 +443,9 @@ export class KafkaBridge<R> {
     this.emit('pause', { topic: st.topic, partition: st.partition, sink: waitingSink(st.hold) });
   }
 
+  /** What failed the bridge. */
+  private fatal: unknown;
+
   // Handlers waiting for held messages to be taken; woken after every retry round.
   private readonly roomWaiters = new Set<() => void>();
 
@@ -684,11 +689,11 @@ export class KafkaBridge<R> {
     this.emit('assign', { assigned: [...keys.keys()], revoked, kept, generation: this.fence.generation });
   }
 
-  private onCrash(error: unknown, restart: boolean): void {
+  private onCrash(error: unknown, restart: boolean, groupId: string): void {
     // kafkajs restarts the consumer (or gives up): whatever this member owned is gone.
     for (const st of [...this.parts.values()]) this.dropPartition(st);
     this.fence.revokeAll();
-    if (!restart) this.fail(error);
+    if (!restart) this.fail(explainCrash(error, groupId));
   }
 
   /**
@@ -766,6 +771,7 @@ export class KafkaBridge<R> {
   private fail(error: unknown): void {
     if (this.stateValue === 'failed') return;
     this.stateValue = 'failed';
+    this.fatal = error;
     // Committing stays correct (a failed sink never settles its records); taking more does not.
     for (const st of this.parts.values()) this.pauseKafka(st);
     for (const wake of [...this.roomWaiters]) wake();
@@ -896,4 +902,18 @@ function within<T>(work: Promise<T>, ms: number, onTimeout: () => Error | undefi
       },
     );
   });
+}
+
+/**
+ * The error a consumer crash fails the bridge with. kafkajs turns a FindCoordinator refusal into
+ * "Failed to find group coordinator" without the broker's error; against a broker with ACLs that
+ * is what a principal without READ on the group gets (seen in this repository's authorization
+ * test), so the message says where to look.
+ */
+function explainCrash(error: unknown, groupId: string): unknown {
+  if ((error as { name?: unknown } | undefined)?.name !== 'KafkaJSGroupCoordinatorNotFound') return error;
+  return new StoreError(
+    `No coordinator found for consumer group "${groupId}". kafkajs reports this when FindCoordinator fails for good: with ACLs, when the principal lacks READ on the group (GROUP_AUTHORIZATION_FAILED); otherwise when no broker can act as coordinator.`,
+    { cause: error, driverCode: 'KafkaJSGroupCoordinatorNotFound', details: { groupId } },
+  );
 }
