@@ -39,6 +39,29 @@ function client(user: { username: string; password: string }): Kafka {
   });
 }
 
+/** Lets the rider do `operation` on the test topic (an ACL, made by the admin). */
+async function allowRider(operation: AclOperationTypes): Promise<void> {
+  const admin = client(ADMIN).admin();
+  await admin.connect();
+  try {
+    await admin.createAcls({
+      acl: [
+        {
+          resourceType: AclResourceTypes.TOPIC,
+          resourceName: topic,
+          resourcePatternType: ResourcePatternTypes.LITERAL,
+          principal: `User:${RIDER.username}`,
+          host: '*',
+          operation,
+          permissionType: AclPermissionTypes.ALLOW,
+        },
+      ],
+    });
+  } finally {
+    await admin.disconnect();
+  }
+}
+
 beforeAll(async () => {
   broker = await startPrivateKafka({
     label: 'authz',
@@ -125,25 +148,7 @@ describe('the Kafka producer sink against a broker with ACLs', () => {
   });
 
   it('writes once the user is granted WRITE on the topic (the refusal was the ACL)', async () => {
-    const admin = client(ADMIN).admin();
-    await admin.connect();
-    try {
-      await admin.createAcls({
-        acl: [
-          {
-            resourceType: AclResourceTypes.TOPIC,
-            resourceName: topic,
-            resourcePatternType: ResourcePatternTypes.LITERAL,
-            principal: `User:${RIDER.username}`,
-            host: '*',
-            operation: AclOperationTypes.WRITE,
-            permissionType: AclPermissionTypes.ALLOW,
-          },
-        ],
-      });
-    } finally {
-      await admin.disconnect();
-    }
+    await allowRider(AclOperationTypes.WRITE);
     // ACLs reach the broker's authorizer through the metadata log, a moment later: a sink stopped
     // by a refusal stays stopped, so each try is a new one.
     const written = await waitFor(
@@ -169,25 +174,7 @@ describe('the Kafka producer sink against a broker with ACLs', () => {
 describe('the consumer bridge against a broker with ACLs', () => {
   it('fails, naming GROUP_AUTHORIZATION_FAILED, when the user may read the topic but not join the group', async () => {
     const groupId = uniqueName('authz-group');
-    const admin = client(ADMIN).admin();
-    await admin.connect();
-    try {
-      await admin.createAcls({
-        acl: [
-          {
-            resourceType: AclResourceTypes.TOPIC,
-            resourceName: topic,
-            resourcePatternType: ResourcePatternTypes.LITERAL,
-            principal: `User:${RIDER.username}`,
-            host: '*',
-            operation: AclOperationTypes.READ,
-            permissionType: AclPermissionTypes.ALLOW,
-          },
-        ],
-      });
-    } finally {
-      await admin.disconnect();
-    }
+    await allowRider(AclOperationTypes.READ);
     const sink = producerSink(client(ADMIN));
     const errors: Array<{ error: unknown; fatal: boolean }> = [];
     const bridge = new KafkaBridge<DockEvent>({

@@ -36,7 +36,9 @@ function event(i: number, docks = 100): DockEvent {
 }
 
 function sinkFor(
-  options: Omit<KafkaProducerAdapterOptions<DockEvent>, 'mapper'>,
+  // `mapper` may be given to replace the default one below.
+  options: Omit<KafkaProducerAdapterOptions<DockEvent>, 'mapper'> &
+    Partial<Pick<KafkaProducerAdapterOptions<DockEvent>, 'mapper'>>,
   sinkOptions: SinkOptions<DockEvent> = {},
 ) {
   const deadLetters = new CollectedDeadLetters<DockEvent>();
