@@ -58,34 +58,29 @@ export function copyLine(values: readonly unknown[], format: CopyFormat): string
   return `${line}\n`;
 }
 
-/**
- * Collects COPY lines into Buffers of about CHUNK_CHARS characters, handing each to `onChunk`
- * when one is given (and keeping them otherwise).
- */
+/** Joins COPY lines into Buffers of about CHUNK_CHARS characters and hands each to `onChunk`. */
 export class CopyChunks {
-  readonly chunks: Buffer[] = [];
+  /** Bytes handed on so far. */
   bytes = 0;
   private text = '';
 
-  constructor(private readonly onChunk?: (chunk: Buffer) => void) {}
+  constructor(private readonly onChunk: (chunk: Buffer) => void) {}
 
   push(line: string): void {
     this.text += line;
     if (this.text.length >= CHUNK_CHARS) this.cut();
   }
 
-  /** The chunks, with whatever is still pending. */
-  finish(): Buffer[] {
+  /** Hands on whatever is still pending. */
+  finish(): void {
     if (this.text.length > 0) this.cut();
-    return this.chunks;
   }
 
   private cut(): void {
     const b = Buffer.from(this.text, 'utf8');
-    if (this.onChunk) this.onChunk(b);
-    else this.chunks.push(b);
     this.bytes += b.length;
     this.text = '';
+    this.onChunk(b);
   }
 }
 
@@ -100,13 +95,14 @@ export function copyRow(row: readonly WireValue[], format: CopyFormat): string {
   return `${line}\n`;
 }
 
-/** COPY data for `rows`, as Buffers ready to stream; `bytes` is their total length. */
+/** COPY data for `rows`, as Buffers ready to send; `bytes` is their total length. */
 export function encodeCopy(
   rows: readonly (readonly WireValue[])[],
   format: CopyFormat,
 ): { chunks: Buffer[]; bytes: number } {
-  const data = new CopyChunks();
+  const chunks: Buffer[] = [];
+  const data = new CopyChunks((chunk) => chunks.push(chunk));
   for (const row of rows) data.push(copyRow(row, format));
-  const chunks = data.finish();
+  data.finish();
   return { chunks, bytes: data.bytes };
 }
