@@ -282,13 +282,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         step = 'merge';
         this.counters.statements += 4;
         this.counters.dataStatements++;
-        const { copyFormat } = this.options;
         const { createStage, mergeStage, stage } = this.sql;
         const text = `BEGIN; ${createStage}; ${this.sql.copy(stage)}; ${mergeStage}; COMMIT`;
-        const rows = await this.copy(client, text, (data) => {
-          for (const row of only.rows) data.push(copyRow(row, copyFormat));
-          return only.rows.length;
-        });
+        const rows = await this.copy(client, text, this.copyRows(only.rows));
         this.counters.committed++;
         this.counters.rows += rows;
         return;
@@ -310,11 +306,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
           await this.run(client, staged ? this.sql.truncateStage : this.sql.createStage);
           staged = true;
           step = 'copy';
-          const { copyFormat } = this.options;
-          await this.copy(client, this.sql.copy(this.sql.stage), (data) => {
-            for (const row of s.rows) data.push(copyRow(row, copyFormat));
-            return s.rows.length;
-          });
+          await this.copy(client, this.sql.copy(this.sql.stage), this.copyRows(s.rows));
           rows += s.rows.length;
           step = 'merge';
           this.counters.dataStatements++;
@@ -382,6 +374,15 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     this.counters.statements++;
     this.counters.dataStatements++;
     await client.query({ text: this.sql.values(rows), values });
+  }
+
+  /** Encodes rows of wire values as COPY data (the staging table of an upsert). */
+  private copyRows(rows: readonly (readonly WireValue[])[]): (data: CopyChunks) => number {
+    const { copyFormat } = this.options;
+    return (data) => {
+      for (const row of rows) data.push(copyRow(row, copyFormat));
+      return rows.length;
+    };
   }
 
   /**
