@@ -567,7 +567,7 @@ export class KafkaBridge<R> {
     const s = sink as Partial<AnySink> | null;
     if (
       !s ||
-      typeof s.tryWrite !== 'function' ||
+      typeof s.tryWriteMany !== 'function' ||
       typeof s.on !== 'function' ||
       typeof s.revoke !== 'function'
     ) {
