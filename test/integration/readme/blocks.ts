@@ -105,6 +105,20 @@ export function programOf(block: ReadmeBlock, all: readonly ReadmeBlock[]): stri
   return `${baseLines.slice(0, -1).join('\n')}\n${block.code}`;
 }
 
+/** The text of every fenced block of `lang` in one README (e.g. the SQL a program needs). */
+export function fencedBlocks(file: string, lang: string, root = repoRoot): string[] {
+  const lines = readFileSync(join(root, file), 'utf8').split('\n');
+  const found: string[] = [];
+  for (let i = 0; i < lines.length; i++) {
+    if (!/^```/.test(lines[i]!)) continue;
+    const close = lines.findIndex((l, j) => j > i && /^```\s*$/.test(l));
+    if (close < 0) break;
+    if (lines[i]!.slice(3).trim() === lang) found.push(`${lines.slice(i + 1, close).join('\n')}\n`);
+    i = close;
+  }
+  return found;
+}
+
 /** Where a README block lives, for messages: `README.md:62 (sink-in-twenty-lines)`. */
 export function label(b: ReadmeBlock): string {
   return `${where(b)} (${b.name})`;
