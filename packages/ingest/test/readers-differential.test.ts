@@ -88,7 +88,7 @@ function referenceCsv(input: Buffer, delim: number, max: number): Result {
           break;
         }
         if (c === CR && (k + 1 >= n || input[k + 1] === LF)) {
-          end = k + 1 >= n ? n : k + 1;
+          end = k + 1;
           break;
         }
         errorAt = k;
@@ -145,21 +145,29 @@ function referenceNdjson(input: Buffer, max: number): Result {
     lines.push(body.subarray(p, lf < 0 ? body.length : lf));
     p = lf < 0 ? body.length : lf + 1;
   }
-  lines.forEach((raw, i) => {
+  for (let i = 0; i < lines.length; i++) {
+    const raw = lines[i]!;
     const line = i + 1;
     const bytes = raw[raw.length - 1] === CR ? raw.subarray(0, -1) : raw;
-    if (bytes.length > max) return void items.push(rejectOut(line, 'too-long', bytes.subarray(0, max), true));
-    if (!isUtf8(bytes)) return void items.push(rejectOut(line, 'utf8', bytes, false));
-    const text = bytes.toString('utf8'); // a BOM inside stays: Buffer decoding keeps U+FEFF
-    if (/^[ \t\r]*$/.test(text)) return void blank++;
-    let value: unknown;
-    try {
-      value = JSON.parse(text);
-    } catch {
-      return void items.push(rejectOut(line, 'json', bytes, false));
+    if (bytes.length > max) {
+      items.push(rejectOut(line, 'too-long', bytes.subarray(0, max), true));
+      continue;
     }
-    items.push({ line, value });
-  });
+    if (!isUtf8(bytes)) {
+      items.push(rejectOut(line, 'utf8', bytes, false));
+      continue;
+    }
+    const text = bytes.toString('utf8'); // a BOM inside stays: Buffer decoding keeps U+FEFF
+    if (/^[ \t\r]*$/.test(text)) {
+      blank++;
+      continue;
+    }
+    try {
+      items.push({ line, value: JSON.parse(text) });
+    } catch {
+      items.push(rejectOut(line, 'json', bytes, false));
+    }
+  }
   return { items, blank };
 }
 
