@@ -1,6 +1,6 @@
-import { spawn } from 'node:child_process';
-import { fileURLToPath } from 'node:url';
-import type { CellResult, CellSpec } from './cell-run.js';
+import type { CellResult } from './cell-result.js';
+import type { CellSpec } from './cell-spec.js';
+import { round } from './numbers.js';
 
 /** A cell's repeated runs and their median and spread. */
 export interface CellAggregate {
@@ -33,54 +33,6 @@ export interface Figures {
   peakRssMb: number;
   cpuSeconds: number;
   littleRatio: number | null;
-}
-
-/** Where the cell entry point is: the built `cell.js`, or `cell.ts` through tsx when run from source. */
-function cellCommand(): { command: string; args: string[] } {
-  const here = import.meta.url;
-  if (here.endsWith('.ts')) {
-    return {
-      command: process.execPath,
-      args: ['--import', 'tsx', fileURLToPath(new URL('./cell.ts', here))],
-    };
-  }
-  return { command: process.execPath, args: [fileURLToPath(new URL('./cell.js', here))] };
-}
-
-/** Runs one cell in a fresh Node process. */
-export function runCellProcess(spec: CellSpec, timeoutMs = 120_000): Promise<CellResult> {
-  const { command, args } = cellCommand();
-  return new Promise((resolve, reject) => {
-    const child = spawn(command, [...args, JSON.stringify(spec)], { stdio: ['ignore', 'pipe', 'pipe'] });
-    let out = '';
-    let err = '';
-    child.stdout.setEncoding('utf8').on('data', (d: string) => (out += d));
-    child.stderr.setEncoding('utf8').on('data', (d: string) => (err += d));
-    const timer = setTimeout(() => child.kill('SIGKILL'), timeoutMs);
-    child.on('error', (e) => {
-      clearTimeout(timer);
-      reject(e);
-    });
-    child.on('close', (code, signal) => {
-      clearTimeout(timer);
-      const line = out.trim().split('\n').pop() ?? '';
-      let parsed: (CellResult & { error?: undefined }) | { error: string } | undefined;
-      try {
-        parsed = JSON.parse(line);
-      } catch {
-        parsed = undefined;
-      }
-      if (code === 0 && parsed && parsed.error === undefined) resolve(parsed as CellResult);
-      else {
-        const why = parsed?.error ?? (signal ? `killed by ${signal}` : `exit code ${code}`);
-        reject(
-          new TypeError(
-            `cell ${spec.id} failed: ${why}${err ? `\n${err.trim().split('\n').slice(-5).join('\n')}` : ''}`,
-          ),
-        );
-      }
-    });
-  });
 }
 
 export function median(values: number[]): number {
@@ -136,10 +88,6 @@ export function aggregate(spec: CellSpec, runs: CellResult[], errors: string[]):
   };
 }
 
-function round(n: number): number {
-  return Math.round(n * 1000) / 1000;
-}
-
 function emptyResult(spec: CellSpec): CellResult {
   const d = { count: 0, min: 0, mean: 0, p50: 0, p90: 0, p99: 0, max: 0 };
   return {
@@ -165,40 +113,4 @@ function emptyResult(spec: CellSpec): CellResult {
     little: { meanHeld: 0, throughput: 0, meanTimeHeldMs: 0, ratio: null },
     windowMs: 0,
   };
-}
-
-export interface RunProgress {
-  done: number;
-  total: number;
-  cell: CellSpec;
-  result?: CellResult;
-  error?: string;
-}
-
-/** Runs every cell `repeats` times, one process at a time (parallel cells would share the cores). */
-export async function runCells(
-  cells: CellSpec[],
-  repeats: number,
-  onProgress?: (p: RunProgress) => void,
-): Promise<CellAggregate[]> {
-  const out: CellAggregate[] = [];
-  const total = cells.length * repeats;
-  let done = 0;
-  for (const cell of cells) {
-    const runs: CellResult[] = [];
-    const errors: string[] = [];
-    for (let i = 0; i < repeats; i++) {
-      try {
-        const result = await runCellProcess(cell);
-        runs.push(result);
-        onProgress?.({ done: ++done, total, cell, result });
-      } catch (e) {
-        const message = (e as Error).message;
-        errors.push(message);
-        onProgress?.({ done: ++done, total, cell, error: message });
-      }
-    }
-    out.push(aggregate(cell, runs, errors));
-  }
-  return out;
 }

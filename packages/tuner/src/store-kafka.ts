@@ -1,7 +1,7 @@
 import { kafkaProducerAdapter } from '@spillway/kafka';
 import { Kafka, logLevel } from 'kafkajs';
 import type { DockStatus } from './records.js';
-import type { OpenedStore, StoreSpec } from './stores.js';
+import type { OpenedStore, StoreSpec } from './store-spec.js';
 
 const PARTITIONS = 4;
 

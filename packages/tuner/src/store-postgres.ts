@@ -1,9 +1,8 @@
 import { type PostgresMode, postgresAdapter } from '@spillway/postgres';
 import pg from 'pg';
 import type { DockStatus } from './records.js';
-import type { OpenedStore, StoreSpec } from './stores.js';
+import { DEFAULT_PG_URL, type OpenedStore, type StoreSpec } from './store-spec.js';
 
-export const DEFAULT_PG_URL = 'postgres://postgres@127.0.0.1:5432/test';
 const SCHEMA = 'spillway_bench';
 const MODES: readonly PostgresMode[] = ['insert', 'copy', 'upsert'];
 

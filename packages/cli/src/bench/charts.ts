@@ -1,6 +1,6 @@
+import type { CellAggregate } from '@spillway/tuner';
 import * as vega from 'vega';
 import { compile, type TopLevelSpec } from 'vega-lite';
-import type { CellAggregate } from './runner.js';
 
 /** One point of a chart: a cell's medians. */
 interface Point {

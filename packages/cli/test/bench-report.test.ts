@@ -1,12 +1,10 @@
 import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { aggregate, type CellResult, type CellSpec, machineInfo, runCell } from '@spillway/tuner';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { type CellResult, type CellSpec, runCell } from '../src/cell-run.js';
-import { machineInfo } from '../src/machine.js';
-import { cellsOf, type Plan } from '../src/plan.js';
-import { REPORT_VERSION, type Report, reportProblems, writeReport } from '../src/report.js';
-import { aggregate } from '../src/runner.js';
+import { cellsOf, type Plan } from '../src/bench/plan.js';
+import { REPORT_VERSION, type Report, reportProblems, writeReport } from '../src/bench/report.js';
 
 // A tiny plan on the engine-only stores: every variant on two shapes, 300–600 ms each.
 const plan: Plan = {

@@ -1,7 +1,8 @@
 // One benchmark cell in a process of its own: reads the cell's JSON spec from argv[2], prints the
 // result as one JSON line on stdout. A fresh process per cell keeps heap, JIT state and RSS of one
 // cell out of the next one's figures.
-import { type CellSpec, runCell } from './cell-run.js';
+import { runCell } from './cell-run.js';
+import type { CellSpec } from './cell-spec.js';
 
 const arg = process.argv[2];
 if (!arg) {

@@ -1,6 +1,7 @@
 import { describe, expect, it } from 'vitest';
-import type { CellResult } from '../src/cell-run.js';
-import { ageCandidates, formatTune, type TuneOutcome, tuneGrid } from '../src/tune.js';
+import type { CellResult } from '../src/cell-result.js';
+import { ageCandidates, type TuneOutcome, tuneGrid } from '../src/tune.js';
+import { formatTune } from '../src/tune-format.js';
 
 describe('the tuner', () => {
   it('tries ages of a tenth, a quarter and a half of the target, and one write per record once', () => {

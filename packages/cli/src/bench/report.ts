@@ -1,12 +1,15 @@
 import { mkdirSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { FLUSH_REASONS } from '@spillway/core';
+import {
+  type CellAggregate,
+  type MachineInfo,
+  type ShapeName,
+  type ShapeParams,
+  storeLabel,
+} from '@spillway/tuner';
 import { chartSpec, renderSvg } from './charts.js';
-import type { MachineInfo } from './machine.js';
 import type { Plan } from './plan.js';
-import type { CellAggregate } from './runner.js';
-import { SHAPES, type ShapeName } from './shapes.js';
-import { storeLabel } from './stores.js';
 
 export const REPORT_VERSION = 1;
 
@@ -266,16 +269,16 @@ ${report.notes.length ? `## Notes\n\n${report.notes.map((n) => `- ${n}`).join('\
 ${sections.join('\n')}
 ## Regenerate
 
-\`npm run bench\` (the default grid, about 15–20 minutes on 2 cores), \`npm run bench -- --quick\` (a minute or two),
-or a bigger grid: \`npm run build && node benchmarks/dist/suite.js --max-records 10,50,100,500,1000,5000 --max-age 5,20,100,500,1000 --idle 0,100 --concurrency 1,4 --repeats 5\`.
-Store addresses: \`SPILLWAY_PG_URL\`, \`SPILLWAY_REDIS_URL\`, \`SPILLWAY_KAFKA_BROKERS\` (unset: a broker is started from the test harness).
+\`spillway bench\` (\`npm run bench\` in the repository) runs the default grid (about 15–20 minutes on 2 cores), \`spillway bench --quick\` a minute or two,
+or a bigger grid: \`spillway bench --max-records 10,50,100,500,1000,5000 --max-age 5,20,100,500,1000 --idle 0,100 --concurrency 1,4 --repeats 5\`.
+Store addresses: \`SPILLWAY_PG_URL\`, \`SPILLWAY_REDIS_URL\`, \`SPILLWAY_KAFKA_BROKERS\` (unset: the Kafka cells are skipped).
 Raw figures of every run: [\`results/results.json\`](${relative(join(options.markdownPath, '..'), jsonPath)}).
 `;
   writeFileSync(options.markdownPath, md);
   return { jsonPath, markdownPath: options.markdownPath, charts };
 }
 
-function shapeSummary(p: import('./shapes.js').ShapeParams): string {
+function shapeSummary(p: ShapeParams): string {
   const s = (ms: number) => `${(ms / 1000).toFixed(1)} s`;
   switch (p.shape) {
     case 'steady':
@@ -290,5 +293,3 @@ function shapeSummary(p: import('./shapes.js').ShapeParams): string {
       return `gap: ${p.rate}/s, silent from ${s(p.gapAtMs ?? 0)} for ${s(p.gapMs ?? 0)}, then again, ${s(p.durationMs)} in all`;
   }
 }
-
-export { SHAPES };

@@ -1,9 +1,7 @@
 import { hashFields, redisAdapter } from '@spillway/redis';
 import { Redis } from 'ioredis';
 import type { DockStatus } from './records.js';
-import type { OpenedStore, StoreSpec } from './stores.js';
-
-export const DEFAULT_REDIS_URL = 'redis://127.0.0.1:6379';
+import { DEFAULT_REDIS_URL, type OpenedStore, type StoreSpec } from './store-spec.js';
 
 /** Live availability per dock as a hash under a key prefix of the cell's own. */
 export async function openRedis(spec: StoreSpec, cellId: string): Promise<OpenedStore> {
