@@ -1,4 +1,3 @@
-import { EventEmitter } from 'node:events';
 import { sleep, systemClock } from './clock.js';
 import {
   AbortedError,
@@ -11,16 +10,12 @@ import {
 } from './errors.js';
 import { type ExitFlushable, holdExit, releaseExit } from './exit-net.js';
 import { Histogram } from './metrics.js';
-import {
-  invalidOption,
-  numberOption,
-  type ResolvedOptions,
-  resolveOptions,
-  type SinkOptions,
-} from './options.js';
-import { ProgressTracker } from './progress.js';
+import { invalidOption, numberOption } from './option-checks.js';
+import { type ResolvedOptions, resolveOptions, type SinkOptions } from './options.js';
+import { ProgressTracker, partitionKey } from './progress.js';
 import { fullJitterDelay } from './retry.js';
 import { estimateJsonBytes } from './size.js';
+import { TypedEmitter } from './typed-emitter.js';
 import {
   type Batch,
   type DeadLetter,
@@ -116,7 +111,7 @@ const LATENCY_STEPS_PER_MS = 100;
 
 /** Progress key of a record's source partition. */
 export function progressKey(meta: RecordMeta): string {
-  return meta.topic === undefined ? String(meta.partition ?? '') : `${meta.topic}:${meta.partition ?? ''}`;
+  return partitionKey(meta.topic, meta.partition);
 }
 
 /**
@@ -132,7 +127,7 @@ export class Sink<T> implements ExitFlushable {
 
   private readonly adapter: SinkAdapter<T>;
   private readonly o: ResolvedOptions<T>;
-  private readonly events = new EventEmitter();
+  private readonly events = new TypedEmitter<SinkEvents>();
   private readonly estimate: (record: T) => number;
   private readonly prepareHook: ((record: T) => Prepared) | undefined;
   /** What the last sizeOf() call prepared (read right after it, by the same caller). */
@@ -1092,23 +1087,22 @@ export class Sink<T> implements ExitFlushable {
   // ---------------------------------------------------------------- events & metrics
 
   on<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): this {
-    this.events.on(event, listener as (p: unknown) => void);
+    this.events.on(event, listener);
     return this;
   }
 
   off<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): this {
-    this.events.off(event, listener as (p: unknown) => void);
+    this.events.off(event, listener);
     return this;
   }
 
   once<E extends SinkEventName>(event: E, listener: (payload: SinkEvents[E]) => void): this {
-    this.events.once(event, listener as (p: unknown) => void);
+    this.events.once(event, listener);
     return this;
   }
 
   private emit<E extends SinkEventName>(event: E, payload: SinkEvents[E]): void {
-    // 'error' with no listener must not throw: the failure is in state and in every rejection.
-    if (event === 'error' && this.events.listenerCount('error') === 0) return;
+    // 'error' with no listener does not throw: the failure is in state and in every rejection.
     this.events.emit(event, payload);
   }
 

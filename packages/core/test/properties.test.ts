@@ -1,6 +1,7 @@
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, settle } from '../src/index.js';
+import { Sink } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { BadRecord, FakeAdapter, MemoryDeadLetter, Transient } from './fakes.js';
 
 type Op =

@@ -1,7 +1,8 @@
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import { describe, expect, it } from 'vitest';
-import { ManualClock, pipeInto, Sink, settle, toWritable } from '../src/index.js';
+import { pipeInto, Sink, toWritable } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { deferred, FakeAdapter } from './fakes.js';
 
 describe('Writable adapter', () => {

@@ -1,4 +1,5 @@
-import { type Batch, ManualClock, Sink, type SinkAdapter } from '@spillway/core';
+import { Sink, type SinkAdapter } from '@spillway/core';
+import { ManualClock, MemoryAdapter } from '@spillway/core/testing';
 import parsePrometheusTextFormat from 'parse-prometheus-text-format';
 import { Counter, Registry } from 'prom-client';
 import { describe, expect, it } from 'vitest';
@@ -17,20 +18,8 @@ interface Parsed {
   }>;
 }
 
-// An in-memory store: the exporter reads the engine, so the store itself does not matter here.
-class MemoryStore implements SinkAdapter<{ dock: string }> {
-  readonly kind = 'memory';
-  readonly rows: { dock: string }[] = [];
-  async write(batch: Batch<{ dock: string }>): Promise<void> {
-    this.rows.push(...batch.records);
-  }
-  classify(): 'fatal' {
-    return 'fatal';
-  }
-}
-
 function makeSink(name: string, clock = new ManualClock()) {
-  const store = new MemoryStore();
+  const store = new MemoryAdapter<{ dock: string }>();
   const sink = new Sink(store, { name, maxRecords: 3, maxAgeMs: 500, idleMs: 0, clock });
   return { sink, store, clock };
 }
