@@ -37,8 +37,10 @@ export class FakeAdapter<T> implements SinkAdapter<T> {
   readonly stored: T[] = [];
   inFlight = 0;
   maxInFlight = 0;
-  behave: (batch: Batch<T>, call: number) => Promise<PartialWrite | undefined> | PartialWrite | undefined =
-    () => undefined;
+  // biome-ignore lint/suspicious/noConfusingVoidType: a scripted write that lands everything returns nothing, like an adapter's write()
+  behave: (batch: Batch<T>, call: number) => Promise<PartialWrite | void> | PartialWrite | void = () => {};
+  /** Set to observe the sink closing its adapter. */
+  close?: () => Promise<void>;
   /** The time stamped on each call (tests pass their ManualClock's). */
   now: () => number = () => 0;
 
@@ -52,7 +54,7 @@ export class FakeAdapter<T> implements SinkAdapter<T> {
     this.inFlight++;
     this.maxInFlight = Math.max(this.maxInFlight, this.inFlight);
     try {
-      const out = await this.behave(batch, this.calls.length);
+      const out = (await this.behave(batch, this.calls.length)) ?? undefined;
       const rejected = new Set(out?.rejected.map((r) => r.index) ?? []);
       batch.records.forEach((r, i) => {
         if (!rejected.has(i)) this.stored.push(r);

@@ -26,7 +26,7 @@ export { ManualClock } from './manual-clock.js';
 export { Histogram } from './metrics.js';
 /** @deprecated import from `@spillway/core/kit` */
 export { InvalidOptionError, invalidOption } from './option-checks.js';
-export type { ResolvedOptions, RetryOptions, SinkOptions } from './options.js';
+export type { CloseOptions, ResolvedOptions, RetryOptions, SinkOptions, WriteOptions } from './options.js';
 export { DEFAULTS, defaultOrderingKey } from './options.js';
 export { ProgressTracker } from './progress.js';
 export type {
@@ -38,7 +38,6 @@ export type {
   StepContext,
 } from './shutdown.js';
 export { installShutdown, SHUTDOWN_STAGES, ShutdownCoordinator } from './shutdown.js';
-export type { CloseOptions, WriteOptions } from './sink.js';
 /** @deprecated import `partitionKey` from `@spillway/core/kit` */
 export { progressKey, Sink } from './sink.js';
 /** @deprecated import from `@spillway/core/kit` */

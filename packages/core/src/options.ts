@@ -229,3 +229,26 @@ export function resolveOptions<T>(
     clock,
   };
 }
+
+/** Options of one `write()`. */
+export interface WriteOptions {
+  /** Cancels a write that is waiting for room. */
+  signal?: AbortSignal;
+}
+
+export interface CloseOptions {
+  /** Reject if not every record is terminal by then. @default 30000 */
+  timeoutMs?: number;
+  /**
+   * What a `write()` that arrives after close() began gets.
+   * - `reject`: it rejects with `SPILLWAY_SINK_CLOSED` (and `tryWrite()` throws): writing to a
+   *   sink your own code closed is a bug in that code, and it should hear about it.
+   * - `park`: it never settles and its record is not accepted (`tryWrite()` returns false,
+   *   `tryWriteMany()` 0), so a producer loop that awaits `write()` simply stops where it is.
+   *   The shutdown coordinator closes sinks this way: a signal must not turn the caller's own
+   *   loop into an unhandled rejection that kills the process before the final flush.
+   * A later close() can turn `reject` into `park`, never the other way.
+   * @default 'reject'
+   */
+  laterWrites?: 'reject' | 'park';
+}

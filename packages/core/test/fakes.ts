@@ -30,7 +30,7 @@ export function seeded(seed: number): () => number {
 export function gatedSink(options: Record<string, unknown> = {}) {
   const clock = new ManualClock();
   const adapter = new FakeAdapter<number>();
-  const gates: Array<ReturnType<typeof deferred>> = [];
+  const gates: Array<ReturnType<typeof deferred<void>>> = [];
   adapter.behave = () => {
     const g = deferred();
     gates.push(g);

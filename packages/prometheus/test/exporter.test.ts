@@ -39,7 +39,9 @@ async function histogramSeries(registry: Registry, name: string, labels: Record<
   const values = (metric?.values ?? []).filter((v) =>
     Object.entries(labels).every(([k, want]) => v.labels[k] === want),
   );
-  const pick = (suffix: string) => values.find((v) => v.metricName === `${name}${suffix}`)?.value;
+  // prom-client's JSON view names each histogram series in `metricName`, which its types leave out.
+  const pick = (suffix: string) =>
+    values.find((v) => (v as { metricName?: string }).metricName === `${name}${suffix}`)?.value;
   return { sum: pick('_sum'), count: pick('_count'), sinks: new Set(values.map((v) => v.labels.sink)) };
 }
 
@@ -117,9 +119,9 @@ describe('PrometheusExporter', () => {
     const latency = parsed.get('spillway_sink_accept_to_durable_seconds')?.metrics[0];
     // Source: Prometheus "Exposition formats" — buckets are cumulative, `le` is an inclusive
     // upper bound, and the `+Inf` bucket equals the sample count.
-    expect(latency.buckets?.['0.25']).toBe('3');
-    expect(latency.buckets?.['0.5']).toBe('5');
-    expect(latency.buckets?.['+Inf']).toBe('5');
+    expect(latency?.buckets?.['0.25']).toBe('3');
+    expect(latency?.buckets?.['0.5']).toBe('5');
+    expect(latency?.buckets?.['+Inf']).toBe('5');
   });
 
   it('keeps histogram buckets cumulative with +Inf equal to _count', async () => {
@@ -264,8 +266,8 @@ describe('PrometheusExporter', () => {
       (await histogramSeries(exporter.registry, 'spillway_sink_event_to_durable_seconds', { sink: 'docks' }))
         .count,
     ).toBe(1);
-    expect(m.buckets?.['0.75']).toBe('0');
-    expect(m.buckets?.['2.5']).toBe('1');
+    expect(m?.buckets?.['0.75']).toBe('0');
+    expect(m?.buckets?.['2.5']).toBe('1');
   });
 
   it('close() unregisters the metrics so the registry can take a new exporter', async () => {
