@@ -307,6 +307,34 @@ export async function resolve(specifier, context, next) {
     expect(outcome.best?.settings.maxRecords).toBeGreaterThan(0);
   });
 
+  it('benchmarks into ./spillway-bench of the current directory, not into node_modules', async () => {
+    const r = await spillway([
+      'bench',
+      '--stores',
+      'noop',
+      '--shapes',
+      'steady',
+      '--max-records',
+      '100',
+      '--max-age',
+      '20',
+      '--size-only',
+      '',
+      '--repeats',
+      '1',
+      '--duration',
+      '300',
+    ]);
+    expect(r.code, shown(r)).toBe(0);
+    const page = await readFile(join(app, 'spillway-bench', 'RESULTS.md'), 'utf8');
+    expect(page).toContain('noop — steady');
+    const chart = await readFile(join(app, 'spillway-bench', 'charts', 'noop-steady.svg'), 'utf8');
+    expect(chart.startsWith('<svg')).toBe(true);
+    const cli = join(app, 'node_modules', '@spillway', 'cli');
+    const written = await run('find', [cli, '-newer', join(app, 'package-lock.json'), '-type', 'f']);
+    expect(written.stdout.trim()).toBe('');
+  });
+
   it('runs the demo for 5 s on the embedded PostgreSQL and finds every event in it', async () => {
     // Without the store variables the test run sets, the demo starts its embedded PostgreSQL.
     const env = { ...process.env };
