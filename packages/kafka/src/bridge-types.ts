@@ -42,6 +42,8 @@ export interface BridgeSnapshot {
   undecodable: number;
   /** Redelivered messages skipped because they were already taken. */
   skippedRedeliveries: number;
+  /** Messages kept from at least one sink because that sink's stored offset was past them (`offsetStores`). */
+  skippedStored: number;
   commits: number;
   commitErrors: number;
   pauses: number;
@@ -76,6 +78,7 @@ export interface BridgeCounts {
   messages: number;
   undecodable: number;
   skipped: number;
+  skippedStored: number;
   commits: number;
   commitErrors: number;
   pauses: number;
@@ -91,6 +94,8 @@ export interface BridgeControl {
   accepting(): boolean;
   /** Stopping (or stopped): partitions stay paused. */
   draining(): boolean;
+  /** Stopping, stopped or failed: nothing may resume a partition. */
+  halted(): boolean;
   /** A sink the bridge writes to failed, or the consumer crashed for good. */
   fail(error: unknown): void;
   emit<E extends BridgeEventName>(event: E, payload: BridgeEvents[E]): void;

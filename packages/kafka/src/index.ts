@@ -1,5 +1,5 @@
 export { KafkaBridge } from './bridge.js';
-export type { KafkaBridgeOptions, Route } from './bridge-options.js';
+export type { KafkaBridgeOptions, OffsetStore, OffsetStoreEntry, Route } from './bridge-options.js';
 export type {
   BridgeEventName,
   BridgeEvents,

@@ -22,6 +22,7 @@ export function bridgeSnapshot(
     messages: c.messages,
     undecodable: c.undecodable,
     skippedRedeliveries: c.skipped,
+    skippedStored: c.skippedStored,
     commits: c.commits,
     commitErrors: c.commitErrors,
     pauses: c.pauses,
