@@ -1,0 +1,226 @@
+// Exactly-once from Kafka into PostgreSQL across process deaths: consumer processes
+// (workers/bridge-worker.ts with `exactlyOnce`) store each batch's next offsets in the batch's own
+// transaction, and on assignment skip what is stored. The test kills them with SIGKILL mid-stream,
+// restarts them and counts every row: an append-only table (insert and copy modes, no key to
+// deduplicate on) must hold every message exactly once.
+//
+// SPILLWAY_EOS_RUNS (default 2) runs of SPILLWAY_EOS_MESSAGES (default 50,000) messages per mode.
+import { mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import type { Producer } from 'kafkajs';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import {
+  services,
+  sleep,
+  type TestKafka,
+  type TestSchema,
+  uniqueName,
+  waitFor,
+  withKafka,
+  withSchema,
+} from '../harness/index.js';
+import type { WorkerConfig } from './workers/bridge-worker.js';
+import { createDockTable, dockEvent, encodeEvent } from './workers/dock-rows.js';
+import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
+
+const RUNS = Number(process.env.SPILLWAY_EOS_RUNS ?? 2);
+const TOTAL = Number(process.env.SPILLWAY_EOS_MESSAGES ?? 50_000);
+const PARTITIONS = 3;
+
+let kafka: TestKafka;
+let schema: TestSchema;
+let producer: Producer;
+let dir: string;
+
+beforeAll(async () => {
+  [kafka, schema] = await Promise.all([withKafka(), withSchema('bridge_eos')]);
+  producer = kafka.kafka.producer({ allowAutoTopicCreation: false });
+  await producer.connect();
+  dir = mkdtempSync(join(tmpdir(), 'spillway-eos-'));
+});
+afterAll(async () => {
+  await producer?.disconnect();
+  await Promise.all([kafka?.drop(), schema?.drop()]);
+  if (dir) rmSync(dir, { recursive: true, force: true });
+});
+
+/** Sends dock events `from` … `to - 1`, event `seq` to partition `seq % PARTITIONS`. */
+async function produce(topic: string, from: number, to: number, chunk = 5000): Promise<void> {
+  for (let start = from; start < to; start += chunk) {
+    const end = Math.min(to, start + chunk);
+    const messages = [];
+    for (let seq = start; seq < end; seq++)
+      messages.push({ partition: seq % PARTITIONS, value: encodeEvent(dockEvent(seq)) });
+    await producer.send({ topic, acks: -1, messages });
+  }
+}
+
+async function committed(groupId: string, topic: string): Promise<Map<number, number>> {
+  const [t] = await kafka.admin.fetchOffsets({ groupId, topics: [topic] });
+  return new Map((t?.partitions ?? []).map((p) => [p.partition, Number(p.offset)]));
+}
+
+async function waitCommittedToEnd(groupId: string, topic: string): Promise<void> {
+  const ends = new Map(
+    (await kafka.admin.fetchTopicOffsets(topic)).map((o) => [o.partition, Number(o.high)]),
+  );
+  await waitFor(
+    `group ${groupId} to commit the end of ${topic}`,
+    async () => {
+      const c = await committed(groupId, topic);
+      return [...ends].every(([p, end]) => c.get(p) === end) ? true : undefined;
+    },
+    { timeoutMs: 180_000, intervalMs: 250 },
+  );
+}
+
+async function counts(table: string) {
+  const { rows } = await schema.pool.query<{
+    rows: string;
+    distinct: string;
+    min: string | null;
+    max: string | null;
+  }>(
+    `SELECT count(*) AS rows, count(DISTINCT seq) AS distinct, min(seq) AS min, max(seq) AS max FROM ${table}`,
+  );
+  const r = rows[0]!;
+  return {
+    rows: Number(r.rows),
+    distinct: Number(r.distinct),
+    min: Number(r.min ?? -1),
+    max: Number(r.max ?? -1),
+  };
+}
+
+/** The next offsets the sink stored with its rows, by partition. */
+async function storedOffsets(groupId: string, table: string): Promise<Record<string, number>> {
+  const { rows } = await schema.pool.query<{ kpartition: number; next_offset: string }>(
+    `SELECT kpartition, next_offset FROM spillway_offsets WHERE consumer_group = $1 AND target = $2`,
+    [groupId, `"${table}"`],
+  );
+  return Object.fromEntries(rows.map((r) => [String(r.kpartition), Number(r.next_offset)]));
+}
+
+function config(
+  label: string,
+  topic: string,
+  groupId: string,
+  table: string,
+  mode: 'insert' | 'copy',
+): WorkerConfig {
+  return {
+    label,
+    brokers: services().kafkaBrokers,
+    topic,
+    groupId,
+    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${schema.schema}`)}`,
+    tables: [{ table, mode }],
+    deadLetterPath: join(dir, `${label}.dead-letter.ndjson`),
+    exactlyOnce: true,
+  };
+}
+
+/** Restarts the group with a fresh worker, waits until it committed everything, and stops it. */
+async function finish(cfg: WorkerConfig, topic: string): Promise<{ worker: Worker; code: number | null }> {
+  const worker = startWorker(cfg);
+  await worker.waitFor('ready', (l) => l.event === 'ready');
+  await waitCommittedToEnd(cfg.groupId, topic);
+  worker.child.kill('SIGTERM');
+  const { code } = await worker.exited;
+  return { worker, code };
+}
+
+function lastStats(w: Worker): Record<string, unknown> {
+  return w.lines.filter((l) => l.event === 'stats').at(-1) ?? {};
+}
+
+describe('exactly-once from Kafka into PostgreSQL', () => {
+  for (const mode of ['insert', 'copy'] as const) {
+    it(`${mode} mode: kill -9 mid-stream, ${RUNS} runs of ${TOTAL} messages: after the restart the table holds every message exactly once`, async () => {
+      for (let run = 1; run <= RUNS; run++) {
+        const started = Date.now();
+        const topic = await kafka.topic(PARTITIONS, `eos_${mode}`);
+        const groupId = uniqueName(`eos_${mode}`);
+        const table = uniqueName(`eos_${mode}`);
+        await createDockTable(schema.pool, table, 'insert');
+        const cfg = config(`eos_${mode}_${run}`, topic, groupId, table, mode);
+
+        const producing = produce(topic, 0, TOTAL);
+        const first = startWorker(cfg);
+        await first.waitFor('ready', (l) => l.event === 'ready');
+        await waitFor(
+          'the first worker to be mid-stream',
+          () => (messagesTaken(first) >= TOTAL / 3 ? true : undefined),
+          {
+            timeoutMs: 120_000,
+            intervalMs: 50,
+          },
+        );
+        first.child.kill('SIGKILL');
+        const exit = await first.exited;
+        // A transaction the server had received when the client died may still commit.
+        await sleep(500);
+        const atKill = await counts(table);
+        const committedAtKill = [...(await committed(groupId, topic)).values()].reduce(
+          (a, b) => a + Math.max(0, b),
+          0,
+        );
+        await producing;
+
+        const second = await finish({ ...cfg, label: `${cfg.label}b` }, topic);
+        const final = await counts(table);
+        const stored = await storedOffsets(groupId, table);
+        const stats = lastStats(second.worker);
+        console.log(
+          `[exactly-once] ${mode} run ${run}/${RUNS}: at the kill ${atKill.rows} rows, group committed ${committedAtKill} (${atKill.rows - committedAtKill} stored but not committed); ` +
+            `after the restart ${final.rows} rows / ${final.distinct} distinct, ${String(stats.skippedStored)} messages skipped as stored; ${((Date.now() - started) / 1000).toFixed(1)} s`,
+        );
+        expect(exit.signal).toBe('SIGKILL');
+        // Source: shell convention, exit status 128 + signal number (SIGTERM = 15).
+        expect(second.code).toBe(143);
+        expect(final).toEqual({ rows: TOTAL, distinct: TOTAL, min: 0, max: TOTAL - 1 });
+        // The stored next offsets are the ends of the partitions (each got a third of the messages).
+        expect(stored).toEqual({
+          '0': Math.ceil(TOTAL / 3),
+          '1': Math.ceil((TOTAL - 1) / 3),
+          '2': Math.ceil((TOTAL - 2) / 3),
+        });
+      }
+    });
+  }
+
+  it('a kill in the first second, before any Kafka commit, still leaves every message exactly once', async () => {
+    const topic = await kafka.topic(PARTITIONS, 'eos_early');
+    const groupId = uniqueName('eos_early');
+    const table = uniqueName('eos_early');
+    await createDockTable(schema.pool, table, 'insert');
+    await produce(topic, 0, TOTAL);
+    // No commit tick before the kill: everything written is stored but not committed in Kafka.
+    const cfg = { ...config('eos_early', topic, groupId, table, 'copy'), commitIntervalMs: 600_000 };
+    const first = startWorker(cfg);
+    await first.waitFor('ready', (l) => l.event === 'ready');
+    const ready = Date.now();
+    await waitFor('the first rows', async () => ((await counts(table)).rows > 0 ? true : undefined), {
+      timeoutMs: 60_000,
+      intervalMs: 20,
+    });
+    first.child.kill('SIGKILL');
+    const killedAfterMs = Date.now() - ready;
+    await first.exited;
+    await sleep(500);
+    const atKill = await counts(table);
+    const committedAtKill = await committed(groupId, topic);
+
+    const second = await finish({ ...cfg, label: 'eos_early_b', commitIntervalMs: 300 }, topic);
+    const final = await counts(table);
+    console.log(
+      `[exactly-once] kill ${killedAfterMs} ms after ready: ${atKill.rows} rows stored, Kafka offsets committed ${JSON.stringify(Object.fromEntries(committedAtKill))}; ` +
+        `after the restart ${final.rows} rows / ${final.distinct} distinct, ${String(lastStats(second.worker).skippedStored)} skipped as stored`,
+    );
+    expect([...committedAtKill.values()].every((o) => o < 0)).toBe(true); // nothing committed in Kafka
+    expect(atKill.rows).toBeGreaterThan(0);
+    expect(second.code).toBe(143);
+    expect(final).toEqual({ rows: TOTAL, distinct: TOTAL, min: 0, max: TOTAL - 1 });
+  });
+});
