@@ -33,6 +33,8 @@ export class Intake<R> {
   private readonly beforeRejoin: () => Promise<void>;
   /** Handlers running now. */
   private readonly running = new Set<Promise<void>>();
+  /** The kafkajs `eachBatch` handler. */
+  readonly onBatch = (payload: EachBatchPayload): Promise<void> => this.track(payload);
 
   constructor(
     assignment: Assignment,
@@ -60,8 +62,8 @@ export class Intake<R> {
     await Promise.allSettled([...this.running]);
   }
 
-  /** The kafkajs `eachBatch` handler. */
-  readonly onBatch = async (payload: EachBatchPayload): Promise<void> => {
+  /** Runs one batch, known as running until it returns. */
+  private async track(payload: EachBatchPayload): Promise<void> {
     const run = this.handleBatch(payload);
     this.running.add(run);
     try {
@@ -69,7 +71,7 @@ export class Intake<R> {
     } finally {
       this.running.delete(run);
     }
-  };
+  }
 
   private async handleBatch(payload: EachBatchPayload): Promise<void> {
     const { batch, heartbeat } = payload;

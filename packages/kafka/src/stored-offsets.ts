@@ -19,6 +19,8 @@ export class StoredOffsetReader {
   private assignment: Assignment | undefined;
   /** Partitions waiting for the next read (one read per store for all partitions of a join). */
   private waiting: PartitionState[] = [];
+  /** For the assignment: called for every partition this member starts to own. */
+  readonly fresh = (st: PartitionState): void => this.add(st);
 
   constructor(stores: ReadonlyArray<OffsetStoreEntry>, group: string, control: BridgeControl) {
     this.stores = stores;
@@ -35,12 +37,12 @@ export class StoredOffsetReader {
    * A newly owned partition: marked as loading (so it is paused and not taken) until the stored
    * offsets are read. Runs inside GROUP_JOIN, before kafkajs fetches: the pause is in place first.
    */
-  readonly fresh = (st: PartitionState): void => {
+  private add(st: PartitionState): void {
     st.loading = true;
     this.assignment?.pause(st);
     this.waiting.push(st);
     if (this.waiting.length === 1) queueMicrotask(() => void this.read());
-  };
+  }
 
   private async read(): Promise<void> {
     let parts = this.waiting.splice(0);
