@@ -30,12 +30,8 @@ export interface PartitionSnapshot {
   heldMessages: number;
 }
 
-export interface BridgeSnapshot {
-  name: string;
-  state: BridgeState;
-  /** Assignments seen (GROUP_JOIN events). */
-  generation: number;
-  partitions: PartitionSnapshot[];
+/** The bridge's counters: they only grow. */
+export interface BridgeCounts {
   /** Messages taken from Kafka (redeliveries skipped are not counted). */
   messages: number;
   /** Messages dead-lettered because they could not be decoded or routed. */
@@ -52,6 +48,14 @@ export interface BridgeSnapshot {
   rebalanceFlushes: number;
   /** Rebalances where the buffered records were not all durable within `rebalanceFlushMs`. */
   rebalanceFlushTimeouts: number;
+}
+
+export interface BridgeSnapshot extends BridgeCounts {
+  name: string;
+  state: BridgeState;
+  /** Assignments seen (GROUP_JOIN events). */
+  generation: number;
+  partitions: PartitionSnapshot[];
 }
 
 /** Event payloads, by event name. */
@@ -71,20 +75,6 @@ export type BridgeEventName = keyof BridgeEvents;
 export interface StopOptions {
   /** Deadline for stop fetching → flush → commit → disconnect, ms. @default 25000 */
   timeoutMs?: number;
-}
-
-/** The bridge's counters, kept by the parts that count them. */
-export interface BridgeCounts {
-  messages: number;
-  undecodable: number;
-  skipped: number;
-  skippedStored: number;
-  commits: number;
-  commitErrors: number;
-  pauses: number;
-  rebalances: number;
-  rebalanceFlushes: number;
-  rebalanceFlushTimeouts: number;
 }
 
 /** What the bridge's parts share with the facade that wires them. */

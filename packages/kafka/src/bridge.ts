@@ -56,7 +56,7 @@ export class KafkaBridge<R> {
   private readonly counts: BridgeCounts = {
     messages: 0,
     undecodable: 0,
-    skipped: 0,
+    skippedRedeliveries: 0,
     skippedStored: 0,
     commits: 0,
     commitErrors: 0,

@@ -141,7 +141,7 @@ export class Intake<R> {
       offset = parseOffset(m.offset);
       if (since !== undefined && offset < since) {
         // Redelivered after a rejoin: already taken (and buffered, in flight, or durable).
-        this.control.counts.skipped++;
+        this.control.counts.skippedRedeliveries++;
         continue;
       }
       let sinks = this.router.routeInto(m, source, records);
