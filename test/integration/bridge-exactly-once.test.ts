@@ -5,52 +5,23 @@
 // deduplicate on) must hold every message exactly once.
 //
 // SPILLWAY_EOS_RUNS (default 2) runs of SPILLWAY_EOS_MESSAGES (default 50,000) messages per mode.
-import { mkdtempSync, rmSync } from 'node:fs';
-import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import type { Producer } from 'kafkajs';
-import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import {
-  services,
-  sleep,
-  type TestKafka,
-  type TestSchema,
-  uniqueName,
-  waitFor,
-  withKafka,
-  withSchema,
-} from '../harness/index.js';
+import { describe, expect, it } from 'vitest';
+import { services, sleep, uniqueName, waitFor } from '../harness/index.js';
 import type { WorkerConfig } from './workers/bridge-worker.js';
 import { createDockTable } from './workers/dock-rows.js';
-import { groupChecks } from './workers/group-checks.js';
+import { groupFixture } from './workers/group-checks.js';
 import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
 const RUNS = Number(process.env.SPILLWAY_EOS_RUNS ?? 2);
 const TOTAL = Number(process.env.SPILLWAY_EOS_MESSAGES ?? 50_000);
 const PARTITIONS = 3;
 
-let kafka: TestKafka;
-let schema: TestSchema;
-let producer: Producer;
-let dir: string;
-let g: ReturnType<typeof groupChecks>;
-
-beforeAll(async () => {
-  [kafka, schema] = await Promise.all([withKafka(), withSchema('bridge_eos')]);
-  producer = kafka.kafka.producer({ allowAutoTopicCreation: false });
-  await producer.connect();
-  dir = mkdtempSync(join(tmpdir(), 'spillway-eos-'));
-  g = groupChecks(kafka, schema, producer);
-});
-afterAll(async () => {
-  await producer?.disconnect();
-  await Promise.all([kafka?.drop(), schema?.drop()]);
-  if (dir) rmSync(dir, { recursive: true, force: true });
-});
+const f = groupFixture('bridge_eos');
 
 /** The next offsets the sink stored with its rows, by partition. */
 async function storedOffsets(groupId: string, table: string): Promise<Record<string, number>> {
-  const { rows } = await schema.pool.query<{ kpartition: number; next_offset: string }>(
+  const { rows } = await f.schema.pool.query<{ kpartition: number; next_offset: string }>(
     `SELECT kpartition, next_offset FROM spillway_offsets WHERE consumer_group = $1 AND target = $2`,
     [groupId, `"${table}"`],
   );
@@ -69,9 +40,9 @@ function config(
     brokers: services().kafkaBrokers,
     topic,
     groupId,
-    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${schema.schema}`)}`,
+    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${f.schema.schema}`)}`,
     tables: [{ table, mode }],
-    deadLetterPath: join(dir, `${label}.dead-letter.ndjson`),
+    deadLetterPath: join(f.dir, `${label}.dead-letter.ndjson`),
     exactlyOnce: true,
     // The bridge's default: a commit tick leaves a window of rows stored but not committed.
     commitIntervalMs: 1000,
@@ -82,7 +53,7 @@ function config(
 async function finish(cfg: WorkerConfig, topic: string): Promise<{ worker: Worker; code: number | null }> {
   const worker = startWorker(cfg);
   await worker.waitFor('ready', (l) => l.event === 'ready');
-  await g.waitCommittedToEnd(cfg.groupId, topic);
+  await f.checks.waitCommittedToEnd(cfg.groupId, topic);
   worker.child.kill('SIGTERM');
   const { code } = await worker.exited;
   return { worker, code };
@@ -98,13 +69,13 @@ describe('exactly-once from Kafka into PostgreSQL', () => {
       let replayedStored = 0;
       for (let run = 1; run <= RUNS; run++) {
         const started = Date.now();
-        const topic = await kafka.topic(PARTITIONS, `eos_${mode}`);
+        const topic = await f.kafka.topic(PARTITIONS, `eos_${mode}`);
         const groupId = uniqueName(`eos_${mode}`);
         const table = uniqueName(`eos_${mode}`);
-        await createDockTable(schema.pool, table, 'insert');
+        await createDockTable(f.schema.pool, table, 'insert');
         const cfg = config(`eos_${mode}_${run}`, topic, groupId, table, mode);
 
-        const producing = g.produce(topic, PARTITIONS, 0, TOTAL);
+        const producing = f.checks.produce(topic, PARTITIONS, 0, TOTAL);
         const first = startWorker(cfg);
         await first.waitFor('ready', (l) => l.event === 'ready');
         await waitFor(
@@ -120,19 +91,21 @@ describe('exactly-once from Kafka into PostgreSQL', () => {
         await waitFor(
           'rows stored past the committed offsets',
           async () =>
-            (await g.counts(table)).rows > (await g.committedTotal(groupId, topic)) ? true : undefined,
+            (await f.checks.counts(table)).rows > (await f.checks.committedTotal(groupId, topic))
+              ? true
+              : undefined,
           { timeoutMs: 60_000, intervalMs: 20 },
         );
         first.child.kill('SIGKILL');
         const exit = await first.exited;
         // A transaction the server had received when the client died may still commit.
         await sleep(500);
-        const atKill = await g.counts(table);
-        const committedAtKill = await g.committedTotal(groupId, topic);
+        const atKill = await f.checks.counts(table);
+        const committedAtKill = await f.checks.committedTotal(groupId, topic);
         await producing;
 
         const second = await finish({ ...cfg, label: `${cfg.label}b` }, topic);
-        const final = await g.counts(table);
+        const final = await f.checks.counts(table);
         const stored = await storedOffsets(groupId, table);
         const stats = lastStats(second.worker);
         console.log(
@@ -158,29 +131,33 @@ describe('exactly-once from Kafka into PostgreSQL', () => {
   }
 
   it('a kill in the first second, before any Kafka commit, still leaves every message exactly once', async () => {
-    const topic = await kafka.topic(PARTITIONS, 'eos_early');
+    const topic = await f.kafka.topic(PARTITIONS, 'eos_early');
     const groupId = uniqueName('eos_early');
     const table = uniqueName('eos_early');
-    await createDockTable(schema.pool, table, 'insert');
-    await g.produce(topic, PARTITIONS, 0, TOTAL);
+    await createDockTable(f.schema.pool, table, 'insert');
+    await f.checks.produce(topic, PARTITIONS, 0, TOTAL);
     // No commit tick before the kill: everything written is stored but not committed in Kafka.
     const cfg = { ...config('eos_early', topic, groupId, table, 'copy'), commitIntervalMs: 600_000 };
     const first = startWorker(cfg);
     await first.waitFor('ready', (l) => l.event === 'ready');
     const ready = Date.now();
-    await waitFor('the first rows', async () => ((await g.counts(table)).rows > 0 ? true : undefined), {
-      timeoutMs: 60_000,
-      intervalMs: 20,
-    });
+    await waitFor(
+      'the first rows',
+      async () => ((await f.checks.counts(table)).rows > 0 ? true : undefined),
+      {
+        timeoutMs: 60_000,
+        intervalMs: 20,
+      },
+    );
     first.child.kill('SIGKILL');
     const killedAfterMs = Date.now() - ready;
     await first.exited;
     await sleep(500);
-    const atKill = await g.counts(table);
-    const committedAtKill = await g.committed(groupId, topic);
+    const atKill = await f.checks.counts(table);
+    const committedAtKill = await f.checks.committed(groupId, topic);
 
     const second = await finish({ ...cfg, label: 'eos_early_b', commitIntervalMs: 300 }, topic);
-    const final = await g.counts(table);
+    const final = await f.checks.counts(table);
     console.log(
       `[exactly-once] kill ${killedAfterMs} ms after ready: ${atKill.rows} rows stored, Kafka offsets committed ${JSON.stringify(Object.fromEntries(committedAtKill))}; ` +
         `after the restart ${final.rows} rows / ${final.distinct} distinct, ${String(lastStats(second.worker).skippedStored)} skipped as stored`,

@@ -1,43 +1,14 @@
 // The consumer bridge across process deaths: consumer processes (test/integration/workers/
 // bridge-worker.ts) in one group stream dock events from the real broker into PostgreSQL, and the
 // test SIGTERMs or SIGKILLs them mid-stream, restarts them and counts every row.
-import { mkdtempSync, rmSync } from 'node:fs';
-import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import type { Producer } from 'kafkajs';
-import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import {
-  services,
-  sleep,
-  type TestKafka,
-  type TestSchema,
-  uniqueName,
-  waitFor,
-  withKafka,
-  withSchema,
-} from '../harness/index.js';
+import { describe, expect, it } from 'vitest';
+import { services, sleep, uniqueName, waitFor } from '../harness/index.js';
 import { createDockTable } from './workers/dock-rows.js';
-import { groupChecks } from './workers/group-checks.js';
+import { groupFixture } from './workers/group-checks.js';
 import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
-let kafka: TestKafka;
-let schema: TestSchema;
-let producer: Producer;
-let dir: string;
-let g: ReturnType<typeof groupChecks>;
-
-beforeAll(async () => {
-  [kafka, schema] = await Promise.all([withKafka(), withSchema('bridge_proc')]);
-  producer = kafka.kafka.producer({ allowAutoTopicCreation: false });
-  await producer.connect();
-  dir = mkdtempSync(join(tmpdir(), 'spillway-bridge-'));
-  g = groupChecks(kafka, schema, producer);
-});
-afterAll(async () => {
-  await producer?.disconnect();
-  await Promise.all([kafka?.drop(), schema?.drop()]);
-  if (dir) rmSync(dir, { recursive: true, force: true });
-});
+const f = groupFixture('bridge_proc');
 
 function workerConfig(
   label: string,
@@ -50,9 +21,9 @@ function workerConfig(
     brokers: services().kafkaBrokers,
     topic,
     groupId,
-    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${schema.schema}`)}`,
+    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${f.schema.schema}`)}`,
     tables,
-    deadLetterPath: join(dir, `${label}.dead-letter.ndjson`),
+    deadLetterPath: join(f.dir, `${label}.dead-letter.ndjson`),
   };
 }
 
@@ -65,13 +36,13 @@ describe('consumer processes of the bridge', () => {
   it('SIGTERM mid-stream flushes and commits, so after a restart the table holds every message exactly once', async () => {
     const TOTAL = 200_000;
     const PARTITIONS = 3;
-    const topic = await kafka.topic(PARTITIONS, 'dock_term');
+    const topic = await f.kafka.topic(PARTITIONS, 'dock_term');
     const groupId = uniqueName('bridge_term');
     const table = uniqueName('dock_term');
-    await createDockTable(schema.pool, table, 'insert');
+    await createDockTable(f.schema.pool, table, 'insert');
     const config = workerConfig('term', topic, groupId, [{ table, mode: 'insert' }]);
 
-    const producing = g.produce(topic, PARTITIONS, 0, TOTAL);
+    const producing = f.checks.produce(topic, PARTITIONS, 0, TOTAL);
     const first = startWorker(config);
     await first.waitFor('ready', (l) => l.event === 'ready');
     await waitFor(
@@ -81,15 +52,15 @@ describe('consumer processes of the bridge', () => {
     );
     const atSignal = messagesTaken(first);
     const exit = await stopWorker(first, 'SIGTERM');
-    const afterStop = await g.counts(table);
-    const committedAtStop = await g.committedTotal(groupId, topic);
+    const afterStop = await f.checks.counts(table);
+    const committedAtStop = await f.checks.committedTotal(groupId, topic);
     await producing;
 
     const second = startWorker({ ...config, label: 'term2' });
     await second.waitFor('ready', (l) => l.event === 'ready');
-    await g.waitCommittedToEnd(groupId, topic);
+    await f.checks.waitCommittedToEnd(groupId, topic);
     const exit2 = await stopWorker(second, 'SIGTERM');
-    const final = await g.counts(table);
+    const final = await f.checks.counts(table);
     console.log(
       `[bridge] SIGTERM: first worker took ${atSignal} messages before the signal; at exit the table held ${afterStop.rows} rows and the group had committed ${committedAtStop}; ` +
         `after the restart: ${final.rows} rows, ${final.distinct} distinct, ${final.rows - final.distinct} duplicates; exit codes ${exit.code}, ${exit2.code}`,
@@ -115,25 +86,25 @@ describe('consumer processes of the bridge', () => {
     it(`SIGTERM while the bridge is ${how} ends in an ordered flush and commit, exit 143, and commits nothing that is not durable`, async () => {
       const TOTAL = 30_000;
       const PARTITIONS = 3;
-      const topic = await kafka.topic(PARTITIONS, 'dock_stall');
+      const topic = await f.kafka.topic(PARTITIONS, 'dock_stall');
       const groupId = uniqueName('bridge_stall');
       const table = uniqueName('dock_stall');
-      await createDockTable(schema.pool, table, 'insert');
+      await createDockTable(f.schema.pool, table, 'insert');
       const config = {
         ...workerConfig(`stall${pauseAfterMs}`, topic, groupId, [{ table, mode: 'insert' as const }]),
         maxRecords: 500,
         maxPendingRecords: 1000,
         pauseAfterMs,
       };
-      await g.produce(topic, PARTITIONS, 0, TOTAL);
-      const locker = await schema.pool.connect();
+      await f.checks.produce(topic, PARTITIONS, 0, TOTAL);
+      const locker = await f.schema.pool.connect();
       let locked = false;
       try {
         const first = startWorker(config);
         await first.waitFor('ready', (l) => l.event === 'ready');
         await waitFor(
           'some rows to be written',
-          async () => ((await g.counts(table)).rows > 0 ? true : undefined),
+          async () => ((await f.checks.counts(table)).rows > 0 ? true : undefined),
           {
             timeoutMs: 60_000,
             intervalMs: 50,
@@ -146,7 +117,7 @@ describe('consumer processes of the bridge', () => {
           l.event === 'stats' &&
           (pauseAfterMs === 0 ? Number(l.paused) > 0 : Number(l.held) > 0 && Number(l.pauses) === 0);
         await first.waitFor(`the bridge to be ${how}`, stalled, 60_000);
-        const committedBefore = await g.committedTotal(groupId, topic);
+        const committedBefore = await f.checks.committedTotal(groupId, topic);
         first.child.kill('SIGTERM');
         await sleep(1500);
         // The process is still flushing: the store has not taken the buffered rows yet.
@@ -154,14 +125,14 @@ describe('consumer processes of the bridge', () => {
         await locker.query('ROLLBACK');
         locked = false;
         const exit = await first.exited;
-        const afterStop = await g.counts(table);
-        const committedAtStop = await g.committedTotal(groupId, topic);
+        const afterStop = await f.checks.counts(table);
+        const committedAtStop = await f.checks.committedTotal(groupId, topic);
 
         const second = startWorker({ ...config, label: `${config.label}b`, pauseAfterMs: 1000 });
         await second.waitFor('ready', (l) => l.event === 'ready');
-        await g.waitCommittedToEnd(groupId, topic);
+        await f.checks.waitCommittedToEnd(groupId, topic);
         const exit2 = await stopWorker(second, 'SIGTERM');
-        const final = await g.counts(table);
+        const final = await f.checks.counts(table);
         console.log(
           `[bridge] SIGTERM while ${how}: committed ${committedBefore} before the signal, ${committedAtStop} at exit, ${afterStop.rows} rows at exit; ` +
             `after the restart ${final.rows} rows, ${final.distinct} distinct; exit codes ${exit.code}, ${exit2.code}`,
@@ -184,18 +155,18 @@ describe('consumer processes of the bridge', () => {
   it('kill -9 mid-stream loses nothing: upsert equals the source and insert duplicates stay within what was uncommitted', async () => {
     const TOTAL = 200_000;
     const PARTITIONS = 3;
-    const topic = await kafka.topic(PARTITIONS, 'dock_kill');
+    const topic = await f.kafka.topic(PARTITIONS, 'dock_kill');
     const groupId = uniqueName('bridge_kill');
     const insertTable = uniqueName('dock_kill_ins');
     const upsertTable = uniqueName('dock_kill_ups');
-    await createDockTable(schema.pool, insertTable, 'insert');
-    await createDockTable(schema.pool, upsertTable, 'upsert');
+    await createDockTable(f.schema.pool, insertTable, 'insert');
+    await createDockTable(f.schema.pool, upsertTable, 'upsert');
     const config = workerConfig('kill', topic, groupId, [
       { table: insertTable, mode: 'insert' },
       { table: upsertTable, mode: 'upsert' },
     ]);
 
-    const producing = g.produce(topic, PARTITIONS, 0, TOTAL);
+    const producing = f.checks.produce(topic, PARTITIONS, 0, TOTAL);
     const first = startWorker(config);
     await first.waitFor('ready', (l) => l.event === 'ready');
     await waitFor(
@@ -207,21 +178,21 @@ describe('consumer processes of the bridge', () => {
     // A statement the server had already received when the client died still commits: give it a
     // moment before reading what is durable but uncommitted.
     await sleep(1000);
-    const c = await g.committed(groupId, topic);
-    const { rows } = await schema.pool.query<{ n: string }>(
+    const c = await f.checks.committed(groupId, topic);
+    const { rows } = await f.schema.pool.query<{ n: string }>(
       `SELECT count(*) AS n FROM ${insertTable} t WHERE t.koffset >= CASE t.kpartition ${[...c].map(([p, o]) => `WHEN ${p} THEN ${Math.max(0, o)}`).join(' ')} ELSE 0 END`,
     );
     const uncommitted = Number(rows[0]!.n);
-    const atKill = await g.counts(insertTable);
+    const atKill = await f.checks.counts(insertTable);
     await producing;
 
     const second = startWorker({ ...config, label: 'kill2' });
     await second.waitFor('ready', (l) => l.event === 'ready');
-    await g.waitCommittedToEnd(groupId, topic);
+    await f.checks.waitCommittedToEnd(groupId, topic);
     await stopWorker(second, 'SIGTERM');
-    const ins = await g.counts(insertTable);
-    const ups = await g.counts(upsertTable);
-    const wrong = await schema.pool.query<{ n: string }>(
+    const ins = await f.checks.counts(insertTable);
+    const ups = await f.checks.counts(upsertTable);
+    const wrong = await f.schema.pool.query<{ n: string }>(
       `SELECT count(*) AS n FROM ${upsertTable} WHERE dock <> 'dock-' || lpad((seq % 97)::text, 3, '0') OR bikes <> seq % 13`,
     );
     const duplicates = ins.rows - ins.distinct;
@@ -239,10 +210,10 @@ describe('consumer processes of the bridge', () => {
 
   it('scales from 1 to 3 to 2 processes of one group while a producer keeps writing, missing nothing', async () => {
     const PARTITIONS = 6;
-    const topic = await kafka.topic(PARTITIONS, 'dock_scale');
+    const topic = await f.kafka.topic(PARTITIONS, 'dock_scale');
     const groupId = uniqueName('bridge_scale');
     const table = uniqueName('dock_scale');
-    await createDockTable(schema.pool, table, 'insert');
+    await createDockTable(f.schema.pool, table, 'insert');
     const config = (label: string) => workerConfig(label, topic, groupId, [{ table, mode: 'insert' }]);
 
     // A steady producer: 400 messages every 100 ms (about 4000/s) until told to stop.
@@ -250,7 +221,7 @@ describe('consumer processes of the bridge', () => {
     let producing = true;
     const producerLoop = (async () => {
       while (producing) {
-        await g.produce(topic, PARTITIONS, produced, produced + 400);
+        await f.checks.produce(topic, PARTITIONS, produced, produced + 400);
         produced += 400;
         await sleep(100);
       }
@@ -300,9 +271,9 @@ describe('consumer processes of the bridge', () => {
 
       producing = false;
       await producerLoop;
-      await g.waitCommittedToEnd(groupId, topic);
+      await f.checks.waitCommittedToEnd(groupId, topic);
       const exits = await Promise.all([stopWorker(a, 'SIGTERM'), stopWorker(b, 'SIGTERM')]);
-      const final = await g.counts(table);
+      const final = await f.checks.counts(table);
       const perWorker = workers.map((w) => {
         const last = w.lines.filter((l) => l.event === 'stats').at(-1);
         return `${w.label}: ${String(last?.messages ?? 0)} taken, ${String(last?.skipped ?? 0)} redeliveries skipped, ${String(last?.flushes ?? 0)} rebalance flushes (${String(last?.flushTimeouts ?? 0)} timed out), ${w.lines.filter((l) => l.event === 'assign').length} assignments`;

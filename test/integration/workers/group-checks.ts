@@ -1,7 +1,11 @@
 // What the bridge process tests check from outside the consumer processes: dock events produced
 // to a topic, the group's committed offsets, and the rows of a dock table.
+import { mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import type { Producer } from 'kafkajs';
-import { type TestKafka, type TestSchema, waitFor } from '../../harness/index.js';
+import { afterAll, beforeAll } from 'vitest';
+import { type TestKafka, type TestSchema, waitFor, withKafka, withSchema } from '../../harness/index.js';
 import { dockEvent, encodeEvent } from './dock-rows.js';
 
 export interface RowCounts {
@@ -75,4 +79,32 @@ export function groupChecks(kafka: TestKafka, schema: TestSchema, producer: Prod
       };
     },
   };
+}
+
+/** The servers a bridge process test file shares: set up in beforeAll, dropped in afterAll. */
+export interface GroupFixture {
+  kafka: TestKafka;
+  schema: TestSchema;
+  producer: Producer;
+  /** A temporary directory for the workers' dead-letter files. */
+  dir: string;
+  checks: ReturnType<typeof groupChecks>;
+}
+
+/** Registers this file's beforeAll / afterAll; the returned object is filled in beforeAll. */
+export function groupFixture(schemaPrefix: string): GroupFixture {
+  const f = {} as GroupFixture;
+  beforeAll(async () => {
+    [f.kafka, f.schema] = await Promise.all([withKafka(), withSchema(schemaPrefix)]);
+    f.producer = f.kafka.kafka.producer({ allowAutoTopicCreation: false });
+    await f.producer.connect();
+    f.dir = mkdtempSync(join(tmpdir(), `spillway-${schemaPrefix}-`));
+    f.checks = groupChecks(f.kafka, f.schema, f.producer);
+  });
+  afterAll(async () => {
+    await f.producer?.disconnect();
+    await Promise.all([f.kafka?.drop(), f.schema?.drop()]);
+    if (f.dir) rmSync(f.dir, { recursive: true, force: true });
+  });
+  return f;
 }
