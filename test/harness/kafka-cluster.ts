@@ -266,11 +266,19 @@ class Cluster implements KafkaCluster {
     return node;
   }
 
-  private async partitionMetadata(topic: string, partition: number) {
-    const { topics } = await this.admin.fetchTopicMetadata({ topics: [topic] });
-    const found = topics[0]?.partitions.find((p) => p.partitionId === partition);
-    if (!found) throw new Error(`no partition ${partition} of ${topic} in the cluster's metadata`);
-    return found;
+  /**
+   * The partition's metadata, asked again for up to 10 s: right after a topic is made, a node that
+   * has not applied it yet answers UNKNOWN_TOPIC_OR_PARTITION.
+   */
+  private partitionMetadata(topic: string, partition: number) {
+    return waitFor(
+      `metadata of ${topic}/${partition}`,
+      async () => {
+        const { topics } = await this.admin.fetchTopicMetadata({ topics: [topic] });
+        return topics[0]?.partitions.find((p) => p.partitionId === partition);
+      },
+      { timeoutMs: 10_000, intervalMs: 100 },
+    );
   }
 
   async createTopic(name: string, partitions = 1): Promise<string> {
