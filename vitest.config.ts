@@ -12,7 +12,7 @@ const alias = {
   '@spillway/ingest': pkg('ingest'),
   '@spillway/prometheus': pkg('prometheus'),
   '@spillway/otel': pkg('otel'),
-  '@spillway/benchmarks': fileURLToPath(new URL('./benchmarks/src/index.ts', import.meta.url)),
+  '@spillway/tuner': pkg('tuner'),
 };
 
 export default defineConfig({
@@ -24,7 +24,7 @@ export default defineConfig({
         test: {
           name: 'unit',
           sequence: { groupOrder: 0 },
-          include: ['packages/*/test/**/*.test.ts', 'benchmarks/test/**/*.test.ts'],
+          include: ['packages/*/test/**/*.test.ts'],
           testTimeout: 20_000,
         },
       },

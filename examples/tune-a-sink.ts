@@ -7,7 +7,7 @@
 //
 // The same search from the command line:
 //   spillway tune --to postgres://postgres@127.0.0.1:5432/test --p99 250 --shape steady,trickle --rate 3000
-import { formatTune, tune } from '@spillway/benchmarks';
+import { formatTune, tune } from '@spillway/tuner';
 
 const url = process.env.DATABASE_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
 

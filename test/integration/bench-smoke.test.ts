@@ -4,8 +4,11 @@
 import { existsSync, mkdtempSync, readFileSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { type Plan, type Report, reportProblems, runSuite, SHAPES } from '@spillway/benchmarks';
+import { SHAPES } from '@spillway/tuner';
 import { afterAll, describe, expect, it } from 'vitest';
+import type { Plan } from '../../packages/cli/src/bench/plan.js';
+import { type Report, reportProblems } from '../../packages/cli/src/bench/report.js';
+import { runSuite } from '../../packages/cli/src/bench/run-suite.js';
 import { services } from '../harness/index.js';
 
 describe('the benchmark suite', () => {

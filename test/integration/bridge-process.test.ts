@@ -163,6 +163,89 @@ describe('consumer processes of the bridge', () => {
     expect(final).toEqual({ rows: TOTAL, distinct: TOTAL, min: 0, max: TOTAL - 1 });
   });
 
+  // The store stalls (the test holds a lock on the table), the sinks fill up, and the bridge either
+  // waits in its batch handler for room (pauseAfterMs long) or has paused its partitions
+  // (pauseAfterMs 0) when the SIGTERM comes. The lock is released a moment later, inside the
+  // shutdown deadline: the process must still flush, commit and exit 143.
+  for (const [how, pauseAfterMs] of [
+    ['waiting for room in a sink', 10_000],
+    ['paused because a sink is full', 0],
+  ] as const) {
+    it(`SIGTERM while the bridge is ${how} ends in an ordered flush and commit, exit 143, and commits nothing that is not durable`, async () => {
+      const TOTAL = 30_000;
+      const PARTITIONS = 3;
+      const topic = await kafka.topic(PARTITIONS, 'dock_stall');
+      const groupId = uniqueName('bridge_stall');
+      const table = uniqueName('dock_stall');
+      await createDockTable(schema.pool, table, 'insert');
+      const config = {
+        ...workerConfig(`stall${pauseAfterMs}`, topic, groupId, [{ table, mode: 'insert' as const }]),
+        maxRecords: 500,
+        maxPendingRecords: 1000,
+        pauseAfterMs,
+      };
+      await produce(topic, PARTITIONS, 0, TOTAL);
+      const locker = await schema.pool.connect();
+      let locked = false;
+      try {
+        const first = startWorker(config);
+        await first.waitFor('ready', (l) => l.event === 'ready');
+        await waitFor(
+          'some rows to be written',
+          async () => ((await counts(table)).rows > 0 ? true : undefined),
+          {
+            timeoutMs: 60_000,
+            intervalMs: 50,
+          },
+        );
+        await locker.query('BEGIN');
+        await locker.query(`LOCK TABLE ${table} IN ACCESS EXCLUSIVE MODE`);
+        locked = true;
+        const stalled = (l: { event: string; [k: string]: unknown }) =>
+          l.event === 'stats' &&
+          (pauseAfterMs === 0 ? Number(l.paused) > 0 : Number(l.held) > 0 && Number(l.pauses) === 0);
+        await first.waitFor(`the bridge to be ${how}`, stalled, 60_000);
+        const committedBefore = [...(await committed(groupId, topic)).values()].reduce(
+          (a, b) => a + Math.max(0, b),
+          0,
+        );
+        first.child.kill('SIGTERM');
+        await sleep(1500);
+        // The process is still flushing: the store has not taken the buffered rows yet.
+        expect(first.child.exitCode).toBeNull();
+        await locker.query('ROLLBACK');
+        locked = false;
+        const exit = await first.exited;
+        const afterStop = await counts(table);
+        const committedAtStop = [...(await committed(groupId, topic)).values()].reduce(
+          (a, b) => a + Math.max(0, b),
+          0,
+        );
+
+        const second = startWorker({ ...config, label: `${config.label}b`, pauseAfterMs: 1000 });
+        await second.waitFor('ready', (l) => l.event === 'ready');
+        await waitCommittedToEnd(groupId, topic);
+        const exit2 = await stopWorker(second, 'SIGTERM');
+        const final = await counts(table);
+        console.log(
+          `[bridge] SIGTERM while ${how}: committed ${committedBefore} before the signal, ${committedAtStop} at exit, ${afterStop.rows} rows at exit; ` +
+            `after the restart ${final.rows} rows, ${final.distinct} distinct; exit codes ${exit.code}, ${exit2.code}`,
+        );
+        // Source: shell convention, exit status 128 + signal number (SIGTERM = 15).
+        expect(exit.code).toBe(143);
+        expect(exit2.code).toBe(143);
+        // The flush after the signal wrote what the sinks had accepted, and the commit covered exactly that.
+        expect(afterStop.rows).toBeGreaterThan(committedBefore);
+        expect(committedAtStop).toBe(afterStop.rows);
+        expect(afterStop.rows).toBe(afterStop.distinct);
+        expect(final).toEqual({ rows: TOTAL, distinct: TOTAL, min: 0, max: TOTAL - 1 });
+      } finally {
+        if (locked) await locker.query('ROLLBACK').catch(() => undefined);
+        locker.release();
+      }
+    });
+  }
+
   it('kill -9 mid-stream loses nothing: upsert equals the source and insert duplicates stay within what was uncommitted', async () => {
     const TOTAL = 200_000;
     const PARTITIONS = 3;

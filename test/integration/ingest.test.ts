@@ -6,7 +6,7 @@ import { request } from 'node:http';
 import type { AddressInfo } from 'node:net';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { PassThrough } from 'node:stream';
+import { PassThrough, Readable } from 'node:stream';
 import { type FlushReason, ManualClock, Sink } from '@spillway/core';
 import { type ColumnSpec, ingest, ingestFile, type Row } from '@spillway/ingest';
 import { postgresAdapter, postgresSink } from '@spillway/postgres';
@@ -274,6 +274,109 @@ describe('a partner file into PostgreSQL', () => {
     const summary = await done;
     expect(summary).toMatchObject({ rowsRead: n, rowsWritten: n, durable: true });
     await sink.close();
+  });
+});
+
+describe('timestamps and over-long records into PostgreSQL', () => {
+  it('lands timestamps in timestamptz with every microsecond as sent, in copy, insert and upsert mode', async () => {
+    const values = [
+      '2024-05-01T10:00:00.123456Z',
+      '2024-05-01T12:00:00.000001+02:00',
+      '2024-05-01 10:00:00.5Z',
+      '2024-05-01',
+    ];
+    // What PostgreSQL itself makes of the same texts is what must land.
+    const expected = (
+      await db.pool.query(
+        `SELECT to_char(v::timestamptz AT TIME ZONE 'UTC', 'YYYY-MM-DD HH24:MI:SS.US') AS t FROM unnest($1::text[]) WITH ORDINALITY u(v, i) ORDER BY i`,
+        [values.map((v) => (v.length === 10 ? `${v}T00:00:00Z` : v))],
+      )
+    ).rows.map((r) => r.t as string);
+    expect(expected).toEqual([
+      '2024-05-01 10:00:00.123456',
+      '2024-05-01 10:00:00.000001',
+      '2024-05-01 10:00:00.500000',
+      '2024-05-01 00:00:00.000000',
+    ]);
+    for (const mode of ['copy', 'insert', 'upsert'] as const) {
+      const name = `stamps_${mode}`;
+      await db.pool.query(`CREATE TABLE ${name} (id int PRIMARY KEY, at timestamptz NOT NULL)`);
+      const sink = postgresSink<Row>({
+        pool: db.pool,
+        table: name,
+        columns: ['id', 'at'],
+        map: (r) => [r.id, r.at],
+        mode,
+        ...(mode === 'upsert' && { conflict: { key: ['id'] } }),
+      });
+      const csv = `id,at\n${values.map((v, i) => `${i + 1},${v}`).join('\n')}\n`;
+      const summary = await ingest(Readable.from([csv]), sink, {
+        format: 'csv',
+        columns: [
+          { name: 'id', type: 'integer', required: true },
+          { name: 'at', type: 'timestamp', required: true },
+        ],
+      });
+      await sink.close();
+      expect(summary).toMatchObject({ rowsWritten: 4, rowsRejected: 0 });
+      const { rows } = await db.pool.query(
+        `SELECT to_char(at AT TIME ZONE 'UTC', 'YYYY-MM-DD HH24:MI:SS.US') AS t FROM ${name} ORDER BY id`,
+      );
+      expect(rows.map((r) => r.t)).toEqual(expected);
+    }
+  });
+
+  it('lands a leap second as PostgreSQL reads it: 23:59:60Z is the next day 00:00:00', async () => {
+    await db.pool.query('CREATE TABLE stamps_leap (id int PRIMARY KEY, at timestamptz NOT NULL)');
+    const sink = postgresSink<Row>({
+      pool: db.pool,
+      table: 'stamps_leap',
+      columns: ['id', 'at'],
+      map: (r) => [r.id, r.at],
+      mode: 'copy',
+    });
+    // Source: RFC 3339, section 5.8, the leap second examples.
+    const csv = 'id,at\n1,1990-12-31T23:59:60Z\n2,1990-12-31T15:59:60-08:00\n';
+    await ingest(Readable.from([csv]), sink, {
+      format: 'csv',
+      columns: [
+        { name: 'id', type: 'integer' },
+        { name: 'at', type: 'timestamp' },
+      ],
+    });
+    await sink.close();
+    const { rows } = await db.pool.query(
+      `SELECT to_char(at AT TIME ZONE 'UTC', 'YYYY-MM-DD HH24:MI:SS') AS t FROM stamps_leap ORDER BY id`,
+    );
+    expect(rows.map((r) => r.t)).toEqual(['1991-01-01 00:00:00', '1991-01-01 00:00:00']);
+  });
+
+  it('never lands the inner lines of an over-long quoted record in the table', async () => {
+    await db.pool.query('CREATE TABLE long_quoted (id int PRIMARY KEY, name text)');
+    const sink = postgresSink<Row>({
+      pool: db.pool,
+      table: 'long_quoted',
+      columns: ['id', 'name'],
+      map: (r) => [r.id, r.name],
+      mode: 'copy',
+    });
+    const path = join(dir, 'long-quoted.csv');
+    await writeFile(path, `id,name\n1,a\n2,"${'y'.repeat(200)}\n99,injected\n${'z'.repeat(20)}"\n3,c\n`);
+    const rejectsPath = join(dir, 'long-quoted.rejects.ndjson');
+    const summary = await ingestFile(path, sink, {
+      columns: [{ name: 'id', type: 'integer', required: true }, { name: 'name' }],
+      maxRowBytes: 64,
+      rejects: rejectsPath,
+    });
+    await sink.close();
+    const { rows } = await db.pool.query('SELECT id FROM long_quoted ORDER BY id');
+    expect(rows.map((r) => r.id)).toEqual([1, 3]);
+    const rejects = (await readFile(rejectsPath, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l));
+    expect(rejects.map((r) => [r.line, r.reason])).toEqual([[3, 'too-long']]);
+    expect(summary).toMatchObject({ rowsRead: 3, rowsWritten: 2, rowsRejected: 1 });
   });
 });
 

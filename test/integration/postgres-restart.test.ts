@@ -25,6 +25,10 @@ beforeAll(async () => {
   admin.on('error', () => undefined);
 });
 afterAll(async () => {
+  // pool.end() resolves once its clients are removed, before their sockets close; the server's
+  // stop can then reach a closing client as 57P01, which the pool re-emits. The adapters have
+  // detached by now, so the pool needs its own listener for this last step.
+  pool?.on('error', () => undefined);
   await pool?.end().catch(() => undefined);
   await admin?.end().catch(() => undefined);
   await server?.stop();

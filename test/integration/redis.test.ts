@@ -182,7 +182,7 @@ describe('Redis adapter on the shared server', () => {
     );
     let total = 0;
     for (let d = 0; d < 7; d++) {
-      const flat = await redis.zrange(key(`d${d}`), 0, -1, 'WITHSCORES');
+      const flat = await redis.zrange(key(`d${d}`), '0', '-1', 'WITHSCORES');
       for (let j = 0; j < flat.length; j += 2) {
         const seq = Number(flat[j]!.slice('dock-'.length));
         expect(seq % 7).toBe(d);

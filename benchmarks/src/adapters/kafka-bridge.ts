@@ -26,10 +26,10 @@ import { parseArgs } from 'node:util';
 import { type RecordMeta, Sink, type SinkOptions } from '@spillway/core';
 import { DecodeError, KafkaBridge } from '@spillway/kafka';
 import { postgresAdapter } from '@spillway/postgres';
+import { machineInfo } from '@spillway/tuner';
 import { Kafka, type KafkaMessage, logLevel } from 'kafkajs';
 import pg from 'pg';
 import { kafkaBrokers } from '../kafka-broker.js';
-import { machineInfo } from '../machine.js';
 import { fmt, summary } from '../numbers.js';
 
 interface DockStatus {
@@ -70,7 +70,7 @@ const BATCH = Number(flags.batch);
 const FETCH_BYTES = Number(flags['fetch-bytes']);
 const PG_URL = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
 // SPILLWAY_KAFKA_BROKERS, or a private broker started for this run.
-const broker = await kafkaBrokers();
+const broker = kafkaBrokers();
 const BROKERS = broker.brokers;
 const tag = randomBytes(4).toString('hex');
 const TOPIC = `spillway_bench_bridge_${tag}`;
@@ -596,7 +596,6 @@ async function main(): Promise<void> {
     await setup.query(`DROP SCHEMA ${SCHEMA} CASCADE`).catch(() => undefined);
     await setup.end();
     await pool.end();
-    await broker.stop();
   }
 }
 

@@ -11,9 +11,9 @@ import { randomBytes } from 'node:crypto';
 import { parseArgs } from 'node:util';
 import { Sink } from '@spillway/core';
 import { kafkaProducerAdapter } from '@spillway/kafka';
+import { machineInfo } from '@spillway/tuner';
 import { Kafka, logLevel, type Message, Partitioners, type Producer } from 'kafkajs';
 import { kafkaBrokers } from '../kafka-broker.js';
-import { machineInfo } from '../machine.js';
 import { fmt, summary } from '../numbers.js';
 
 interface DockEvent {
@@ -100,7 +100,7 @@ async function perRecord(producer: Producer, topic: string): Promise<number> {
 }
 
 async function main(): Promise<void> {
-  const broker = await kafkaBrokers();
+  const broker = kafkaBrokers();
   const kafka = new Kafka({
     clientId: 'spillway-bench',
     brokers: broker.brokers,
@@ -169,7 +169,6 @@ async function main(): Promise<void> {
     await producer.disconnect();
     await admin.deleteTopics({ topics: [topic] }).catch(() => undefined);
     await admin.disconnect();
-    await broker.stop();
   }
 }
 

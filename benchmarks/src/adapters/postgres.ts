@@ -17,9 +17,9 @@ import { pipeline } from 'node:stream/promises';
 import { parseArgs } from 'node:util';
 import { Sink } from '@spillway/core';
 import { type PostgresMode, postgresAdapter } from '@spillway/postgres';
+import { machineInfo } from '@spillway/tuner';
 import pg from 'pg';
 import pgCopy from 'pg-copy-streams';
-import { machineInfo } from '../machine.js';
 import { fmt, summary } from '../numbers.js';
 
 interface DockStatus {

@@ -10,8 +10,8 @@ import { randomBytes } from 'node:crypto';
 import { parseArgs } from 'node:util';
 import { Sink } from '@spillway/core';
 import { hashFields, redisAdapter } from '@spillway/redis';
+import { machineInfo } from '@spillway/tuner';
 import { Redis } from 'ioredis';
-import { machineInfo } from '../machine.js';
 import { fmt, summary } from '../numbers.js';
 
 interface DockStatus {

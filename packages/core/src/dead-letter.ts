@@ -1,5 +1,8 @@
+import { accessSync, constants, statSync } from 'node:fs';
 import { chmod, type FileHandle, open } from 'node:fs/promises';
+import { dirname, resolve } from 'node:path';
 import { driverCodeOf, messageOf, SpillwayError } from './errors.js';
+import { invalidOption } from './options.js';
 import type { DeadLetter, DeadLetterTarget, RecordMeta } from './types.js';
 
 export interface FileDeadLetterOptions<T> {
@@ -87,9 +90,9 @@ export class FileDeadLetter<T = unknown> implements DeadLetterTarget<T> {
     readonly path: string,
     options: FileDeadLetterOptions<T> = {},
   ) {
-    if (typeof path !== 'string' || path.length === 0) {
-      throw new TypeError(`Expected \`path\` to be a non-empty string, got \`${String(path)}\``);
-    }
+    if (typeof path !== 'string' || path.length === 0)
+      throw invalidOption('path', 'a non-empty string', path);
+    checkWritable(path);
     this.serialize = options.serialize ?? ((r) => r);
     this.fsync = options.fsync ?? true;
   }
@@ -130,6 +133,44 @@ export class FileDeadLetter<T = unknown> implements DeadLetterTarget<T> {
 
   async close(): Promise<void> {
     await this.reopen();
+  }
+}
+
+/**
+ * Throws `SPILLWAY_DEAD_LETTER_UNWRITABLE` (naming the path and the errno) unless the file can be
+ * created or appended to: its directory exists and is writable, and the file, if it exists, is a
+ * writable regular file. Checked when the target is built, not at the first dead letter, which may
+ * come hours later with records in hand that then have nowhere to go.
+ */
+function checkWritable(path: string): void {
+  const full = resolve(path);
+  const dir = dirname(full);
+  function fail(what: string, code: string, cause?: unknown): never {
+    throw new SpillwayError(
+      'SPILLWAY_DEAD_LETTER_UNWRITABLE',
+      `Dead-letter file "${path}" cannot be written: ${what} (${code})`,
+      { cause, driverCode: code, details: { path: full, errno: code } },
+    );
+  }
+  let dirStat: ReturnType<typeof statSync>;
+  try {
+    dirStat = statSync(dir);
+  } catch (e) {
+    fail(`cannot open its directory "${dir}"`, driverCodeOf(e) ?? 'ENOENT', e);
+  }
+  if (!dirStat.isDirectory()) fail(`"${dir}" is not a directory`, 'ENOTDIR');
+  let fileStat: ReturnType<typeof statSync> | undefined;
+  try {
+    fileStat = statSync(full);
+  } catch {
+    fileStat = undefined;
+  }
+  if (fileStat?.isDirectory()) fail('it is a directory', 'EISDIR');
+  const target = fileStat === undefined ? dir : full;
+  try {
+    accessSync(target, fileStat === undefined ? constants.W_OK | constants.X_OK : constants.W_OK);
+  } catch (e) {
+    fail(`no write permission on "${target}"`, driverCodeOf(e) ?? 'EACCES', e);
   }
 }
 

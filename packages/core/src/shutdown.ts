@@ -23,6 +23,19 @@ export interface ShutdownOptions {
   exit?: boolean;
   /** Where progress lines go. Never receives record contents. @default console.error */
   log?: (line: string) => void;
+  /**
+   * Also shut down on a crash elsewhere in the program: on `uncaughtException` or
+   * `unhandledRejection` the error is logged (its message and stack; never record contents), the
+   * same ordered shutdown runs within `timeoutMs`, and the process exits 1. Every registered sink
+   * gets a best-effort flush of what it holds (buffered and in flight) within that deadline.
+   * What is not kept: records still pending when the deadline passes, and records a
+   * non-replayable source had produced but not yet handed to a sink. An error that arrives while
+   * a shutdown is already running is logged and does not cut it short (its exit code stands).
+   * `false` leaves both events to Node (which prints the error and exits 1 without a flush) or to
+   * your own handlers.
+   * @default true
+   */
+  handleCrashes?: boolean;
 }
 
 /** What a step gets: the time left and a signal that aborts at the deadline. */
@@ -51,7 +64,7 @@ interface Registered {
 /** The part of a Sink the coordinator needs. */
 export interface ClosableSink {
   readonly name: string;
-  close(options?: { timeoutMs?: number }): Promise<void>;
+  close(options?: { timeoutMs?: number; laterWrites?: 'reject' | 'park' }): Promise<void>;
   pending(): PendingCounts;
 }
 
@@ -92,12 +105,18 @@ export class ShutdownCoordinator {
     };
   }
 
-  /** Registers a sink: closed in the `sinks` stage with the time that is left. */
+  /**
+   * Registers a sink: closed in the `sinks` stage with the time that is left. The close parks
+   * later writes (`laterWrites: 'park'`): a `write()` waiting for room when it begins joins the
+   * final flush and resolves; one that arrives after it never settles and is not accepted, so the
+   * program's own producer loop stops quietly while the flush runs and the process exits with the
+   * shutdown's code.
+   */
   addSink(sink: ClosableSink): () => void {
     return this.add(
       'sinks',
       `sink ${sink.name}`,
-      ({ remainingMs }) => sink.close({ timeoutMs: Math.max(1, remainingMs) }),
+      ({ remainingMs }) => sink.close({ timeoutMs: Math.max(1, remainingMs), laterWrites: 'park' }),
       () => sink.pending(),
     );
   }
@@ -203,7 +222,8 @@ let installed: ShutdownCoordinator | undefined;
  * Installs the process-wide coordinator once (later calls return it): the first listed signal
  * starts the graceful sequence and exits with 128 + the signal's number (143 for SIGTERM, 130 for
  * SIGINT), or 1 when a step failed or the deadline passed; a second signal prints what is still
- * pending and exits at once.
+ * pending and exits at once. An uncaught exception or unhandled rejection runs the same sequence
+ * and exits 1 (see `handleCrashes`).
  */
 export function installShutdown(options: ShutdownOptions = {}): ShutdownCoordinator {
   if (installed) return installed;
@@ -221,6 +241,8 @@ export function installShutdown(options: ShutdownOptions = {}): ShutdownCoordina
     }
   }
   const exit = options.exit ?? true;
+  const handleCrashes = options.handleCrashes ?? true;
+  if (typeof handleCrashes !== 'boolean') throw invalidOption('handleCrashes', 'a boolean', handleCrashes);
   const log = options.log ?? ((line: string) => console.error(line));
   const coordinator = new ShutdownCoordinator({ ...options, log });
   installed = coordinator;
@@ -237,5 +259,26 @@ export function installShutdown(options: ShutdownOptions = {}): ShutdownCoordina
       });
     });
   }
+  if (handleCrashes) {
+    const onCrash = (kind: string) => (error: unknown) => {
+      log(`spillway: ${kind}: ${describeCrash(error)}`);
+      if (coordinator.started) {
+        log(`spillway: ${kind} during shutdown: the shutdown continues`);
+        return;
+      }
+      void coordinator.shutdown(kind).then(() => {
+        if (exit) process.exit(1);
+        else process.exitCode = 1;
+      });
+    };
+    process.on('uncaughtException', onCrash('uncaught exception'));
+    process.on('unhandledRejection', onCrash('unhandled rejection'));
+  }
   return coordinator;
+}
+
+/** An error's stack (which starts with its message), or its text: the program's own words, no records. */
+function describeCrash(error: unknown): string {
+  if (error instanceof Error) return error.stack ?? `${error.name}: ${error.message}`;
+  return messageOf(error);
 }

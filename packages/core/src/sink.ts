@@ -9,8 +9,15 @@ import {
   SinkFailedError,
   SpillwayError,
 } from './errors.js';
+import { type ExitFlushable, holdExit, releaseExit } from './exit-net.js';
 import { Histogram } from './metrics.js';
-import { type ResolvedOptions, resolveOptions, type SinkOptions } from './options.js';
+import {
+  invalidOption,
+  numberOption,
+  type ResolvedOptions,
+  resolveOptions,
+  type SinkOptions,
+} from './options.js';
 import { ProgressTracker } from './progress.js';
 import { fullJitterDelay } from './retry.js';
 import { estimateJsonBytes } from './size.js';
@@ -84,9 +91,24 @@ export interface WriteOptions {
 export interface CloseOptions {
   /** Reject if not every record is terminal by then. @default 30000 */
   timeoutMs?: number;
+  /**
+   * What a `write()` that arrives after close() began gets.
+   * - `reject`: it rejects with `SPILLWAY_SINK_CLOSED` (and `tryWrite()` throws): writing to a
+   *   sink your own code closed is a bug in that code, and it should hear about it.
+   * - `park`: it never settles and its record is not accepted (`tryWrite()` returns false,
+   *   `tryWriteMany()` 0), so a producer loop that awaits `write()` simply stops where it is.
+   *   The shutdown coordinator closes sinks this way: a signal must not turn the caller's own
+   *   loop into an unhandled rejection that kills the process before the final flush.
+   * A later close() can turn `reject` into `park`, never the other way.
+   * @default 'reject'
+   */
+  laterWrites?: 'reject' | 'park';
 }
 
 const RESOLVED = Promise.resolve();
+/** What a write gets after a `laterWrites: 'park'` close: a promise that never settles. */
+const PARKED = new Promise<void>(() => {});
+const PARK = Symbol('park');
 /** With the system clock, one clock reading stamps at most this many accepts (see acceptNow()). */
 const ACCEPTS_PER_READING = 32;
 /** Resolution of the accept → durable distribution: 10 µs. */
@@ -102,7 +124,7 @@ export function progressKey(meta: RecordMeta): string {
  * leave by size, bytes, age, idle time, or on request. Every accepted record ends exactly once as
  * durable or dead-lettered.
  */
-export class Sink<T> {
+export class Sink<T> implements ExitFlushable {
   readonly name: string;
   readonly kind: string;
   /** Commit points per source partition, over records that carried an offset. */
@@ -127,6 +149,10 @@ export class Sink<T> {
   private stateValue: SinkState = 'open';
   private fatal: unknown;
   private closing: Promise<void> | undefined;
+  /** Set by a `laterWrites: 'park'` close: later writes park instead of rejecting. */
+  private parkLaterWrites = false;
+  /** Registered with the exit net (holds records that are not terminal). */
+  private holdingExit = false;
 
   // The buffer is a FIFO array read from `head`; compacted now and then.
   private buffer: Entry<T>[] = [];
@@ -178,7 +204,7 @@ export class Sink<T> {
 
   constructor(adapter: SinkAdapter<T>, options?: SinkOptions<T>) {
     if (!adapter || typeof adapter.write !== 'function' || typeof adapter.classify !== 'function') {
-      throw new TypeError('Expected `adapter` to be a SinkAdapter with write() and classify()');
+      throw invalidOption('adapter', 'a SinkAdapter with write() and classify()', adapter);
     }
     this.adapter = adapter;
     this.kind = adapter.kind;
@@ -202,8 +228,11 @@ export class Sink<T> {
 
   /**
    * Accepts a record. Resolves at once when there is room under the pending bounds, otherwise
-   * when room frees up (or rejects with `SPILLWAY_ABORTED` when `signal` aborts). Rejects with
-   * `SPILLWAY_SINK_CLOSED` after close() began and `SPILLWAY_SINK_FAILED` after a fatal error.
+   * when room frees up (or rejects with `SPILLWAY_ABORTED` when `signal` aborts). A write still
+   * waiting for room when close() begins is accepted into the final flush (beyond the bound, by
+   * at most the number of waiting writers) and resolves. After close() began, a new write rejects
+   * with `SPILLWAY_SINK_CLOSED`, or never settles when the close was `laterWrites: 'park'` (the
+   * shutdown coordinator's); after a fatal error it rejects with `SPILLWAY_SINK_FAILED`.
    */
   write(record: T, meta?: RecordMeta, options?: WriteOptions): Promise<void> {
     return this.enqueue(record, meta, options?.signal, undefined);
@@ -216,6 +245,7 @@ export class Sink<T> {
     barrier: Barrier | undefined,
   ): Promise<void> {
     const refused = this.refusal();
+    if (refused === PARK) return PARKED;
     if (refused) return Promise.reject(refused);
     const bytes = this.sizeOf(record);
     const prepared = this.prepared;
@@ -228,10 +258,12 @@ export class Sink<T> {
 
   /**
    * Synchronous fast path for hot loops: accepts and returns true when there is room, returns
-   * false when the caller must wait (then use `write()` or `drained()`). Throws when closed.
+   * false when the caller must wait (then use `write()` or `drained()`). Throws when closed, or
+   * returns false when the close parks later writes (see `CloseOptions.laterWrites`).
    */
   tryWrite(record: T, meta?: RecordMeta): boolean {
     const refused = this.refusal();
+    if (refused === PARK) return false;
     if (refused) throw refused;
     const bytes = this.sizeOf(record);
     if (this.waiters.length > 0 || !this.hasRoom(bytes)) return false;
@@ -242,10 +274,11 @@ export class Sink<T> {
   /**
    * Synchronous fast path for many records at once: accepts records from the front of `records`
    * while there is room and returns how many it took (the caller writes the rest later). One clock
-   * read serves the whole call.
+   * read serves the whole call. After close() it throws, or returns 0 as `tryWrite()` returns false.
    */
   tryWriteMany(records: readonly T[], metas?: readonly (RecordMeta | undefined)[]): number {
     const refused = this.refusal();
+    if (refused === PARK) return 0;
     if (refused) throw refused;
     if (this.waiters.length > 0) return 0;
     const now = this.o.clock.now();
@@ -275,9 +308,9 @@ export class Sink<T> {
     return outcome;
   }
 
-  private refusal(): SpillwayError | undefined {
+  private refusal(): SpillwayError | typeof PARK | undefined {
     if (this.stateValue === 'failed') return new SinkFailedError(this.name, this.fatal);
-    if (this.stateValue !== 'open') return new SinkClosedError(this.name);
+    if (this.stateValue !== 'open') return this.parkLaterWrites ? PARK : new SinkClosedError(this.name);
     return undefined;
   }
 
@@ -345,6 +378,10 @@ export class Sink<T> {
     this.buffer.push(entry);
     this.bufferedBytes += bytes;
     this.accepted++;
+    if (!this.holdingExit) {
+      this.holdingExit = true;
+      holdExit(this);
+    }
     this.lastWriteAt = now;
     if (this.bufferedCount >= this.o.maxRecords || this.bufferedBytes >= this.o.maxBytes) this.pump();
     else if (this.timer === undefined) this.arm();
@@ -413,15 +450,20 @@ export class Sink<T> {
       const w = this.waiters[0]!;
       if (!this.hasRoom(w.bytes)) break;
       this.waiters.shift();
-      w.detach?.();
-      const waited = this.o.clock.now() - w.since;
-      this.backpressureWaits++;
-      this.backpressureWaitMsTotal += waited;
-      this.h.backpressureWaitMs.record(waited);
-      this.emit('backpressure', { sink: this.name, waitedMs: waited });
-      this.accept(w.record, w.meta, w.bytes, w.prepared, w.barrier);
-      w.resolve();
+      this.admit(w);
     }
+  }
+
+  /** Accepts a waiting writer's record and resolves its write(). */
+  private admit(w: Waiter<T>): void {
+    w.detach?.();
+    const waited = this.o.clock.now() - w.since;
+    this.backpressureWaits++;
+    this.backpressureWaitMsTotal += waited;
+    this.h.backpressureWaitMs.record(waited);
+    this.emit('backpressure', { sink: this.name, waitedMs: waited });
+    this.accept(w.record, w.meta, w.bytes, w.prepared, w.barrier);
+    w.resolve();
   }
 
   // ---------------------------------------------------------------- flushing
@@ -830,6 +872,7 @@ export class Sink<T> {
     batch.open -= entries.length;
     this.inflightRecords -= entries.length;
     this.inflightBytes -= bytes;
+    if (this.pendingRecords === 0) this.releaseExitHold();
     if (wantEvent) {
       this.emit('settled', {
         sink: this.name,
@@ -848,6 +891,8 @@ export class Sink<T> {
     this.stateValue = 'failed';
     this.fatal = error;
     this.disarm();
+    // A failed sink never writes again: nothing for the exit net to flush.
+    this.releaseExitHold();
     const refused = new SinkFailedError(this.name, error);
     for (const w of this.waiters.splice(0)) {
       w.detach?.();
@@ -917,6 +962,12 @@ export class Sink<T> {
   private flushWhere(match: (meta: RecordMeta | undefined) => boolean, reason: FlushReason): Promise<void> {
     if (this.stateValue === 'failed') return Promise.reject(new SinkFailedError(this.name, this.fatal));
     const barrier = this.barrierOver(match);
+    this.force(match, reason);
+    return barrier;
+  }
+
+  /** Marks the matching buffered records to leave now, and starts what a slot allows. */
+  private force(match: (meta: RecordMeta | undefined) => boolean, reason: FlushReason): void {
     for (let i = this.head; i < this.buffer.length; i++) {
       const e = this.buffer[i]!;
       if (e.forced === undefined && match(e.meta)) {
@@ -926,7 +977,22 @@ export class Sink<T> {
     }
     if (this.forcedCount > 0) this.forcedReason = reason;
     this.pump();
-    return barrier;
+  }
+
+  /**
+   * The event loop is about to empty while this sink holds buffered records (see exit-net.ts):
+   * they leave now (`shutdown`), and the write keeps the process alive until they are terminal.
+   * @internal
+   */
+  flushBeforeExit(): void {
+    if (this.stateValue === 'failed' || this.bufferedCount === 0) return;
+    this.force(() => true, 'shutdown');
+  }
+
+  private releaseExitHold(): void {
+    if (!this.holdingExit) return;
+    this.holdingExit = false;
+    releaseExit(this);
   }
 
   /** A promise that resolves when every pending record matching `match` is terminal. */
@@ -954,21 +1020,29 @@ export class Sink<T> {
    * Stops accepting, flushes everything (`shutdown`) and resolves when every accepted record is
    * terminal and the adapter is closed. Past `timeoutMs` it rejects with `SPILLWAY_SHUTDOWN_TIMEOUT`
    * naming how many records are pending and in which state (they keep going in the background).
+   *
+   * Writes already waiting for room when close() begins are not refused: their records join the
+   * final flush (so the pending bound is overshot by at most the number of waiting writers) and
+   * their promises resolve. Writes that arrive later reject, or park (`options.laterWrites`).
    */
   close(options: CloseOptions = {}): Promise<void> {
-    if (this.closing) return this.closing;
-    const timeoutMs = options.timeoutMs ?? 30_000;
-    if (!(typeof timeoutMs === 'number' && timeoutMs > 0)) {
-      return Promise.reject(
-        new TypeError(`Expected \`timeoutMs\` to be a finite number > 0, got \`${String(timeoutMs)}\``),
-      );
+    let timeoutMs: number;
+    let park: boolean;
+    try {
+      timeoutMs = numberOption('timeoutMs', options.timeoutMs, 30_000, { min: 0, exclusiveMin: true });
+      const later = options.laterWrites ?? 'reject';
+      if (later !== 'reject' && later !== 'park')
+        throw invalidOption('laterWrites', '"reject" or "park"', options.laterWrites);
+      park = later === 'park';
+    } catch (error) {
+      return Promise.reject(error);
     }
+    if (park) this.parkLaterWrites = true;
+    if (this.closing) return this.closing;
     const wasFailed = this.stateValue === 'failed';
     if (!wasFailed) this.stateValue = 'closing';
-    for (const w of this.waiters.splice(0)) {
-      w.detach?.();
-      w.reject(new SinkClosedError(this.name));
-    }
+    // Writers already waiting were promised room: their records join the final flush.
+    for (const w of this.waiters.splice(0)) this.admit(w);
     this.closing = (async () => {
       if (wasFailed) throw new SinkFailedError(this.name, this.fatal);
       const all = this.flushWhere(() => true, 'shutdown');
@@ -988,6 +1062,7 @@ export class Sink<T> {
       await this.adapter.close?.();
       await this.o.deadLetter?.close?.();
       this.stateValue = 'closed';
+      this.releaseExitHold();
     })();
     this.closedPromise.catch(() => {});
     this.closing.then(

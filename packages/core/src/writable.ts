@@ -22,7 +22,10 @@ export interface WritableOptions<T> {
 /**
  * An objectMode Writable that feeds a sink. `write()` returns false at `highWaterMark` and 'drain'
  * follows, so `stream.pipeline()` slows the producer when the store is slow. 'finish' is emitted
- * only once every record written is durable or dead-lettered.
+ * only once every record written is durable or dead-lettered. When the shutdown coordinator
+ * closes the sink, the chunk being written joins the final flush and later chunks park (their
+ * callback never runs), so `stream.pipeline()` stops where it is while the flush completes and the
+ * process exits with the shutdown's code; after your own `close()` a chunk fails the stream.
  */
 export function toWritable<T>(sink: Sink<T>, options: WritableOptions<T> = {}): Writable {
   const meta = options.meta;
@@ -49,7 +52,9 @@ export function toWritable<T>(sink: Sink<T>, options: WritableOptions<T> = {}): 
 
 /**
  * Writes every item of an (async) iterable into a sink, with backpressure, then waits until all
- * of them are terminal. Resolves with the number of records written.
+ * of them are terminal. Resolves with the number of records written. Once the shutdown
+ * coordinator has closed the sink it never settles: the loop stops at the next record (which is
+ * not accepted) while the coordinator flushes and exits.
  */
 export async function pipeInto<T>(
   source: Iterable<T> | AsyncIterable<T>,

@@ -1,4 +1,4 @@
-import { mkdtemp, readFile, stat, writeFile } from 'node:fs/promises';
+import { mkdir, mkdtemp, readFile, stat, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
@@ -60,5 +60,46 @@ describe('file dead-letter target', () => {
     const line = JSON.parse((await readFile(path, 'utf8')).trim());
     expect(line.record).toEqual({ base64: Buffer.from([0, 1, 255]).toString('base64') });
     expect((await stat(path)).mode & 0o777).toBe(0o600);
+  });
+
+  it('fails when it is created, not at the first dead letter, when the directory is missing', async () => {
+    const dir = await mkdtemp(join(tmpdir(), 'spillway-dl-'));
+    const path = join(dir, 'no-such-dir', 'dead.ndjson');
+    expect(() => fileDeadLetter(path)).toThrow(
+      expect.objectContaining({
+        code: 'SPILLWAY_DEAD_LETTER_UNWRITABLE',
+        driverCode: 'ENOENT',
+        message: expect.stringContaining(path),
+        details: { path, errno: 'ENOENT' },
+      }),
+    );
+  });
+
+  it('fails at creation when the path is a directory or sits under a file', async () => {
+    const dir = await mkdtemp(join(tmpdir(), 'spillway-dl-'));
+    await mkdir(join(dir, 'taken'));
+    await writeFile(join(dir, 'plain'), '');
+    expect(() => fileDeadLetter(join(dir, 'taken'))).toThrow(
+      expect.objectContaining({ code: 'SPILLWAY_DEAD_LETTER_UNWRITABLE', driverCode: 'EISDIR' }),
+    );
+    expect(() => fileDeadLetter(join(dir, 'plain', 'dead.ndjson'))).toThrow(
+      expect.objectContaining({ code: 'SPILLWAY_DEAD_LETTER_UNWRITABLE', driverCode: 'ENOTDIR' }),
+    );
+  });
+
+  // A root user may write anywhere: the permission check can only be seen as another user.
+  it.skipIf(process.getuid?.() === 0)('fails at creation when the directory is not writable', async () => {
+    const { chmod } = await import('node:fs/promises');
+    const dir = await mkdtemp(join(tmpdir(), 'spillway-dl-'));
+    await chmod(dir, 0o500);
+    expect(() => fileDeadLetter(join(dir, 'dead.ndjson'))).toThrow(
+      expect.objectContaining({ code: 'SPILLWAY_DEAD_LETTER_UNWRITABLE', driverCode: 'EACCES' }),
+    );
+  });
+
+  it('rejects an empty path as an invalid option', () => {
+    expect(() => fileDeadLetter('')).toThrow(
+      expect.objectContaining({ name: 'TypeError', code: 'SPILLWAY_INVALID_OPTION' }),
+    );
   });
 });

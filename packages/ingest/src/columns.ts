@@ -50,8 +50,10 @@ export interface ResolvedColumn {
 export type Converted = { ok: true; value: unknown } | { ok: false; reason: RejectReason; message: string };
 
 // Source: RFC 3339, section 5.6 "Internet Date/Time Format": full-date, or full-date "T" full-time
-// with a required offset (the RFC's note allows a space instead of "T"). No offset, no guess.
-const RFC3339 = /^(\d{4})-(\d{2})-(\d{2})(?:[Tt ](\d{2}):(\d{2}):(\d{2})(\.\d+)?([Zz]|[+-]\d{2}:\d{2}))?$/;
+// with a required offset (section 5.6's note allows "t", "z" and a space instead of "T"). No
+// offset, no guess.
+const RFC3339 =
+  /^(\d{4})-(\d{2})-(\d{2})(?:[Tt ](\d{2}):(\d{2}):(\d{2})(?:\.(\d+))?(?:[Zz]|([+-])(\d{2}):(\d{2})))?$/;
 // Source: RFC 8259, section 6 (JSON number grammar), with an optional leading "+" and leading zeros
 // tolerated, as spreadsheets write them (from memory: common practice).
 const NUMBER = /^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?$/;
@@ -173,20 +175,14 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
     }
     case 'timestamp': {
       if (text === undefined) return fail('type', `expected an RFC 3339 timestamp, got ${kindOf(value)}`);
-      const m = RFC3339.exec(text);
-      if (!m) return fail('type', 'expected an RFC 3339 date or date-time with offset');
-      const [y, mo, day, h = 0, mi = 0, sec = 0] = [1, 2, 3, 4, 5, 6].map((i) =>
-        m[i] === undefined ? undefined : Number(m[i]),
-      );
-      // Days past the 28th are checked against the month's length (Date.parse would roll over).
-      const tooLate = day! > 28 && day! > new Date(Date.UTC(y!, mo!, 0)).getUTCDate();
-      if (mo! < 1 || mo! > 12 || day! < 1 || tooLate || h > 23 || mi > 59 || sec > 60) {
-        return fail('type', 'not a valid calendar date or time');
-      }
-      const ms = Date.parse(m[4] === undefined ? `${text}T00:00:00Z` : text.replace(' ', 'T'));
-      if (Number.isNaN(ms)) return fail('type', 'not a valid calendar date or time');
-      const d = new Date(ms);
-      return ranged(col, d, ms, 'value');
+      const t = timestamp(text);
+      if (typeof t === 'string')
+        // Not RFC 3339 at all is `type`; valid RFC 3339 the store cannot hold exactly is `range`.
+        return fail(t === 'form' || t === 'calendar' || t === 'leap' ? 'type' : 'range', TIMESTAMP_ERRORS[t]);
+      if (col.min !== undefined && t.ms < col.min) return fail('range', `value below the minimum ${col.min}`);
+      if (col.max !== undefined && (t.ms > col.max || (t.ms === col.max && t.subMs)))
+        return fail('range', `value above the maximum ${col.max}`);
+      return { ok: true, value: t.text };
     }
     case 'json': {
       if (text === undefined) return { ok: true, value };
@@ -197,6 +193,67 @@ export function convert(col: ResolvedColumn, value: unknown): Converted {
       }
     }
   }
+}
+
+const TIMESTAMP_ERRORS = {
+  form: 'expected an RFC 3339 date or date-time with offset',
+  calendar: 'not a valid calendar date or time',
+  leap: 'a leap second (:60) is valid only at 23:59:60 UTC on the last day of a month',
+  year: 'year 0000 cannot be stored (PostgreSQL starts at 0001)',
+  offset: 'offset beyond ±15:59 cannot be stored (PostgreSQL)',
+  precision: 'more than 6 fractional digits (microseconds) cannot be stored exactly',
+} as const;
+
+/**
+ * Validates an RFC 3339 timestamp without a JS `Date` (which keeps only milliseconds), and returns
+ * the text to store: the text as sent (every digit kept), or for a date alone its UTC midnight
+ * written out, so that a store does not read it in its own time zone. `ms` is the instant in epoch
+ * milliseconds (for `min` / `max`), `subMs` whether digits below the millisecond are not zero.
+ */
+export function timestamp(
+  text: string,
+): { text: string; ms: number; subMs: boolean } | keyof typeof TIMESTAMP_ERRORS {
+  const m = RFC3339.exec(text);
+  if (!m) return 'form';
+  const y = Number(m[1]);
+  const mo = Number(m[2]);
+  const d = Number(m[3]);
+  const h = Number(m[4] ?? 0);
+  const mi = Number(m[5] ?? 0);
+  const sec = Number(m[6] ?? 0);
+  const fraction = m[7] ?? '';
+  const sign = m[8] === '-' ? -1 : 1;
+  const oh = Number(m[9] ?? 0);
+  const om = Number(m[10] ?? 0);
+  // RFC 3339 section 5.7: month 01-12, mday by month and leap year, hour 00-23, minute 00-59,
+  // second 00-60, offset hour 00-23 and minute 00-59.
+  if (mo < 1 || mo > 12 || d < 1 || d > daysIn(y, mo) || h > 23 || mi > 59 || sec > 60 || oh > 23 || om > 59)
+    return 'calendar';
+  if (y === 0) return 'year';
+  // PostgreSQL refuses a displacement past 15:59 ("time zone displacement out of range", checked
+  // on PostgreSQL 15).
+  if (oh > 15) return 'offset';
+  // PostgreSQL keeps microseconds and rounds the rest: refuse what would not land exactly.
+  if (fraction.length > 6 && !/^0+$/.test(fraction.slice(6))) return 'precision';
+  const offsetMin = sign * (oh * 60 + om);
+  // Minutes since the epoch of the instant (Date.UTC would read years 0-99 as 1900-1999).
+  const wall = new Date(0);
+  wall.setUTCFullYear(y, mo - 1, d);
+  wall.setUTCHours(h, mi, 0, 0);
+  const utcMin = wall.getTime() / 60_000 - offsetMin;
+  if (sec === 60) {
+    // RFC 3339 section 5.7: a leap second is 23:59:60 UTC (at any offset) on the last day of a month.
+    const at = new Date((utcMin + 1) * 60_000);
+    if (at.getUTCDate() !== 1 || at.getUTCHours() !== 0 || at.getUTCMinutes() !== 0) return 'leap';
+  }
+  const ms = utcMin * 60_000 + sec * 1000 + Number(fraction.slice(0, 3).padEnd(3, '0'));
+  const subMs = /[1-9]/.test(fraction.slice(3));
+  return { text: m[4] === undefined ? `${m[1]}-${m[2]}-${m[3]}T00:00:00Z` : text, ms, subMs };
+}
+
+function daysIn(year: number, month: number): number {
+  if (month === 2) return year % 4 === 0 && (year % 100 !== 0 || year % 400 === 0) ? 29 : 28;
+  return month === 4 || month === 6 || month === 9 || month === 11 ? 30 : 31;
 }
 
 function ranged(col: ResolvedColumn, value: unknown, measure: number, what: 'length' | 'value'): Converted {

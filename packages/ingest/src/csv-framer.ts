@@ -1,9 +1,20 @@
 /**
  * Finds the records of an RFC 4180 byte stream without parsing their fields: where each record
- * starts (physical line), where it ends, and whether its quoting is well formed. A malformed or
- * oversized record is cut at the next line break and reported, so one bad row never swallows the
- * rows after it and memory stays bounded by `maxRecordBytes`. Well-formed records then go to
- * csv-parse, which never sees a record it could fail on.
+ * starts (physical line), where it ends, and whether its quoting is well formed. Well-formed
+ * records then go to the field parser, which never sees a record it could fail on.
+ *
+ * Recovery rules (the README's "Reading rules" states them for users):
+ * - A record's extent follows the quotes alone, never the size limit: a record longer than
+ *   `maxRecordBytes` is still read to its end (the first line break outside quotes), only its
+ *   first `maxRecordBytes` bytes are kept, and it is rejected `too-long`. So the lines inside an
+ *   over-long quoted field never land as rows, wherever the limit falls.
+ * - A quote RFC 4180 does not allow (inside an unquoted field, text after a closing quote) makes
+ *   the quotes of that record meaningless: the record ends at the next line break, `csv-syntax`.
+ * - A quote still open at the end of the input makes everything from its record on one
+ *   `csv-syntax` reject (its first `maxRecordBytes` bytes kept): a stream cannot be re-read, and
+ *   guessing where the quote should have closed could land a partner's inner lines as rows.
+ * - The length of a record is measured without its line break (LF or CRLF).
+ * - A UTF-8 byte order mark is skipped at the start of the input only; anywhere else it is data.
  */
 
 const LF = 0x0a;
@@ -23,6 +34,12 @@ export interface CsvFrame {
   readonly truncated: boolean;
 }
 
+interface SyntaxError {
+  readonly reason: 'csv-syntax';
+  readonly message: string;
+  readonly field: number;
+}
+
 enum State {
   FieldStart,
   Unquoted,
@@ -31,19 +48,23 @@ enum State {
   QuoteInQuoted,
   /** A CR right after a closing quote: only LF may follow. */
   CrAfterQuote,
-  /** The record is bad: skip to the next LF whatever the quotes say. */
+  /** The record is malformed: its quotes mean nothing, it ends at the next LF. */
   SkipToLf,
 }
 
+const BOM = [0xef, 0xbb, 0xbf];
+
 export class CsvFramer {
   private state = State.FieldStart;
+  /** The kept bytes of the current record: at most `maxRecordBytes + 1` (room for a CR of CRLF). */
   private parts: Buffer[] = [];
   private size = 0;
+  /** The record is longer than what is kept. */
+  private over = false;
   private field = 0;
   private line = 1;
   private startLine = 1;
-  private error: CsvFrame['error'];
-  private truncated = false;
+  private error: SyntaxError | undefined;
   private atStart = true;
   /** Blank lines seen (skipped; RFC 4180 has none, spreadsheets write them). */
   blankLines = 0;
@@ -53,20 +74,20 @@ export class CsvFramer {
     private readonly maxRecordBytes: number,
   ) {}
 
-  /** The frames completed by this chunk, in order. */
-  push(chunk: Buffer): CsvFrame[] {
-    return this.feed(chunk, false);
+  /** The physical line the reader is on (1-based). */
+  get currentLine(): number {
+    return this.line;
   }
 
-  private feed(input: Buffer, final: boolean): CsvFrame[] {
+  /** The frames completed by this chunk, in order. */
+  push(chunk: Buffer): CsvFrame[] {
     const out: CsvFrame[] = [];
-    let chunk = input;
     let i = 0;
     if (this.atStart) {
       const pending = this.parts.length > 0 ? Buffer.concat([...this.parts, chunk]) : chunk;
       this.parts = [];
       this.size = 0;
-      if (!final && pending.length < 3 && isBomPrefix(pending)) {
+      if (pending.length < 3 && isBomPrefix(pending)) {
         // Fewer bytes than a BOM so far: wait to know whether they are one.
         this.keep(pending);
         return out;
@@ -78,7 +99,8 @@ export class CsvFramer {
     }
     let segStart = i;
     const delim = this.delimiter;
-    for (; i < chunk.length; i++) {
+    const n = chunk.length;
+    for (; i < n; i++) {
       const b = chunk[i]!;
       switch (this.state) {
         case State.FieldStart:
@@ -87,23 +109,37 @@ export class CsvFramer {
           else if (b === LF) {
             this.emit(out, chunk, segStart, i);
             segStart = i + 1;
-            continue;
           } else this.state = State.Unquoted;
           break;
-        case State.Unquoted:
-          if (b === delim) {
+        case State.Unquoted: {
+          // Most bytes of a file are here: run to the next byte that matters.
+          while (i + 1 < n) {
+            const c = chunk[i]!;
+            if (c === delim || c === LF || c === QUOTE) break;
+            i++;
+          }
+          const c = chunk[i]!;
+          if (c === delim) {
             this.field++;
             this.state = State.FieldStart;
-          } else if (b === LF) {
+          } else if (c === LF) {
             this.emit(out, chunk, segStart, i);
             segStart = i + 1;
-            continue;
-          } else if (b === QUOTE) this.bad('csv-syntax', 'a quote inside an unquoted field (RFC 4180 §2.5)');
+          } else if (c === QUOTE) this.bad('a quote inside an unquoted field (RFC 4180 §2.5)');
           break;
-        case State.Quoted:
-          if (b === QUOTE) this.state = State.QuoteInQuoted;
-          else if (b === LF) this.line++;
+        }
+        case State.Quoted: {
+          const q = chunk.indexOf(QUOTE, i);
+          const stop = q < 0 ? n : q;
+          // Line breaks inside quotes are data, but they still count as physical lines.
+          for (let k = chunk.indexOf(LF, i); k >= 0 && k < stop; k = chunk.indexOf(LF, k + 1)) this.line++;
+          if (q < 0) i = n - 1;
+          else {
+            i = q;
+            this.state = State.QuoteInQuoted;
+          }
           break;
+        }
         case State.QuoteInQuoted:
           if (b === QUOTE) this.state = State.Quoted;
           else if (b === delim) {
@@ -112,98 +148,133 @@ export class CsvFramer {
           } else if (b === LF) {
             this.emit(out, chunk, segStart, i);
             segStart = i + 1;
-            continue;
           } else if (b === CR) this.state = State.CrAfterQuote;
-          else this.bad('csv-syntax', 'text after a closing quote (RFC 4180 §2.7)');
+          else this.bad('text after a closing quote (RFC 4180 §2.7)');
           break;
         case State.CrAfterQuote:
           if (b === LF) {
             this.emit(out, chunk, segStart, i);
             segStart = i + 1;
-            continue;
-          }
-          this.bad('csv-syntax', 'a CR after a closing quote not followed by LF');
+          } else this.bad('a CR after a closing quote not followed by LF');
           break;
-        case State.SkipToLf:
-          if (b === LF) {
+        case State.SkipToLf: {
+          const lf = chunk.indexOf(LF, i);
+          if (lf < 0) i = n - 1;
+          else {
+            i = lf;
             this.emit(out, chunk, segStart, i);
             segStart = i + 1;
-            continue;
           }
           break;
-      }
-      // Bound memory: past the limit keep nothing more of this record, and resynchronise at the
-      // next line break (an unclosed quote would otherwise make the rest of the input one record).
-      if (!this.truncated && this.size + (i + 1 - segStart) > this.maxRecordBytes) {
-        this.keep(chunk.subarray(segStart, segStart + (this.maxRecordBytes - this.size)));
-        segStart = i + 1;
-        this.truncated = true;
-        if (!this.error)
-          this.error = {
-            reason: 'too-long',
-            message: `record longer than ${this.maxRecordBytes} bytes`,
-            field: this.field,
-          };
-        this.state = State.SkipToLf;
+        }
       }
     }
-    if (!this.truncated && segStart < chunk.length) this.keep(chunk.subarray(segStart));
+    if (segStart < n) this.keep(chunk.subarray(segStart));
     return out;
   }
 
   /** The last record, when the input does not end with a line break (RFC 4180 §2.2 allows it). */
   end(): CsvFrame[] {
     const out: CsvFrame[] = [];
-    if (this.atStart) out.push(...this.feed(Buffer.alloc(0), true));
-    if (this.state === State.Quoted)
-      this.bad('csv-syntax', 'a quoted field is not closed at the end of the input');
-    if (this.size > 0 || this.error) this.emit(out, Buffer.alloc(0), 0, 0, true);
+    if (this.atStart) {
+      // Input shorter than a byte order mark: what was held back is data.
+      this.atStart = false;
+      const held = this.parts.length > 0 ? Buffer.concat(this.parts) : Buffer.alloc(0);
+      this.parts = [];
+      this.size = 0;
+      if (held.length > 0) out.push(...this.push(held));
+    }
+    if (this.state === State.Quoted) {
+      // Everything from the record's first line on is one reject, its trailing CR included (the
+      // CR is inside the quote: data).
+      this.error = {
+        reason: 'csv-syntax',
+        message: 'a quoted field is not closed at the end of the input',
+        field: this.field,
+      };
+      this.emit(out, Buffer.alloc(0), 0, 0, true, false);
+    } else if (this.size > 0 || this.error) this.emit(out, Buffer.alloc(0), 0, 0, true);
     return out;
   }
 
+  /** Keeps bytes of the current record, up to `maxRecordBytes + 1`. */
   private keep(part: Buffer): void {
-    if (part.length === 0) return;
+    if (part.length === 0 || this.over) return;
+    const room = this.maxRecordBytes + 1 - this.size;
+    if (part.length > room) {
+      if (room > 0) this.parts.push(part.subarray(0, room));
+      this.size += room;
+      this.over = true;
+      return;
+    }
     this.parts.push(part);
     this.size += part.length;
   }
 
-  private bad(reason: 'csv-syntax' | 'too-long', message: string): void {
-    if (!this.error) this.error = { reason, message, field: this.field };
+  private bad(message: string): void {
+    if (!this.error) this.error = { reason: 'csv-syntax', message, field: this.field };
     this.state = State.SkipToLf;
   }
 
-  private emit(out: CsvFrame[], chunk: Buffer, from: number, to: number, atEnd = false): void {
-    if (!this.truncated) this.keep(chunk.subarray(from, to));
+  private emit(
+    out: CsvFrame[],
+    chunk: Buffer,
+    from: number,
+    to: number,
+    atEnd = false,
+    lineBreak = true,
+  ): void {
+    if (from < to) this.keep(chunk.subarray(from, to));
     let bytes = this.parts.length === 1 ? this.parts[0]! : Buffer.concat(this.parts, this.size);
-    // The CR of a CRLF line break is not data.
-    if (
-      !this.truncated &&
-      bytes.length > 0 &&
-      bytes[bytes.length - 1] === CR &&
-      this.state !== State.Quoted
-    ) {
+    // The CR of a CRLF line break is not data, and does not count towards the limit.
+    if (lineBreak && !this.over && bytes.length > 0 && bytes[bytes.length - 1] === CR)
       bytes = bytes.subarray(0, bytes.length - 1);
-    }
+    const max = this.maxRecordBytes;
+    const tooLong = this.over || bytes.length > max;
     if (bytes.length === 0 && !this.error) this.blankLines++;
-    else {
-      const frame: CsvFrame = this.error
-        ? { line: this.startLine, bytes, error: this.error, truncated: this.truncated }
-        : { line: this.startLine, bytes, truncated: false };
-      out.push(frame);
-    }
+    else if (this.error) {
+      out.push({
+        line: this.startLine,
+        bytes: tooLong ? bytes.subarray(0, max) : bytes,
+        error: this.error,
+        truncated: tooLong,
+      });
+    } else if (tooLong) {
+      out.push({
+        line: this.startLine,
+        bytes: bytes.subarray(0, max),
+        error: {
+          reason: 'too-long',
+          message: `record longer than ${max} bytes`,
+          field: fieldAt(bytes, max, this.delimiter),
+        },
+        truncated: true,
+      });
+    } else out.push({ line: this.startLine, bytes, truncated: false });
     this.parts = [];
     this.size = 0;
+    this.over = false;
     this.field = 0;
     this.error = undefined;
-    this.truncated = false;
     this.state = State.FieldStart;
     if (!atEnd) this.line++;
     this.startLine = this.line;
   }
 }
 
+/** The 0-based field that byte `pos` of a well-quoted record falls in. */
+function fieldAt(bytes: Buffer, pos: number, delim: number): number {
+  let field = 0;
+  let quoted = false;
+  for (let i = 0; i < pos && i < bytes.length; i++) {
+    const b = bytes[i];
+    if (b === QUOTE) quoted = !quoted;
+    else if (b === delim && !quoted) field++;
+  }
+  return field;
+}
+
 function isBomPrefix(chunk: Buffer): boolean {
-  const bom = [0xef, 0xbb, 0xbf];
-  for (let i = 0; i < chunk.length; i++) if (chunk[i] !== bom[i]) return false;
+  for (let i = 0; i < chunk.length; i++) if (chunk[i] !== BOM[i]) return false;
   return true;
 }

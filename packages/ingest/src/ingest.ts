@@ -276,7 +276,8 @@ async function run<T>(
       const obj = v as Record<string, unknown>;
       if (o.columns) {
         const cols = o.columns;
-        const built = fromColumns(cols, (c) => obj[c.from]);
+        // Own properties only: a missing `constructor` must not read Object's.
+        const built = fromColumns(cols, (c) => (Object.hasOwn(obj, c.from) ? obj[c.from] : undefined));
         if ('reason' in built) {
           await reject(item.line, item.raw, built.reason, built.message, built.column);
           return;
@@ -411,20 +412,30 @@ function fromColumns(columns: ResolvedColumn[], read: (c: ResolvedColumn) => unk
     const raw = read(c);
     if (isMissing(raw)) {
       if (c.required) return { reason: 'required', message: 'a required value is missing', column: c.name };
-      row[c.name] = null;
+      setField(row, c.name, null);
       continue;
     }
     const v = convert(c, raw);
     if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
-    row[c.name] = v.value;
+    setField(row, c.name, v.value);
   }
   return { row };
 }
 
 function fromHeader(names: string[], fields: string[]): Built {
   const row: Row = {};
-  for (let i = 0; i < names.length; i++) row[names[i]!] = fields[i];
+  for (let i = 0; i < names.length; i++) setField(row, names[i]!, fields[i]);
   return { row };
+}
+
+/**
+ * Sets an own property whatever the name: `row['__proto__'] = v` would set the row's prototype
+ * instead, and the column would vanish (a file chooses its own column names).
+ */
+function setField(row: Row, name: string, value: unknown): void {
+  if (name === '__proto__')
+    Object.defineProperty(row, name, { value, writable: true, enumerable: true, configurable: true });
+  else row[name] = value;
 }
 
 /** The input as Buffers. A Node stream is read without destroying it on an early stop. */

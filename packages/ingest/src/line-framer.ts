@@ -1,7 +1,8 @@
 /**
  * Splits a byte stream into lines (LF, or CRLF) with their 1-based numbers. A line longer than
- * `maxLineBytes` is cut: its first bytes are kept, the rest is skipped up to the next LF, so memory
- * stays bounded whatever the input holds.
+ * `maxLineBytes` (measured without its line break) is cut: its first bytes are kept, the rest is
+ * skipped up to the next LF, so memory stays bounded whatever the input holds. A UTF-8 byte order
+ * mark is skipped at the start of the input only, however the stream is cut; anywhere else it is data.
  */
 
 const LF = 0x0a;
@@ -23,10 +24,20 @@ export class LineFramer {
 
   constructor(private readonly maxLineBytes: number) {}
 
-  push(chunk: Buffer): LineFrame[] {
+  /** The first bytes of the input while they could still be a byte order mark. */
+  private head: Buffer | undefined;
+
+  push(input: Buffer): LineFrame[] {
     const out: LineFrame[] = [];
+    let chunk = input;
     let from = 0;
-    if (this.atStart && chunk.length > 0) {
+    if (this.atStart) {
+      chunk = this.head ? Buffer.concat([this.head, chunk]) : chunk;
+      this.head = undefined;
+      if (chunk.length < 3 && isBomPrefix(chunk)) {
+        this.head = chunk;
+        return out;
+      }
       this.atStart = false;
       // RFC 8259 §8.1: a parser may ignore a leading byte order mark.
       if (chunk[0] === 0xef && chunk[1] === 0xbb && chunk[2] === 0xbf) from = 3;
@@ -44,6 +55,13 @@ export class LineFramer {
 
   /** The last line when the input does not end with LF (jsonlines.org: the last separator is optional). */
   end(): LineFrame[] {
+    if (this.atStart) {
+      // Input shorter than a byte order mark: what was held back is data.
+      this.atStart = false;
+      const held = this.head;
+      this.head = undefined;
+      if (held && held.length > 0) this.push(held);
+    }
     return this.size > 0 || this.truncated ? [this.frame()] : [];
   }
 
@@ -77,4 +95,10 @@ export class LineFramer {
     this.truncated = false;
     return frame;
   }
+}
+
+function isBomPrefix(chunk: Buffer): boolean {
+  const bom = [0xef, 0xbb, 0xbf];
+  for (let i = 0; i < chunk.length; i++) if (chunk[i] !== bom[i]) return false;
+  return true;
 }

@@ -90,7 +90,8 @@ export interface IngestOptions<T = Row> {
   maxRejects?: number;
   /**
    * Longest NDJSON line / CSV record, in bytes, without its line break. A longer one is rejected
-   * (`too-long`) with only its first bytes kept; reading resumes at the next line break.
+   * (`too-long`) with only its first bytes kept; reading resumes after its end (for CSV the first
+   * line break outside quotes: the limit never decides where a record ends).
    * @default 1048576 (1 MiB)
    */
   maxRowBytes?: number;

@@ -139,7 +139,9 @@ const WHITESPACE = /^[ \t\r]*$/;
 /** NDJSON / JSON Lines: one JSON value per line, UTF-8 (jsonlines.org). */
 export function ndjsonReader(maxRowBytes: number): ItemReader {
   const framer = new LineFramer(maxRowBytes);
-  const decoder = new TextDecoder('utf-8', { fatal: true });
+  // ignoreBOM keeps a BOM inside the input as data (the framer skips the one at the start), so a
+  // line that starts with one is not JSON, the same rule as CSV.
+  const decoder = new TextDecoder('utf-8', { fatal: true, ignoreBOM: true });
   let blankLines = 0;
   let lastLine = 0;
   const items = (frames: ReturnType<LineFramer['push']>): Item[] => {

@@ -100,10 +100,12 @@ describe('CSV as RFC 4180 describes it', () => {
     expect(rejects[0]).toMatchObject({ line: 3, reason: 'csv-syntax', column: 'b' });
   });
 
-  it('cuts an unclosed quote at maxRowBytes and resumes at the next line break', async () => {
-    const { rows, rejects } = await run(`a,b\n1,"${'x'.repeat(100)}\n4,5\n`, { maxRowBytes: 50 });
+  it('rejects a quoted record longer than maxRowBytes once, keeping its first bytes, and reads on after its closing quote', async () => {
+    const { rows, rejects } = await run(`a,b\n1,"${'x'.repeat(40)}\n${'x'.repeat(60)}"\n4,5\n`, {
+      maxRowBytes: 50,
+    });
     expect(rows).toEqual([{ a: '4', b: '5' }]);
-    expect(rejects).toMatchObject([{ line: 2, reason: 'too-long', truncated: true }]);
+    expect(rejects).toMatchObject([{ line: 2, reason: 'too-long', truncated: true, column: 'b' }]);
     expect(rejects[0]!.raw.length).toBe(50);
   });
 

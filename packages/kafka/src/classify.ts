@@ -4,7 +4,7 @@
  * original on `cause`, so the chain is walked and the most specific reading wins: the broker's
  * protocol `type` first, then the kafkajs class name, then its `retriable` flag.
  */
-import { type ErrorClass, SpillwayError } from '@spillway/core';
+import { type ErrorClass, SpillwayError, StoreError } from '@spillway/core';
 
 /** Broker error types that mean one record (or the request built from it) is bad. */
 const RECORD_ERRORS: ReadonlySet<string> = new Set([
@@ -176,4 +176,18 @@ export function classifyKafkaError(error: unknown, options: KafkaClassifyOptions
     return field(outer, 'retriable') === false ? 'fatal' : 'retry';
   }
   return 'fatal';
+}
+
+/**
+ * The error a consumer crash fails the bridge with. kafkajs turns a FindCoordinator refusal into
+ * "Failed to find group coordinator" without the broker's error; against a broker with ACLs that
+ * is what a principal without READ on the group gets (seen in this repository's authorization
+ * test), so the message says where to look.
+ */
+export function explainCrash(error: unknown, groupId: string): unknown {
+  if ((error as { name?: unknown } | undefined)?.name !== 'KafkaJSGroupCoordinatorNotFound') return error;
+  return new StoreError(
+    `No coordinator found for consumer group "${groupId}". kafkajs reports this when FindCoordinator fails for good: with ACLs, when the principal lacks READ on the group (GROUP_AUTHORIZATION_FAILED); otherwise when no broker can act as coordinator.`,
+    { cause: error, driverCode: 'KafkaJSGroupCoordinatorNotFound', details: { groupId } },
+  );
 }

@@ -5,12 +5,11 @@
  * partition in this member's latest assignment, only forwards, and only from the generation it
  * was planned in.
  */
+import { messageOf, StoreError } from '@spillway/core';
+import type { Consumer } from 'kafkajs';
+import type { BridgeControl } from './bridge-types.js';
 import { kafkaErrorType } from './classify.js';
-
-/** `topic:partition`, the same key as core's `progressKey`. */
-export function partitionKey(topic: string, partition: number): string {
-  return `${topic}:${partition}`;
-}
+import { type PartitionState, partitionKey } from './partition.js';
 
 export interface PlannedCommit {
   readonly generation: number;
@@ -99,4 +98,74 @@ export function isRebalanceError(error: unknown): boolean {
 export function isRejoinSignal(error: unknown): boolean {
   const type = (error as { type?: unknown } | null)?.type;
   return type === 'REBALANCE_IN_PROGRESS' || type === 'NOT_COORDINATOR_FOR_GROUP';
+}
+
+/**
+ * Commits, for every owned partition, the offset after the last message whose records are all
+ * durable or dead-lettered. Commits are serialised; a commit refused because the group is
+ * rebalancing resolves (the next owner reads those messages again); other failures reject.
+ */
+export class Committer {
+  private readonly consumer: Consumer;
+  private readonly fence: CommitFence;
+  private readonly parts: ReadonlyMap<string, PartitionState>;
+  private readonly control: BridgeControl;
+  /** Whether there is a consumer to commit with (started and not yet disconnected). */
+  private readonly connected: () => boolean;
+  private chain: Promise<void> = Promise.resolve();
+
+  constructor(
+    consumer: Consumer,
+    fence: CommitFence,
+    parts: ReadonlyMap<string, PartitionState>,
+    control: BridgeControl,
+    connected: () => boolean,
+  ) {
+    this.consumer = consumer;
+    this.fence = fence;
+    this.parts = parts;
+    this.control = control;
+    this.connected = connected;
+  }
+
+  commit(): Promise<void> {
+    const run = this.chain.then(() => this.commitNow());
+    this.chain = run.catch(() => undefined);
+    return run;
+  }
+
+  private async commitNow(): Promise<void> {
+    if (!this.connected()) return;
+    const points: Array<{ topic: string; partition: number; offset: bigint }> = [];
+    for (const st of this.parts.values()) {
+      const offset = st.committable();
+      if (offset !== undefined) points.push({ topic: st.topic, partition: st.partition, offset });
+    }
+    const plan = this.fence.plan(points);
+    if (plan.offsets.length === 0) return;
+    const offsets = plan.offsets.map((p) => ({
+      topic: p.topic,
+      partition: p.partition,
+      offset: p.offset.toString(),
+    }));
+    const { counts } = this.control;
+    try {
+      await this.consumer.commitOffsets(offsets);
+    } catch (error) {
+      counts.commitErrors++;
+      if (isRebalanceError(error)) return;
+      const wrapped = new StoreError(
+        `Commit of ${offsets.length} partition offset(s) failed: ${messageOf(error)}`,
+        {
+          cause: error,
+          driverCode: kafkaErrorType(error),
+        },
+      );
+      this.control.emit('error', { error: wrapped, fatal: false });
+      throw wrapped;
+    }
+    this.fence.accepted(plan);
+    counts.commits++;
+    this.control.emit('commit', { offsets });
+  }
 }

@@ -1,3 +1,5 @@
+export { KafkaBridge } from './bridge.js';
+export type { KafkaBridgeOptions, Route } from './bridge-options.js';
 export type {
   BridgeEventName,
   BridgeEvents,
@@ -5,9 +7,7 @@ export type {
   BridgeState,
   PartitionSnapshot,
   StopOptions,
-} from './bridge.js';
-export { KafkaBridge } from './bridge.js';
-export type { KafkaBridgeOptions, Route } from './bridge-options.js';
+} from './bridge-types.js';
 export type { KafkaClassifyOptions } from './classify.js';
 export { classifyKafkaError, kafkaErrorType } from './classify.js';
 export type { KafkaSource, UndecodableMessage } from './decode.js';

@@ -4,7 +4,11 @@
  * and the messages of a batch still waiting for room in a sink.
  */
 import type { RecordMeta, Sink } from '@spillway/core';
-import { partitionKey } from './commits.js';
+
+/** `topic:partition`, the same key as core's `progressKey`. */
+export function partitionKey(topic: string, partition: number): string {
+  return `${topic}:${partition}`;
+}
 
 // Sinks of any record type: the bridge only calls tryWriteMany/flush/revoke and listens to events.
 // biome-ignore lint/suspicious/noExplicitAny: a route may mix sinks of different record types

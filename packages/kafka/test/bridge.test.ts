@@ -550,6 +550,23 @@ describe('KafkaBridge', () => {
     expect(bridge.snapshot().commitErrors).toBe(2);
   });
 
+  it('rejects a stop() timeoutMs that is not a finite number > 0, naming the option, and stays running', async () => {
+    const { consumer, bridge } = setup();
+    await bridge.start();
+    for (const bad of [0, -1, Number.NaN, Number.POSITIVE_INFINITY, '5000' as unknown as number]) {
+      const error = await bridge.stop({ timeoutMs: bad }).catch((e: unknown) => e);
+      expect(error).toBeInstanceOf(TypeError);
+      expect(error).toMatchObject({
+        code: 'SPILLWAY_INVALID_OPTION',
+        message: expect.stringMatching(/`timeoutMs`/),
+      });
+    }
+    expect(bridge.state).toBe('running');
+    expect(consumer.calls).not.toContain('disconnect');
+    await bridge.stop({ timeoutMs: 5000 });
+    expect(bridge.state).toBe('stopped');
+  });
+
   it('rejects bad options with a TypeError that names the option', () => {
     const base = {
       consumer: new FakeConsumer() as unknown as Consumer,

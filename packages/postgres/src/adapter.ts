@@ -1,6 +1,7 @@
 import {
   type Batch,
   type ErrorClass,
+  invalidOption,
   messageOf,
   type PartialWrite,
   type Prepared,
@@ -14,6 +15,15 @@ import type { PoolClient } from 'pg';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
 import { CopyChunks, copyLine, copyRow } from './copy-format.js';
 import { CopyIn } from './copy-in.js';
+import {
+  allStored,
+  kafkaCoordinates,
+  OffsetLedger,
+  type Ranges,
+  rangeKey,
+  rangesOf,
+  type StoredOffsets,
+} from './offsets.js';
 import {
   ADAPTER_OPTION_NAMES,
   type PostgresAdapterOptions,
@@ -52,7 +62,24 @@ export interface PostgresAdapterStats {
   poolErrors: number;
   /** `'error'` events of a client while the adapter had it checked out. */
   clientErrors: number;
+  /**
+   * With `storeOffsets`: transactions rolled back because the stored offset of a partition was
+   * already past the batch's first record (its records were stored before, by this or another
+   * consumer); the batch is then written again without them.
+   */
+  offsetConflicts: number;
+  /** With `storeOffsets`: COMMITs whose outcome was unknown (connection lost) and that the stored offsets showed had landed. */
+  commitsResolved: number;
 }
+
+/** What one attempt at a batch did: the records refused, or the stored offsets it found ahead of it. */
+interface Attempt {
+  readonly rejected: Array<{ index: number; error: unknown }>;
+  readonly conflict: StoredOffsets | undefined;
+}
+
+/** Rounds of "someone stored these already, write the rest" before a batch gives up (and is retried). */
+const MAX_OFFSET_ROUNDS = 5;
 
 /** The parts of one batch, as the adapter will send them. */
 type Step =
@@ -88,7 +115,11 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     discardedConnections: 0,
     poolErrors: 0,
     clientErrors: 0,
+    offsetConflicts: 0,
+    commitsResolved: 0,
   };
+  /** With `storeOffsets`: the progress table and its compare-and-set. */
+  private readonly ledger: OffsetLedger | undefined;
   private readonly onPoolError = () => {
     this.counters.poolErrors++;
   };
@@ -101,6 +132,8 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const names = this.options.columns.map((c) => c.name);
     this.keyIndexes = (this.options.conflict?.key ?? []).map((k) => names.indexOf(k));
     this.estimator = makeEstimator(this.options);
+    const so = this.options.storeOffsets;
+    this.ledger = so === undefined ? undefined : new OffsetLedger(so, this.sql.target, this.options.pool);
     this.prepare = this.options.mode === 'copy' ? undefined : (record) => this.prepareRow(record);
     // Without a listener, an idle client's 'error' (57P01 on a server restart) crashes the process.
     this.options.pool.on('error', this.onPoolError);
@@ -153,17 +186,92 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   // biome-ignore lint/suspicious/noConfusingVoidType: matches SinkAdapter.write
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
     this.counters.writes++;
+    let stored: StoredOffsets | undefined;
+    for (let round = 1; ; round++) {
+      const { rejected, conflict } = await this.attempt(batch, stored);
+      if (conflict === undefined) return rejected.length > 0 ? { rejected } : undefined;
+      // Records below a stored offset are in the table already: write the rest.
+      this.counters.offsetConflicts++;
+      stored = conflict;
+      if (round >= MAX_OFFSET_ROUNDS) {
+        throw new StoreError(
+          `The stored offsets of ${this.sql.target} kept moving past this batch (${round} rounds); the batch is retried`,
+          {
+            driverCode: '40001',
+            details: { table: this.options.table, mode: this.options.mode, step: 'offsets' },
+          },
+        );
+      }
+    }
+  }
+
+  /**
+   * The offsets of a Kafka bridge's consumer group stored with this table's rows, for the given
+   * partitions: the next offset to read per partition (absent where nothing is stored). Used by
+   * the bridge on assignment to skip what this table already holds.
+   */
+  async storedOffsets(
+    group: string,
+    partitions: ReadonlyArray<{ topic: string; partition: number }>,
+  ): Promise<Array<{ topic: string; partition: number; offset: string }>> {
+    const ledger = this.ledger;
+    if (ledger === undefined)
+      throw invalidOption(
+        'storeOffsets',
+        'set on the PostgreSQL sink whose stored offsets are read',
+        undefined,
+      );
+    if (group !== ledger.group)
+      throw invalidOption('groupId', `the group the sink stores offsets for ("${ledger.group}")`, group);
+    const stored = await ledger.read(partitions).catch((error: unknown) => {
+      throw this.wrap(error, 'read stored offsets');
+    });
+    const out: Array<{ topic: string; partition: number; offset: string }> = [];
+    for (const p of partitions) {
+      const next = stored.get(rangeKey(p.topic, p.partition));
+      if (next !== undefined) out.push({ topic: p.topic, partition: p.partition, offset: next.toString() });
+    }
+    return out;
+  }
+
+  /**
+   * One transaction for the batch's records, leaving out those below `stored` (already in the
+   * table). With `storeOffsets` its offsets commit with it, or it reports what is stored ahead.
+   */
+  private async attempt(batch: Batch<T>, stored: StoredOffsets | undefined): Promise<Attempt> {
     const rejected: Array<{ index: number; error: unknown }> = [];
     const { map, mode, copyFormat } = this.options;
+    const metas = batch.metas;
+    const skip = (i: number): boolean => {
+      if (stored === undefined) return false;
+      const c = kafkaCoordinates(metas[i]);
+      if (c === undefined) return false;
+      const s = stored.get(rangeKey(c.topic, c.partition));
+      return s !== undefined && c.offset < s;
+    };
+    // The records sent, for the offsets that go with them.
+    const sent: number[] = [];
+    let sentRanges: Ranges | undefined;
+    const offsets =
+      this.ledger === undefined
+        ? undefined
+        : () => {
+            sentRanges = rangesOf(metas, sent);
+            return sentRanges;
+          };
+    let steps: Step[];
     if (mode === 'copy') {
       // Encoded inside the transaction, once the COPY statement is on its way: the server parses
       // the first chunks while the rest are encoded.
       const fill = (data: CopyChunks): number => {
         rejected.length = 0;
+        sent.length = 0;
         let count = 0;
         for (let i = 0; i < batch.records.length; i++) {
+          if (skip(i)) continue;
           try {
             data.push(copyLine(this.mapped(map(batch.records[i] as T)), copyFormat));
+            sent.push(i);
             count++;
           } catch (error) {
             rejected.push({ index: i, error: this.unmappable(error) });
@@ -171,27 +279,42 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         }
         return count;
       };
-      await this.transact([{ kind: 'copy', fill }]);
-      return rejected.length > 0 ? { rejected } : undefined;
+      steps = [{ kind: 'copy', fill }];
+    } else {
+      // What prepare() made of each record when it was accepted; redone here where it is missing.
+      const prepared = batch.prepared;
+      const rows: WireValue[][] = [];
+      for (let i = 0; i < batch.records.length; i++) {
+        if (skip(i)) continue;
+        const ready = prepared?.[i];
+        if (Array.isArray(ready)) rows.push(ready as WireValue[]);
+        else {
+          try {
+            rows.push(this.wireRow(this.mapped(map(batch.records[i] as T))));
+          } catch (error) {
+            rejected.push({ index: i, error: this.unmappable(error) });
+            continue;
+          }
+        }
+        sent.push(i);
+      }
+      if (rows.length === 0) return { rejected, conflict: undefined };
+      steps = mode === 'insert' ? [{ kind: 'values', rows }] : this.plan(rows);
     }
-    // What prepare() made of each record when it was accepted; redone here where it is missing.
-    const prepared = batch.prepared;
-    const rows: WireValue[][] = [];
-    for (let i = 0; i < batch.records.length; i++) {
-      const ready = prepared?.[i];
-      if (Array.isArray(ready)) rows.push(ready as WireValue[]);
-      else {
-        try {
-          rows.push(this.wireRow(this.mapped(map(batch.records[i] as T))));
-        } catch (error) {
-          rejected.push({ index: i, error: this.unmappable(error) });
+    try {
+      return { rejected, conflict: await this.transact(steps, offsets) };
+    } catch (error) {
+      // A COMMIT whose outcome is unknown is settled by the stored offsets, not by guessing.
+      if (sentRanges !== undefined && error instanceof StoreError && error.details.outcomeUnknown === true) {
+        const now = await this.ledger!.read([...sentRanges.values()], true).catch(() => undefined);
+        if (now !== undefined && allStored(sentRanges, now)) {
+          this.counters.commitsResolved++;
+          this.counters.committed++;
+          return { rejected, conflict: undefined };
         }
       }
+      throw error;
     }
-    if (rows.length > 0) {
-      await this.transact(mode === 'insert' ? [{ kind: 'values', rows }] : this.plan(rows));
-    }
-    return rejected.length > 0 ? { rejected } : undefined;
   }
 
   private mapped(values: readonly unknown[]): readonly unknown[] {
@@ -254,7 +377,12 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     return n;
   }
 
-  private async transact(steps: readonly Step[]): Promise<void> {
+  /**
+   * Sends `steps` as one transaction. With `offsets` (storeOffsets) the ranges it returns, read
+   * once the data is sent, are claimed in the same transaction; if the stored offsets are ahead
+   * the transaction rolls back and resolves with them.
+   */
+  private async transact(steps: readonly Step[], offsets?: () => Ranges): Promise<StoredOffsets | undefined> {
     let client: PoolClient;
     try {
       client = await this.options.pool.connect();
@@ -269,12 +397,12 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     };
     client.on('error', onError);
     // One statement is a transaction of its own; more need BEGIN / COMMIT to stay one.
-    const explicit = this.statementCount(steps) > 1;
+    const explicit = this.statementCount(steps) + (offsets === undefined ? 0 : 1) > 1;
     // A batch that is one staging round goes as one simple query, BEGIN to COMMIT, with its COPY
     // data right behind it: one round trip, and the server has the whole batch to work on while
     // this process does anything else.
     const only = steps.length === 1 ? steps[0] : undefined;
-    const oneTrip = only?.kind === 'stage';
+    const oneTrip = only?.kind === 'stage' && offsets === undefined;
     let step = 'begin';
     let failure: unknown;
     try {
@@ -287,8 +415,13 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         const rows = await this.copy(client, text, this.copyRows(only.rows));
         this.counters.committed++;
         this.counters.rows += rows;
-        return;
+        return undefined;
       }
+      if (offsets !== undefined && this.ledger !== undefined) {
+        step = 'offsets';
+        await this.ledger.ensure(client);
+      }
+      step = 'begin';
       if (explicit) await this.run(client, 'BEGIN');
       let staged = false;
       let rows = 0;
@@ -313,10 +446,23 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
           await this.run(client, this.sql.mergeStage);
         }
       }
+      const ranges = offsets?.();
+      if (ranges !== undefined && ranges.size > 0 && this.ledger !== undefined) {
+        step = 'offsets';
+        this.counters.statements++;
+        const ahead = await this.ledger.claim(client, ranges);
+        if (ahead !== undefined) {
+          step = 'rollback';
+          await this.run(client, 'ROLLBACK');
+          this.counters.rollbacks++;
+          return ahead;
+        }
+      }
       step = 'commit';
       if (explicit) await this.run(client, 'COMMIT');
       this.counters.committed++;
       this.counters.rows += rows;
+      return undefined;
     } catch (error) {
       failure = error;
       this.counters.failed++;

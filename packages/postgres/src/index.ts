@@ -9,5 +9,6 @@ export type {
   InsertForm,
   PostgresAdapterOptions,
   PostgresMode,
+  StoreOffsetsOptions,
 } from './options.js';
 export { MAX_PARAMETERS, POSTGRES_DEFAULTS } from './options.js';

@@ -54,6 +54,28 @@ export interface ConflictOptions {
   readonly update?: readonly string[];
 }
 
+/** Where and under which consumer group the adapter keeps the offsets it stores with the data. */
+export interface StoreOffsetsOptions {
+  /**
+   * The consumer group of the Kafka bridge that feeds this sink (the bridge's `groupId`).
+   * @example 'dock-status-writer'
+   */
+  readonly group: string;
+  /**
+   * The progress table the adapter creates (if missing) and owns: one row per consumer group,
+   * target table, topic and partition, holding the next offset to read.
+   * @default 'spillway_offsets'
+   * @example 'dock_status_offsets'
+   */
+  readonly table?: string;
+  /**
+   * Schema of the progress table.
+   * @default the adapter's `schema` (or the search_path when none)
+   * @example 'tandem'
+   */
+  readonly schema?: string;
+}
+
 export interface PostgresAdapterOptions<T> {
   /**
    * The application's `pg` Pool. The adapter borrows one client per batch and never ends the
@@ -132,6 +154,15 @@ export interface PostgresAdapterOptions<T> {
    * @example 2000
    */
   readonly maxRowsPerStatement?: number;
+  /**
+   * Exactly-once from a Kafka bridge: each batch's transaction also stores, for every source
+   * partition in the batch, the next offset to read, so that rows and offsets commit together or
+   * not at all. A Kafka bridge given this sink in `offsetStores` skips what is stored on
+   * assignment. Records without Kafka metadata are written as usual and store nothing.
+   * @default undefined (at-least-once)
+   * @example { group: 'dock-status-writer' }
+   */
+  readonly storeOffsets?: StoreOffsetsOptions;
 }
 
 /** Options after defaults and validation. */
@@ -147,6 +178,7 @@ export interface ResolvedPostgresOptions<T> {
   upsertViaCopyAbove: number;
   insertForm: InsertForm;
   rowsPerStatement: number;
+  storeOffsets: { group: string; table: string; schema: string | undefined } | undefined;
 }
 
 /** The Bind message carries the parameter count as an Int16 (PostgreSQL protocol, "Bind"). */
@@ -171,6 +203,7 @@ const KNOWN = new Set([
   'upsertViaCopyAbove',
   'insertForm',
   'maxRowsPerStatement',
+  'storeOffsets',
 ]);
 
 /** Names of the adapter's own options (the rest of a `postgresSink` options object goes to the Sink). */
@@ -340,7 +373,26 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   if (limit < 1) throw invalidOption('columns', `at most ${MAX_PARAMETERS} columns`, columns.length);
   const rowsPerStatement = countOption('maxRowsPerStatement', o.maxRowsPerStatement, limit, 1, false);
 
+  let storeOffsets: ResolvedPostgresOptions<T>['storeOffsets'];
+  if (o.storeOffsets !== undefined) {
+    const so = o.storeOffsets as Record<string, unknown> | null;
+    if (typeof so !== 'object' || so === null)
+      throw invalidOption('storeOffsets', 'an object { group, table?, schema? }', o.storeOffsets);
+    for (const key of Object.keys(so)) {
+      if (key !== 'group' && key !== 'table' && key !== 'schema')
+        throw invalidOption(`storeOffsets.${key}`, 'one of group, table, schema', so[key]);
+    }
+    if (typeof so.group !== 'string' || so.group.length === 0)
+      throw invalidOption('storeOffsets.group', 'a non-empty string (the consumer group id)', so.group);
+    storeOffsets = {
+      group: so.group,
+      table: so.table === undefined ? 'spillway_offsets' : identifier('storeOffsets.table', so.table),
+      schema: so.schema === undefined ? schema : identifier('storeOffsets.schema', so.schema),
+    };
+  }
+
   return {
+    storeOffsets,
     pool,
     table,
     schema,

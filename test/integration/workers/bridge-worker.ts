@@ -21,6 +21,10 @@ export interface WorkerConfig {
   deadLetterPath: string;
   maxRecords?: number;
   maxAgeMs?: number;
+  /** The sinks' `maxPendingRecords` (small: the bridge runs out of room soon when writes stall). */
+  maxPendingRecords?: number;
+  /** The bridge's `pauseAfterMs`. */
+  pauseAfterMs?: number;
   /** Print every commit (for the kill -9 test, which compares them with the rows). */
   logCommits?: boolean;
 }
@@ -44,6 +48,7 @@ const sinks = config.tables.map(
       name: table,
       maxRecords: config.maxRecords ?? 1000,
       maxAgeMs: config.maxAgeMs ?? 200,
+      ...(config.maxPendingRecords === undefined ? {} : { maxPendingRecords: config.maxPendingRecords }),
       deadLetter: fileDeadLetter(`${config.deadLetterPath}.${table}`),
     }),
 );
@@ -67,6 +72,7 @@ const bridge = new KafkaBridge<DockRow>({
   deadLetter: fileDeadLetter(config.deadLetterPath),
   commitIntervalMs: 300,
   rebalanceFlushMs: 4000,
+  ...(config.pauseAfterMs === undefined ? {} : { pauseAfterMs: config.pauseAfterMs }),
   shutdown,
   name: config.label,
 });
@@ -84,6 +90,9 @@ const printStats = () => {
     skipped: s.skippedRedeliveries,
     flushes: s.rebalanceFlushes,
     flushTimeouts: s.rebalanceFlushTimeouts,
+    pauses: s.pauses,
+    paused: s.partitions.filter((p) => p.paused).length,
+    held: s.partitions.reduce((n, p) => n + p.heldMessages, 0),
   });
 };
 const stats = setInterval(printStats, 500);

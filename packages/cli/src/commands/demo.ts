@@ -1,7 +1,6 @@
 import { installShutdown, messageOf } from '@spillway/core';
 import { type Command, InvalidArgumentError } from 'commander';
 import { DEMO_DEFAULTS, type DemoOptions } from '../demo/options.js';
-import { demoOutput, runDemo } from '../demo/run-demo.js';
 
 function positiveNumber(value: string): number {
   const n = Number(value);
@@ -86,6 +85,8 @@ export function registerDemo(program: Command): void {
         metricsPort: flags.metricsPort as number | undefined,
         view: flags.plain ? 'plain' : 'auto',
       };
+      // The demo's stores and drivers load when it runs, not when `spillway` starts.
+      const { demoOutput, runDemo } = await import('../demo/run-demo.js');
       const out = demoOutput(process.stdout);
       const coordinator = installShutdown({ log: (line) => out.log(line), timeoutMs: 20_000 });
       let code = 1;

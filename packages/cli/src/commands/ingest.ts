@@ -322,9 +322,8 @@ function targetLabel(flags: Flags): string {
 }
 
 function jsonRow(r: Row): unknown {
-  const out: Record<string, unknown> = {};
-  for (const [k, v] of Object.entries(r)) out[k] = v instanceof Date ? v.toISOString() : v;
-  return out;
+  // fromEntries makes every name an own property (`out['__proto__'] = …` would drop the column).
+  return Object.fromEntries(Object.entries(r).map(([k, v]) => [k, v instanceof Date ? v.toISOString() : v]));
 }
 
 async function writeSummary(path: string, report: unknown): Promise<void> {

@@ -156,10 +156,13 @@ function template(text: string): (r: Row) => string {
 }
 
 function hashOf(r: Row): Record<string, string> {
-  const out: Record<string, string> = {};
-  for (const [k, v] of Object.entries(r)) {
-    if (v === null || v === undefined) continue;
-    out[k] = v instanceof Date ? v.toISOString() : typeof v === 'object' ? JSON.stringify(v) : String(v);
-  }
-  return out;
+  // fromEntries makes every name an own property (`out['__proto__'] = …` would drop the column).
+  return Object.fromEntries(
+    Object.entries(r)
+      .filter(([, v]) => v !== null && v !== undefined)
+      .map(([k, v]) => [
+        k,
+        v instanceof Date ? v.toISOString() : typeof v === 'object' ? JSON.stringify(v) : String(v),
+      ]),
+  );
 }

@@ -1,0 +1,25 @@
+// Public surface of the tuner: load shapes, the cell runner, the stores a cell writes to, and
+// tune(). Store-backed kinds load their adapter and driver only when a cell opens them, so
+// importing this module needs neither pg, ioredis nor kafkajs.
+
+export type { CellAggregate, Figures } from './aggregate.js';
+export { aggregate, median } from './aggregate.js';
+export { runCellProcess } from './cell-process.js';
+export type { CellResult, LittleCheck, Stuck } from './cell-result.js';
+export { runCell } from './cell-run.js';
+export type { CellSpec, Settings, Variant } from './cell-spec.js';
+export { cellId, graceFor } from './cell-spec.js';
+export type { MachineInfo } from './machine.js';
+export { machineInfo } from './machine.js';
+export type { DockStatus } from './records.js';
+export type { RunProgress } from './runner.js';
+export { runCells } from './runner.js';
+export type { Arrival, ShapeName, ShapeParams } from './shapes.js';
+export { arrivals, expectedRecords, SHAPES, shapeParams } from './shapes.js';
+export type { OpenedStore, StoreKind, StoreSpec } from './store-spec.js';
+export { DEFAULT_PG_URL, DEFAULT_REDIS_URL, STORE_KINDS, storeLabel } from './store-spec.js';
+export { storeFromUrl } from './store-url.js';
+export { openStore } from './stores.js';
+export type { TuneCandidate, TuneOptions, TuneOutcome } from './tune.js';
+export { ageCandidates, tune, tuneGrid } from './tune.js';
+export { formatTune } from './tune-format.js';

@@ -1,0 +1,127 @@
+// The README's first example ("A sink in twenty lines"), compiled as it stands and run as its own
+// process against the real PostgreSQL, in copy mode and (with that one word changed) insert mode:
+// a signal in the middle of an endless feed, a short feed and no close(), a crash in the user's
+// code. Each run writes into a fresh schema; the table's contents are compared with what the
+// sink accepted (printed by the only line the test adds, an 'exit' listener).
+//
+// Exit codes: 128 + the signal number (143 for SIGTERM, 130 for SIGINT) — shell convention, and
+// what Kubernetes' documentation (Pod Lifecycle, Termination of Pods) expects of a SIGTERM.
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { type DockRun, readmeProgram, runDockStatus } from './readme/dock-status.js';
+import { compile, createProject, type Program, type ReadmeProject } from './readme/project.js';
+import { describeRun, instrumented, replaced } from './readme/run.js';
+
+const RUNS = 5;
+const base = readmeProgram('sink-in-twenty-lines');
+const copy = instrumented(base, 'first-copy', 'docks');
+const insert = instrumented(
+  replaced(base, 'insert', "mode: 'copy',", "mode: 'insert',"),
+  'first-insert',
+  'docks',
+);
+// The user's own code fails once the sink has taken 20,000 reports: a throw in a timer
+// (uncaughtException) or a promise nobody handles (unhandledRejection).
+const crashWhen = (how: string) => [
+  'const crash = setInterval(() => {',
+  '  if (docks.snapshot().accepted < 20_000) return;',
+  '  clearInterval(crash);',
+  `  ${how}`,
+  '}, 5);',
+];
+const thrown = instrumented(
+  base,
+  'first-crash-throw',
+  'docks',
+  crashWhen("throw new Error('a bug elsewhere');"),
+);
+const rejected = instrumented(
+  base,
+  'first-crash-rejection',
+  'docks',
+  crashWhen("void Promise.reject(new Error('a bug elsewhere'));"),
+);
+const programs: Program[] = [copy, insert, thrown, rejected];
+
+let project: ReadmeProject;
+beforeAll(async () => {
+  project = createProject(programs);
+  const diagnostics = await compile(project, programs, 'emitOnly');
+  if (diagnostics.length > 0) throw new Error(diagnostics.map((d) => `${d.at}: ${d.message}`).join('\n'));
+});
+afterAll(() => project?.remove());
+
+/** The table holds reports 0 … accepted − 1 of the feed, each once: nothing accepted was lost. */
+function expectEveryAcceptedReport(run: DockRun, exitCode: number): void {
+  const { result, table } = run;
+  expect(result.code, describeRun(result)).toBe(exitCode);
+  expect(result.report, describeRun(result)).toBeDefined();
+  const report = result.report!;
+  expect(table.rows).toBe(report.accepted);
+  expect(table.distinctTimes).toBe(table.rows);
+  if (table.rows > 0) {
+    expect(table.firstSecond).toBe(0);
+    expect(table.lastSecond).toBe(table.rows - 1);
+  }
+  expect(report.written).toBe(report.accepted);
+  expect(report.deadLettered).toBe(0);
+  expect(report.pendingRecords).toBe(0);
+  expect(run.deadLettered).toBe(false);
+}
+
+async function signalRuns(js: string, signal: NodeJS.Signals, exitCode: number): Promise<number[]> {
+  const accepted: number[] = [];
+  for (let i = 0; i < RUNS; i++) {
+    const run = await runDockStatus(js, { signal });
+    expectEveryAcceptedReport(run, exitCode);
+    expect(run.table.rows).toBeGreaterThan(0);
+    accepted.push(run.table.rows);
+  }
+  return accepted;
+}
+
+async function shortRuns(js: string): Promise<void> {
+  for (let i = 0; i < RUNS; i++) {
+    const run = await runDockStatus(js, { limit: 3 });
+    expectEveryAcceptedReport(run, 0);
+    expect(run.table.rows).toBe(3);
+  }
+}
+
+describe.concurrent('the README first example as a program', () => {
+  for (const [mode, p] of [
+    ['copy', copy],
+    ['insert', insert],
+  ] as const) {
+    it(`exits 143 on SIGTERM mid-stream with every accepted report in the table (${mode} mode, ${RUNS} runs)`, async () => {
+      const accepted = await signalRuns(project.js(p.name), 'SIGTERM', 143);
+      console.log(`${mode} SIGTERM: accepted = rows per run ${accepted.join(', ')}`);
+    });
+
+    it(`exits 130 on SIGINT mid-stream with every accepted report in the table (${mode} mode, ${RUNS} runs)`, async () => {
+      const accepted = await signalRuns(project.js(p.name), 'SIGINT', 130);
+      console.log(`${mode} SIGINT: accepted = rows per run ${accepted.join(', ')}`);
+    });
+
+    it(`exits 0 after a feed of 3 reports and no close(), with the 3 rows in the table (${mode} mode, ${RUNS} runs)`, async () => {
+      await shortRuns(project.js(p.name));
+    });
+  }
+
+  it('flushes what it accepted and exits 1 when user code throws (uncaughtException)', async () => {
+    for (let i = 0; i < 2; i++) {
+      const run = await runDockStatus(project.js(thrown.name), {});
+      expectEveryAcceptedReport(run, 1);
+      expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
+      expect(run.result.stderr).toContain('a bug elsewhere');
+    }
+  });
+
+  it('flushes what it accepted and exits 1 on a promise rejection nobody handles (unhandledRejection)', async () => {
+    for (let i = 0; i < 2; i++) {
+      const run = await runDockStatus(project.js(rejected.name), {});
+      expectEveryAcceptedReport(run, 1);
+      expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
+      expect(run.result.stderr).toContain('a bug elsewhere');
+    }
+  });
+});
