@@ -12,6 +12,12 @@ import { waitFor } from './process.js';
 export { type PrivateServer, startPrivateKafka, startPrivatePostgres, startPrivateRedis } from './faults.js';
 export type { ProvidedServices } from './global-setup.js';
 export { KAFKA_VERSION, type KafkaBroker, type StartKafkaOptions, startKafka } from './kafka.js';
+export {
+  type KafkaCluster,
+  type KafkaClusterNode,
+  type StartKafkaClusterOptions,
+  startKafkaCluster,
+} from './kafka-cluster.js';
 export { sleep, waitFor } from './process.js';
 
 /** Addresses of the shared servers, provided by test/harness/global-setup.ts. */
