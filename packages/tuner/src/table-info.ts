@@ -105,7 +105,7 @@ export async function inspectTable(pool: pg.Pool, qualified: string): Promise<Ta
   const indexRows = (
     await pool.query<{ def: string; unique: boolean; cols: string[] }>(
       `SELECT pg_get_indexdef(i.indexrelid) AS def, i.indisunique AS unique,
-              ARRAY(SELECT a.attname FROM unnest(i.indkey) AS k(n)
+              ARRAY(SELECT a.attname::text FROM unnest(i.indkey) AS k(n)
                       JOIN pg_attribute a ON a.attrelid = i.indrelid AND a.attnum = k.n) AS cols
          FROM pg_index i WHERE i.indrelid = $1 ORDER BY i.indisprimary DESC, i.indexrelid`,
       [oid],
