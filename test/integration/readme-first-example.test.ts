@@ -51,7 +51,10 @@ const loopThrows = instrumented(
   'first-crash-in-loop',
   'docks',
 );
-const programs: Program[] = [copy, insert, thrown, rejected, loopThrows];
+// As it stands, without the exit listener (which reads `docks`, never declared when the
+// dead-letter check throws).
+const plain: Program = { ...base, name: 'first-plain' };
+const programs: Program[] = [copy, insert, thrown, rejected, loopThrows, plain];
 
 let project: ReadmeProject;
 beforeAll(async () => {
@@ -137,5 +140,15 @@ describe.concurrent('the README first example as a program', () => {
     expectEveryAcceptedReport(run, 1);
     expect(run.table.rows).toBe(30_000);
     expect(run.result.stderr).toContain('uncaught exception: Error: a bug in the loop');
+  });
+
+  it('stops before taking a report when the dead-letter directory does not exist, naming the path', async () => {
+    const missing = '/nonexistent-spillway-dir/dock-status.dead.ndjson';
+    const run = await runDockStatus(project.js(plain.name), { limit: 3, env: { DEAD_LETTER_FILE: missing } });
+    expect(run.result.code, describeRun(run.result)).toBe(1);
+    expect(run.result.stderr).toContain('SPILLWAY_DEAD_LETTER_UNWRITABLE');
+    expect(run.result.stderr).toContain(missing);
+    expect(run.result.stderr).toContain('ENOENT');
+    expect(run.table.rows).toBe(0);
   });
 });
