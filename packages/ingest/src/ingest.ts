@@ -3,6 +3,7 @@ import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
 import { messageOf, progressKey, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
@@ -99,9 +100,7 @@ async function run<T>(
 ): Promise<IngestSummary> {
   const o = resolveIngestOptions(options);
   if (o.format === undefined) {
-    throw new TypeError(
-      "Expected `format` to be 'csv' or 'ndjson' (it cannot be told from a stream), got `undefined`",
-    );
+    throw invalidOption('format', '"csv" or "ndjson" (it cannot be told from a stream)', undefined);
   }
   const format = o.format;
   const source = o.sourceName ?? 'stream';
