@@ -153,9 +153,11 @@ export function kafkaClient(config: Partial<KafkaConfig> = {}, brokers = service
  * started right after does not race the metadata.
  */
 export async function createTopic(admin: Admin, name: string, partitions = 1): Promise<string> {
+  // Leaders are awaited below, where a metadata error is retried: kafkajs' own waitForLeaders
+  // gives up on the broker's UNKNOWN_TOPIC_OR_PARTITION, which a loaded broker answers at first.
   await admin.createTopics({
     topics: [{ topic: name, numPartitions: partitions, replicationFactor: 1 }],
-    waitForLeaders: true,
+    waitForLeaders: false,
   });
   await waitFor(
     `leaders for the ${partitions} partitions of ${name}`,

@@ -9,6 +9,8 @@ export type { CellResult, LittleCheck, Stuck } from './cell-result.js';
 export { runCell } from './cell-run.js';
 export type { CellSpec, Settings, Variant } from './cell-spec.js';
 export { cellId, graceFor } from './cell-spec.js';
+export type { Box, ChartPoint, ChartSpec } from './chart-svg.js';
+export { placeLabels, scatterSvg } from './chart-svg.js';
 export type { MachineInfo } from './machine.js';
 export { machineInfo } from './machine.js';
 export type { DockStatus } from './records.js';
@@ -20,6 +22,24 @@ export type { OpenedStore, StoreKind, StoreSpec } from './store-spec.js';
 export { DEFAULT_PG_URL, DEFAULT_REDIS_URL, STORE_KINDS, storeLabel } from './store-spec.js';
 export { storeFromUrl } from './store-url.js';
 export { openStore } from './stores.js';
+export type { TableColumn, TableInfo } from './table-info.js';
+export type { TableLoad, TableShape } from './table-load.js';
+export type { RecordSet, TableRow, VariedColumn } from './table-records.js';
+export type { RankedTrial, WriteCost } from './table-search.js';
+export {
+  byCost,
+  ceilingOf,
+  firstRound,
+  fitWriteCost,
+  judge,
+  niceNumber,
+  recommend,
+  secondRound,
+} from './table-search.js';
+export type { TableTrial, WriteSums } from './table-trial.js';
 export type { TuneCandidate, TuneOptions, TuneOutcome } from './tune.js';
 export { ageCandidates, tune, tuneGrid } from './tune.js';
 export { formatTune } from './tune-format.js';
+export type { TableMode, TableTuneOptions, TableTuneOutcome, TuneTableEvent } from './tune-table.js';
+export { tuneTable } from './tune-table.js';
+export { formatTableTune, optionsSnippet, tableChart, trialsTable } from './tune-table-format.js';

@@ -1,55 +1,146 @@
+import { mkdir, writeFile } from 'node:fs/promises';
+import { dirname, resolve } from 'node:path';
 import { type Command, InvalidArgumentError, Option } from 'commander';
 import { SHAPE_NAMES, type ShapeName } from '../bench/shape-names.js';
-import { positive, shapes } from './bench.js';
+import { list, positive, shapes } from './bench.js';
 
 interface TuneCommandOptions {
   to: string;
   p99: number;
-  shape: ShapeName[];
-  rate: number;
+  shape?: string[];
+  rate?: number;
   duration?: number;
-  mode?: string;
+  mode?: 'insert' | 'copy' | 'upsert';
   json?: boolean;
+  table?: string;
+  key?: string[];
+  sample?: string;
+  timestampColumn?: string;
+  headroom?: number;
+  budget?: number;
+  validate?: number;
+  prefill?: number;
+  maxConcurrency?: number;
+  chart?: string;
 }
+
+const TABLE_SHAPES = [...SHAPE_NAMES, 'replay'] as const;
+
+const shapeList = (v: string): string[] => {
+  const out = list(v);
+  for (const s of out)
+    if (!(TABLE_SHAPES as readonly string[]).includes(s))
+      throw new InvalidArgumentError(`expected shapes among ${TABLE_SHAPES.join(', ')}, got "${s}"`);
+  return out;
+};
+const fraction = (v: string): number => {
+  const n = Number(v);
+  if (!Number.isFinite(n) || n < 0 || n >= 100)
+    throw new InvalidArgumentError(`expected a percentage in [0, 100), got "${v}"`);
+  return n / 100;
+};
+const wholeOrZero = (v: string): number => {
+  const n = Number(v);
+  if (!Number.isInteger(n) || n < 0) throw new InvalidArgumentError(`expected an integer >= 0, got "${v}"`);
+  return n;
+};
+
+const EXAMPLE = `
+Tune on your own table (PostgreSQL): the tuner copies the table's definition into a scratch
+schema (CREATE TABLE … (LIKE … INCLUDING ALL), logged), writes your sample rows there in the mode
+you will run, and drops the copy at the end, on an error and on Ctrl-C. Your table is only read
+from the catalogs: never written to, altered or locked beyond the moment of the CREATE … LIKE.
+
+  $ spillway tune --to postgres://postgres@127.0.0.1:5432/test --table public.dock_status \\
+      --mode copy --sample dock-status.ndjson --rate 2000 --p99 250 --budget 60 --validate 10
+
+Exit codes: 0 a setting is recommended and the validation run held · 3 no setting met the target ·
+4 the validation run missed the target · 64 bad input (unknown table, sample column missing, …) ·
+130 / 143 interrupted (the scratch copy is dropped first).`;
 
 /** Registers `tune`: pick settings for a p99 target on your store. The tuner loads when it runs. */
 export function registerTune(program: Command): void {
   program
     .command('tune')
     .description(
-      'Search batch settings against your own store and print the fastest one whose p99 meets a target.',
+      'Measure batch settings against your own store and recommend one. With --table: on a scratch copy of your PostgreSQL table, with your records, at your rate, at the least store cost.',
     )
     .requiredOption(
       '--to <url>',
       'the store: postgres://…, redis://…, kafka://host:port, or sim:<ms> / noop: to try it out',
     )
     .requiredOption('--p99 <ms>', 'p99 accept → durable target, ms', positive)
+    .option('--table <schema.table>', 'tune on a scratch copy of this PostgreSQL table')
+    .addOption(new Option('--mode <mode>', 'PostgreSQL write mode').choices(['insert', 'copy', 'upsert']))
+    .option('--key <columns>', 'upsert conflict key, comma-separated (default: the primary key)', list)
+    .option(
+      '--sample <file>',
+      'your records: .csv/.tsv or .ndjson/.jsonl, fields named as the columns (cycled)',
+    )
     .option(
       '--shape <list>',
-      `shapes the setting must meet the target on: ${SHAPE_NAMES.join(', ')}`,
-      shapes,
-      ['steady', 'trickle'] as ShapeName[],
+      `arrival shape: ${TABLE_SHAPES.join(', ')} (replay follows --timestamp-column); without --table a list the setting must meet (default steady,trickle)`,
+      shapeList,
     )
-    .option('--rate <n>', 'records/s of the steady, skewed and gap shapes', positive, 5000)
-    .option('--duration <ms>', 'length of each trial, ms (default 1500; trickle and gap 3000)', positive)
-    .addOption(new Option('--mode <mode>', 'PostgreSQL write mode').choices(['insert', 'copy', 'upsert']))
+    .option(
+      '--timestamp-column <field>',
+      'with --shape replay: the sample field whose times the load follows',
+    )
+    .option(
+      '--rate <n>',
+      'offered records/s (default 1000 with --table, 5000 without; replay: the recording’s own)',
+      positive,
+    )
+    .option(
+      '--headroom <percent>',
+      'with --table: a setting must reach p99 ≤ target less this much (default 25)',
+      fraction,
+    )
+    .option('--budget <s>', 'with --table: time the search may take, seconds (default 60)', positive)
+    .option(
+      '--duration <ms>',
+      'length of each trial, ms (default 2000 with --table; else 1500, trickle and gap 3000)',
+      positive,
+    )
+    .option(
+      '--validate <s>',
+      'with --table: length of the validation run, seconds; 0 skips it (default 10)',
+      wholeOrZero,
+    )
+    .option(
+      '--prefill <rows>',
+      'with --table: fill the copy with this many rows before measuring',
+      wholeOrZero,
+    )
+    .option('--max-concurrency <n>', 'with --table: highest concurrency tried (default 4)', positive)
+    .option(
+      '--chart <file>',
+      'with --table: where to write the SVG chart (default ./spillway-tune/<table>.svg)',
+    )
     .option('--json', 'print the full outcome as JSON')
+    .addHelpText('after', EXAMPLE)
     .action(async (o: TuneCommandOptions) => {
+      if (o.table !== undefined) return tuneTableCommand(o);
       const { formatTune, storeFromUrl, tune } = await import('@spillway/tuner');
+      const named = o.shape ?? ['steady', 'trickle'];
+      let chosen: ShapeName[];
+      try {
+        chosen = shapes(named.join(','));
+      } catch {
+        throw new InvalidArgumentError('--shape replay needs --table and --sample with --timestamp-column');
+      }
       let store: ReturnType<typeof storeFromUrl>;
       try {
         store = storeFromUrl(o.to, o.mode);
       } catch (e) {
         throw new InvalidArgumentError(`--to: ${(e as Error).message}`);
       }
-      process.stderr.write(
-        `Trying settings on ${o.to.replace(/\/\/[^@/]*@/, '//***@')} (each trial in a fresh process) …\n`,
-      );
+      process.stderr.write(`Trying settings on ${redact(o.to)} (each trial in a fresh process) …\n`);
       const outcome = await tune({
         store,
         p99Ms: o.p99,
-        shapes: o.shape,
-        rate: o.rate,
+        shapes: chosen,
+        rate: o.rate ?? 5000,
         ...(o.duration ? { durationMs: o.duration } : {}),
         onProgress: (p) => {
           const s = p.cell.settings;
@@ -64,4 +155,69 @@ export function registerTune(program: Command): void {
       process.stdout.write(o.json ? `${JSON.stringify(outcome, null, 1)}\n` : `${formatTune(outcome)}\n`);
       if (!outcome.best) process.exitCode = 3;
     });
+}
+
+const redact = (url: string) => url.replace(/\/\/[^@/]*@/, '//***@');
+
+async function tuneTableCommand(o: TuneCommandOptions): Promise<void> {
+  const { formatTableTune, tableChart, tuneTable } = await import('@spillway/tuner');
+  const fail = (message: string, code: number) => {
+    process.stderr.write(`spillway tune: ${message}\n`);
+    process.exitCode = code;
+  };
+  if (!/^postgres(ql)?:\/\//i.test(o.to)) return fail('--table works with a postgres:// --to only', 64);
+  if ((o.shape?.length ?? 0) > 1) return fail('--shape takes one shape with --table', 64);
+  const shape = o.shape?.[0] as ShapeName | 'replay' | undefined;
+  const err = process.stderr;
+  const started = Date.now();
+  try {
+    const outcome = await tuneTable({
+      url: o.to,
+      table: o.table!,
+      p99Ms: o.p99,
+      ...(o.mode ? { mode: o.mode } : {}),
+      ...(o.key ? { key: o.key } : {}),
+      ...(o.sample ? { sample: o.sample } : {}),
+      ...(o.timestampColumn ? { timestampColumn: o.timestampColumn } : {}),
+      ...(shape ? { shape } : {}),
+      ...(o.rate ? { rate: o.rate } : {}),
+      ...(o.headroom !== undefined ? { headroom: o.headroom } : {}),
+      ...(o.budget ? { budgetMs: o.budget * 1000 } : {}),
+      ...(o.duration ? { trialMs: o.duration } : {}),
+      ...(o.validate !== undefined ? { validateMs: o.validate * 1000 } : {}),
+      ...(o.prefill !== undefined ? { prefill: o.prefill } : {}),
+      ...(o.maxConcurrency ? { maxConcurrency: Math.floor(o.maxConcurrency) } : {}),
+      onProgress: (e) => {
+        const at = `${((Date.now() - started) / 1000).toFixed(0)} s`;
+        if (e.kind === 'note') err.write(`${e.text}\n`);
+        else if (e.kind === 'plan')
+          err.write(
+            `Plan: up to ${e.trials} trials, about ${Math.ceil(e.estimateMs / 1000)} s${e.validateMs > 0 ? `, then a ${Math.round(e.validateMs / 1000)} s validation run` : ''}.\n`,
+          );
+        else if (e.kind === 'trial') {
+          const t = e.trial;
+          const s = t.settings;
+          err.write(
+            `  [${e.done}/${e.total} ${at}] maxRecords ${s.maxRecords} maxAgeMs ${s.maxAgeMs} idleMs ${s.idleMs} concurrency ${s.concurrency}: ` +
+              `p99 ${t.p99Ms.toFixed(1)} ms, ${Math.round(t.throughput)} records/s, ${Math.round(t.writesPerSecond)} writes/s, ${(t.storeMsPerRecord * 1000).toFixed(1)} µs/record` +
+              `${t.deadLettered > 0 ? `, ${t.deadLettered} refused (${t.firstError})` : ''}\n`,
+          );
+        } else err.write(`  validating the recommendation for ${Math.round(e.durationMs / 1000)} s …\n`);
+      },
+    });
+    const chart = resolve(o.chart ?? `spillway-tune/${outcome.table}.svg`);
+    if (outcome.trials.length > 0) {
+      await mkdir(dirname(chart), { recursive: true });
+      await writeFile(chart, tableChart(outcome));
+    }
+    if (o.json) process.stdout.write(`${JSON.stringify({ ...outcome, chart }, null, 1)}\n`);
+    else process.stdout.write(`${formatTableTune(outcome)}\n\nChart: ${chart}\n`);
+    if (!outcome.recommended) process.exitCode = 3;
+    else if (outcome.validation && !outcome.validation.holds) process.exitCode = 4;
+  } catch (error) {
+    const e = error as Error & { code?: string; details?: { signal?: string } };
+    if (e.code === 'SPILLWAY_ABORTED') return fail(e.message, e.details?.signal === 'SIGTERM' ? 143 : 130);
+    if (e.code === 'SPILLWAY_INVALID_OPTION' || e.code === 'SPILLWAY_INPUT_ERROR') return fail(e.message, 64);
+    throw error;
+  }
 }

@@ -1,0 +1,299 @@
+// `spillway tune --table` against the real PostgreSQL: the command in-process for its outputs and
+// its refusals, and as a child process for Ctrl-C, which must drop the scratch copy before exiting.
+import { spawn } from 'node:child_process';
+import { mkdtemp, readFile, rm, writeFile } from 'node:fs/promises';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { Command, CommanderError } from 'commander';
+import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
+import { registerTune } from '../../packages/cli/src/commands/tune.js';
+import { services, type TestSchema, waitFor, withSchema } from '../harness/index.js';
+
+const BIN = fileURLToPath(new URL('../../packages/cli/src/bin.ts', import.meta.url));
+// The same source-resolving tsconfig the ingest command's process tests use.
+const TSCONFIG = fileURLToPath(new URL('./ingest-cli.tsconfig.json', import.meta.url));
+
+let db: TestSchema;
+let dir: string;
+let url: string;
+
+beforeAll(async () => {
+  db = await withSchema('tune_cli');
+  url = services().pgUrl;
+  await db.pool.query(`CREATE TABLE docks (dock_id integer PRIMARY KEY, station_id text NOT NULL,
+    bikes_available integer NOT NULL, status text NOT NULL, seen_at timestamptz NOT NULL)`);
+  await db.pool.query(
+    `INSERT INTO docks VALUES (1, 'district-1-st-1', 4, 'in_service', '2026-03-02T07:00:00Z')`,
+  );
+  dir = await mkdtemp(join(tmpdir(), 'spillway-tune-cli-'));
+  const csv = ['dock_id,station_id,bikes_available,status,seen_at,firmware'];
+  for (let i = 0; i < 400; i++)
+    csv.push(
+      `${i % 150},district-${i % 9}-st-${i % 31},${i % 21},${i % 7 ? 'in_service' : 'full'},2026-03-02T07:${String(Math.floor(i / 10) % 60).padStart(2, '0')}:00Z,4.${i % 3}`,
+    );
+  await writeFile(join(dir, 'docks.csv'), `${csv.join('\n')}\n`);
+  await writeFile(
+    join(dir, 'no-dock-id.csv'),
+    'station_id,bikes_available,status,seen_at\ndistrict-1-st-1,4,full,2026-03-02T07:00:00Z\n',
+  );
+  await writeFile(
+    join(dir, 'broken.ndjson'),
+    '{"dock_id":1,"station_id":"a","bikes_available":1,"status":"full","seen_at":"2026-03-02T07:00:00Z"}\n{"dock_id":2,\n',
+  );
+});
+
+afterAll(async () => {
+  await db?.drop();
+  if (dir) await rm(dir, { recursive: true, force: true });
+});
+
+/** Runs `spillway tune …args` in this process; returns its exit code, stdout and stderr. */
+async function spillway(...args: string[]): Promise<{ code: number; out: string; err: string }> {
+  const program = new Command().name('spillway').exitOverride();
+  registerTune(program);
+  let out = '';
+  let err = '';
+  const o = vi.spyOn(process.stdout, 'write').mockImplementation((c: string | Uint8Array) => {
+    out += String(c);
+    return true;
+  });
+  const e = vi.spyOn(process.stderr, 'write').mockImplementation((c: string | Uint8Array) => {
+    err += String(c);
+    return true;
+  });
+  process.exitCode = undefined;
+  let code: number;
+  try {
+    await program.parseAsync(['node', 'spillway', 'tune', ...args]);
+    code = Number(process.exitCode ?? 0);
+  } catch (error) {
+    if (!(error instanceof CommanderError)) throw error;
+    code = error.exitCode;
+    err += error.message;
+  } finally {
+    o.mockRestore();
+    e.mockRestore();
+    process.exitCode = undefined;
+  }
+  return { code, out, err };
+}
+
+const userRows = async () => (await db.pool.query('SELECT count(*)::int AS n FROM docks')).rows[0].n;
+const schemaExists = async (name: string) =>
+  (await db.pool.query('SELECT 1 FROM pg_namespace WHERE nspname = $1', [name])).rowCount === 1;
+
+describe('spillway tune --table', () => {
+  it('refuses an unknown table, a sample without a required column, a malformed sample line, a key that is not unique and a bad rate, naming each', async () => {
+    const base = ['--to', url, '--p99', '200', '--validate', '0'];
+    const unknown = await spillway(...base, '--table', `${db.schema}.nope`);
+    expect(unknown.code).toBe(64);
+    expect(unknown.err).toContain(`"${db.schema}.nope"`);
+
+    const missing = await spillway(
+      ...base,
+      '--table',
+      `${db.schema}.docks`,
+      '--sample',
+      join(dir, 'no-dock-id.csv'),
+    );
+    expect(missing.code).toBe(64);
+    expect(missing.err).toContain('no-dock-id.csv has no field "dock_id"');
+
+    const broken = await spillway(
+      ...base,
+      '--table',
+      `${db.schema}.docks`,
+      '--sample',
+      join(dir, 'broken.ndjson'),
+    );
+    expect(broken.code).toBe(64);
+    expect(broken.err).toContain('broken.ndjson: line 2');
+
+    const key = await spillway(
+      ...base,
+      '--table',
+      `${db.schema}.docks`,
+      '--mode',
+      'upsert',
+      '--key',
+      'station_id',
+    );
+    expect(key.code).toBe(64);
+    expect(key.err).toContain('unique index or primary key');
+    expect(key.err).toContain('(dock_id)');
+
+    const rate = await spillway(...base, '--table', `${db.schema}.docks`, '--rate', 'fast');
+    expect(rate.code).not.toBe(0);
+    expect(rate.err).toContain('--rate');
+    expect(rate.err).toContain('"fast"');
+    expect(await userRows()).toBe(1);
+  });
+
+  it('tunes an upsert on the user’s key from a CSV sample and prints the options, the trials and the chart; --json carries the same', async () => {
+    const chart = join(dir, 'docks.svg');
+    const r = await spillway(
+      '--to',
+      url,
+      '--table',
+      `${db.schema}.docks`,
+      '--mode',
+      'upsert',
+      '--key',
+      'dock_id',
+      '--sample',
+      join(dir, 'docks.csv'),
+      '--rate',
+      '300',
+      '--p99',
+      '300',
+      '--budget',
+      '4',
+      '--duration',
+      '500',
+      '--validate',
+      '1',
+      '--max-concurrency',
+      '2',
+      '--chart',
+      chart,
+      '--json',
+    );
+    expect([0, 3, 4]).toContain(r.code);
+    const outcome = JSON.parse(r.out);
+    expect(outcome.mode).toBe('upsert');
+    expect(outcome.key).toEqual(['dock_id']);
+    expect(outcome.records).toMatchObject({
+      source: 'docks.csv',
+      generated: false,
+      rows: 400,
+      ignored: ['firmware'],
+    });
+    expect(outcome.trials.length).toBeGreaterThan(0);
+    for (const t of outcome.trials) expect(t.durable + t.deadLettered + t.stuck).toBe(t.offered);
+    expect(outcome.chart).toBe(chart);
+    const svg = await readFile(chart, 'utf8');
+    expect(svg.startsWith('<svg')).toBe(true);
+    expect(svg.match(/<circle /g)).toHaveLength(outcome.trials.length);
+    expect(r.err).toMatch(/Plan: up to \d+ trials, about \d+ s, then a 1 s validation run/);
+    expect(r.err).toMatch(/\[1\/\d+ \d+ s\] maxRecords/);
+    expect(await userRows()).toBe(1);
+  });
+
+  it('inserts pass after pass of a small sample into a table with a primary key without a collision', async () => {
+    const rows = ['dock_id,station_id,bikes_available,status,seen_at'];
+    for (let i = 0; i < 40; i++)
+      rows.push(`${1000 + i},district-2-st-${i},3,in_service,2026-03-02T08:00:00Z`);
+    await writeFile(join(dir, 'small.csv'), `${rows.join('\n')}\n`);
+    const r = await spillway(
+      '--to',
+      url,
+      '--table',
+      `${db.schema}.docks`,
+      '--mode',
+      'insert',
+      '--sample',
+      join(dir, 'small.csv'),
+      '--rate',
+      '300',
+      '--p99',
+      '400',
+      '--budget',
+      '3',
+      '--duration',
+      '500',
+      '--validate',
+      '0',
+      '--chart',
+      join(dir, 'small.svg'),
+      '--json',
+    );
+    const outcome = JSON.parse(r.out);
+    expect(outcome.records.varied).toEqual([{ name: 'dock_id', how: 'offset' }]);
+    // Each trial offers about 150 rows of a 40-row sample, so passes 2 to 4 must not collide.
+    expect(outcome.trials.reduce((a: number, t: { offered: number }) => a + t.offered, 0)).toBeGreaterThan(
+      200,
+    );
+    for (const t of outcome.trials) expect(t.deadLettered).toBe(0);
+    expect(await userRows()).toBe(1);
+  });
+
+  it('generates rows from the column types when no sample is given, and says so', async () => {
+    const r = await spillway(
+      '--to',
+      url,
+      '--table',
+      `${db.schema}.docks`,
+      '--mode',
+      'copy',
+      '--rate',
+      '200',
+      '--p99',
+      '400',
+      '--budget',
+      '3',
+      '--duration',
+      '400',
+      '--validate',
+      '0',
+      '--chart',
+      join(dir, 'gen.svg'),
+    );
+    expect([0, 3]).toContain(r.code);
+    expect(r.err).toContain('No --sample: rows are generated from the column types');
+    expect(r.out).toContain('rows generated from the column types (no --sample)');
+    expect(r.out).toContain('| maxRecords | maxAgeMs | idleMs | concurrency | p99 ms |');
+    if (r.code === 0) expect(r.out).toContain("mode: 'copy',");
+    expect(await userRows()).toBe(1);
+  });
+
+  it('drops the scratch copy when interrupted by Ctrl-C (SIGINT) in the middle of the search, and exits 130', async () => {
+    const child = spawn(
+      process.execPath,
+      [
+        '--import',
+        'tsx',
+        BIN,
+        'tune',
+        '--to',
+        url,
+        '--table',
+        `${db.schema}.docks`,
+        '--sample',
+        join(dir, 'docks.csv'),
+        '--rate',
+        '300',
+        '--p99',
+        '300',
+        '--budget',
+        '60',
+        '--duration',
+        '1000',
+        '--chart',
+        join(dir, 'int.svg'),
+      ],
+      { env: { ...process.env, TSX_TSCONFIG_PATH: TSCONFIG }, stdio: ['ignore', 'pipe', 'pipe'] },
+    );
+    let err = '';
+    child.stderr.on('data', (d: Buffer) => (err += d));
+    const exited = new Promise<number | null>((resolve) => child.on('exit', (code) => resolve(code)));
+    const scratch = await waitFor(
+      'the first trial',
+      () => (/\[1\/\d+/.test(err) ? /Scratch copy: ([a-z0-9_]+)\./.exec(err)?.[1] : undefined),
+      { timeoutMs: 60_000 },
+    );
+    expect(await schemaExists(scratch)).toBe(true);
+    child.kill('SIGINT');
+    expect(await exited).toBe(130);
+    expect(err).toContain('interrupted by SIGINT; the scratch copy was dropped');
+    expect(await schemaExists(scratch)).toBe(false);
+    expect(await userRows()).toBe(1);
+  });
+
+  it('shows a full example run on a user table with a sample file in --help', async () => {
+    const r = await spillway('--help');
+    expect(r.out + r.err).toContain('--table <schema.table>');
+    expect(r.out + r.err).toContain('--sample <file>');
+    expect(r.out + r.err).toContain('spillway tune --to postgres://');
+  });
+});
