@@ -202,7 +202,10 @@ async function tuneTableCommand(o: TuneCommandOptions): Promise<void> {
               `p99 ${t.p99Ms.toFixed(1)} ms, ${Math.round(t.throughput)} records/s, ${Math.round(t.writesPerSecond)} writes/s, ${(t.storeMsPerRecord * 1000).toFixed(1)} µs/record` +
               `${t.deadLettered > 0 ? `, ${t.deadLettered} refused (${t.firstError})` : ''}\n`,
           );
-        } else err.write(`  validating the recommendation for ${Math.round(e.durationMs / 1000)} s …\n`);
+        } else
+          err.write(
+            `  validating maxRecords ${e.settings.maxRecords} maxAgeMs ${e.settings.maxAgeMs} idleMs ${e.settings.idleMs} concurrency ${e.settings.concurrency} for ${Math.round(e.durationMs / 1000)} s …\n`,
+          );
       },
     });
     const chart = resolve(o.chart ?? `spillway-tune/${outcome.table}.svg`);
