@@ -218,6 +218,68 @@ describe('spillway tune --table', () => {
     expect(await userRows()).toBe(1);
   });
 
+  it('replays the sample’s own timestamps at the asked rate, and prefills the copy before measuring', async () => {
+    // docks.csv holds 400 reports, ten per minute of seen_at: replayed at 400 records/s.
+    const r = await spillway(
+      '--to',
+      url,
+      '--table',
+      `${db.schema}.docks`,
+      '--mode',
+      'upsert',
+      '--sample',
+      join(dir, 'docks.csv'),
+      '--shape',
+      'replay',
+      '--timestamp-column',
+      'seen_at',
+      '--rate',
+      '400',
+      '--prefill',
+      '2000',
+      '--p99',
+      '400',
+      '--budget',
+      '3',
+      '--duration',
+      '500',
+      '--validate',
+      '0',
+      '--chart',
+      join(dir, 'replay.svg'),
+      '--json',
+    );
+    const outcome = JSON.parse(r.out);
+    expect(outcome.load).toMatchObject({ shape: 'replay', rate: 400 });
+    expect(outcome.prefilled).toBe(2000);
+    expect(r.err).toContain('Prefilling the copy with 2,000 rows');
+    // About 200 records in each half-second trial, landing on the 150 keys the prefill wrote.
+    for (const t of outcome.trials) {
+      expect(t.offered).toBeGreaterThan(150);
+      expect(t.offered).toBeLessThan(260);
+      expect(t.deadLettered).toBe(0);
+    }
+    const noColumn = await spillway(
+      '--to',
+      url,
+      '--table',
+      `${db.schema}.docks`,
+      '--sample',
+      join(dir, 'docks.csv'),
+      '--shape',
+      'replay',
+      '--timestamp-column',
+      'uploaded_at',
+      '--p99',
+      '400',
+      '--validate',
+      '0',
+    );
+    expect(noColumn.code).toBe(64);
+    expect(noColumn.err).toContain('has no field "uploaded_at" (--timestamp-column)');
+    expect(await userRows()).toBe(1);
+  });
+
   it('generates rows from the column types when no sample is given, and says so', async () => {
     const r = await spillway(
       '--to',
