@@ -4,7 +4,11 @@ import { defineConfig } from 'vitest/config';
 // Tests import the workspace packages by name; point those names at the TypeScript sources so a
 // test run needs no build, while `npm test` still builds first to type-check every package.
 const pkg = (name: string) => fileURLToPath(new URL(`./packages/${name}/src/index.ts`, import.meta.url));
+const src = (file: string) => fileURLToPath(new URL(`./packages/${file}`, import.meta.url));
+// Sub-path entries first: an alias also matches every path below its name.
 const alias = {
+  '@spillway/core/kit': src('core/src/kit.ts'),
+  '@spillway/core/testing': src('core/src/testing.ts'),
   '@spillway/core': pkg('core'),
   '@spillway/postgres': pkg('postgres'),
   '@spillway/redis': pkg('redis'),

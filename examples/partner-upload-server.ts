@@ -12,7 +12,13 @@
 // 413 past the size limit (before reading when Content-Length says so; for a chunked body, once
 // the limit is passed — rows before it are written, and a retried upload overwrites them);
 // 415 for a content type other than text/csv or application/x-ndjson; 503 when the store failed
-// (nothing reported written that is not durable).
+// (nothing reported written that is not durable), or with Retry-After when `maxConcurrentUploads`
+// uploads are already running; 408 when the headers or the whole request take too long. A client
+// that stops sending mid-body is cut off after `idleTimeoutMs`: its complete rows stay written, the
+// partial row does not land.
+//
+// Settings to copy into your own server (UPLOAD_SERVER_LIMITS below): Node's own defaults let a
+// stalled client hold a connection for minutes and put no limit on concurrent uploads.
 import { randomUUID } from 'node:crypto';
 import { createServer, type IncomingMessage, type Server, type ServerResponse } from 'node:http';
 import { join } from 'node:path';
@@ -53,6 +59,20 @@ export const SERVICE_RECORDS_DDL = `CREATE TABLE IF NOT EXISTS service_records (
   partner     text NOT NULL
 )`;
 
+/** The server-level limits, with the values this example uses. */
+export const UPLOAD_SERVER_LIMITS = {
+  /** Time for a client to send the request headers (Node answers 408). */
+  headersTimeoutMs: 10_000,
+  /** Time for a whole upload, headers to last byte (Node answers 408): 256 MiB at ~1 MB/s. */
+  requestTimeoutMs: 5 * 60_000,
+  /** A connection with no bytes moving for this long is closed (a stalled client, an idle keep-alive). */
+  idleTimeoutMs: 30_000,
+  /** Uploads running at once; one more is answered 503 with Retry-After. */
+  maxConcurrentUploads: 16,
+  /** Seconds a client refused for the limit is told to wait. */
+  retryAfterSeconds: 5,
+} as const;
+
 export interface UploadServerOptions {
   pool: pg.Pool;
   /** @default 'service_records' */
@@ -65,6 +85,16 @@ export interface UploadServerOptions {
   rejectsDir?: string;
   /** Called once per finished upload, with counts only. */
   log?: (line: string) => void;
+  /** @default UPLOAD_SERVER_LIMITS.headersTimeoutMs */
+  headersTimeoutMs?: number;
+  /** @default UPLOAD_SERVER_LIMITS.requestTimeoutMs */
+  requestTimeoutMs?: number;
+  /** @default UPLOAD_SERVER_LIMITS.idleTimeoutMs */
+  idleTimeoutMs?: number;
+  /** @default UPLOAD_SERVER_LIMITS.maxConcurrentUploads */
+  maxConcurrentUploads?: number;
+  /** @default UPLOAD_SERVER_LIMITS.retryAfterSeconds */
+  retryAfterSeconds?: number;
 }
 
 export interface UploadServer {
@@ -90,12 +120,38 @@ export function createUploadServer(options: UploadServerOptions): UploadServer {
   });
   const log = options.log ?? (() => {});
 
-  const server = createServer((req, res) => {
-    handle(req, res).catch((error: unknown) => {
-      if (!res.headersSent) reply(res, 500, { error: 'internal error' });
-      log(`upload failed: ${(error as Error).message}`);
-    });
-  });
+  const limits = { ...UPLOAD_SERVER_LIMITS, ...definedOf(options) };
+  let running = 0;
+
+  const server = createServer(
+    {
+      headersTimeout: limits.headersTimeoutMs,
+      requestTimeout: limits.requestTimeoutMs,
+      // How often Node checks the two timeouts above (its default, 30 s, would let them overrun).
+      connectionsCheckingInterval: Math.min(1000, limits.headersTimeoutMs),
+    },
+    (req, res) => {
+      if (running >= limits.maxConcurrentUploads) {
+        // Refuse before reading the body; close so the client stops sending.
+        return reply(res, 503, { error: 'too many uploads at once, retry later' }, true, {
+          'retry-after': String(limits.retryAfterSeconds),
+        });
+      }
+      running++;
+      handle(req, res)
+        .catch((error: unknown) => {
+          if (!res.headersSent) reply(res, 500, { error: 'internal error' });
+          log(`upload failed: ${(error as Error).message}`);
+        })
+        .finally(() => running--);
+    },
+  );
+  // No bytes moving for idleTimeoutMs: close the connection (a stalled upload is then aborted, its
+  // complete rows kept). Setting the server's 'timeout' listener replaces Node's destroy-on-timeout.
+  // While the store holds the upload back (backpressure) the body is not read either: keep
+  // idleTimeoutMs well above the longest write you expect.
+  server.setTimeout(limits.idleTimeoutMs, (socket) => socket.destroy());
+  server.keepAliveTimeout = Math.min(5000, limits.idleTimeoutMs);
 
   async function handle(req: IncomingMessage, res: ServerResponse): Promise<void> {
     const match = /^\/uploads\/([a-z0-9-]{1,64})$/.exec(req.url ?? '');
@@ -115,6 +171,8 @@ export function createUploadServer(options: UploadServerOptions): UploadServer {
       ? new RejectFile(join(options.rejectsDir, `${partner}-${id}.ndjson`))
       : undefined;
     const aborted = new AbortController();
+    // Once the whole body is in, waiting for the store is the server's time, not an idle client's.
+    req.once('end', () => req.socket.setTimeout(0));
     req.once('close', () => {
       if (!req.complete) aborted.abort();
     });
@@ -156,18 +214,35 @@ export function createUploadServer(options: UploadServerOptions): UploadServer {
   };
 }
 
+/** The limits given in `options` (undefined ones left to the defaults). */
+function definedOf(options: UploadServerOptions): Partial<Record<keyof typeof UPLOAD_SERVER_LIMITS, number>> {
+  const out: Partial<Record<keyof typeof UPLOAD_SERVER_LIMITS, number>> = {};
+  for (const k of Object.keys(UPLOAD_SERVER_LIMITS) as (keyof typeof UPLOAD_SERVER_LIMITS)[]) {
+    const v = options[k];
+    if (v !== undefined) out[k] = v;
+  }
+  return out;
+}
+
 function publicSummary(s: IngestSummary) {
   const { source: _source, ...rest } = s;
   return rest;
 }
 
 /** Sends JSON. With `close`, the connection is closed after the answer, so an unread body is dropped. */
-function reply(res: ServerResponse, status: number, body: unknown, close = false): void {
+function reply(
+  res: ServerResponse,
+  status: number,
+  body: unknown,
+  close = false,
+  headers: Record<string, string> = {},
+): void {
   const text = `${JSON.stringify(body)}\n`;
   res.writeHead(status, {
     'content-type': 'application/json',
     'content-length': Buffer.byteLength(text),
     ...(close && { connection: 'close' }),
+    ...headers,
   });
   res.end(text, () => {
     if (close) res.req.destroy();

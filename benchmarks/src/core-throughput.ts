@@ -139,6 +139,9 @@ function heapPerRecord(kind: 'sink' | 'array', n: number): number {
   // Both stay reachable until after the second reading: otherwise the collector may free the
   // source array in between, and a plain array would seem to cost less than nothing.
   if (keep === records) throw new Error('unreachable');
+  // A sink holding records keeps the process alive until they are written (up to maxAgeMs): let
+  // them go now so the sample's process ends.
+  if (keep instanceof Sink) void keep.flush();
   return (after - before) / n;
 }
 

@@ -12,6 +12,12 @@ import { waitFor } from './process.js';
 export { type PrivateServer, startPrivateKafka, startPrivatePostgres, startPrivateRedis } from './faults.js';
 export type { ProvidedServices } from './global-setup.js';
 export { KAFKA_VERSION, type KafkaBroker, type StartKafkaOptions, startKafka } from './kafka.js';
+export {
+  type KafkaCluster,
+  type KafkaClusterNode,
+  type StartKafkaClusterOptions,
+  startKafkaCluster,
+} from './kafka-cluster.js';
 export { sleep, waitFor } from './process.js';
 
 /** Addresses of the shared servers, provided by test/harness/global-setup.ts. */
@@ -147,9 +153,11 @@ export function kafkaClient(config: Partial<KafkaConfig> = {}, brokers = service
  * started right after does not race the metadata.
  */
 export async function createTopic(admin: Admin, name: string, partitions = 1): Promise<string> {
+  // Leaders are awaited below, where a metadata error is retried: kafkajs' own waitForLeaders
+  // gives up on the broker's UNKNOWN_TOPIC_OR_PARTITION, which a loaded broker answers at first.
   await admin.createTopics({
     topics: [{ topic: name, numPartitions: partitions, replicationFactor: 1 }],
-    waitForLeaders: true,
+    waitForLeaders: false,
   });
   await waitFor(
     `leaders for the ${partitions} partitions of ${name}`,

@@ -139,14 +139,14 @@ export async function ensureKafkaJars(version = KAFKA_VERSION): Promise<{ dir: s
 }
 
 /** A Kafka cluster id: 16 random bytes, base64url without padding, never starting with '-'. */
-function clusterId(): string {
+export function clusterId(): string {
   for (;;) {
     const id = randomBytes(16).toString('base64url');
     if (!id.startsWith('-')) return id;
   }
 }
 
-function renderProperties(
+export function renderProperties(
   ports: { broker: number; controller: number },
   logDir: string,
   extra: StartKafkaOptions['properties'],
@@ -160,7 +160,7 @@ function renderProperties(
     .replaceAll('{{LOG_DIR}}', logDir);
 }
 
-function jvmArgs(jarDir: string, heapMb: number): string[] {
+export function jvmArgs(jarDir: string, heapMb: number): string[] {
   return [
     `-Xmx${heapMb}m`,
     `-Xms${Math.min(256, heapMb)}m`,
@@ -193,20 +193,9 @@ export async function startKafka(options: StartKafkaOptions = {}): Promise<Kafka
     const propsFile = join(dataDir, 'server.properties');
     writeFileSync(propsFile, renderProperties(ports, join(dataDir, 'data'), options.properties));
     try {
-      await run(
-        java,
-        [...jvmArgs(jarDir, 256), 'kafka.tools.StorageTool', 'format', '-t', clusterId(), '-c', propsFile],
-        {
-          timeoutMs: 60_000,
-        },
-      );
+      await formatStorage(java, jarDir, propsFile, clusterId());
     } catch (error) {
       rmSync(dataDir, { recursive: true, force: true });
-      if (/ENOENT/.test((error as Error).message)) {
-        throw new Error(
-          `java was not found (${java}): install Java 17, set JAVA_HOME, or set SPILLWAY_KAFKA_BROKERS.`,
-        );
-      }
       throw error;
     }
 
@@ -235,7 +224,32 @@ export async function startKafka(options: StartKafkaOptions = {}): Promise<Kafka
   throw lastError;
 }
 
-interface BrokerConfig {
+/** Formats a node's log dirs for KRaft (`kafka.tools.StorageTool format`). */
+export async function formatStorage(
+  java: string,
+  jarDir: string,
+  propsFile: string,
+  id: string,
+): Promise<void> {
+  try {
+    await run(
+      java,
+      [...jvmArgs(jarDir, 256), 'kafka.tools.StorageTool', 'format', '-t', id, '-c', propsFile],
+      {
+        timeoutMs: 60_000,
+      },
+    );
+  } catch (error) {
+    if (/ENOENT/.test((error as Error).message)) {
+      throw new Error(
+        `java was not found (${java}): install Java 17, set JAVA_HOME, or set SPILLWAY_KAFKA_BROKERS.`,
+      );
+    }
+    throw error;
+  }
+}
+
+export interface BrokerConfig {
   java: string;
   jarDir: string;
   heapMb: number;
@@ -246,9 +260,15 @@ interface BrokerConfig {
   readyTimeoutMs: number;
   fetched: boolean;
   sasl: StartKafkaOptions['sasl'];
+  /**
+   * A node of a cluster: ready only once the metadata it serves lists this node id (a restarted
+   * node stays fenced, and absent from metadata, until the controller takes it back).
+   */
+  nodeId?: number;
 }
 
-class Broker implements KafkaBroker {
+/** One broker JVM. `startKafka()` hands it out as a `KafkaBroker`; a cluster wraps several. */
+export class Broker implements KafkaBroker {
   readonly brokers: string[];
   readonly logFile: string;
   readonly dataDir: string;
@@ -323,7 +343,12 @@ class Broker implements KafkaBroker {
             throw fail('exited while waiting for metadata');
           await admin.connect();
           const cluster = await admin.describeCluster();
-          return cluster.brokers.length > 0 ? true : undefined;
+          const nodeId = this.config.nodeId;
+          const listed =
+            nodeId === undefined
+              ? cluster.brokers.length > 0
+              : cluster.brokers.some((b) => b.nodeId === nodeId);
+          return listed ? true : undefined;
         },
         { timeoutMs: Math.max(5_000, deadline - Date.now()), intervalMs: 250 },
       );
@@ -340,6 +365,22 @@ class Broker implements KafkaBroker {
     if (child?.pid === undefined || child.exitCode !== null || child.signalCode !== null) return;
     signalGroup(child.pid, 'SIGKILL');
     await exited(child);
+  }
+
+  /** Whether the JVM is running (started and not yet exited). */
+  get running(): boolean {
+    const child = this.child;
+    return child?.pid !== undefined && child.exitCode === null && child.signalCode === null;
+  }
+
+  /** The JVM's process id while it runs. */
+  get pid(): number | undefined {
+    return this.running ? this.child?.pid : undefined;
+  }
+
+  /** Graceful stop (SIGTERM: a controlled shutdown; SIGKILL after 20 s), keeping the data dir. */
+  async halt(): Promise<void> {
+    if (this.child) await stopGroup(this.child, 20_000);
   }
 
   async restart(): Promise<void> {

@@ -1,99 +1,14 @@
 // The consumer bridge across process deaths: consumer processes (test/integration/workers/
 // bridge-worker.ts) in one group stream dock events from the real broker into PostgreSQL, and the
 // test SIGTERMs or SIGKILLs them mid-stream, restarts them and counts every row.
-import { mkdtempSync, rmSync } from 'node:fs';
-import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import type { Producer } from 'kafkajs';
-import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import {
-  services,
-  sleep,
-  type TestKafka,
-  type TestSchema,
-  uniqueName,
-  waitFor,
-  withKafka,
-  withSchema,
-} from '../harness/index.js';
-import { createDockTable, dockEvent, encodeEvent } from './workers/dock-rows.js';
+import { describe, expect, it } from 'vitest';
+import { services, sleep, uniqueName, waitFor } from '../harness/index.js';
+import { createDockTable } from './workers/dock-rows.js';
+import { groupFixture } from './workers/group-checks.js';
 import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
-let kafka: TestKafka;
-let schema: TestSchema;
-let producer: Producer;
-let dir: string;
-
-beforeAll(async () => {
-  [kafka, schema] = await Promise.all([withKafka(), withSchema('bridge_proc')]);
-  producer = kafka.kafka.producer({ allowAutoTopicCreation: false });
-  await producer.connect();
-  dir = mkdtempSync(join(tmpdir(), 'spillway-bridge-'));
-});
-afterAll(async () => {
-  await producer?.disconnect();
-  await Promise.all([kafka?.drop(), schema?.drop()]);
-  if (dir) rmSync(dir, { recursive: true, force: true });
-});
-
-/** Sends dock events `from` … `to - 1`, event `seq` to partition `seq % partitions`. */
-async function produce(
-  topic: string,
-  partitions: number,
-  from: number,
-  to: number,
-  chunk = 5000,
-): Promise<void> {
-  for (let start = from; start < to; start += chunk) {
-    const end = Math.min(to, start + chunk);
-    const messages = [];
-    for (let seq = start; seq < end; seq++)
-      messages.push({ partition: seq % partitions, value: encodeEvent(dockEvent(seq)) });
-    await producer.send({ topic, acks: -1, messages });
-  }
-}
-
-/** The group's committed offsets (next offset to read) by partition; -1 when none. */
-async function committed(groupId: string, topic: string): Promise<Map<number, number>> {
-  const [t] = await kafka.admin.fetchOffsets({ groupId, topics: [topic] });
-  return new Map((t?.partitions ?? []).map((p) => [p.partition, Number(p.offset)]));
-}
-
-async function endOffsets(topic: string): Promise<Map<number, number>> {
-  const offsets = await kafka.admin.fetchTopicOffsets(topic);
-  return new Map(offsets.map((o) => [o.partition, Number(o.high)]));
-}
-
-/** Waits until the group has committed every partition's end offset. */
-async function waitCommittedToEnd(groupId: string, topic: string, timeoutMs = 120_000): Promise<void> {
-  const ends = await endOffsets(topic);
-  await waitFor(
-    `group ${groupId} to commit the end of ${topic}`,
-    async () => {
-      const c = await committed(groupId, topic);
-      return [...ends].every(([p, end]) => c.get(p) === end) ? true : undefined;
-    },
-    { timeoutMs, intervalMs: 250 },
-  );
-}
-
-async function counts(table: string): Promise<{ rows: number; distinct: number; min: number; max: number }> {
-  const { rows } = await schema.pool.query<{
-    rows: string;
-    distinct: string;
-    min: string | null;
-    max: string | null;
-  }>(
-    `SELECT count(*) AS rows, count(DISTINCT seq) AS distinct, min(seq) AS min, max(seq) AS max FROM ${table}`,
-  );
-  const r = rows[0]!;
-  return {
-    rows: Number(r.rows),
-    distinct: Number(r.distinct),
-    min: Number(r.min ?? -1),
-    max: Number(r.max ?? -1),
-  };
-}
+const f = groupFixture('bridge_proc');
 
 function workerConfig(
   label: string,
@@ -106,9 +21,9 @@ function workerConfig(
     brokers: services().kafkaBrokers,
     topic,
     groupId,
-    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${schema.schema}`)}`,
+    pgUrl: `${services().pgUrl}?options=${encodeURIComponent(`-c search_path=${f.schema.schema}`)}`,
     tables,
-    deadLetterPath: join(dir, `${label}.dead-letter.ndjson`),
+    deadLetterPath: join(f.dir, `${label}.dead-letter.ndjson`),
   };
 }
 
@@ -121,13 +36,13 @@ describe('consumer processes of the bridge', () => {
   it('SIGTERM mid-stream flushes and commits, so after a restart the table holds every message exactly once', async () => {
     const TOTAL = 200_000;
     const PARTITIONS = 3;
-    const topic = await kafka.topic(PARTITIONS, 'dock_term');
+    const topic = await f.kafka.topic(PARTITIONS, 'dock_term');
     const groupId = uniqueName('bridge_term');
     const table = uniqueName('dock_term');
-    await createDockTable(schema.pool, table, 'insert');
+    await createDockTable(f.schema.pool, table, 'insert');
     const config = workerConfig('term', topic, groupId, [{ table, mode: 'insert' }]);
 
-    const producing = produce(topic, PARTITIONS, 0, TOTAL);
+    const producing = f.checks.produce(topic, PARTITIONS, 0, TOTAL);
     const first = startWorker(config);
     await first.waitFor('ready', (l) => l.event === 'ready');
     await waitFor(
@@ -137,18 +52,15 @@ describe('consumer processes of the bridge', () => {
     );
     const atSignal = messagesTaken(first);
     const exit = await stopWorker(first, 'SIGTERM');
-    const afterStop = await counts(table);
-    const committedAtStop = [...(await committed(groupId, topic)).values()].reduce(
-      (a, b) => a + Math.max(0, b),
-      0,
-    );
+    const afterStop = await f.checks.counts(table);
+    const committedAtStop = await f.checks.committedTotal(groupId, topic);
     await producing;
 
     const second = startWorker({ ...config, label: 'term2' });
     await second.waitFor('ready', (l) => l.event === 'ready');
-    await waitCommittedToEnd(groupId, topic);
+    await f.checks.waitCommittedToEnd(groupId, topic);
     const exit2 = await stopWorker(second, 'SIGTERM');
-    const final = await counts(table);
+    const final = await f.checks.counts(table);
     console.log(
       `[bridge] SIGTERM: first worker took ${atSignal} messages before the signal; at exit the table held ${afterStop.rows} rows and the group had committed ${committedAtStop}; ` +
         `after the restart: ${final.rows} rows, ${final.distinct} distinct, ${final.rows - final.distinct} duplicates; exit codes ${exit.code}, ${exit2.code}`,
@@ -174,25 +86,25 @@ describe('consumer processes of the bridge', () => {
     it(`SIGTERM while the bridge is ${how} ends in an ordered flush and commit, exit 143, and commits nothing that is not durable`, async () => {
       const TOTAL = 30_000;
       const PARTITIONS = 3;
-      const topic = await kafka.topic(PARTITIONS, 'dock_stall');
+      const topic = await f.kafka.topic(PARTITIONS, 'dock_stall');
       const groupId = uniqueName('bridge_stall');
       const table = uniqueName('dock_stall');
-      await createDockTable(schema.pool, table, 'insert');
+      await createDockTable(f.schema.pool, table, 'insert');
       const config = {
         ...workerConfig(`stall${pauseAfterMs}`, topic, groupId, [{ table, mode: 'insert' as const }]),
         maxRecords: 500,
         maxPendingRecords: 1000,
         pauseAfterMs,
       };
-      await produce(topic, PARTITIONS, 0, TOTAL);
-      const locker = await schema.pool.connect();
+      await f.checks.produce(topic, PARTITIONS, 0, TOTAL);
+      const locker = await f.schema.pool.connect();
       let locked = false;
       try {
         const first = startWorker(config);
         await first.waitFor('ready', (l) => l.event === 'ready');
         await waitFor(
           'some rows to be written',
-          async () => ((await counts(table)).rows > 0 ? true : undefined),
+          async () => ((await f.checks.counts(table)).rows > 0 ? true : undefined),
           {
             timeoutMs: 60_000,
             intervalMs: 50,
@@ -205,10 +117,7 @@ describe('consumer processes of the bridge', () => {
           l.event === 'stats' &&
           (pauseAfterMs === 0 ? Number(l.paused) > 0 : Number(l.held) > 0 && Number(l.pauses) === 0);
         await first.waitFor(`the bridge to be ${how}`, stalled, 60_000);
-        const committedBefore = [...(await committed(groupId, topic)).values()].reduce(
-          (a, b) => a + Math.max(0, b),
-          0,
-        );
+        const committedBefore = await f.checks.committedTotal(groupId, topic);
         first.child.kill('SIGTERM');
         await sleep(1500);
         // The process is still flushing: the store has not taken the buffered rows yet.
@@ -216,17 +125,14 @@ describe('consumer processes of the bridge', () => {
         await locker.query('ROLLBACK');
         locked = false;
         const exit = await first.exited;
-        const afterStop = await counts(table);
-        const committedAtStop = [...(await committed(groupId, topic)).values()].reduce(
-          (a, b) => a + Math.max(0, b),
-          0,
-        );
+        const afterStop = await f.checks.counts(table);
+        const committedAtStop = await f.checks.committedTotal(groupId, topic);
 
         const second = startWorker({ ...config, label: `${config.label}b`, pauseAfterMs: 1000 });
         await second.waitFor('ready', (l) => l.event === 'ready');
-        await waitCommittedToEnd(groupId, topic);
+        await f.checks.waitCommittedToEnd(groupId, topic);
         const exit2 = await stopWorker(second, 'SIGTERM');
-        const final = await counts(table);
+        const final = await f.checks.counts(table);
         console.log(
           `[bridge] SIGTERM while ${how}: committed ${committedBefore} before the signal, ${committedAtStop} at exit, ${afterStop.rows} rows at exit; ` +
             `after the restart ${final.rows} rows, ${final.distinct} distinct; exit codes ${exit.code}, ${exit2.code}`,
@@ -249,18 +155,18 @@ describe('consumer processes of the bridge', () => {
   it('kill -9 mid-stream loses nothing: upsert equals the source and insert duplicates stay within what was uncommitted', async () => {
     const TOTAL = 200_000;
     const PARTITIONS = 3;
-    const topic = await kafka.topic(PARTITIONS, 'dock_kill');
+    const topic = await f.kafka.topic(PARTITIONS, 'dock_kill');
     const groupId = uniqueName('bridge_kill');
     const insertTable = uniqueName('dock_kill_ins');
     const upsertTable = uniqueName('dock_kill_ups');
-    await createDockTable(schema.pool, insertTable, 'insert');
-    await createDockTable(schema.pool, upsertTable, 'upsert');
+    await createDockTable(f.schema.pool, insertTable, 'insert');
+    await createDockTable(f.schema.pool, upsertTable, 'upsert');
     const config = workerConfig('kill', topic, groupId, [
       { table: insertTable, mode: 'insert' },
       { table: upsertTable, mode: 'upsert' },
     ]);
 
-    const producing = produce(topic, PARTITIONS, 0, TOTAL);
+    const producing = f.checks.produce(topic, PARTITIONS, 0, TOTAL);
     const first = startWorker(config);
     await first.waitFor('ready', (l) => l.event === 'ready');
     await waitFor(
@@ -272,21 +178,21 @@ describe('consumer processes of the bridge', () => {
     // A statement the server had already received when the client died still commits: give it a
     // moment before reading what is durable but uncommitted.
     await sleep(1000);
-    const c = await committed(groupId, topic);
-    const { rows } = await schema.pool.query<{ n: string }>(
+    const c = await f.checks.committed(groupId, topic);
+    const { rows } = await f.schema.pool.query<{ n: string }>(
       `SELECT count(*) AS n FROM ${insertTable} t WHERE t.koffset >= CASE t.kpartition ${[...c].map(([p, o]) => `WHEN ${p} THEN ${Math.max(0, o)}`).join(' ')} ELSE 0 END`,
     );
     const uncommitted = Number(rows[0]!.n);
-    const atKill = await counts(insertTable);
+    const atKill = await f.checks.counts(insertTable);
     await producing;
 
     const second = startWorker({ ...config, label: 'kill2' });
     await second.waitFor('ready', (l) => l.event === 'ready');
-    await waitCommittedToEnd(groupId, topic);
+    await f.checks.waitCommittedToEnd(groupId, topic);
     await stopWorker(second, 'SIGTERM');
-    const ins = await counts(insertTable);
-    const ups = await counts(upsertTable);
-    const wrong = await schema.pool.query<{ n: string }>(
+    const ins = await f.checks.counts(insertTable);
+    const ups = await f.checks.counts(upsertTable);
+    const wrong = await f.schema.pool.query<{ n: string }>(
       `SELECT count(*) AS n FROM ${upsertTable} WHERE dock <> 'dock-' || lpad((seq % 97)::text, 3, '0') OR bikes <> seq % 13`,
     );
     const duplicates = ins.rows - ins.distinct;
@@ -304,10 +210,10 @@ describe('consumer processes of the bridge', () => {
 
   it('scales from 1 to 3 to 2 processes of one group while a producer keeps writing, missing nothing', async () => {
     const PARTITIONS = 6;
-    const topic = await kafka.topic(PARTITIONS, 'dock_scale');
+    const topic = await f.kafka.topic(PARTITIONS, 'dock_scale');
     const groupId = uniqueName('bridge_scale');
     const table = uniqueName('dock_scale');
-    await createDockTable(schema.pool, table, 'insert');
+    await createDockTable(f.schema.pool, table, 'insert');
     const config = (label: string) => workerConfig(label, topic, groupId, [{ table, mode: 'insert' }]);
 
     // A steady producer: 400 messages every 100 ms (about 4000/s) until told to stop.
@@ -315,7 +221,7 @@ describe('consumer processes of the bridge', () => {
     let producing = true;
     const producerLoop = (async () => {
       while (producing) {
-        await produce(topic, PARTITIONS, produced, produced + 400);
+        await f.checks.produce(topic, PARTITIONS, produced, produced + 400);
         produced += 400;
         await sleep(100);
       }
@@ -365,9 +271,9 @@ describe('consumer processes of the bridge', () => {
 
       producing = false;
       await producerLoop;
-      await waitCommittedToEnd(groupId, topic);
+      await f.checks.waitCommittedToEnd(groupId, topic);
       const exits = await Promise.all([stopWorker(a, 'SIGTERM'), stopWorker(b, 'SIGTERM')]);
-      const final = await counts(table);
+      const final = await f.checks.counts(table);
       const perWorker = workers.map((w) => {
         const last = w.lines.filter((l) => l.event === 'stats').at(-1);
         return `${w.label}: ${String(last?.messages ?? 0)} taken, ${String(last?.skipped ?? 0)} redeliveries skipped, ${String(last?.flushes ?? 0)} rebalance flushes (${String(last?.flushTimeouts ?? 0)} timed out), ${w.lines.filter((l) => l.event === 'assign').length} assignments`;

@@ -25,6 +25,7 @@ describe('README code blocks', () => {
       'sink-fed-by-pipe-into',
       'redis-availability',
       'ingest-a-partner-file',
+      'bridge-into-postgres',
     ])
       expect(names).toContain(name);
   });

@@ -40,7 +40,18 @@ const rejected = instrumented(
   'docks',
   crashWhen("void Promise.reject(new Error('a bug elsewhere'));"),
 );
-const programs: Program[] = [copy, insert, thrown, rejected];
+// … or the program's own loop throws on its 30,001st report (the module's top-level await rejects).
+const loopThrows = instrumented(
+  replaced(
+    base,
+    'loop-throws',
+    'for await (const status of dockFeed()) await docks.write(status);',
+    "let seen = 0;\nfor await (const status of dockFeed()) { if (++seen > 30_000) throw new Error('a bug in the loop'); await docks.write(status); }",
+  ),
+  'first-crash-in-loop',
+  'docks',
+);
+const programs: Program[] = [copy, insert, thrown, rejected, loopThrows];
 
 let project: ReadmeProject;
 beforeAll(async () => {
@@ -71,9 +82,11 @@ function expectEveryAcceptedReport(run: DockRun, exitCode: number): void {
 async function signalRuns(js: string, signal: NodeJS.Signals, exitCode: number): Promise<number[]> {
   const accepted: number[] = [];
   for (let i = 0; i < RUNS; i++) {
-    const run = await runDockStatus(js, { signal });
+    // Each run is signalled at another point of the stream: after 1, 15,001, 30,001, … rows.
+    const run = await runDockStatus(js, { signal, afterRows: 1 + i * 15_000 });
     expectEveryAcceptedReport(run, exitCode);
     expect(run.table.rows).toBeGreaterThan(0);
+    expect(run.result.stderr).toContain(`shutting down (${signal})`);
     accepted.push(run.table.rows);
   }
   return accepted;
@@ -112,7 +125,7 @@ describe.concurrent('the README first example as a program', () => {
       const run = await runDockStatus(project.js(thrown.name), {});
       expectEveryAcceptedReport(run, 1);
       expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
-      expect(run.result.stderr).toContain('a bug elsewhere');
+      expect(run.result.stderr).toContain('uncaught exception: Error: a bug elsewhere');
     }
   });
 
@@ -121,7 +134,14 @@ describe.concurrent('the README first example as a program', () => {
       const run = await runDockStatus(project.js(rejected.name), {});
       expectEveryAcceptedReport(run, 1);
       expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
-      expect(run.result.stderr).toContain('a bug elsewhere');
+      expect(run.result.stderr).toContain('unhandled rejection: Error: a bug elsewhere');
     }
+  });
+
+  it('flushes the 30,000 reports it accepted and exits 1 when its own loop throws', async () => {
+    const run = await runDockStatus(project.js(loopThrows.name), {});
+    expectEveryAcceptedReport(run, 1);
+    expect(run.table.rows).toBe(30_000);
+    expect(run.result.stderr).toContain('uncaught exception: Error: a bug in the loop');
   });
 });

@@ -18,6 +18,9 @@
 // (read from /proc when the servers run on this machine), since all of them share the machine's
 // cores: the budget shows what the cores allow, whatever the bridge does.
 // --profile DIR writes a CPU profile (.cpuprofile) of each bridge phase into DIR.
+// bridge-eos (not in the default run; `--phases bridge,bridge-eos`): the bridge phase with
+// exactly-once on (the adapter's storeOffsets, the bridge's offsetStores); with both phases the run
+// prints the ratio bridge-eos / bridge.
 import { randomBytes } from 'node:crypto';
 import { mkdirSync, readdirSync, readFileSync, readlinkSync, writeFileSync } from 'node:fs';
 import { Session } from 'node:inspector';
@@ -56,12 +59,11 @@ const PHASES = flags.phases.split(',').map((p) => p.trim()) as Phase[];
 // store-meta (not in the default run): the store phase with a Kafka-like meta per row (topic,
 // partition, bigint offset, ordering key, event time), which the sink tracks as it does the
 // bridge's: what the sink's own per-record bookkeeping of metas costs.
-type Phase = 'source' | 'store' | 'store-meta' | 'bridge';
+type Phase = 'source' | 'store' | 'store-meta' | 'bridge' | 'bridge-eos';
+const ALL_PHASES: readonly Phase[] = ['source', 'store', 'store-meta', 'bridge', 'bridge-eos'];
 for (const p of PHASES)
-  if (p !== 'source' && p !== 'store' && p !== 'store-meta' && p !== 'bridge')
-    throw new TypeError(
-      `Expected \`--phases\` to list source, store, store-meta, bridge, got \`${flags.phases}\``,
-    );
+  if (!ALL_PHASES.includes(p))
+    throw new TypeError(`Expected \`--phases\` to list ${ALL_PHASES.join(', ')}, got \`${flags.phases}\``);
 const PROFILE_DIR = flags.profile;
 const MESSAGES = Number(flags.messages);
 const REPEATS = Number(flags.repeats);
@@ -110,7 +112,18 @@ const decode = (m: KafkaMessage): DockStatus | DecodeError => {
   }
 };
 
-function sink(): Sink<DockStatus> {
+function adapter(storeOffsetsFor?: string) {
+  return postgresAdapter<DockStatus>({
+    pool,
+    table: TABLE,
+    columns: ['seq', 'dock', 'bikes', 'empty_slots'],
+    map: (r) => [r.seq, r.dock, r.bikes, r.emptySlots],
+    mode: 'copy',
+    ...(storeOffsetsFor === undefined ? {} : { storeOffsets: { group: storeOffsetsFor } }),
+  });
+}
+
+function sink(a = adapter()): Sink<DockStatus> {
   // One batch in flight: with more, core's batch selection skips the keys already in flight and,
   // with six partitions in every batch, leaves mostly tiny batches (reported to the core owner).
   const options: SinkOptions<DockStatus> = {
@@ -119,16 +132,7 @@ function sink(): Sink<DockStatus> {
     maxAgeMs: 500,
     concurrency: 1,
   };
-  return new Sink(
-    postgresAdapter<DockStatus>({
-      pool,
-      table: TABLE,
-      columns: ['seq', 'dock', 'bikes', 'empty_slots'],
-      map: (r) => [r.seq, r.dock, r.bikes, r.emptySlots],
-      mode: 'copy',
-    }),
-    options,
-  );
+  return new Sink(a, options);
 }
 
 async function waitUntil(check: () => boolean): Promise<void> {
@@ -388,12 +392,15 @@ async function runStore(rows: DockStatus[], meter: CpuMeter, metas?: RecordMeta[
   return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
-async function runBridge(meter: CpuMeter, rep: number): Promise<Run> {
-  const s = sink();
+async function runBridge(meter: CpuMeter, rep: number, exactlyOnce = false): Promise<Run> {
+  const groupId = `bench-bridge-${tag}-${randomBytes(3).toString('hex')}`;
+  const a = adapter(exactlyOnce ? groupId : undefined);
+  const s = sink(a);
   let t0 = 0;
   const bridge = new KafkaBridge<DockStatus>({
     kafka,
-    groupId: `bench-bridge-${tag}-${randomBytes(3).toString('hex')}`,
+    groupId,
+    ...(exactlyOnce ? { offsetStores: [{ sink: s, store: a }] } : {}),
     consumerConfig,
     topics: [TOPIC],
     fromBeginning: true,
@@ -486,9 +493,17 @@ async function main(): Promise<void> {
       store: [],
       'store-meta': [],
       bridge: [],
+      'bridge-eos': [],
       ratio: [],
     };
-    const budgets: Record<Phase, CpuBudget[]> = { source: [], store: [], 'store-meta': [], bridge: [] };
+    const budgets: Record<Phase, CpuBudget[]> = {
+      source: [],
+      store: [],
+      'store-meta': [],
+      bridge: [],
+      'bridge-eos': [],
+    };
+    const eosRatios: number[] = [];
     // Metas as the bridge makes them, built before the phase like the rows (offsets per partition).
     const metas: RecordMeta[] = PHASES.includes('store-meta')
       ? rows.map((r) => {
@@ -513,7 +528,7 @@ async function main(): Promise<void> {
         else if (which === 'store') run = await runStore(rows, meter);
         else if (which === 'store-meta') run = await runStore(rows, meter, metas);
         else {
-          run = await runBridge(meter, rep);
+          run = await runBridge(meter, rep, which === 'bridge-eos');
           const n = Number(
             (await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n,
           );
@@ -530,10 +545,15 @@ async function main(): Promise<void> {
       }
       const { source, store, bridge } = round;
       let ratio = '';
+      const eos = round['bridge-eos'];
+      if (bridge && eos) {
+        eosRatios.push(eos.rate / bridge.rate);
+        ratio += `; bridge-eos / bridge = ${(eos.rate / bridge.rate).toFixed(2)}`;
+      }
       if (source && store && bridge) {
         const r = bridge.rate / Math.min(source.rate, store.rate);
         samples.ratio.push(r);
-        ratio = `; bridge / min = ${r.toFixed(2)}`;
+        ratio += `; bridge / min = ${r.toFixed(2)}`;
       }
       console.log(`repeat ${rep + 1}: ${parts.join(', ')}${ratio}`);
     }
@@ -570,6 +590,15 @@ async function main(): Promise<void> {
       const total = med(budgets.bridge.map((b) => b.node + b.postgres + b.postgresServer + b.broker));
       console.log(
         `bridge ceilings from its own CPU: this process on one core ${fmt(1e6 / node)} msg/s (its GC threads can exceed it a little); ${cores} cores shared by all ${fmt((cores * 1e6) / total)} msg/s`,
+      );
+    }
+    if (eosRatios.length > 0) {
+      const r = summary(eosRatios);
+      const cpu = (k: Phase) => med(budgets[k].map((b) => b.node + b.postgres + b.postgresServer + b.broker));
+      console.log(
+        `exactly-once / at-least-once, msg/s: median ${r.median.toFixed(2)} (range ${r.min.toFixed(2)}–${r.max.toFixed(2)}); ` +
+          `CPU µs/msg, all processes: ${cpu('bridge-eos').toFixed(2)} vs ${cpu('bridge').toFixed(2)}; ` +
+          `this process: ${med(budgets['bridge-eos'].map((b) => b.node)).toFixed(2)} vs ${med(budgets.bridge.map((b) => b.node)).toFixed(2)}`,
       );
     }
     if (samples.ratio.length > 0) {

@@ -2,7 +2,7 @@ import { accessSync, constants, statSync } from 'node:fs';
 import { chmod, type FileHandle, open } from 'node:fs/promises';
 import { dirname, resolve } from 'node:path';
 import { driverCodeOf, messageOf, SpillwayError } from './errors.js';
-import { invalidOption } from './options.js';
+import { invalidOption } from './option-checks.js';
 import type { DeadLetter, DeadLetterTarget, RecordMeta } from './types.js';
 
 export interface FileDeadLetterOptions<T> {

@@ -20,16 +20,27 @@ function onBeforeExit(): void {
   for (const sink of [...holding]) sink.flushBeforeExit();
 }
 
-/** The sink holds records that are not yet terminal. */
-export function holdExit(sink: ExitFlushable): void {
-  holding.add(sink);
-  if (!listening) {
-    listening = true;
-    process.on('beforeExit', onBeforeExit);
-  }
-}
+/** One sink's place in the net: held while it has records that are not terminal. */
+export class ExitHold {
+  private held = false;
 
-/** The sink holds nothing any more (or can never write again). */
-export function releaseExit(sink: ExitFlushable): void {
-  holding.delete(sink);
+  constructor(private readonly sink: ExitFlushable) {}
+
+  /** The sink accepted a record (cheap when already held: called per record). */
+  hold(): void {
+    if (this.held) return;
+    this.held = true;
+    holding.add(this.sink);
+    if (!listening) {
+      listening = true;
+      process.on('beforeExit', onBeforeExit);
+    }
+  }
+
+  /** The sink holds nothing any more (or can never write again). */
+  release(): void {
+    if (!this.held) return;
+    this.held = false;
+    holding.delete(this.sink);
+  }
 }

@@ -19,13 +19,13 @@ export class Histogram {
 
   record(value: number): void {
     const v = Math.round(value * this.scale);
-    this.h.recordValue(v < 0 ? 0 : v);
+    this.h.recordValue(Math.max(0, v));
   }
 
   /** Records `value` `count` times in one step. */
   recordMany(value: number, count: number): void {
     const v = Math.round(value * this.scale);
-    this.h.recordValueWithCount(v < 0 ? 0 : v, count);
+    this.h.recordValueWithCount(Math.max(0, v), count);
   }
 
   /** Quantile in reported units; `q` in [0, 100]. */

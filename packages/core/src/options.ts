@@ -1,5 +1,7 @@
 import type { Clock } from './clock.js';
 import { systemClock } from './clock.js';
+import { countOption, functionOption, invalidOption, knownOptions, numberOption } from './option-checks.js';
+import { partitionKey } from './progress.js';
 import type { DeadLetterTarget, RecordMeta } from './types.js';
 
 /** Retry budget for transient failures. Delays use full jitter: uniform in [0, min(cap, base·2^n)]. */
@@ -127,52 +129,6 @@ export const DEFAULTS = {
   retry: { maxAttempts: 12, baseDelayMs: 100, maxDelayMs: 5000, maxElapsedMs: 120_000 },
 } as const;
 
-/** The error thrown for a bad option: names the option, what was expected and what was given. */
-export function invalidOption(name: string, expected: string, given: unknown): TypeError {
-  const error = new TypeError(`Expected \`${name}\` to be ${expected}, got \`${show(given)}\``);
-  (error as TypeError & { code: string }).code = 'SPILLWAY_INVALID_OPTION';
-  return error;
-}
-
-function show(value: unknown): string {
-  if (typeof value === 'string') return JSON.stringify(value);
-  if (typeof value === 'function') return 'function';
-  if (typeof value === 'bigint') return `${value}n`;
-  if (typeof value === 'number') return String(value);
-  try {
-    return String(JSON.stringify(value) ?? value);
-  } catch {
-    return String(value);
-  }
-}
-
-/** A finite number with bounds; integers when `integer`. Returns the default when undefined. */
-export function numberOption(
-  name: string,
-  value: unknown,
-  fallback: number,
-  rule: { min: number; exclusiveMin?: boolean; integer?: boolean; allowInfinity?: boolean },
-): number {
-  if (value === undefined) return fallback;
-  const { min, exclusiveMin = false, integer = false, allowInfinity = false } = rule;
-  const kind = integer ? 'an integer' : 'a finite number';
-  const bound = `${exclusiveMin ? '>' : '>='} ${min}`;
-  const ok =
-    typeof value === 'number' &&
-    !Number.isNaN(value) &&
-    (Number.isFinite(value) || (allowInfinity && value === Number.POSITIVE_INFINITY)) &&
-    (!integer || Number.isInteger(value) || value === Number.POSITIVE_INFINITY) &&
-    (exclusiveMin ? value > min : value >= min);
-  if (!ok) throw invalidOption(name, `${kind} ${bound}${allowInfinity ? ' (or Infinity)' : ''}`, value);
-  return value as number;
-}
-
-function functionOption<F>(name: string, value: unknown): F | undefined {
-  if (value === undefined) return undefined;
-  if (typeof value !== 'function') throw invalidOption(name, 'a function', value);
-  return value as F;
-}
-
 const KNOWN = new Set([
   'name',
   'maxRecords',
@@ -193,7 +149,7 @@ export function defaultOrderingKey(_record: unknown, meta: RecordMeta | undefine
   if (!meta) return undefined;
   if (meta.key !== undefined) return meta.key;
   if (meta.partition === undefined) return undefined;
-  return meta.topic === undefined ? String(meta.partition) : `${meta.topic}:${meta.partition}`;
+  return partitionKey(meta.topic, meta.partition);
 }
 
 /** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
@@ -201,32 +157,20 @@ export function resolveOptions<T>(
   options: SinkOptions<T> | undefined,
   adapterKind: string,
 ): ResolvedOptions<T> {
-  const o = (options ?? {}) as Record<string, unknown>;
-  if (typeof o !== 'object' || o === null) throw invalidOption('options', 'an object', options);
-  for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key) && o[key] !== undefined)
-      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
-  }
+  const o = knownOptions(options, KNOWN);
   const name = o.name === undefined ? adapterKind : o.name;
   if (typeof name !== 'string' || name.length === 0)
     throw invalidOption('name', 'a non-empty string', o.name);
 
-  const maxRecords = numberOption('maxRecords', o.maxRecords, DEFAULTS.maxRecords, { min: 1, integer: true });
-  const maxBytes = numberOption('maxBytes', o.maxBytes, DEFAULTS.maxBytes, { min: 1, integer: true });
+  const maxRecords = countOption('maxRecords', o.maxRecords, DEFAULTS.maxRecords);
+  const maxBytes = countOption('maxBytes', o.maxBytes, DEFAULTS.maxBytes);
   const maxAgeMs = numberOption('maxAgeMs', o.maxAgeMs, DEFAULTS.maxAgeMs, { min: 0, exclusiveMin: true });
   const idleMs = numberOption('idleMs', o.idleMs, DEFAULTS.idleMs, { min: 0 });
-  const concurrency = numberOption('concurrency', o.concurrency, DEFAULTS.concurrency, {
-    min: 1,
-    integer: true,
-  });
-  const maxPendingRecords = numberOption(
+  const concurrency = countOption('concurrency', o.concurrency, DEFAULTS.concurrency);
+  const maxPendingRecords = countOption(
     'maxPendingRecords',
     o.maxPendingRecords,
     maxRecords * (concurrency + 2),
-    {
-      min: 1,
-      integer: true,
-    },
   );
   if (maxPendingRecords < maxRecords) {
     throw invalidOption(
@@ -235,10 +179,7 @@ export function resolveOptions<T>(
       maxPendingRecords,
     );
   }
-  const maxPendingBytes = numberOption('maxPendingBytes', o.maxPendingBytes, maxBytes * (concurrency + 2), {
-    min: 1,
-    integer: true,
-  });
+  const maxPendingBytes = countOption('maxPendingBytes', o.maxPendingBytes, maxBytes * (concurrency + 2));
   if (maxPendingBytes < maxBytes) {
     throw invalidOption(
       'maxPendingBytes',
@@ -247,12 +188,9 @@ export function resolveOptions<T>(
     );
   }
 
-  const r = (o.retry ?? {}) as Record<string, unknown>;
-  if (typeof r !== 'object' || r === null) throw invalidOption('retry', 'an object', o.retry);
+  const r = knownOptions(o.retry, ['maxAttempts', 'baseDelayMs', 'maxDelayMs', 'maxElapsedMs'], 'retry');
   const retry = {
-    maxAttempts: numberOption('retry.maxAttempts', r.maxAttempts, DEFAULTS.retry.maxAttempts, {
-      min: 1,
-      integer: true,
+    maxAttempts: countOption('retry.maxAttempts', r.maxAttempts, DEFAULTS.retry.maxAttempts, {
       allowInfinity: true,
     }),
     baseDelayMs: numberOption('retry.baseDelayMs', r.baseDelayMs, DEFAULTS.retry.baseDelayMs, { min: 0 }),
@@ -290,4 +228,27 @@ export function resolveOptions<T>(
     deadLetter,
     clock,
   };
+}
+
+/** Options of one `write()`. */
+export interface WriteOptions {
+  /** Cancels a write that is waiting for room. */
+  signal?: AbortSignal;
+}
+
+export interface CloseOptions {
+  /** Reject if not every record is terminal by then. @default 30000 */
+  timeoutMs?: number;
+  /**
+   * What a `write()` that arrives after close() began gets.
+   * - `reject`: it rejects with `SPILLWAY_SINK_CLOSED` (and `tryWrite()` throws): writing to a
+   *   sink your own code closed is a bug in that code, and it should hear about it.
+   * - `park`: it never settles and its record is not accepted (`tryWrite()` returns false,
+   *   `tryWriteMany()` 0), so a producer loop that awaits `write()` simply stops where it is.
+   *   The shutdown coordinator closes sinks this way: a signal must not turn the caller's own
+   *   loop into an unhandled rejection that kills the process before the final flush.
+   * A later close() can turn `reject` into `park`, never the other way.
+   * @default 'reject'
+   */
+  laterWrites?: 'reject' | 'park';
 }

@@ -90,6 +90,15 @@ class PartitionProgress {
   }
 }
 
+/**
+ * The one key of a source partition, "topic:partition" (or the partition alone when the source has
+ * no topics): progress, ordering and the bridge's bookkeeping all name a partition this way.
+ */
+export function partitionKey(topic: string | undefined, partition: number | string | undefined): string {
+  return topic === undefined ? String(partition ?? '') : `${topic}:${partition ?? ''}`;
+}
+
+/** An offset as a bigint (Kafka hands them over as strings). */
 export function toOffset(offset: string | number | bigint): bigint {
   return typeof offset === 'bigint' ? offset : BigInt(offset);
 }

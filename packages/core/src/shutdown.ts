@@ -1,7 +1,7 @@
 import { constants } from 'node:os';
 import type { PendingCounts } from './errors.js';
 import { messageOf, ShutdownTimeoutError, SpillwayError } from './errors.js';
-import { invalidOption, numberOption } from './options.js';
+import { invalidOption, numberOption } from './option-checks.js';
 
 /** Stages run in this order; the steps of one stage run together. */
 export type ShutdownStage = 'sources' | 'sinks' | 'progress' | 'clients';

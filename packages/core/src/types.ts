@@ -84,6 +84,7 @@ export interface PartialWrite {
 export interface SinkAdapter<T> {
   /** Short store name used in metrics and messages, e.g. `postgres`. */
   readonly kind: string;
+  // biome-ignore lint/suspicious/noConfusingVoidType: an adapter that lands every record returns nothing
   write(batch: Batch<T>): Promise<void | PartialWrite>;
   classify(error: unknown): ErrorClass;
   /** Estimated bytes a record adds to a write; the engine has a default estimator. */

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { settle } from '../src/index.js';
+import { settle } from '../src/testing.js';
 import { gatedSink } from './fakes.js';
 
 describe('backpressure', () => {

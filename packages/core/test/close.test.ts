@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { ManualClock, ShutdownTimeoutError, Sink, settle } from '../src/index.js';
+import { ShutdownTimeoutError, Sink } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { deferred, FakeAdapter, gatedSink, Transient } from './fakes.js';
 
 describe('close()', () => {

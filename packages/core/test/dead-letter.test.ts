@@ -2,7 +2,8 @@ import { mkdir, mkdtemp, readFile, stat, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { fileDeadLetter, ManualClock, Sink, StoreError } from '../src/index.js';
+import { fileDeadLetter, Sink, StoreError } from '../src/index.js';
+import { ManualClock } from '../src/testing.js';
 import { BadRecord, FakeAdapter } from './fakes.js';
 
 describe('file dead-letter target', () => {

@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, type SpillwayError, settle } from '../src/index.js';
+import { Sink, type SpillwayError } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { BadRecord, FakeAdapter, MemoryDeadLetter, Misconfigured, Transient } from './fakes.js';
 
 function setup(options: Record<string, unknown> = {}) {

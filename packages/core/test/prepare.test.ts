@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { type Batch, ManualClock, type Prepared, Sink, settle } from '../src/index.js';
+import { type Batch, type Prepared, Sink } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { FakeAdapter, gatedSink } from './fakes.js';
 
 /** A fake adapter whose prepare() doubles numbers and refuses negative ones. */

@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { ManualClock, ProgressTracker, Sink } from '../src/index.js';
+import { ProgressTracker, Sink } from '../src/index.js';
+import { ManualClock } from '../src/testing.js';
 import { FakeAdapter } from './fakes.js';
 
 describe('ProgressTracker', () => {

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { fullJitterDelay } from '../src/index.js';
+import { fullJitterDelay } from '../src/engine/delivery.js';
 
 describe('full-jitter backoff', () => {
   // Source: "Exponential Backoff And Jitter", AWS Architecture Blog (2015):

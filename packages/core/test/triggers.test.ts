@@ -1,5 +1,6 @@
 import { describe, expect, it } from 'vitest';
-import { ManualClock, Sink, settle } from '../src/index.js';
+import { Sink } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { deferred, FakeAdapter } from './fakes.js';
 
 function setup(options: Record<string, unknown> = {}) {

@@ -1,7 +1,8 @@
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 import { describe, expect, it } from 'vitest';
-import { ManualClock, pipeInto, Sink, settle, toWritable } from '../src/index.js';
+import { pipeInto, Sink, toWritable } from '../src/index.js';
+import { ManualClock, settle } from '../src/testing.js';
 import { deferred, FakeAdapter } from './fakes.js';
 
 describe('Writable adapter', () => {
@@ -34,7 +35,7 @@ describe('Writable adapter', () => {
 
   it('works in stream.pipeline() and finishes only when every record is durable', async () => {
     const adapter = new FakeAdapter<{ dock: number }>();
-    adapter.behave = () => new Promise((r) => setTimeout(r, 2));
+    adapter.behave = () => new Promise<void>((r) => setTimeout(r, 2));
     const sink = new Sink(adapter, { maxRecords: 50, maxPendingRecords: 100 });
     const source = Readable.from(Array.from({ length: 1000 }, (_, i) => ({ dock: i })));
     await pipeline(source, toWritable(sink));
@@ -64,7 +65,7 @@ describe('Writable adapter', () => {
 describe('pipeInto()', () => {
   it('drains an async iterable into a sink with backpressure and waits for durability', async () => {
     const adapter = new FakeAdapter<number>();
-    adapter.behave = () => new Promise((r) => setTimeout(r, 1));
+    adapter.behave = () => new Promise<void>((r) => setTimeout(r, 1));
     const sink = new Sink(adapter, { maxRecords: 10, maxPendingRecords: 20 });
     let maxPending = 0;
     async function* gen() {

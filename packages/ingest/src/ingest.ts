@@ -2,14 +2,7 @@ import { createReadStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
-import {
-  messageOf,
-  progressKey,
-  type RecordMeta,
-  type Sink,
-  type SinkEvents,
-  SpillwayError,
-} from '@spillway/core';
+import { messageOf, progressKey, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
@@ -21,6 +14,7 @@ import {
 } from './options.js';
 import type { Reject, RejectReason } from './reject.js';
 import { csvReader, type Item, type ItemReader, ndjsonReader } from './rows.js';
+import { trackRun } from './run-counts.js';
 import { issuePath } from './standard-schema.js';
 import { FIRST_REJECTS, type IngestSummary, type RejectNote } from './summary.js';
 
@@ -116,27 +110,18 @@ async function run<T>(
   const reader: ItemReader =
     format === 'csv' ? csvReader(o.delimiter, o.maxRowBytes) : ndjsonReader(o.maxRowBytes);
 
+  // Count this run's records as the sink settles them; other writers may share the sink.
+  const run = trackRun(sink, runId, source);
+  const settled = run.counts;
   const s = {
     rowsRead: 0,
     accepted: 0,
-    written: 0,
-    deadLettered: 0,
     rejected: 0,
     blank: 0,
     bytes: 0,
     byReason: {} as Partial<Record<RejectReason, number>>,
     first: [] as RejectNote[],
   };
-  // Count this run's records as the sink settles them; other writers may share the sink.
-  const onSettled = (e: SinkEvents['settled']) => {
-    for (const m of e.metas) {
-      if (m !== undefined && m.partition === runId && m.topic === source) {
-        if (e.outcome === 'durable') s.written++;
-        else s.deadLettered++;
-      }
-    }
-  };
-  sink.on('settled', onSettled);
 
   const summary = (stopped: string | undefined): IngestSummary => {
     const durationMs = performance.now() - started;
@@ -144,15 +129,15 @@ async function run<T>(
       source,
       format,
       rowsRead: s.rowsRead,
-      rowsWritten: s.written,
+      rowsWritten: settled.written,
       rowsRejected: s.rejected,
-      rowsDeadLettered: s.deadLettered,
-      rowsPending: s.accepted - s.written - s.deadLettered,
+      rowsDeadLettered: settled.deadLettered,
+      rowsPending: s.accepted - settled.written - settled.deadLettered,
       blankLines: format === 'csv' ? reader.blankLines : s.blank,
       bytesRead: s.bytes,
       durationMs: Math.round(durationMs * 10) / 10,
       rowsPerSecond: durationMs > 0 ? Math.round((s.rowsRead / durationMs) * 1000) : 0,
-      durable: s.accepted === s.written + s.deadLettered,
+      durable: s.accepted === settled.written + settled.deadLettered,
       lastLine: reader.lastLine,
       rejectsByReason: { ...s.byReason },
       firstRejects: [...s.first],
@@ -168,9 +153,9 @@ async function run<T>(
     lastProgress = now;
     const p: IngestProgress = {
       rowsRead: s.rowsRead,
-      rowsWritten: s.written,
+      rowsWritten: settled.written,
       rowsRejected: s.rejected,
-      rowsDeadLettered: s.deadLettered,
+      rowsDeadLettered: settled.deadLettered,
       bytesRead: s.bytes,
       totalBytes,
       elapsedMs: now - started,
@@ -341,7 +326,7 @@ async function run<T>(
       sinkError = error;
     }
   }
-  sink.off('settled', onSettled);
+  run.release();
   sink.progress.forget(progressKey({ topic: source, partition: runId }));
   if (o.ownsRejects) {
     try {

@@ -11,12 +11,15 @@ export class Assignment {
   readonly fence = new CommitFence();
   readonly parts = new Map<string, PartitionState>();
   private readonly consumer: Consumer;
+  /** Called for every partition this member starts to own (not for kept ones). */
+  private readonly fresh: ((st: PartitionState) => void) | undefined;
   private memberId: string | undefined;
   /** Partitions with messages held for room in a sink. */
   private heldCount = 0;
 
-  constructor(consumer: Consumer) {
+  constructor(consumer: Consumer, fresh?: (st: PartitionState) => void) {
     this.consumer = consumer;
+    this.fresh = fresh;
   }
 
   get holding(): boolean {
@@ -86,7 +89,7 @@ export class Assignment {
       for (const p of t.partitions) paused.add(partitionKey(t.topic, p));
     for (const [key, tp] of keys) {
       const st = this.parts.get(key) ?? this.add(tp.topic, tp.partition);
-      if (draining || st.hold !== undefined) this.pause(st);
+      if (draining || st.hold !== undefined || st.loading) this.pause(st);
       else if (paused.has(key) || st.paused) this.resume(st);
     }
     return { assigned: [...keys.keys()], revoked, kept, generation: this.fence.generation };
@@ -101,6 +104,7 @@ export class Assignment {
   private add(topic: string, partition: number): PartitionState {
     const st = new PartitionState(topic, partition, Date.now());
     this.parts.set(st.key, st);
+    this.fresh?.(st);
     return st;
   }
 

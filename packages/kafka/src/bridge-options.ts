@@ -5,6 +5,25 @@ import { type DeadLetterTarget, invalidOption, type ShutdownCoordinator, type Si
 import type { Consumer, ConsumerConfig, Kafka, KafkaMessage } from 'kafkajs';
 import type { DecodeError, KafkaSource, UndecodableMessage } from './decode.js';
 
+/**
+ * What a sink adapter that stores offsets with its data offers the bridge: reading them back.
+ * (An adapter capability; `@spillway/postgres`'s adapter has it when given `storeOffsets`.)
+ */
+export interface OffsetStore {
+  /** The next offset to read per partition, as stored for `group`; partitions with none are left out. */
+  storedOffsets(
+    group: string,
+    partitions: ReadonlyArray<{ topic: string; partition: number }>,
+  ): Promise<ReadonlyArray<{ topic: string; partition: number; offset: string }>>;
+}
+
+/** A sink that stores offsets with its data, and the adapter that reads them back. */
+export interface OffsetStoreEntry {
+  // biome-ignore lint/suspicious/noExplicitAny: the sinks of one bridge may take different record types
+  readonly sink: Sink<any>;
+  readonly store: OffsetStore;
+}
+
 /** Where a record goes: one sink, several (each gets the record), or none (`undefined`, `[]`). */
 export type Route<R> = Sink<R> | readonly Sink<R>[] | undefined | null;
 
@@ -22,7 +41,8 @@ export interface KafkaBridgeOptions<R> {
    */
   kafka?: Kafka;
   /**
-   * Consumer group id, when the bridge creates the consumer from `kafka`.
+   * Consumer group id, when the bridge creates the consumer from `kafka`. With `consumer` and
+   * `offsetStores`, the consumer's group id (the stored offsets are read under it).
    * @example 'dock-status-writer'
    */
   groupId?: string;
@@ -101,6 +121,15 @@ export interface KafkaBridgeOptions<R> {
    */
   name?: string;
   /**
+   * Sinks that store the next offset to read with their data, in the same transaction
+   * (exactly-once), each with the adapter that reads the offsets back. When partitions are
+   * assigned, the bridge keeps them paused until it has read every store's offsets for them,
+   * then hands each sink only the messages at or past its own stored offset. Needs `groupId`.
+   * @default []
+   * @example [{ sink: dockStatusSink, store: dockStatusAdapter }]
+   */
+  offsetStores?: ReadonlyArray<OffsetStoreEntry>;
+  /**
    * Records buffered at most for undecodable messages before their partitions pause.
    * @default 1000
    * @example 100
@@ -121,6 +150,9 @@ export interface ResolvedBridgeOptions<R> {
   shutdown: ShutdownCoordinator | undefined;
   name: string;
   maxPendingDeadLetters: number;
+  offsetStores: ReadonlyArray<OffsetStoreEntry>;
+  /** The consumer group (for reading stored offsets); undefined when only a consumer was given. */
+  groupId: string | undefined;
 }
 
 const KNOWN = new Set([
@@ -139,6 +171,7 @@ const KNOWN = new Set([
   'shutdown',
   'name',
   'maxPendingDeadLetters',
+  'offsetStores',
 ]);
 
 function positive(name: string, value: unknown, fallback: number, integer = false): number {
@@ -221,7 +254,28 @@ export function resolveBridgeOptions<R>(options: KafkaBridgeOptions<R>): Resolve
   ) {
     throw invalidOption('shutdown', 'a ShutdownCoordinator', shutdown);
   }
+  const offsetStores = options.offsetStores ?? [];
+  if (!Array.isArray(offsetStores))
+    throw invalidOption('offsetStores', 'an array of { sink, store }', options.offsetStores);
+  for (const [i, e] of offsetStores.entries()) {
+    const entry = e as Partial<OffsetStoreEntry> | null;
+    if (typeof entry?.sink?.tryWriteMany !== 'function')
+      throw invalidOption(`offsetStores[${i}].sink`, 'a Spillway sink', entry?.sink);
+    if (typeof entry.store?.storedOffsets !== 'function')
+      throw invalidOption(
+        `offsetStores[${i}].store`,
+        'an adapter with storedOffsets(group, partitions) (a PostgreSQL adapter with `storeOffsets`)',
+        entry.store,
+      );
+  }
+  const groupId = options.groupId;
+  if (groupId !== undefined && (typeof groupId !== 'string' || groupId.length === 0))
+    throw invalidOption('groupId', 'a non-empty string', groupId);
+  if (offsetStores.length > 0 && groupId === undefined)
+    throw invalidOption('groupId', 'the consumer group id (needed with `offsetStores`)', groupId);
   return {
+    offsetStores,
+    groupId,
     consumer,
     topics,
     fromBeginning: options.fromBeginning ?? false,

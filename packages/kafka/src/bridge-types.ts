@@ -30,18 +30,16 @@ export interface PartitionSnapshot {
   heldMessages: number;
 }
 
-export interface BridgeSnapshot {
-  name: string;
-  state: BridgeState;
-  /** Assignments seen (GROUP_JOIN events). */
-  generation: number;
-  partitions: PartitionSnapshot[];
+/** The bridge's counters: they only grow. */
+export interface BridgeCounts {
   /** Messages taken from Kafka (redeliveries skipped are not counted). */
   messages: number;
   /** Messages dead-lettered because they could not be decoded or routed. */
   undecodable: number;
   /** Redelivered messages skipped because they were already taken. */
   skippedRedeliveries: number;
+  /** Messages kept from at least one sink because that sink's stored offset was past them (`offsetStores`). */
+  skippedStored: number;
   commits: number;
   commitErrors: number;
   pauses: number;
@@ -50,6 +48,14 @@ export interface BridgeSnapshot {
   rebalanceFlushes: number;
   /** Rebalances where the buffered records were not all durable within `rebalanceFlushMs`. */
   rebalanceFlushTimeouts: number;
+}
+
+export interface BridgeSnapshot extends BridgeCounts {
+  name: string;
+  state: BridgeState;
+  /** Assignments seen (GROUP_JOIN events). */
+  generation: number;
+  partitions: PartitionSnapshot[];
 }
 
 /** Event payloads, by event name. */
@@ -71,19 +77,6 @@ export interface StopOptions {
   timeoutMs?: number;
 }
 
-/** The bridge's counters, kept by the parts that count them. */
-export interface BridgeCounts {
-  messages: number;
-  undecodable: number;
-  skipped: number;
-  commits: number;
-  commitErrors: number;
-  pauses: number;
-  rebalances: number;
-  rebalanceFlushes: number;
-  rebalanceFlushTimeouts: number;
-}
-
 /** What the bridge's parts share with the facade that wires them. */
 export interface BridgeControl {
   readonly counts: BridgeCounts;
@@ -91,6 +84,8 @@ export interface BridgeControl {
   accepting(): boolean;
   /** Stopping (or stopped): partitions stay paused. */
   draining(): boolean;
+  /** Stopping, stopped or failed: nothing may resume a partition. */
+  halted(): boolean;
   /** A sink the bridge writes to failed, or the consumer crashed for good. */
   fail(error: unknown): void;
   emit<E extends BridgeEventName>(event: E, payload: BridgeEvents[E]): void;

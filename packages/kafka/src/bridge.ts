@@ -40,6 +40,7 @@ import { Intake } from './intake.js';
 import { MessageMeta } from './partition.js';
 import { Router } from './router.js';
 import { bridgeSnapshot } from './snapshot.js';
+import { StoredOffsetReader } from './stored-offsets.js';
 
 /**
  * Consumes topics with kafkajs, decodes each message, routes the record to one or more sinks,
@@ -55,7 +56,8 @@ export class KafkaBridge<R> {
   private readonly counts: BridgeCounts = {
     messages: 0,
     undecodable: 0,
-    skipped: 0,
+    skippedRedeliveries: 0,
+    skippedStored: 0,
     commits: 0,
     commitErrors: 0,
     pauses: 0,
@@ -88,6 +90,7 @@ export class KafkaBridge<R> {
       counts: this.counts,
       accepting: () => this.stateValue === 'running' && !this.draining,
       draining: () => this.draining,
+      halted: () => this.draining || this.stateValue === 'failed',
       fail: (error) => this.fail(error),
       emit: (event, payload) => this.emit(event, payload),
     };
@@ -102,7 +105,13 @@ export class KafkaBridge<R> {
         idleMs: 20,
       },
     );
-    this.assignment = new Assignment(this.consumer);
+    const { offsetStores, groupId } = this.o;
+    const reader =
+      offsetStores.length > 0 && groupId !== undefined
+        ? new StoredOffsetReader(offsetStores, groupId, this.control)
+        : undefined;
+    this.assignment = new Assignment(this.consumer, reader?.fresh);
+    reader?.attach(this.assignment);
     this.handoff = new Handoff(this.assignment, this.control);
     this.handoff.watch(this.decodeSink);
     const router = new Router(this.o, this.decodeSink, this.handoff.watch, this.counts);

@@ -19,6 +19,11 @@ export class Handoff {
   /** Handlers waiting for held messages to be taken; woken after every retry round. */
   private readonly roomWaiters = new Set<() => void>();
   private retryScheduled = false;
+  /** Bound once, so that the same functions are added to and removed from the sinks' events. */
+  private readonly onSettled = (e: SinkEvents['settled']): void => this.settled(e);
+  private readonly onSinkError = (e: SinkEvents['error']): void => this.control.fail(e.error);
+  /** For the router: called for every sink a route names. */
+  readonly watch = (sink: AnySink): void => this.watchSink(sink);
 
   constructor(assignment: Assignment, control: BridgeControl) {
     this.assignment = assignment;
@@ -26,7 +31,7 @@ export class Handoff {
   }
 
   /** Starts listening to a sink a route named; throws a TypeError for anything else. */
-  readonly watch = (sink: AnySink): void => {
+  private watchSink(sink: AnySink): void {
     if (this.sinks.has(sink)) return;
     // Duck-typed, so that two copies of @spillway/core in one app still work together.
     const s = sink as Partial<AnySink> | null;
@@ -41,7 +46,7 @@ export class Handoff {
     this.sinks.add(sink);
     sink.on('settled', this.onSettled);
     sink.on('error', this.onSinkError);
-  };
+  }
 
   /** Stops listening to every sink (the bridge disconnected). */
   unwatchAll(): void {
@@ -114,7 +119,7 @@ export class Handoff {
     return at;
   }
 
-  private readonly onSettled = (e: SinkEvents['settled']): void => {
+  private settled(e: SinkEvents['settled']): void {
     const metas = e.metas;
     for (let i = 0; i < metas.length; i++) {
       const meta = metas[i];
@@ -123,11 +128,7 @@ export class Handoff {
       MessageMeta.settle(meta)?.advance();
     }
     if (this.assignment.holding) this.scheduleRetry();
-  };
-
-  private readonly onSinkError = (e: SinkEvents['error']): void => {
-    this.control.fail(e.error);
-  };
+  }
 
   /** Room may have freed up: offer held messages again (outside the sink's own call stack). */
   private scheduleRetry(): void {

@@ -1,6 +1,7 @@
 export { KafkaBridge } from './bridge.js';
-export type { KafkaBridgeOptions, Route } from './bridge-options.js';
+export type { KafkaBridgeOptions, OffsetStore, OffsetStoreEntry, Route } from './bridge-options.js';
 export type {
+  BridgeCounts,
   BridgeEventName,
   BridgeEvents,
   BridgeSnapshot,

@@ -33,6 +33,8 @@ export class Intake<R> {
   private readonly beforeRejoin: () => Promise<void>;
   /** Handlers running now. */
   private readonly running = new Set<Promise<void>>();
+  /** The kafkajs `eachBatch` handler. */
+  readonly onBatch = (payload: EachBatchPayload): Promise<void> => this.track(payload);
 
   constructor(
     assignment: Assignment,
@@ -60,8 +62,8 @@ export class Intake<R> {
     await Promise.allSettled([...this.running]);
   }
 
-  /** The kafkajs `eachBatch` handler. */
-  readonly onBatch = async (payload: EachBatchPayload): Promise<void> => {
+  /** Runs one batch, known as running until it returns. */
+  private async track(payload: EachBatchPayload): Promise<void> {
     const run = this.handleBatch(payload);
     this.running.add(run);
     try {
@@ -69,7 +71,7 @@ export class Intake<R> {
     } finally {
       this.running.delete(run);
     }
-  };
+  }
 
   private async handleBatch(payload: EachBatchPayload): Promise<void> {
     const { batch, heartbeat } = payload;
@@ -92,7 +94,7 @@ export class Intake<R> {
 
   /** Whether messages of `st` may be taken now. */
   private taking(st: PartitionState, calls: BatchCalls): boolean {
-    return st.live && this.control.accepting() && calls.isRunning() && !calls.isStale();
+    return st.live && !st.loading && this.control.accepting() && calls.isRunning() && !calls.isStale();
   }
 
   /**
@@ -139,10 +141,11 @@ export class Intake<R> {
       offset = parseOffset(m.offset);
       if (since !== undefined && offset < since) {
         // Redelivered after a rejoin: already taken (and buffered, in flight, or durable).
-        this.control.counts.skipped++;
+        this.control.counts.skippedRedeliveries++;
         continue;
       }
-      const sinks = this.router.routeInto(m, source, records);
+      let sinks = this.router.routeInto(m, source, records);
+      if (st.floors !== undefined) sinks = this.aboveFloors(st, sinks, offset);
       const meta = new MessageMeta(st, offset, Number(m.timestamp), now, sinks.length);
       if (runSinks === undefined || (sinks !== runSinks && !sameSinks(sinks, runSinks))) {
         if (runSinks !== undefined) runs.push(newRun(runFrom, metas.length, runSinks));
@@ -161,6 +164,27 @@ export class Intake<R> {
     // Messages routed nowhere are done at once.
     st.advance();
     return { records, metas, runs, run: 0 };
+  }
+
+  /**
+   * The sinks of `sinks` whose stored offset (exactly-once) is at or below `offset`. Once the
+   * partition is past every stored offset it checks nothing more.
+   */
+  private aboveFloors(st: PartitionState, sinks: AnySink[], offset: bigint): AnySink[] {
+    const floors = st.floors!;
+    let past = true;
+    for (const f of floors.values()) if (offset < f) past = false;
+    if (past) {
+      st.floors = undefined;
+      return sinks;
+    }
+    const kept = sinks.filter((s) => {
+      const f = floors.get(s);
+      return f === undefined || offset >= f;
+    });
+    if (kept.length === sinks.length) return sinks;
+    this.control.counts.skippedStored++;
+    return kept;
   }
 
   /**

@@ -110,6 +110,10 @@ export class PartitionState {
   /** While set the partition is paused, so this never exceeds one fetched batch per partition. */
   hold: Hold | undefined;
   paused = false;
+  /** Waiting for the stored offsets of the sinks in `offsetStores` (the partition is paused). */
+  loading = false;
+  /** Per sink that stores offsets: its stored next offset; messages below it skip that sink. */
+  floors: Map<AnySink, bigint> | undefined;
   lastMessageAt: number;
   lastSeen: bigint | undefined;
   highWatermark: bigint | undefined;

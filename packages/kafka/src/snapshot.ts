@@ -14,21 +14,7 @@ export function bridgeSnapshot(
   const partitions: PartitionSnapshot[] = [];
   for (const st of parts) partitions.push(partitionSnapshot(st, fence, now));
   partitions.sort((a, b) => (a.topic === b.topic ? a.partition - b.partition : a.topic < b.topic ? -1 : 1));
-  return {
-    name,
-    state,
-    generation: fence.generation,
-    partitions,
-    messages: c.messages,
-    undecodable: c.undecodable,
-    skippedRedeliveries: c.skipped,
-    commits: c.commits,
-    commitErrors: c.commitErrors,
-    pauses: c.pauses,
-    rebalances: c.rebalances,
-    rebalanceFlushes: c.rebalanceFlushes,
-    rebalanceFlushTimeouts: c.rebalanceFlushTimeouts,
-  };
+  return { name, state, generation: fence.generation, partitions, ...c };
 }
 
 function partitionSnapshot(st: PartitionState, fence: CommitFence, now: number): PartitionSnapshot {

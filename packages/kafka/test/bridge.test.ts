@@ -2,7 +2,13 @@
 // commit fencing, rebalance and shutdown order) with a fake kafkajs consumer that the test drives
 // by hand. The real-broker behaviour is covered in test/integration/bridge*.test.ts.
 import { type Batch, type DeadLetter, Sink, type SinkAdapter } from '@spillway/core';
-import { DecodeError, KafkaBridge, type UndecodableMessage } from '@spillway/kafka';
+import {
+  DecodeError,
+  KafkaBridge,
+  type KafkaBridgeOptions,
+  type OffsetStore,
+  type UndecodableMessage,
+} from '@spillway/kafka';
 import type { Consumer, EachBatchPayload, KafkaMessage } from 'kafkajs';
 import { describe, expect, it } from 'vitest';
 
@@ -161,6 +167,8 @@ function setup(
     maxPendingRecords?: number;
     route?: (r: { n: number }) => Sink<{ n: number }>[];
     pauseAfterMs?: number;
+    /** More bridge options, given the sinks (e.g. offsetStores). */
+    more?: (sinks: Sink<{ n: number }>[]) => Partial<KafkaBridgeOptions<{ n: number }>>;
   } = {},
 ) {
   const consumer = new FakeConsumer();
@@ -188,6 +196,7 @@ function setup(
     deadLetter: { write: async (l) => void letters.push(...l) },
     commitIntervalMs: 60_000,
     pauseAfterMs: options.pauseAfterMs ?? 0,
+    ...options.more?.(sinks),
   });
   return { consumer, adapters, sinks, bridge, letters };
 }
@@ -567,6 +576,104 @@ describe('KafkaBridge', () => {
     expect(bridge.state).toBe('stopped');
   });
 
+  it('keeps newly assigned partitions paused until every offset store is read, then hands each sink only the messages at or past its stored offset', async () => {
+    const reads: Array<{ group: string; partitions: number[]; done: () => void }> = [];
+    // Sink 0 stored offset 3 of partition 0, sink 1 offset 1; neither stored anything for partition 1.
+    const storedBy = [new Map([[0, '3']]), new Map([[0, '1']])];
+    const store = (k: number): OffsetStore => ({
+      storedOffsets: (group, partitions) =>
+        new Promise((resolve) =>
+          reads.push({
+            group,
+            partitions: partitions.map((p) => p.partition),
+            done: () =>
+              resolve(
+                partitions.flatMap((p) => {
+                  const offset = storedBy[k]!.get(p.partition);
+                  return offset === undefined ? [] : [{ topic: p.topic, partition: p.partition, offset }];
+                }),
+              ),
+          }),
+        ),
+    });
+    const { consumer, adapters, sinks, bridge } = setup({
+      sinks: 2,
+      more: (s) => ({
+        groupId: 'dock-status-writer',
+        offsetStores: s.map((sink, k) => ({ sink, store: store(k) })),
+      }),
+    });
+    await bridge.start();
+    consumer.join([0, 1]);
+    // Paused at once, inside the GROUP_JOIN listener, before kafkajs can fetch.
+    expect(consumer.pausedSet).toEqual(new Set([`${TOPIC}:0`, `${TOPIC}:1`]));
+    await tick();
+    // One read per store for all partitions of the assignment, under the bridge's group.
+    expect(reads.map((r) => [r.group, r.partitions])).toEqual([
+      ['dock-status-writer', [0, 1]],
+      ['dock-status-writer', [0, 1]],
+    ]);
+    // A batch fetched before the pause is not taken while the reads are out (nor resolved).
+    await consumer.deliver(0, 0, ['0', '1', '2', '3', '4']);
+    expect(bridge.snapshot().messages).toBe(0);
+    expect(consumer.resolved.get(0)).toBeUndefined();
+    for (const r of reads) r.done();
+    await tick();
+    expect(consumer.pausedSet).toEqual(new Set());
+    await consumer.deliver(0, 0, ['0', '1', '2', '3', '4']);
+    await consumer.deliver(1, 0, ['5', '6']);
+    const flushing = Promise.all(sinks.map((s) => s.flush()));
+    for (const a of adapters) a.releaseAll();
+    await flushing;
+    expect(adapters[0]!.written).toEqual([3, 4, 5, 6]);
+    expect(adapters[1]!.written).toEqual([1, 2, 3, 4, 5, 6]);
+    // Offset 0 went to no sink; 1 and 2 to one of them.
+    expect(bridge.snapshot().skippedStored).toBe(3);
+    // The Kafka commit still happens, past the skipped messages too.
+    await bridge.commit();
+    expect(consumer.lastCommit(0)).toBe('5');
+    expect(consumer.lastCommit(1)).toBe('2');
+  });
+
+  it('retries a failed read of the stored offsets while the partitions stay paused, and fails the bridge on a misconfigured store', async () => {
+    let calls = 0;
+    const flaky: OffsetStore = {
+      storedOffsets: async () => {
+        calls++;
+        if (calls === 1)
+          throw Object.assign(new Error('connect ECONNREFUSED 127.0.0.1:5432'), { code: 'ECONNREFUSED' });
+        return [];
+      },
+    };
+    const { consumer, bridge } = setup({
+      more: (s) => ({ groupId: 'g', offsetStores: [{ sink: s[0]!, store: flaky }] }),
+    });
+    const errors: Array<{ fatal: boolean }> = [];
+    bridge.on('error', (e) => errors.push(e));
+    await bridge.start();
+    consumer.join([0]);
+    await tick();
+    expect(errors).toEqual([expect.objectContaining({ fatal: false })]);
+    expect(consumer.pausedSet).toEqual(new Set([`${TOPIC}:0`]));
+    await new Promise((r) => setTimeout(r, 400));
+    expect(calls).toBe(2);
+    expect(consumer.pausedSet).toEqual(new Set());
+
+    const misconfigured: OffsetStore = {
+      storedOffsets: async () => {
+        throw new TypeError('Expected `groupId` to be the group the sink stores offsets for');
+      },
+    };
+    const second = setup({
+      more: (s) => ({ groupId: 'g', offsetStores: [{ sink: s[0]!, store: misconfigured }] }),
+    });
+    await second.bridge.start();
+    second.consumer.join([0]);
+    await tick();
+    await tick();
+    expect(second.bridge.state).toBe('failed');
+  });
+
   it('rejects bad options with a TypeError that names the option', () => {
     const base = {
       consumer: new FakeConsumer() as unknown as Consumer,
@@ -586,5 +693,12 @@ describe('KafkaBridge', () => {
     expect(() => new KafkaBridge({ ...base, deadLetter: undefined as never })).toThrow(/`deadLetter`/);
     expect(() => new KafkaBridge({ ...base, consumer: undefined })).toThrow(/`kafka`/);
     expect(() => new KafkaBridge({ ...base, colour: 'red' } as never)).toThrow(TypeError);
+    const sink = new Sink(new GatedAdapter());
+    const store: OffsetStore = { storedOffsets: async () => [] };
+    expect(() => new KafkaBridge({ ...base, offsetStores: [{ sink, store }] })).toThrow(/`groupId`/);
+    expect(
+      () => new KafkaBridge({ ...base, groupId: 'g', offsetStores: [{ sink, store: {} as never }] }),
+    ).toThrow(/`offsetStores\[0\].store`/);
+    expect(() => new KafkaBridge({ ...base, groupId: 'g', offsetStores: [{ sink, store }] })).not.toThrow();
   });
 });

@@ -9,17 +9,21 @@ import {
   type ObservableGauge,
 } from '@opentelemetry/api';
 import {
-  COUNTER_READINGS,
-  type CounterReading,
   FLUSH_REASONS,
-  GAUGE_READINGS,
-  type GaugeReading,
-  invalidOption,
   type SinkEventName,
   type SinkEvents,
   type SinkSnapshot,
   type SinkState,
 } from '@spillway/core';
+import {
+  COUNTER_READINGS,
+  type CounterReading,
+  GAUGE_READINGS,
+  type GaugeReading,
+  invalidOption,
+  knownOptions,
+  resolveBuckets,
+} from '@spillway/core/kit';
 import {
   ATTR_REASON,
   ATTR_SINK,
@@ -28,14 +32,7 @@ import {
   INSTRUMENTS,
   type InstrumentDefinition,
 } from './instrument-names.js';
-import {
-  bucketsOption,
-  DEFAULT_BATCH_BYTES_BUCKETS,
-  DEFAULT_BATCH_RECORDS_BUCKETS,
-  DEFAULT_DURATION_BUCKETS,
-  DEFAULT_LATENCY_BUCKETS,
-  type OtelSinkMetricsOptions,
-} from './options.js';
+import { OTEL_OPTION_NAMES, type OtelSinkMetricsOptions } from './options.js';
 
 /** The part of a `Sink` the instrumentation reads. */
 export interface InstrumentableSink {
@@ -83,23 +80,14 @@ export class OtelSinkMetrics {
   private closed = false;
 
   constructor(options: OtelSinkMetricsOptions = {}) {
-    if (options === null || typeof options !== 'object') throw invalidOption('options', 'an object', options);
+    knownOptions(options, OTEL_OPTION_NAMES);
     if (options.meter !== undefined && typeof options.meter?.createHistogram !== 'function') {
       throw invalidOption('meter', 'an OpenTelemetry Meter', options.meter);
     }
     if (options.meterProvider !== undefined && typeof options.meterProvider?.getMeter !== 'function') {
       throw invalidOption('meterProvider', 'an OpenTelemetry MeterProvider', options.meterProvider);
     }
-    const buckets = {
-      latency: bucketsOption('latencyBuckets', options.latencyBuckets, DEFAULT_LATENCY_BUCKETS),
-      duration: bucketsOption('durationBuckets', options.durationBuckets, DEFAULT_DURATION_BUCKETS),
-      batchRecords: bucketsOption(
-        'batchRecordsBuckets',
-        options.batchRecordsBuckets,
-        DEFAULT_BATCH_RECORDS_BUCKETS,
-      ),
-      batchBytes: bucketsOption('batchBytesBuckets', options.batchBytesBuckets, DEFAULT_BATCH_BYTES_BUCKETS),
-    };
+    const buckets = resolveBuckets(options);
     const meter = options.meter ?? (options.meterProvider ?? metrics.getMeterProvider()).getMeter(METER_NAME);
     this.meter = meter;
 

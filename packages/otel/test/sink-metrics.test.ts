@@ -7,7 +7,8 @@ import {
   type MetricData,
   PeriodicExportingMetricReader,
 } from '@opentelemetry/sdk-metrics';
-import { type Batch, ManualClock, Sink, type SinkAdapter } from '@spillway/core';
+import { Sink, type SinkAdapter } from '@spillway/core';
+import { ManualClock, MemoryAdapter } from '@spillway/core/testing';
 import { afterEach, describe, expect, it } from 'vitest';
 import {
   ATTR_REASON,
@@ -19,18 +20,15 @@ import {
   OtelSinkMetrics,
 } from '../src/index.js';
 
-// An in-memory store: these tests read the engine's numbers, the store itself does not matter.
-class MemoryStore implements SinkAdapter<{ dock: string }> {
-  readonly kind = 'memory';
-  async write(_batch: Batch<{ dock: string }>): Promise<void> {}
-  classify(): 'fatal' {
-    return 'fatal';
-  }
-}
-
 function makeSink(name: string) {
   const clock = new ManualClock();
-  const sink = new Sink(new MemoryStore(), { name, maxRecords: 3, maxAgeMs: 500, idleMs: 0, clock });
+  const sink = new Sink(new MemoryAdapter<{ dock: string }>(), {
+    name,
+    maxRecords: 3,
+    maxAgeMs: 500,
+    idleMs: 0,
+    clock,
+  });
   return { sink, clock };
 }
 

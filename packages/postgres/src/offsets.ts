@@ -124,7 +124,11 @@ export class OffsetLedger {
    * partition moved; otherwise what is stored for the batch's partitions (the caller rolls back).
    */
   async claim(client: PoolClient, ranges: Ranges): Promise<StoredOffsets | undefined> {
-    const rs = [...ranges.values()];
+    // One order for every writer, so that two transactions claiming the same partitions lock
+    // their rows in the same order instead of deadlocking.
+    const rs = [...ranges.values()].sort((a, b) =>
+      a.topic === b.topic ? a.partition - b.partition : a.topic < b.topic ? -1 : 1,
+    );
     const moved = await client.query(
       `INSERT INTO ${this.table} AS p (consumer_group, target, topic, kpartition, next_offset, batch_first)
        SELECT $1, $2, u.topic, u.kpartition, u.next_offset, u.batch_first

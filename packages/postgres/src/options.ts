@@ -1,4 +1,4 @@
-import { invalidOption } from '@spillway/core';
+import { countOption, invalidOption, knownOptions } from '@spillway/core/kit';
 import type { Pool } from 'pg';
 
 /**
@@ -244,30 +244,10 @@ function nameList(name: string, value: unknown, columns: ReadonlySet<string>, al
   return [...seen];
 }
 
-function countOption(
-  name: string,
-  value: unknown,
-  fallback: number,
-  min: number,
-  allowInfinity: boolean,
-): number {
-  if (value === undefined) return fallback;
-  const ok =
-    typeof value === 'number' &&
-    value >= min &&
-    (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
-  if (!ok) throw invalidOption(name, `an integer >= ${min}${allowInfinity ? ' (or Infinity)' : ''}`, value);
-  return value;
-}
-
 /** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
 export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): ResolvedPostgresOptions<T> {
-  if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
-  const o = options as unknown as Record<string, unknown>;
-  for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key))
-      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
-  }
+  if (options === undefined) throw invalidOption('options', 'an object', options);
+  const o = knownOptions(options, KNOWN);
   const pool = o.pool as Pool | undefined;
   if (
     typeof pool !== 'object' ||
@@ -347,8 +327,7 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
     'upsertViaCopyAbove',
     o.upsertViaCopyAbove,
     POSTGRES_DEFAULTS.upsertViaCopyAbove,
-    0,
-    true,
+    { min: 0, allowInfinity: true },
   );
   const insertForm = (o.insertForm ?? POSTGRES_DEFAULTS.insertForm) as InsertForm;
   if (insertForm !== 'values' && insertForm !== 'unnest')
@@ -371,7 +350,7 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   }
   const limit = Math.floor(MAX_PARAMETERS / columns.length);
   if (limit < 1) throw invalidOption('columns', `at most ${MAX_PARAMETERS} columns`, columns.length);
-  const rowsPerStatement = countOption('maxRowsPerStatement', o.maxRowsPerStatement, limit, 1, false);
+  const rowsPerStatement = countOption('maxRowsPerStatement', o.maxRowsPerStatement, limit);
 
   let storeOffsets: ResolvedPostgresOptions<T>['storeOffsets'];
   if (o.storeOffsets !== undefined) {

@@ -1,25 +1,22 @@
 import {
-  COUNTER_READINGS,
-  type CounterReading,
   FLUSH_REASONS,
-  GAUGE_READINGS,
-  type GaugeReading,
-  invalidOption,
   type SinkEventName,
   type SinkEvents,
   type SinkSnapshot,
   type SinkState,
 } from '@spillway/core';
+import {
+  COUNTER_READINGS,
+  type CounterReading,
+  GAUGE_READINGS,
+  type GaugeReading,
+  invalidOption,
+  knownOptions,
+  resolveBuckets,
+} from '@spillway/core/kit';
 import { Counter, Gauge, Histogram, Registry } from 'prom-client';
 import { COMMON_LABELS, METRICS, type MetricDefinition } from './metric-names.js';
-import {
-  bucketsOption,
-  DEFAULT_BATCH_BYTES_BUCKETS,
-  DEFAULT_BATCH_RECORDS_BUCKETS,
-  DEFAULT_DURATION_BUCKETS,
-  DEFAULT_LATENCY_BUCKETS,
-  type PrometheusExporterOptions,
-} from './options.js';
+import { PROMETHEUS_OPTION_NAMES, type PrometheusExporterOptions } from './options.js';
 
 /** The part of a `Sink` the exporter reads. */
 export interface ExportableSink {
@@ -70,7 +67,7 @@ export class PrometheusExporter {
   private snapshots: Map<string, SinkSnapshot> | undefined;
 
   constructor(options: PrometheusExporterOptions = {}) {
-    if (options === null || typeof options !== 'object') throw invalidOption('options', 'an object', options);
+    knownOptions(options, PROMETHEUS_OPTION_NAMES);
     const registry = options.registry ?? new Registry();
     if (!(registry instanceof Registry)) throw invalidOption('registry', 'a prom-client Registry', registry);
     if (registries.has(registry)) {
@@ -80,18 +77,7 @@ export class PrometheusExporter {
         registry,
       );
     }
-    const latency = bucketsOption('latencyBuckets', options.latencyBuckets, DEFAULT_LATENCY_BUCKETS);
-    const duration = bucketsOption('durationBuckets', options.durationBuckets, DEFAULT_DURATION_BUCKETS);
-    const batchRecords = bucketsOption(
-      'batchRecordsBuckets',
-      options.batchRecordsBuckets,
-      DEFAULT_BATCH_RECORDS_BUCKETS,
-    );
-    const batchBytes = bucketsOption(
-      'batchBytesBuckets',
-      options.batchBytesBuckets,
-      DEFAULT_BATCH_BYTES_BUCKETS,
-    );
+    const { latency, duration, batchRecords, batchBytes } = resolveBuckets(options);
     this.registry = registry;
 
     const registers = [registry];

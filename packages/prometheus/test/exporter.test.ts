@@ -1,4 +1,5 @@
-import { type Batch, ManualClock, Sink, type SinkAdapter } from '@spillway/core';
+import { Sink, type SinkAdapter } from '@spillway/core';
+import { ManualClock, MemoryAdapter } from '@spillway/core/testing';
 import parsePrometheusTextFormat from 'parse-prometheus-text-format';
 import { Counter, Registry } from 'prom-client';
 import { describe, expect, it } from 'vitest';
@@ -17,20 +18,8 @@ interface Parsed {
   }>;
 }
 
-// An in-memory store: the exporter reads the engine, so the store itself does not matter here.
-class MemoryStore implements SinkAdapter<{ dock: string }> {
-  readonly kind = 'memory';
-  readonly rows: { dock: string }[] = [];
-  async write(batch: Batch<{ dock: string }>): Promise<void> {
-    this.rows.push(...batch.records);
-  }
-  classify(): 'fatal' {
-    return 'fatal';
-  }
-}
-
 function makeSink(name: string, clock = new ManualClock()) {
-  const store = new MemoryStore();
+  const store = new MemoryAdapter<{ dock: string }>();
   const sink = new Sink(store, { name, maxRecords: 3, maxAgeMs: 500, idleMs: 0, clock });
   return { sink, store, clock };
 }
@@ -50,7 +39,9 @@ async function histogramSeries(registry: Registry, name: string, labels: Record<
   const values = (metric?.values ?? []).filter((v) =>
     Object.entries(labels).every(([k, want]) => v.labels[k] === want),
   );
-  const pick = (suffix: string) => values.find((v) => v.metricName === `${name}${suffix}`)?.value;
+  // prom-client's JSON view names each histogram series in `metricName`, which its types leave out.
+  const pick = (suffix: string) =>
+    values.find((v) => (v as { metricName?: string }).metricName === `${name}${suffix}`)?.value;
   return { sum: pick('_sum'), count: pick('_count'), sinks: new Set(values.map((v) => v.labels.sink)) };
 }
 
@@ -128,9 +119,9 @@ describe('PrometheusExporter', () => {
     const latency = parsed.get('spillway_sink_accept_to_durable_seconds')?.metrics[0];
     // Source: Prometheus "Exposition formats" — buckets are cumulative, `le` is an inclusive
     // upper bound, and the `+Inf` bucket equals the sample count.
-    expect(latency.buckets?.['0.25']).toBe('3');
-    expect(latency.buckets?.['0.5']).toBe('5');
-    expect(latency.buckets?.['+Inf']).toBe('5');
+    expect(latency?.buckets?.['0.25']).toBe('3');
+    expect(latency?.buckets?.['0.5']).toBe('5');
+    expect(latency?.buckets?.['+Inf']).toBe('5');
   });
 
   it('keeps histogram buckets cumulative with +Inf equal to _count', async () => {
@@ -275,8 +266,8 @@ describe('PrometheusExporter', () => {
       (await histogramSeries(exporter.registry, 'spillway_sink_event_to_durable_seconds', { sink: 'docks' }))
         .count,
     ).toBe(1);
-    expect(m.buckets?.['0.75']).toBe('0');
-    expect(m.buckets?.['2.5']).toBe('1');
+    expect(m?.buckets?.['0.75']).toBe('0');
+    expect(m?.buckets?.['2.5']).toBe('1');
   });
 
   it('close() unregisters the metrics so the registry can take a new exporter', async () => {

@@ -4,6 +4,7 @@
  * prefix: LOADING, BUSY, TRYAGAIN, MOVED, ASK, WRONGTYPE, NOAUTH, NOPERM, …).
  */
 import { type ErrorClass, SpillwayError } from '@spillway/core';
+import { isSocketError } from '@spillway/core/kit';
 
 /** Transient server states: the same command succeeds later. */
 const RETRY_PREFIXES: ReadonlySet<string> = new Set([
@@ -32,17 +33,6 @@ const FATAL_PREFIXES: ReadonlySet<string> = new Set([
 
 /** ioredis messages for commands that were never sent (safe to send again). */
 const NOT_SENT = /^(Connection is closed|Stream isn't writeable|Reached the max retries per request limit)/;
-/** Socket error codes of a lost or refused connection. */
-const SOCKET_CODES: ReadonlySet<string> = new Set([
-  'ECONNREFUSED',
-  'ECONNRESET',
-  'EPIPE',
-  'ETIMEDOUT',
-  'EHOSTUNREACH',
-  'ENETUNREACH',
-  'EAI_AGAIN',
-  'ENOTFOUND',
-]);
 
 function field(error: unknown, name: string): unknown {
   return typeof error === 'object' && error !== null ? (error as Record<string, unknown>)[name] : undefined;
@@ -121,7 +111,7 @@ export function classifyRedisError(error: unknown, options: RedisClassifyOptions
   if (NOT_SENT.test(message)) return 'retry';
   if (field(inner, 'name') === 'MaxRetriesPerRequestError') return 'retry';
   const code = field(inner, 'code');
-  if (typeof code === 'string' && SOCKET_CODES.has(code)) return 'retry';
+  if (isSocketError(code)) return 'retry';
   // Cluster topology errors: a slot moved between grouping and sending, or the slots are being refreshed.
   if (
     /Failed to refresh slots cache|None of startup nodes is available|Too many Cluster redirections|should belong to the same slots? allocation group|Cluster isn't ready/.test(

@@ -1,7 +1,7 @@
 /**
  * Options of the Redis adapter (`redisAdapter()`), validated in the constructor.
  */
-import { invalidOption } from '@spillway/core';
+import { booleanOption, choiceOption, invalidOption, knownOptions } from '@spillway/core/kit';
 import type { Cluster, Redis } from 'ioredis';
 import type { RedisMapping } from './commands.js';
 
@@ -59,15 +59,8 @@ export interface ResolvedRedisOptions<T> {
 const KNOWN = new Set(['client', 'mapping', 'atomic', 'onUnknownOutcome', 'closeClient']);
 
 export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): ResolvedRedisOptions<T> {
-  if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
-  for (const key of Object.keys(options)) {
-    if (!KNOWN.has(key))
-      throw invalidOption(
-        key,
-        `one of the known options (${[...KNOWN].join(', ')})`,
-        (options as unknown as Record<string, unknown>)[key],
-      );
-  }
+  if (options === undefined) throw invalidOption('options', 'an object', options);
+  knownOptions(options, KNOWN);
   const { client, mapping } = options;
   if (
     typeof client !== 'object' ||
@@ -88,13 +81,13 @@ export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): Resolve
       mapping,
     );
   }
-  const atomic = options.atomic ?? false;
-  if (typeof atomic !== 'boolean') throw invalidOption('atomic', 'a boolean', atomic);
-  const onUnknownOutcome = options.onUnknownOutcome ?? (mapping.idempotent ? 'retry' : 'dead-letter');
-  if (onUnknownOutcome !== 'retry' && onUnknownOutcome !== 'dead-letter') {
-    throw invalidOption('onUnknownOutcome', "'retry' or 'dead-letter'", onUnknownOutcome);
-  }
-  const closeClient = options.closeClient ?? false;
-  if (typeof closeClient !== 'boolean') throw invalidOption('closeClient', 'a boolean', closeClient);
+  const atomic = booleanOption('atomic', options.atomic, false);
+  const onUnknownOutcome = choiceOption(
+    'onUnknownOutcome',
+    options.onUnknownOutcome,
+    ['retry', 'dead-letter'],
+    mapping.idempotent ? 'retry' : 'dead-letter',
+  );
+  const closeClient = booleanOption('closeClient', options.closeClient, false);
   return { client, mapping, atomic, onUnknownOutcome, closeClient };
 }

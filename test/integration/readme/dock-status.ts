@@ -50,12 +50,12 @@ export interface DockRun {
 
 /**
  * Runs a compiled variant of the first example against a fresh schema. With `signal`, waits until
- * the first rows are in the table (the program is then mid-stream, its writes waiting for room),
- * sends the signal, and waits for the exit.
+ * the table holds `afterRows` rows (default 1: the program is then mid-stream, its writes waiting
+ * for room), sends the signal, and waits for the exit.
  */
 export async function runDockStatus(
   js: string,
-  options: { signal?: NodeJS.Signals; limit?: number; env?: Record<string, string> },
+  options: { signal?: NodeJS.Signals; afterRows?: number; limit?: number; env?: Record<string, string> },
 ): Promise<DockRun> {
   const schema = await withSchema('readme');
   const dir = mkdtempSync(join(tmpdir(), 'spillway-readme-run-'));
@@ -80,7 +80,7 @@ export async function runDockStatus(
           throw new Error(`the program ended before any row landed: ${describeRun(await run.done)}`);
         if (Date.now() > deadline) throw new Error('no row landed within 120 s');
         const { rows } = await schema.pool.query<{ n: number }>('SELECT count(*)::int AS n FROM dock_status');
-        if (rows[0]!.n > 0) break;
+        if (rows[0]!.n >= (options.afterRows ?? 1)) break;
         await sleep(50);
       }
       run.child.kill(options.signal);

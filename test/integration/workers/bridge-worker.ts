@@ -17,7 +17,11 @@ export interface WorkerConfig {
   topic: string;
   groupId: string;
   pgUrl: string;
-  tables: Array<{ table: string; mode: WriteMode }>;
+  tables: Array<{ table: string; mode: WriteMode | 'copy' }>;
+  /** Store offsets with the rows and skip what is stored on assignment (exactly-once). */
+  exactlyOnce?: boolean;
+  /** The bridge's commitIntervalMs. @default 300 */
+  commitIntervalMs?: number;
   deadLetterPath: string;
   maxRecords?: number;
   maxAgeMs?: number;
@@ -42,9 +46,12 @@ const shutdown = installShutdown({
 const pool = new pg.Pool({ connectionString: config.pgUrl, max: config.tables.length + 1 });
 pool.on('error', () => undefined);
 
+const adapters = config.tables.map(({ table, mode }) =>
+  pgRowsAdapter(pool, table, mode, config.exactlyOnce ? { storeOffsetsFor: config.groupId } : {}),
+);
 const sinks = config.tables.map(
-  ({ table, mode }) =>
-    new Sink<DockRow>(pgRowsAdapter(pool, table, mode), {
+  ({ table }, i) =>
+    new Sink<DockRow>(adapters[i]!, {
       name: table,
       maxRecords: config.maxRecords ?? 1000,
       maxAgeMs: config.maxAgeMs ?? 200,
@@ -70,7 +77,16 @@ const bridge = new KafkaBridge<DockRow>({
   decode: decodeDockEvent,
   route: () => sinks,
   deadLetter: fileDeadLetter(config.deadLetterPath),
-  commitIntervalMs: 300,
+  commitIntervalMs: config.commitIntervalMs ?? 300,
+  ...(config.exactlyOnce
+    ? {
+        offsetStores: sinks.map((sink, i) => {
+          const read = adapters[i]!.storedOffsets;
+          if (read === undefined) throw new Error('the adapter does not store offsets');
+          return { sink, store: { storedOffsets: read.bind(adapters[i]) } };
+        }),
+      }
+    : {}),
   rebalanceFlushMs: 4000,
   ...(config.pauseAfterMs === undefined ? {} : { pauseAfterMs: config.pauseAfterMs }),
   shutdown,
@@ -90,6 +106,7 @@ const printStats = () => {
     skipped: s.skippedRedeliveries,
     flushes: s.rebalanceFlushes,
     flushTimeouts: s.rebalanceFlushTimeouts,
+    skippedStored: s.skippedStored,
     pauses: s.pauses,
     paused: s.partitions.filter((p) => p.paused).length,
     held: s.partitions.reduce((n, p) => n + p.heldMessages, 0),

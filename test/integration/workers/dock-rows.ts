@@ -2,7 +2,7 @@
 // decoder, the PostgreSQL table, and the @spillway/postgres adapter that writes the rows.
 import type { Batch, PartialWrite, SinkAdapter } from '@spillway/core';
 import { DecodeError, type KafkaSource } from '@spillway/kafka';
-import { postgresAdapter } from '@spillway/postgres';
+import { type PostgresAdapter, postgresAdapter } from '@spillway/postgres';
 import type { KafkaMessage } from 'kafkajs';
 import type pg from 'pg';
 
@@ -62,7 +62,12 @@ export async function createDockTable(
 export interface RowsAdapterHooks {
   /** Called with the rows of each batch that PostgreSQL acknowledged. */
   onDurable?: (rows: readonly DockRow[]) => void;
+  /** Store each batch's offsets with its rows, for this consumer group (exactly-once). */
+  storeOffsetsFor?: string;
 }
+
+/** The adapter, with the stored-offsets reader when `storeOffsetsFor` is given and no hook wraps it. */
+export type RowsAdapter = SinkAdapter<DockRow> & Partial<Pick<PostgresAdapter<DockRow>, 'storedOffsets'>>;
 
 /**
  * The dock-status table through @spillway/postgres (insert mode keeps every copy; upsert keys on
@@ -73,7 +78,7 @@ export function pgRowsAdapter(
   table: string,
   mode: WriteMode | 'copy',
   hooks: RowsAdapterHooks = {},
-): SinkAdapter<DockRow> {
+): RowsAdapter {
   const inner = postgresAdapter<DockRow>({
     pool,
     table,
@@ -81,6 +86,7 @@ export function pgRowsAdapter(
     map: (r) => [r.seq, r.partition, r.offset, r.dock, r.bikes],
     mode,
     ...(mode === 'upsert' ? { conflict: { key: ['seq'] } } : {}),
+    ...(hooks.storeOffsetsFor === undefined ? {} : { storeOffsets: { group: hooks.storeOffsetsFor } }),
   });
   if (!hooks.onDurable) return inner;
   return {
