@@ -4,9 +4,10 @@ import { invalidOption, SpillwayError } from '@spillway/core';
 import type pg from 'pg';
 import type { Settings } from './cell-spec.js';
 import { round } from './numbers.js';
+import { prefillScratch } from './prefill.js';
 import type { ScratchTable } from './scratch.js';
 import { SHAPES } from './shapes.js';
-import { copyLacks, type TableInfo } from './table-info.js';
+import { copyLacks, resolveKey, type TableInfo } from './table-info.js';
 import { recordedRate, type TableLoad, type TableShape, tableArrivals } from './table-load.js';
 import type { RecordCycle, RecordSet, TableRow, VariedColumn } from './table-records.js';
 import {
@@ -273,30 +274,18 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
     let prefilled = 0;
     if (prefill > 0) {
       note(`Prefilling the copy with ${prefill.toLocaleString('en-US')} rows …`);
-      // Every unique column varies from pass to pass here, the upsert key too, and a row that
-      // still collides (the sample repeats a key within a pass) is skipped: the copy gets
-      // `prefill` distinct rows, or as many as the rows can make.
-      const fill: RecordCycle = new records.RecordCycle(set, info, { mode: 'insert' });
-      const target = `${scratch.qualified}`;
-      const cols = set.columns.map((c) => `"${c.replace(/"/g, '""')}"`).join(', ');
-      // Rows tried since the last one that landed: two passes without one means no more can.
-      let barren = 0;
-      while (prefilled < prefill && barren < 2 * set.rows.length) {
-        halt();
-        const n = Math.min(5000, prefill - prefilled);
-        const rows = Array.from({ length: n }, () => jsonRow(set.columns, fill.next()));
-        const r = await pool.query(
-          `INSERT INTO ${target} (${cols}) SELECT ${cols} FROM json_populate_recordset(NULL::${target}, $1) ON CONFLICT DO NOTHING`,
-          [JSON.stringify(rows)],
-        );
-        prefilled += r.rowCount ?? 0;
-        barren = (r.rowCount ?? 0) === 0 ? barren + n : 0;
-      }
+      prefilled = await prefillScratch(
+        pool,
+        scratch,
+        set,
+        new records.RecordCycle(set, info, { mode: 'insert' }),
+        prefill,
+        halt,
+      );
       if (prefilled < prefill)
         note(
           `Prefilled ${prefilled.toLocaleString('en-US')} rows, not ${prefill.toLocaleString('en-US')}: the rows make no more distinct unique keys.`,
         );
-      await pool.query(`ANALYZE ${scratch.qualified}`);
     }
     const reset = async () => {
       if (prefill === 0) await scratch!.truncate();
@@ -458,46 +447,4 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
       process.off('SIGTERM', onSignal);
     }
   }
-}
-
-/** A row as the JSON object json_populate_recordset reads: bytea as `\\x…` hex text. */
-function jsonRow(columns: string[], row: TableRow): Record<string, unknown> {
-  // fromEntries defines own properties, so a column named __proto__ stays a column.
-  return Object.fromEntries(
-    columns.map((c, i) => {
-      const v = row[i];
-      return [c, Buffer.isBuffer(v) ? `\\x${v.toString('hex')}` : v];
-    }),
-  );
-}
-
-/** The upsert key: the one given (it must be a unique key of the table), else the primary key. */
-function resolveKey(info: TableInfo, given: string[] | undefined): string[] {
-  const keys = info.uniqueKeys;
-  const show = keys.map((k) => `(${k.join(', ')})`).join(', ') || 'none';
-  if (given === undefined || given.length === 0) {
-    const first = keys[0];
-    if (!first)
-      throw invalidOption(
-        'key',
-        `the conflict columns for upsert (${info.schema}.${info.name} has no unique key)`,
-        given,
-      );
-    return first;
-  }
-  const unknown = given.filter((k) => !info.columns.some((c) => c.name === k));
-  if (unknown.length > 0)
-    throw invalidOption(
-      'key',
-      `columns of ${info.schema}.${info.name} (no column ${unknown.map((k) => `"${k}"`).join(', ')})`,
-      given,
-    );
-  const same = (k: string[]) => k.length === given.length && k.every((c) => given.includes(c));
-  if (!keys.some(same))
-    throw invalidOption(
-      'key',
-      `the columns of a unique index or primary key of ${info.schema}.${info.name}: ${show}`,
-      given,
-    );
-  return given;
 }
