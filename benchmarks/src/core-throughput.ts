@@ -193,7 +193,13 @@ async function main(): Promise<void> {
   const rps: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
   const cpuNs: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
   // Ratios of CPU time to the limit, per round: each round runs every variant back to back.
-  const cpuRatio: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
+  const cpuRatio: Record<string, number[]> = {
+    array: [],
+    push: [],
+    write: [],
+    tryWrite: [],
+    tryWriteMany: [],
+  };
   // Interleave variants so machine noise hits them alike.
   for (let r = 0; r < repeats; r++) {
     for (const k of Object.keys(rps)) {
@@ -224,7 +230,9 @@ async function main(): Promise<void> {
     );
   }
   const range = (xs: number[]) => `${Math.min(...xs).toFixed(2)}–${Math.max(...xs).toFixed(2)}`;
-  console.log('variant        median CPU ns/record   min–max        CPU ratio to limit: median (min–max of rounds)');
+  console.log(
+    'variant        median CPU ns/record   min–max        CPU ratio to limit: median (min–max of rounds)',
+  );
   for (const [k, xs] of Object.entries(cpuNs)) {
     console.log(
       `${k.padEnd(14)} ${median(xs).toFixed(0).padStart(10)}            ${Math.min(...xs).toFixed(0)}–${Math.max(...xs).toFixed(0)}`.padEnd(
