@@ -26,11 +26,13 @@ describe('the buffer', () => {
     };
     const sink = new Sink(adapter, { maxRecords: 100, maxAgeMs: 60_000, idleMs: 0 });
     const refs: WeakRef<object>[] = [];
-    for (let i = 0; i < 3000; i++) {
+    // Made outside this async function, whose suspended frame could hold the last one.
+    const writeOne = (i: number) => {
       const record = { dockId: i };
       refs.push(new WeakRef(record));
-      await sink.write(record);
-    }
+      return sink.write(record);
+    };
+    for (let i = 0; i < 3000; i++) await writeOne(i);
     await sink.flush();
     expect(sink.counters().written).toBe(3000);
     // WeakRef targets stay alive until the current job ends.

@@ -28,7 +28,7 @@ export interface BatchLimits {
   readonly maxAgeMs: number;
 }
 
-/** The ring's smallest capacity; it doubles when full and halves when a quarter full. */
+/** The ring's smallest capacity; it doubles when full and halves when a quarter full (see take()). */
 const MIN_CAPACITY = 64;
 
 export class RecordBuffer<T> {
@@ -38,8 +38,9 @@ export class RecordBuffer<T> {
   private head = 0;
   private n = 0;
   private records: (T | undefined)[] = new Array(MIN_CAPACITY);
-  private sizes: Float64Array = new Float64Array(MIN_CAPACITY);
-  private times: Float64Array = new Float64Array(MIN_CAPACITY);
+  // Plain arrays of doubles (unboxed, 8 bytes a slot), kept in the heap so that heap figures see them.
+  private sizes: number[] = new Array<number>(MIN_CAPACITY).fill(0);
+  private times: number[] = new Array<number>(MIN_CAPACITY).fill(0);
   // Columns most records leave empty: allocated when the first record needs one.
   private metas: (RecordMeta | undefined)[] | undefined;
   private prepared: unknown[] | undefined;
@@ -210,7 +211,10 @@ export class RecordBuffer<T> {
       for (let k = w; k < this.n; k++) this.clear((this.head + k) & this.mask);
       this.n = w;
     }
-    if (this.capacity > MIN_CAPACITY && this.n <= this.capacity >> 2) this.resize(this.capacity >> 1);
+    // Shrinks only well above a batch's worth of slots, so a buffer that fills to a batch and
+    // empties again keeps its columns.
+    if (this.capacity > 4 * maxRecords && this.capacity > MIN_CAPACITY && this.n <= this.capacity >> 2)
+      this.resize(this.capacity >> 1);
     this.bytes -= bytes;
     for (const e of out) if (e.forced !== undefined) this.forcedCount--;
     return { entries: out, reason: takenReason };
@@ -260,8 +264,8 @@ export class RecordBuffer<T> {
       for (let k = 0; k < n; k++) next[k] = old[(head + k) & mask]!;
       return next;
     };
-    const numbers = (old: Float64Array): Float64Array => {
-      const next = new Float64Array(capacity);
+    const numbers = (old: number[]): number[] => {
+      const next = new Array<number>(capacity).fill(0);
       for (let k = 0; k < n; k++) next[k] = old[(head + k) & mask]!;
       return next;
     };
