@@ -76,6 +76,11 @@ export interface SinkOptions<T> {
   maxPendingRecords?: number;
   /**
    * Bound on estimated bytes accepted but not yet terminal. Must be at least `maxBytes`.
+   * The bytes are the size estimate (what a record adds to a write), not heap: a pending record
+   * also holds its object and, with an adapter `prepare()`, its prepared row. Measured with
+   * ~520-byte rows into PostgreSQL insert mode (`benchmarks/src/core-memory.ts`), the live heap
+   * was about 1.4–1.6 × this bound; plan memory for that factor, larger for records of many small
+   * fields.
    * @default maxBytes × (concurrency + 2)
    */
   maxPendingBytes?: number;

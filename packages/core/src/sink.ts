@@ -362,14 +362,14 @@ export class Sink<T> implements ExitFlushable {
   /** The gauges and counters of `snapshot()` without the distributions: cheap enough per record. */
   counters(): SinkCounters {
     const s = this.stats;
-    const oldest = this.buffer.oldest();
+    const oldest = this.buffer.oldestAt();
     return {
       name: this.name,
       kind: this.kind,
       state: this.stateValue,
       bufferedRecords: this.buffer.count,
       bufferedBytes: this.buffer.bytes,
-      oldestAgeMs: oldest === undefined ? 0 : this.o.clock.now() - oldest.acceptedAt,
+      oldestAgeMs: oldest === undefined ? 0 : this.o.clock.now() - oldest,
       inFlightBatches: this.scheduler.inflight.size,
       inFlightRecords: this.scheduler.inflightRecords,
       pendingRecords: this.admission.pendingRecords,

@@ -10,7 +10,7 @@ import { estimateJsonBytes } from '../size.js';
 import type { TypedEmitter } from '../typed-emitter.js';
 import type { Prepared, RecordMeta, SinkAdapter, SinkEvents } from '../types.js';
 import type { RecordBuffer } from './buffer.js';
-import type { Barrier, Entry } from './records.js';
+import type { Barrier } from './records.js';
 import type { Scheduler } from './scheduler.js';
 import type { Settlement } from './settlement.js';
 import type { SinkStats } from './stats.js';
@@ -148,23 +148,10 @@ export class Admission<T> {
     at?: number,
   ): void {
     const now = at ?? this.acceptNow();
-    const entry: Entry<T> = {
-      record,
-      meta,
-      bytes,
-      prepared,
-      acceptedAt: now,
-      key: this.o.orderingKey(record, meta),
-      forced: undefined,
-      barriers: undefined,
-      done: false,
-    };
-    if (barrier) {
-      this.settlement.hold(barrier);
-      entry.barriers = [barrier];
-    }
+    const key = this.o.orderingKey(record, meta);
+    if (barrier) this.settlement.hold(barrier);
     this.settlement.track(meta);
-    this.buffer.push(entry);
+    this.buffer.push(record, meta, bytes, prepared, now, key, barrier);
     this.stats.accepted++;
     this.onAccept();
     this.scheduler.accepted();

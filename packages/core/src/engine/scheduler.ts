@@ -59,8 +59,11 @@ export class Scheduler<T> {
 
   /** A record was accepted: a full buffer leaves now; otherwise its deadline needs a timer. */
   accepted(): void {
-    if (this.buffer.count >= this.o.maxRecords || this.buffer.bytes >= this.o.maxBytes) this.pump();
-    else if (this.timer === undefined) this.arm();
+    if (this.buffer.count >= this.o.maxRecords || this.buffer.bytes >= this.o.maxBytes) {
+      // While every slot is busy and the wait for one is already being timed, a pump would only
+      // find that again: the slot's release pumps.
+      if (this.slotWaitSince === undefined || this.inflight.size < this.o.concurrency) this.pump();
+    } else if (this.timer === undefined) this.arm();
   }
 
   /** Starts every batch that is due and has a free slot, then arms the timer for the next deadline. */
@@ -178,7 +181,7 @@ export class Scheduler<T> {
       }
       at = this.keyWaitAt;
     } else {
-      at = this.buffer.oldest()!.acceptedAt + this.o.maxAgeMs;
+      at = this.buffer.oldestAt()! + this.o.maxAgeMs;
       if (this.o.idleMs > 0) at = Math.min(at, this.buffer.lastWriteAt + this.o.idleMs);
     }
     // An armed timer that fires no later is kept: a write never moves a deadline earlier.
