@@ -124,7 +124,9 @@ export async function deleteRedisPrefix(redis: Redis, prefix: string): Promise<n
 export async function withRedis(prefix = 'spw', options: RedisOptions = {}): Promise<TestRedis> {
   const { redisUrl } = services();
   const keyPrefix = redisPrefix(prefix);
-  const redis = new Redis(redisUrl, { lazyConnect: true, ...options });
+  // ioredis 6 types a RedisOptions field as `T | undefined` where its constructor takes `T`, which
+  // exactOptionalPropertyTypes tells apart; the options object is handed on as it is.
+  const redis = new Redis(redisUrl, { lazyConnect: true, ...(options as object) });
   await redis.connect();
   return {
     prefix: keyPrefix,
