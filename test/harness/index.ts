@@ -129,7 +129,9 @@ export async function withRedis(
 ): Promise<TestRedis> {
   const { redisUrl } = services();
   const keyPrefix = redisPrefix(prefix);
-  const redis = new Redis(redisUrl, { lazyConnect: true, ...options });
+  // ioredis 6 types a RedisOptions field as `T | undefined` where its constructor takes `T`, which
+  // exactOptionalPropertyTypes tells apart; the options object is handed on as it is.
+  const redis = new Redis(redisUrl, { lazyConnect: true, ...(options as object) });
   await redis.connect();
   return {
     prefix: keyPrefix,
