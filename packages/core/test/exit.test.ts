@@ -60,7 +60,9 @@ describe('a program that never calls close()', () => {
     const { code, stdout, stderr } = await run(exitChild, { SCENARIO: 'fatal' });
     expect(code).toBe(1);
     expect(lastJson(stdout)).toMatchObject({ accepted: 3, stored: 0 });
-    expect(stderr).toContain('stopped after a fatal error (SPILLWAY_SINK_FAILED) with 3 accepted record(s) not written');
+    expect(stderr).toContain(
+      'stopped after a fatal error (SPILLWAY_SINK_FAILED) with 3 accepted record(s) not written',
+    );
   });
 
   it('flushes at once on beforeExit when its clock lets the event loop empty with records buffered', async () => {
