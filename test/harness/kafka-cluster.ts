@@ -11,6 +11,7 @@ import {
   clusterId,
   ensureKafkaJars,
   formatStorage,
+  javaBin,
   renderProperties,
   type StartKafkaOptions,
 } from './kafka.js';
@@ -128,7 +129,7 @@ export async function startKafkaCluster(options: StartKafkaClusterOptions = {}):
     throw new TypeError(`brokers must be an integer ≥ 1, got ${count}`);
   if (minIsr > count) throw new TypeError(`minInsyncReplicas (${minIsr}) exceeds brokers (${count})`);
   const { dir: jarDir, fetched } = await ensureKafkaJars();
-  const java = process.env.JAVA_HOME ? join(process.env.JAVA_HOME, 'bin', 'java') : 'java';
+  const java = javaBin();
 
   // A port picked free can be taken by a parallel run before a node binds it: retry with new ports.
   let lastError: unknown;
@@ -151,6 +152,7 @@ export async function startKafkaCluster(options: StartKafkaClusterOptions = {}):
     const id = clusterId();
 
     const brokers: Broker[] = [];
+    let cluster: Cluster | undefined;
     const started = Date.now();
     try {
       await Promise.all(
@@ -180,17 +182,19 @@ export async function startKafkaCluster(options: StartKafkaClusterOptions = {}):
       const starts = await Promise.allSettled(brokers.map((b) => b.start()));
       const failed = starts.find((s): s is PromiseRejectedResult => s.status === 'rejected');
       if (failed) throw failed.reason;
-      const cluster = new Cluster(brokers, root, removeExitHook);
-      await cluster.connect();
+      const made = new Cluster(brokers, root, removeExitHook);
+      cluster = made;
+      await made.connect();
       await waitFor(
         `all ${count} nodes in the cluster's metadata`,
-        async () => ((await cluster.admin.describeCluster()).brokers.length === count ? true : undefined),
+        async () => ((await made.admin.describeCluster()).brokers.length === count ? true : undefined),
         { timeoutMs: readyTimeoutMs, intervalMs: 100 },
       );
-      cluster.startMs = Date.now() - started;
-      return cluster;
+      made.startMs = Date.now() - started;
+      return made;
     } catch (error) {
       lastError = error;
+      await cluster?.admin.disconnect().catch(() => undefined);
       const portClash = brokers.some((b) => b && fileContains(b.logFile, 'Address already in use'));
       await Promise.all(brokers.map((b) => b?.kill()));
       removeExitHook();

@@ -81,7 +81,7 @@ function cacheRoot(): string {
   return process.env.SPILLWAY_CACHE ?? join(homedir(), '.cache', 'spillway');
 }
 
-function javaBin(): string {
+export function javaBin(): string {
   return process.env.JAVA_HOME ? join(process.env.JAVA_HOME, 'bin', 'java') : 'java';
 }
 

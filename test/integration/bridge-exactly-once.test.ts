@@ -7,7 +7,7 @@
 // SPILLWAY_EOS_RUNS (default 2) runs of SPILLWAY_EOS_MESSAGES (default 50,000) messages per mode.
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { services, sleep, uniqueName, waitFor } from '../harness/index.js';
+import { services, uniqueName, waitFor } from '../harness/index.js';
 import type { WorkerConfig } from './workers/bridge-worker.js';
 import { createDockTable } from './workers/dock-rows.js';
 import { groupFixture } from './workers/group-checks.js';
@@ -99,7 +99,7 @@ describe('exactly-once from Kafka into PostgreSQL', () => {
         first.child.kill('SIGKILL');
         const exit = await first.exited;
         // A transaction the server had received when the client died may still commit.
-        await sleep(500);
+        await f.checks.sessionsGone(cfg.label);
         const atKill = await f.checks.counts(table);
         const committedAtKill = await f.checks.committedTotal(groupId, topic);
         await producing;
@@ -152,7 +152,7 @@ describe('exactly-once from Kafka into PostgreSQL', () => {
     first.child.kill('SIGKILL');
     const killedAfterMs = Date.now() - ready;
     await first.exited;
-    await sleep(500);
+    await f.checks.sessionsGone(cfg.label);
     const atKill = await f.checks.counts(table);
     const committedAtKill = await f.checks.committed(groupId, topic);
 

@@ -175,9 +175,9 @@ describe('consumer processes of the bridge', () => {
       { timeoutMs: 120_000, intervalMs: 100 },
     );
     const exit = await stopWorker(first, 'SIGKILL');
-    // A statement the server had already received when the client died still commits: give it a
-    // moment before reading what is durable but uncommitted.
-    await sleep(1000);
+    // A statement the server had already received when the client died still commits: wait until
+    // the server has ended the worker's sessions before reading what is durable but uncommitted.
+    await f.checks.sessionsGone(config.label);
     const c = await f.checks.committed(groupId, topic);
     const { rows } = await f.schema.pool.query<{ n: string }>(
       `SELECT count(*) AS n FROM ${insertTable} t WHERE t.koffset >= CASE t.kpartition ${[...c].map(([p, o]) => `WHEN ${p} THEN ${Math.max(0, o)}`).join(' ')} ELSE 0 END`,

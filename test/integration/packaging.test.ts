@@ -5,9 +5,9 @@
 // One install serves every check. Needs the built packages (`npm test` builds first) and the
 // npm registry. The README's "Install" section describes what this file does.
 import { type SpawnOptions, spawn } from 'node:child_process';
-import { chmod, mkdir, mkdtemp, readFile, rm, writeFile } from 'node:fs/promises';
+import { chmod, mkdir, mkdtemp, readdir, readFile, rm, stat, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
-import { join } from 'node:path';
+import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { services, type TestSchema, withSchema } from '../harness/index.js';
@@ -123,6 +123,28 @@ describe('the packed packages, installed into a project of their own', () => {
     ]);
     // A range that missed the current major would leave a second, nested ioredis.
     expect((await copies('ioredis')).map((c) => c.path)).toEqual([join(app, 'node_modules/ioredis')]);
+  });
+
+  it('ship a LICENSE, a README and the sources every source map points at', async () => {
+    for (const p of PACKAGES) {
+      const installed = join(app, 'node_modules', '@spillway', p);
+      expect((await readFile(join(installed, 'LICENSE'), 'utf8')).split('\n')[2]).toBe(
+        'Copyright (c) 2026 the Spillway authors',
+      );
+      expect(await readFile(join(installed, 'README.md'), 'utf8')).toContain(`npm install`);
+      const maps = (await readdir(join(installed, 'dist'), { recursive: true })).filter((f) =>
+        f.endsWith('.map'),
+      );
+      expect(maps.length).toBeGreaterThan(0);
+      for (const map of maps) {
+        const at = dirname(join(installed, 'dist', map));
+        const { sources } = JSON.parse(await readFile(join(installed, 'dist', map), 'utf8')) as {
+          sources: string[];
+        };
+        for (const source of sources)
+          await expect(stat(join(at, source)), `${p}: ${map} → ${source}`).resolves.toBeTruthy();
+      }
+    }
   });
 
   it('import by name from an ESM file: every package and sub-path', async () => {

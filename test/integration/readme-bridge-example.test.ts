@@ -9,7 +9,6 @@ import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import {
   services,
-  sleep,
   type TestKafka,
   type TestSchema,
   uniqueName,
@@ -17,8 +16,8 @@ import {
   withSchema,
 } from '../harness/index.js';
 import { createDockStatus, FEED_START_MS, readmeProgram, urlForSchema } from './readme/dock-status.js';
-import { compile, createProject, type ReadmeProject } from './readme/project.js';
-import { describeRun, instrumented, type RunResult, startProgram } from './readme/run.js';
+import { compiledProject, type ReadmeProject } from './readme/project.js';
+import { describeRun, instrumented, type RunResult, startProgram, whileRunning } from './readme/run.js';
 
 const MESSAGES = 60_000;
 const PARTITIONS = 3;
@@ -31,9 +30,7 @@ let topic: string;
 let dir: string;
 
 beforeAll(async () => {
-  project = createProject([bridge]);
-  const diagnostics = await compile(project, [bridge], 'emitOnly');
-  if (diagnostics.length > 0) throw new Error(diagnostics.map((d) => `${d.at}: ${d.message}`).join('\n'));
+  project = await compiledProject([bridge]);
   [kafka, schema] = await Promise.all([withKafka(), withSchema('readme_bridge')]);
   await schema.pool.query(createDockStatus);
   topic = await kafka.topic(PARTITIONS, 'readme');
@@ -86,14 +83,12 @@ async function runUntil(groupId: string, untilRows: number): Promise<RunResult> 
       DEAD_LETTER_DIR: dir,
     },
   });
-  const deadline = Date.now() + 150_000;
-  for (;;) {
-    if (run.child.exitCode !== null)
-      throw new Error(`the bridge ended by itself: ${describeRun(await run.done)}`);
-    if (Date.now() > deadline) throw new Error(`the table did not reach ${untilRows} rows within 150 s`);
-    if ((await tableCounts()).rows >= untilRows) break;
-    await sleep(100);
-  }
+  await whileRunning(
+    run,
+    `${untilRows} rows in the table`,
+    async () => (await tableCounts()).rows >= untilRows,
+    150_000,
+  );
   run.child.kill('SIGTERM');
   return run.done;
 }

@@ -8,7 +8,7 @@
 // what Kubernetes' documentation (Pod Lifecycle, Termination of Pods) expects of a SIGTERM.
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { type DockRun, readmeProgram, runDockStatus } from './readme/dock-status.js';
-import { compile, createProject, type Program, type ReadmeProject } from './readme/project.js';
+import { compiledProject, type Program, type ReadmeProject } from './readme/project.js';
 import { describeRun, instrumented, replaced } from './readme/run.js';
 
 const RUNS = 5;
@@ -51,13 +51,14 @@ const loopThrows = instrumented(
   'first-crash-in-loop',
   'docks',
 );
-const programs: Program[] = [copy, insert, thrown, rejected, loopThrows];
+// As it stands, without the exit listener (which reads `docks`, never declared when the
+// dead-letter check throws).
+const plain: Program = { ...base, name: 'first-plain' };
+const programs: Program[] = [copy, insert, thrown, rejected, loopThrows, plain];
 
 let project: ReadmeProject;
 beforeAll(async () => {
-  project = createProject(programs);
-  const diagnostics = await compile(project, programs, 'emitOnly');
-  if (diagnostics.length > 0) throw new Error(diagnostics.map((d) => `${d.at}: ${d.message}`).join('\n'));
+  project = await compiledProject(programs);
 });
 afterAll(() => project?.remove());
 
@@ -120,28 +121,34 @@ describe.concurrent('the README first example as a program', () => {
     });
   }
 
-  it('flushes what it accepted and exits 1 when user code throws (uncaughtException)', async () => {
-    for (let i = 0; i < 2; i++) {
-      const run = await runDockStatus(project.js(thrown.name), {});
-      expectEveryAcceptedReport(run, 1);
-      expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
-      expect(run.result.stderr).toContain('uncaught exception: Error: a bug elsewhere');
-    }
-  });
-
-  it('flushes what it accepted and exits 1 on a promise rejection nobody handles (unhandledRejection)', async () => {
-    for (let i = 0; i < 2; i++) {
-      const run = await runDockStatus(project.js(rejected.name), {});
-      expectEveryAcceptedReport(run, 1);
-      expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
-      expect(run.result.stderr).toContain('unhandled rejection: Error: a bug elsewhere');
-    }
-  });
+  for (const [p, when, logged] of [
+    [thrown, 'user code throws (uncaughtException)', 'uncaught exception'],
+    [rejected, 'a promise rejection nobody handles (unhandledRejection)', 'unhandled rejection'],
+  ] as const) {
+    it(`flushes what it accepted and exits 1 when ${when} (2 runs)`, async () => {
+      for (let i = 0; i < 2; i++) {
+        const run = await runDockStatus(project.js(p.name), {});
+        expectEveryAcceptedReport(run, 1);
+        expect(run.table.rows).toBeGreaterThanOrEqual(20_000);
+        expect(run.result.stderr).toContain(`${logged}: Error: a bug elsewhere`);
+      }
+    });
+  }
 
   it('flushes the 30,000 reports it accepted and exits 1 when its own loop throws', async () => {
     const run = await runDockStatus(project.js(loopThrows.name), {});
     expectEveryAcceptedReport(run, 1);
     expect(run.table.rows).toBe(30_000);
     expect(run.result.stderr).toContain('uncaught exception: Error: a bug in the loop');
+  });
+
+  it('stops before taking a report when the dead-letter directory does not exist, naming the path', async () => {
+    const missing = '/nonexistent-spillway-dir/dock-status.dead.ndjson';
+    const run = await runDockStatus(project.js(plain.name), { limit: 3, env: { DEAD_LETTER_FILE: missing } });
+    expect(run.result.code, describeRun(run.result)).toBe(1);
+    expect(run.result.stderr).toContain('SPILLWAY_DEAD_LETTER_UNWRITABLE');
+    expect(run.result.stderr).toContain(missing);
+    expect(run.result.stderr).toContain('ENOENT');
+    expect(run.table.rows).toBe(0);
   });
 });

@@ -9,10 +9,10 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { deleteRedisPrefix, services, sleep, uniqueName, withRedis, withSchema } from '../harness/index.js';
+import { deleteRedisPrefix, services, uniqueName, withRedis, withSchema } from '../harness/index.js';
 import { type DockRun, readmeProgram, runDockStatus, urlForSchema } from './readme/dock-status.js';
-import { compile, createProject, type Program, type ReadmeProject } from './readme/project.js';
-import { describeRun, instrumented, type RunResult, startProgram } from './readme/run.js';
+import { compiledProject, type Program, type ReadmeProject } from './readme/project.js';
+import { describeRun, instrumented, type RunResult, startProgram, whileRunning } from './readme/run.js';
 
 const asStream = instrumented(readmeProgram('sink-as-a-stream'), 'as-a-stream', 'docks');
 const pipeInto = instrumented(readmeProgram('sink-fed-by-pipe-into'), 'pipe-into', 'docks');
@@ -22,9 +22,7 @@ const programs: Program[] = [asStream, pipeInto, redis, ingest];
 
 let project: ReadmeProject;
 beforeAll(async () => {
-  project = createProject(programs);
-  const diagnostics = await compile(project, programs, 'emitOnly');
-  if (diagnostics.length > 0) throw new Error(diagnostics.map((d) => `${d.at}: ${d.message}`).join('\n'));
+  project = await compiledProject(programs);
 });
 afterAll(() => project?.remove());
 
@@ -91,12 +89,11 @@ describe.concurrent('the Redis availability example', () => {
       feed.pipe(run.child.stdin!);
       void run.done.then(() => feed.destroy());
       if (signal) {
-        const deadline = Date.now() + 120_000;
-        while ((await checker.redis.exists(`${keyPrefix}0`)) === 0) {
-          if (run.child.exitCode !== null) throw new Error(`ended early: ${describeRun(await run.done)}`);
-          if (Date.now() > deadline) throw new Error('no key landed within 120 s');
-          await sleep(50);
-        }
+        await whileRunning(
+          run,
+          'a key in Redis',
+          async () => (await checker.redis.exists(`${keyPrefix}0`)) === 1,
+        );
         run.child.kill(signal);
       }
       const result = await run.done;
@@ -168,16 +165,12 @@ describe.concurrent('the partner-file ingest example', () => {
         env: { DATABASE_URL: urlForSchema(schema.schema) },
       });
       if (signal) {
-        const deadline = Date.now() + 120_000;
-        for (;;) {
-          if (run.child.exitCode !== null) throw new Error(`ended early: ${describeRun(await run.done)}`);
-          if (Date.now() > deadline) throw new Error('no row landed within 120 s');
+        await whileRunning(run, 'a row in the table', async () => {
           const { rows: r } = await schema.pool.query<{ n: number }>(
             'SELECT count(*)::int AS n FROM service_records',
           );
-          if (r[0]!.n > 0) break;
-          await sleep(50);
-        }
+          return r[0]!.n > 0;
+        });
         run.child.kill(signal);
       }
       const result = await run.done;

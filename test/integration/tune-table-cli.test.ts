@@ -79,51 +79,36 @@ async function spillway(...args: string[]): Promise<{ code: number; out: string;
   return { code, out, err };
 }
 
+/** `spillway tune --to <url> --table <schema>.docks` and the flags; each `%s` takes the next path. */
+function docks(flags: string, ...paths: string[]) {
+  let i = 0;
+  const args = flags.split(' ').map((f) => (f === '%s' ? paths[i++]! : f));
+  return spillway('--to', url, '--table', `${db.schema}.docks`, ...args);
+}
+
 const userRows = async () => (await db.pool.query('SELECT count(*)::int AS n FROM docks')).rows[0].n;
 const schemaExists = async (name: string) =>
   (await db.pool.query('SELECT 1 FROM pg_namespace WHERE nspname = $1', [name])).rowCount === 1;
 
 describe('spillway tune --table', () => {
   it('refuses an unknown table, a sample without a required column, a malformed sample line, a key that is not unique and a bad rate, naming each', async () => {
-    const base = ['--to', url, '--p99', '200', '--validate', '0'];
-    const unknown = await spillway(...base, '--table', `${db.schema}.nope`);
-    expect(unknown.code).toBe(64);
-    expect(unknown.err).toContain(`"${db.schema}.nope"`);
+    const table = ['--to', url, '--p99', '200', '--validate', '0', '--table', `${db.schema}.docks`];
+    const refusals: [string[], string[]][] = [
+      [['--to', url, '--p99', '200', '--table', `${db.schema}.nope`], [`"${db.schema}.nope"`]],
+      [[...table, '--sample', join(dir, 'no-dock-id.csv')], ['no-dock-id.csv has no field "dock_id"']],
+      [[...table, '--sample', join(dir, 'broken.ndjson')], ['broken.ndjson: line 2']],
+      [
+        [...table, '--mode', 'upsert', '--key', 'station_id'],
+        ['unique index or primary key', '(dock_id)'],
+      ],
+    ];
+    for (const [args, says] of refusals) {
+      const r = await spillway(...args);
+      expect(r.code).toBe(64);
+      for (const text of says) expect(r.err).toContain(text);
+    }
 
-    const missing = await spillway(
-      ...base,
-      '--table',
-      `${db.schema}.docks`,
-      '--sample',
-      join(dir, 'no-dock-id.csv'),
-    );
-    expect(missing.code).toBe(64);
-    expect(missing.err).toContain('no-dock-id.csv has no field "dock_id"');
-
-    const broken = await spillway(
-      ...base,
-      '--table',
-      `${db.schema}.docks`,
-      '--sample',
-      join(dir, 'broken.ndjson'),
-    );
-    expect(broken.code).toBe(64);
-    expect(broken.err).toContain('broken.ndjson: line 2');
-
-    const key = await spillway(
-      ...base,
-      '--table',
-      `${db.schema}.docks`,
-      '--mode',
-      'upsert',
-      '--key',
-      'station_id',
-    );
-    expect(key.code).toBe(64);
-    expect(key.err).toContain('unique index or primary key');
-    expect(key.err).toContain('(dock_id)');
-
-    const rate = await spillway(...base, '--table', `${db.schema}.docks`, '--rate', 'fast');
+    const rate = await spillway(...table, '--rate', 'fast');
     expect(rate.code).not.toBe(0);
     expect(rate.err).toContain('--rate');
     expect(rate.err).toContain('"fast"');
@@ -132,32 +117,10 @@ describe('spillway tune --table', () => {
 
   it('tunes an upsert on the user’s key from a CSV sample and prints the options, the trials and the chart; --json carries the same', async () => {
     const chart = join(dir, 'docks.svg');
-    const r = await spillway(
-      '--to',
-      url,
-      '--table',
-      `${db.schema}.docks`,
-      '--mode',
-      'upsert',
-      '--key',
-      'dock_id',
-      '--sample',
+    const r = await docks(
+      '--mode upsert --key dock_id --sample %s --rate 300 --p99 300 --budget 4 --duration 500 --validate 1 --max-concurrency 2 --chart %s --json',
       join(dir, 'docks.csv'),
-      '--rate',
-      '300',
-      '--p99',
-      '300',
-      '--budget',
-      '4',
-      '--duration',
-      '500',
-      '--validate',
-      '1',
-      '--max-concurrency',
-      '2',
-      '--chart',
       chart,
-      '--json',
     );
     expect([0, 3, 4]).toContain(r.code);
     const outcome = JSON.parse(r.out);
@@ -185,28 +148,10 @@ describe('spillway tune --table', () => {
     for (let i = 0; i < 40; i++)
       rows.push(`${1000 + i},district-2-st-${i},3,in_service,2026-03-02T08:00:00Z`);
     await writeFile(join(dir, 'small.csv'), `${rows.join('\n')}\n`);
-    const r = await spillway(
-      '--to',
-      url,
-      '--table',
-      `${db.schema}.docks`,
-      '--mode',
-      'insert',
-      '--sample',
+    const r = await docks(
+      '--mode insert --sample %s --rate 300 --p99 400 --budget 3 --duration 500 --validate 0 --chart %s --json',
       join(dir, 'small.csv'),
-      '--rate',
-      '300',
-      '--p99',
-      '400',
-      '--budget',
-      '3',
-      '--duration',
-      '500',
-      '--validate',
-      '0',
-      '--chart',
       join(dir, 'small.svg'),
-      '--json',
     );
     const outcome = JSON.parse(r.out);
     expect(outcome.records.varied).toEqual([{ name: 'dock_id', how: 'offset' }]);
@@ -218,25 +163,35 @@ describe('spillway tune --table', () => {
     expect(await userRows()).toBe(1);
   });
 
+  it('replays the sample’s own timestamps at the asked rate, and prefills the copy before measuring', async () => {
+    // docks.csv holds 400 reports, ten per minute of seen_at: replayed at 400 records/s.
+    const r = await docks(
+      '--mode upsert --sample %s --shape replay --timestamp-column seen_at --rate 400 --prefill 2000 --p99 400 --budget 3 --duration 500 --validate 0 --chart %s --json',
+      join(dir, 'docks.csv'),
+      join(dir, 'replay.svg'),
+    );
+    const outcome = JSON.parse(r.out);
+    expect(outcome.load).toMatchObject({ shape: 'replay', rate: 400 });
+    expect(outcome.prefilled).toBe(2000);
+    expect(r.err).toContain('Prefilling the copy with 2,000 rows');
+    // About 200 records in each half-second trial, landing on the 150 keys the prefill wrote.
+    for (const t of outcome.trials) {
+      expect(t.offered).toBeGreaterThan(150);
+      expect(t.offered).toBeLessThan(260);
+      expect(t.deadLettered).toBe(0);
+    }
+    const noColumn = await docks(
+      '--sample %s --shape replay --timestamp-column uploaded_at --p99 400 --validate 0',
+      join(dir, 'docks.csv'),
+    );
+    expect(noColumn.code).toBe(64);
+    expect(noColumn.err).toContain('has no field "uploaded_at" (--timestamp-column)');
+    expect(await userRows()).toBe(1);
+  });
+
   it('generates rows from the column types when no sample is given, and says so', async () => {
-    const r = await spillway(
-      '--to',
-      url,
-      '--table',
-      `${db.schema}.docks`,
-      '--mode',
-      'copy',
-      '--rate',
-      '200',
-      '--p99',
-      '400',
-      '--budget',
-      '3',
-      '--duration',
-      '400',
-      '--validate',
-      '0',
-      '--chart',
+    const r = await docks(
+      '--mode copy --rate 200 --p99 400 --budget 3 --duration 400 --validate 0 --chart %s',
       join(dir, 'gen.svg'),
     );
     expect([0, 3]).toContain(r.code);

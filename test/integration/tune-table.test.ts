@@ -15,6 +15,10 @@ const COLUMNS = `id bigserial PRIMARY KEY, dock_id integer NOT NULL, station_id 
   bikes_available integer NOT NULL, docks_free integer NOT NULL, status text NOT NULL,
   reported_at timestamptz NOT NULL, note text`;
 const EXISTING_ROWS = 200;
+const WORDS =
+  'brake chain saddle dock uplink reset firmware lock sensor tyre bell light frame pedal battery cable swap checked ok'.split(
+    ' ',
+  );
 
 let db: TestSchema;
 let dir: string;
@@ -37,10 +41,13 @@ beforeAll(async () => {
   db = await withSchema('tune_table');
   await db.pool.query(`CREATE TABLE plain_status (${COLUMNS})`);
   await db.pool.query(`CREATE TABLE heavy_status (${COLUMNS},
-    CONSTRAINT heavy_bikes_sum CHECK (bikes_available >= 0 AND docks_free >= 0 AND bikes_available + docks_free <= 40))`);
-  await db.pool.query('CREATE INDEX heavy_by_dock ON heavy_status (dock_id, reported_at)');
-  await db.pool.query('CREATE INDEX heavy_by_station ON heavy_status (station_id, status)');
+    CONSTRAINT heavy_sane CHECK (bikes_available >= 0 AND docks_free >= 0 AND bikes_available + docks_free <= 40
+      AND note ~ '^[a-z0-9 .]*$'))`);
+  // Three secondary indexes, each carrying the wide service note: wide keys, as a full-text or
+  // lookup index on a free-text column has them.
   await db.pool.query('CREATE INDEX heavy_by_note ON heavy_status (note)');
+  await db.pool.query('CREATE INDEX heavy_by_station ON heavy_status (station_id, status, note)');
+  await db.pool.query('CREATE INDEX heavy_by_dock ON heavy_status (dock_id, reported_at, note)');
   for (const t of ['plain_status', 'heavy_status']) {
     const values = Array.from({ length: EXISTING_ROWS }, (_, i) => existingRow(i));
     await db.pool.query(
@@ -70,7 +77,10 @@ beforeAll(async () => {
         docks_free: 20 - bikes,
         status: ['in_service', 'in_service', 'full', 'offline'][rnd(4)],
         reported_at: new Date(Date.UTC(2026, 2, 2, 7, 30) + i * 40).toISOString(),
-        note: `uplink ${rnd(100000).toString(36)} firmware 4.${rnd(9)}`,
+        // A technician's free-text note of about 160 characters.
+        note: Array.from({ length: 24 }, () => WORDS[rnd(WORDS.length)])
+          .join(' ')
+          .slice(0, 160),
       }),
     );
   }
@@ -203,15 +213,20 @@ describe('tuning on the user’s own table', () => {
         url: services().pgUrl,
         mode: 'insert' as const,
         sample,
-        rate: 2000,
-        p99Ms: 250,
+        rate: 1000,
+        p99Ms: 300,
         trialMs: 1200,
         budgetMs: 16_000,
         validateMs: 3000,
         maxConcurrency: 2,
       };
-      const plain = await tuneTable({ ...options, table: `${db.schema}.plain_status` });
-      const heavy = await tuneTable({ ...options, table: `${db.schema}.heavy_status` });
+      // Both at once: the two searches try the same settings in the same order, so each pair of
+      // trials runs under the same load of this shared machine (one after the other, a busy
+      // spell in one search and not the other outweighs the indexes).
+      const [plain, heavy] = await Promise.all([
+        tuneTable({ ...options, table: `${db.schema}.plain_status` }),
+        tuneTable({ ...options, table: `${db.schema}.heavy_status` }),
+      ]);
       const lockModes = await locks.stop();
 
       // Store cost per record, setting by setting over the settings both searches tried.
@@ -238,10 +253,17 @@ describe('tuning on the user’s own table', () => {
       expect(heavy.lacks.some((l) => l.includes('existing rows'))).toBe(true);
 
       for (const o of [plain, heavy]) {
-        // The recommendation is the least store cost among the trials of its own table that met the target.
+        // The first pick is the least store cost among the trials of its own table that met the
+        // aim; when its validation run missed, the next one tried had a lower measured p99.
         const meeting = o.trials.filter((t) => t.meets);
         expect(meeting.length).toBeGreaterThan(0);
-        expect(o.recommended).toBe([...meeting].sort(byCost)[0]);
+        const runs = o.validations ?? [];
+        expect(runs[0]?.trial.settings).toEqual([...meeting].sort(byCost)[0]!.settings);
+        expect(o.recommended?.settings).toEqual(runs[runs.length - 1]?.trial.settings);
+        for (let i = 1; i < runs.length; i++) {
+          const previous = matching(o, runs[i - 1]!.trial.settings)!;
+          expect(matching(o, runs[i]!.trial.settings)!.p99Ms).toBeLessThan(previous.p99Ms);
+        }
         for (const t of o.trials) {
           if (t.meets) expect(t.p99Ms).toBeLessThanOrEqual(o.target.aimMs);
           expect(t.deadLettered).toBe(0);
@@ -253,10 +275,12 @@ describe('tuning on the user’s own table', () => {
       }
       // Where the measurements say the plain table's pick does not hold on the heavy table (it
       // missed the aim there, or a cheaper setting met it), the heavy table's pick differs; where
-      // it is also the heavy table's cheapest passing setting, the picks agree.
-      const p = plain.recommended!;
+      // it is also the heavy table's cheapest passing setting, the picks agree. (The picks by
+      // measurement, before a validation run may have moved to the next one.)
+      const pick = (o: TableTuneOutcome) => [...o.trials.filter((t) => t.meets)].sort(byCost)[0]!;
+      const p = pick(plain);
       const onHeavy = matching(heavy, p.settings);
-      const heavyPick = heavy.recommended!;
+      const heavyPick = pick(heavy);
       if (onHeavy === undefined || !onHeavy.meets || byCost(heavyPick, onHeavy) < 0)
         expect(heavyPick.settings).not.toEqual(p.settings);
       else expect(heavyPick.settings).toEqual(p.settings);

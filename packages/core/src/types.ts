@@ -6,21 +6,21 @@
 /** Where a record came from. All fields are optional; the engine uses what is there. */
 export interface RecordMeta {
   /** Source topic or stream name (kept in dead letters; part of the progress key). */
-  readonly topic?: string;
+  readonly topic?: string | undefined;
   /** Source partition. Also the default ordering key. */
-  readonly partition?: number | string;
+  readonly partition?: number | string | undefined;
   /** Source offset (Kafka offsets are strings of digits). Drives the progress tracker. */
-  readonly offset?: string | number | bigint;
+  readonly offset?: string | number | bigint | undefined;
   /** When the event happened, ms since the epoch; enables event-time → durable latency. */
-  readonly eventTime?: number;
+  readonly eventTime?: number | undefined;
   /** Ordering key that overrides the partition. Records of one key are written in accept order. */
-  readonly key?: string;
+  readonly key?: string | undefined;
   /**
    * True when the source keeps this record's progress itself (the Kafka bridge does, across all
    * the sinks a message went to): the sink's own `progress` tracker then skips it, which saves
    * a lookup and a slot per record.
    */
-  readonly externalProgress?: boolean;
+  readonly externalProgress?: boolean | undefined;
 }
 
 /** Why a batch was started. Metrics count flushes by reason. */
@@ -88,7 +88,7 @@ export interface SinkAdapter<T> {
   write(batch: Batch<T>): Promise<void | PartialWrite>;
   classify(error: unknown): ErrorClass;
   /** Estimated bytes a record adds to a write; the engine has a default estimator. */
-  estimateBytes?(record: T): number;
+  estimateBytes?: ((record: T) => number) | undefined;
   /**
    * The per-record part of a write (mapping, encoding), done when the record is accepted, while
    * earlier batches are still in flight, instead of when its batch is written. What it returns
@@ -96,9 +96,9 @@ export interface SinkAdapter<T> {
    * the record is accepted with `prepared[i]` undefined: `write()` must then do the work itself
    * (and reject the record if it fails again).
    */
-  prepare?(record: T): Prepared;
+  prepare?: ((record: T) => Prepared) | undefined;
   /** Called once by `Sink.close()` after every record is terminal. */
-  close?(): Promise<void>;
+  close?: (() => Promise<void>) | undefined;
 }
 
 /** Why a record went to the dead-letter target. */

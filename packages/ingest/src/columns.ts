@@ -1,4 +1,4 @@
-import { invalidOption } from '@spillway/core';
+import { booleanOption, invalidOption } from '@spillway/core/kit';
 import type { RejectReason } from './reject.js';
 
 /** The value types of a declared column. */
@@ -79,8 +79,7 @@ export function resolveColumns(columns: unknown): ResolvedColumn[] {
     const type = s.type ?? 'string';
     if (!COLUMN_TYPES.includes(type as ColumnType))
       throw invalidOption(`${at}.type`, `one of ${COLUMN_TYPES.join(', ')}`, s.type);
-    if (s.required !== undefined && typeof s.required !== 'boolean')
-      throw invalidOption(`${at}.required`, 'a boolean', s.required);
+    const required = booleanOption(`${at}.required`, s.required, false);
     let pattern: RegExp | undefined;
     if (s.pattern instanceof RegExp)
       pattern = new RegExp(s.pattern.source, s.pattern.flags.replace(/[gy]/g, ''));
@@ -103,7 +102,7 @@ export function resolveColumns(columns: unknown): ResolvedColumn[] {
       name: s.name,
       from: (s.from as string | undefined) ?? s.name,
       type: type as ColumnType,
-      required: s.required === true,
+      required,
       pattern,
       min: s.min as number | undefined,
       max: s.max as number | undefined,

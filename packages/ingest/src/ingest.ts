@@ -3,6 +3,7 @@ import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
 import { messageOf, progressKey, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
@@ -15,7 +16,7 @@ import {
 import type { Reject, RejectReason } from './reject.js';
 import { csvReader, type Item, type ItemReader, ndjsonReader } from './rows.js';
 import { trackRun } from './run-counts.js';
-import { issuePath } from './standard-schema.js';
+import { issuePath, type StandardResult } from './standard-schema.js';
 import { FIRST_REJECTS, type IngestSummary, type RejectNote } from './summary.js';
 
 /** Bytes to read from: a Node stream (file, HTTP request body) or any async iterable of chunks. */
@@ -99,9 +100,7 @@ async function run<T>(
 ): Promise<IngestSummary> {
   const o = resolveIngestOptions(options);
   if (o.format === undefined) {
-    throw new TypeError(
-      "Expected `format` to be 'csv' or 'ndjson' (it cannot be told from a stream), got `undefined`",
-    );
+    throw invalidOption('format', '"csv" or "ndjson" (it cannot be told from a stream)', undefined);
   }
   const format = o.format;
   const source = o.sourceName ?? 'stream';
@@ -187,27 +186,45 @@ async function run<T>(
   };
 
   const writeOptions = o.signal ? { signal: o.signal } : undefined;
-  const accept = async (record: T, line: number) => {
+  const sinkFailed = (error: unknown): Stop =>
+    o.signal?.aborted
+      ? new Stop('read', 'The ingest was aborted', o.signal.reason)
+      : new Stop('sink', `The sink refused a row: ${messageOf(error)}`, error);
+  // Synchronous while the sink has room: a promise per row would cost more than the row.
+  const accept = (record: T, line: number): Promise<void> | undefined => {
     const meta: RecordMeta = { topic: source, partition: runId, offset: line };
+    let taken: boolean;
     try {
-      if (!sink.tryWrite(record, meta)) await sink.write(record, meta, writeOptions);
+      taken = sink.tryWrite(record, meta);
     } catch (error) {
-      if (o.signal?.aborted) throw new Stop('read', 'The ingest was aborted', o.signal.reason);
-      throw new Stop('sink', `The sink refused a row: ${messageOf(error)}`, error);
+      throw sinkFailed(error);
     }
-    s.accepted++;
+    if (taken) {
+      s.accepted++;
+      return undefined;
+    }
+    return sink.write(record, meta, writeOptions).then(
+      () => {
+        s.accepted++;
+      },
+      (error: unknown) => {
+        throw sinkFailed(error);
+      },
+    );
   };
 
   let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
   const needHeader = format === 'csv' && o.header;
 
-  const handle = async (item: Item) => {
+  /** Handles one item; returns a promise only when it has to wait (a full sink, a reject target, an async schema). */
+  const handle = (item: Item): Promise<void> | undefined => {
     if (item.kind === 'blank') {
       if (o.blankLines === 'reject') {
         s.rowsRead++;
-        await reject(item.line, Buffer.alloc(0), 'blank', 'a blank line', undefined);
-      } else s.blank++;
-      return;
+        return reject(item.line, Buffer.alloc(0), 'blank', 'a blank line', undefined);
+      }
+      s.blank++;
+      return undefined;
     }
     if (needHeader && header === undefined) {
       if (item.kind !== 'fields')
@@ -216,86 +233,85 @@ async function run<T>(
           `The CSV header (line ${item.line}) is malformed: ${item.kind === 'reject' ? item.message : 'no fields'}`,
         );
       header = headerMap(item.fields, o.columns);
-      return;
+      return undefined;
     }
     s.rowsRead++;
     if (item.kind === 'reject') {
       const column =
         item.field === undefined ? undefined : (header?.names[item.field] ?? `#${item.field + 1}`);
-      await reject(item.line, item.raw, item.reason, item.message, column, item.truncated);
-      return;
+      return reject(item.line, item.raw, item.reason, item.message, column, item.truncated);
     }
     let row: Row;
     if (item.kind === 'fields') {
       const h = header!;
       if (item.fields.length !== h.width) {
-        await reject(
+        return reject(
           item.line,
           item.raw,
           'column-count',
           `expected ${h.width} field(s), got ${item.fields.length}`,
           undefined,
         );
-        return;
       }
       const built = o.columns
         ? fromColumns(h.columns!, (c) => item.fields[h.index.get(c.name)!])
         : fromHeader(h.names, item.fields);
-      if ('reason' in built) {
-        await reject(item.line, item.raw, built.reason, built.message, built.column);
-        return;
-      }
+      if ('reason' in built) return reject(item.line, item.raw, built.reason, built.message, built.column);
       row = built.row;
     } else {
       const v = item.value;
       if (typeof v !== 'object' || v === null || Array.isArray(v)) {
-        await reject(
+        return reject(
           item.line,
           item.raw,
           'not-object',
           `expected a JSON object, got ${v === null ? 'null' : Array.isArray(v) ? 'an array' : `a ${typeof v}`}`,
           undefined,
         );
-        return;
       }
       const obj = v as Record<string, unknown>;
       if (o.columns) {
-        const cols = o.columns;
         // Own properties only: a missing `constructor` must not read Object's.
-        const built = fromColumns(cols, (c) => (Object.hasOwn(obj, c.from) ? obj[c.from] : undefined));
-        if ('reason' in built) {
-          await reject(item.line, item.raw, built.reason, built.message, built.column);
-          return;
-        }
+        const built = fromColumns(o.columns, (c) => (Object.hasOwn(obj, c.from) ? obj[c.from] : undefined));
+        if ('reason' in built) return reject(item.line, item.raw, built.reason, built.message, built.column);
         row = built.row;
       } else row = obj;
     }
     if (o.schema) {
-      let result = o.schema['~standard'].validate(row);
-      if (result instanceof Promise) result = await result;
-      if (result.issues) {
-        const issue = result.issues[0];
-        await reject(
-          item.line,
-          item.raw,
-          'schema',
-          issue?.message ?? 'schema validation failed',
-          issue ? issuePath(issue) : undefined,
-        );
-        return;
-      }
-      row = result.value as Row;
+      const result = o.schema['~standard'].validate(row);
+      if (result instanceof Promise) return result.then((r) => validated(item, r));
+      return validated(item, result);
     }
+    return mapped(item, row);
+  };
+
+  const validated = (
+    item: Item & { raw: Buffer },
+    result: StandardResult<unknown>,
+  ): Promise<void> | undefined => {
+    if (result.issues) {
+      const issue = result.issues[0];
+      return reject(
+        item.line,
+        item.raw,
+        'schema',
+        issue?.message ?? 'schema validation failed',
+        issue ? issuePath(issue) : undefined,
+      );
+    }
+    return mapped(item, result.value as Row);
+  };
+
+  const mapped = (item: Item & { raw: Buffer }, row: Row): Promise<void> | undefined => {
     let record: T;
     if (o.map) {
       try {
         record = o.map(row, { line: item.line, source });
       } catch (error) {
-        await reject(item.line, item.raw, 'map', messageOf(error), undefined);
-        return;
+        return reject(item.line, item.raw, 'map', messageOf(error), undefined);
       }
     } else record = row as T;
-    await accept(record, item.line);
+    return accept(record, item.line);
   };
 
   let stop: Stop | undefined;
@@ -305,10 +321,16 @@ async function run<T>(
       s.bytes += chunk.length;
       if (s.bytes > o.maxInputBytes)
         throw new Stop('too-large', `The input is larger than ${o.maxInputBytes} bytes`);
-      for (const item of reader.push(chunk)) await handle(item);
+      for (const item of reader.push(chunk)) {
+        const wait = handle(item);
+        if (wait) await wait;
+      }
       progress(false);
     }
-    for (const item of reader.end()) await handle(item);
+    for (const item of reader.end()) {
+      const wait = handle(item);
+      if (wait) await wait;
+    }
   } catch (error) {
     stop =
       error instanceof Stop

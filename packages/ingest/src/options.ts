@@ -1,4 +1,12 @@
-import { invalidOption } from '@spillway/core';
+import {
+  booleanOption,
+  choiceOption,
+  countOption,
+  functionOption,
+  invalidOption,
+  knownOptions,
+  nonNegativeOption,
+} from '@spillway/core/kit';
 import { type ColumnSpec, type ResolvedColumn, resolveColumns } from './columns.js';
 import type { RejectTarget } from './reject.js';
 import { RejectFile, type RejectFormat } from './reject-file.js';
@@ -169,28 +177,14 @@ const KNOWN = new Set([
 
 export const INGEST_DEFAULTS = { maxRowBytes: 1024 * 1024, progressIntervalMs: 1000 } as const;
 
-function count(name: string, value: unknown, fallback: number, min: number, allowInfinity = true): number {
-  if (value === undefined) return fallback;
-  const ok =
-    typeof value === 'number' &&
-    value >= min &&
-    (Number.isInteger(value) || (allowInfinity && value === Number.POSITIVE_INFINITY));
-  if (!ok) throw invalidOption(name, `an integer >= ${min}${allowInfinity ? ' (or Infinity)' : ''}`, value);
-  return value;
-}
-
-/** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
+/** Applies defaults and validates; throws a `TypeError` (code `SPILLWAY_INVALID_OPTION`) naming the first bad option. */
 export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): ResolvedIngestOptions<T> {
-  const o = (options ?? {}) as Record<string, unknown>;
-  if (typeof o !== 'object' || o === null) throw invalidOption('options', 'an object', options);
-  for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key))
-      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
-  }
-  if (o.format !== undefined && o.format !== 'csv' && o.format !== 'ndjson')
-    throw invalidOption('format', "'csv' or 'ndjson'", o.format);
-  if (o.header !== undefined && typeof o.header !== 'boolean')
-    throw invalidOption('header', 'a boolean', o.header);
+  const o = knownOptions(options, KNOWN);
+  const format =
+    o.format === undefined
+      ? undefined
+      : choiceOption<IngestFormat>('format', o.format, ['csv', 'ndjson'], 'csv');
+  const header = booleanOption('header', o.header, true);
   const delimiter = o.delimiter ?? ',';
   if (
     typeof delimiter !== 'string' ||
@@ -207,21 +201,23 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
       'a Standard Schema validator (an object with ~standard.validate)',
       o.schema,
     );
-  if (o.map !== undefined && typeof o.map !== 'function') throw invalidOption('map', 'a function', o.map);
-  if (o.header === false && columns === undefined)
+  const map = functionOption<(row: Row, context: RowContext) => T>('map', o.map);
+  if (!header && columns === undefined)
     throw invalidOption(
       'columns',
       'column specs when `header` is false (CSV columns are then read by position)',
       o.columns,
     );
-  if (o.rejectFormat !== undefined && o.rejectFormat !== 'ndjson' && o.rejectFormat !== 'csv')
-    throw invalidOption('rejectFormat', "'ndjson' or 'csv'", o.rejectFormat);
+  const rejectFormat =
+    o.rejectFormat === undefined
+      ? undefined
+      : choiceOption<RejectFormat>('rejectFormat', o.rejectFormat, ['ndjson', 'csv'], 'ndjson');
   let rejects: RejectTarget | undefined;
   let ownsRejects = false;
   if (typeof o.rejects === 'string') {
     if (o.rejects.length === 0)
       throw invalidOption('rejects', 'a non-empty path or a RejectTarget', o.rejects);
-    rejects = new RejectFile(o.rejects, o.rejectFormat as RejectFormat | undefined);
+    rejects = new RejectFile(o.rejects, rejectFormat);
     ownsRejects = true;
   } else if (o.rejects !== undefined) {
     const t = o.rejects as RejectTarget;
@@ -229,38 +225,38 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
       throw invalidOption('rejects', 'a path or an object with write(reject)', o.rejects);
     rejects = t;
   }
-  if (o.blankLines !== undefined && o.blankLines !== 'skip' && o.blankLines !== 'reject')
-    throw invalidOption('blankLines', "'skip' or 'reject'", o.blankLines);
+  const blankLines = choiceOption('blankLines', o.blankLines, ['skip', 'reject'] as const, 'skip');
   if (o.sourceName !== undefined && (typeof o.sourceName !== 'string' || o.sourceName.length === 0))
     throw invalidOption('sourceName', 'a non-empty string', o.sourceName);
   if (o.signal !== undefined && !(o.signal instanceof AbortSignal))
     throw invalidOption('signal', 'an AbortSignal', o.signal);
-  if (o.onProgress !== undefined && typeof o.onProgress !== 'function')
-    throw invalidOption('onProgress', 'a function', o.onProgress);
-  const progressIntervalMs = o.progressIntervalMs ?? INGEST_DEFAULTS.progressIntervalMs;
-  if (
-    typeof progressIntervalMs !== 'number' ||
-    !(progressIntervalMs >= 0) ||
-    !Number.isFinite(progressIntervalMs)
-  ) {
-    throw invalidOption('progressIntervalMs', 'a finite number >= 0', o.progressIntervalMs);
-  }
+  const onProgress = functionOption<(p: IngestProgress) => void>('onProgress', o.onProgress);
+  const progressIntervalMs = nonNegativeOption(
+    'progressIntervalMs',
+    o.progressIntervalMs,
+    INGEST_DEFAULTS.progressIntervalMs,
+  );
   return {
-    format: o.format as IngestFormat | undefined,
-    header: o.header !== false,
+    format,
+    header,
     delimiter: delimiter.charCodeAt(0),
     columns,
     schema: o.schema as StandardSchemaV1 | undefined,
-    map: o.map as ((row: Row, context: RowContext) => T) | undefined,
+    map,
     rejects,
     ownsRejects,
-    maxRejects: count('maxRejects', o.maxRejects, Number.POSITIVE_INFINITY, 0),
-    maxRowBytes: count('maxRowBytes', o.maxRowBytes, INGEST_DEFAULTS.maxRowBytes, 1, false),
-    maxInputBytes: count('maxInputBytes', o.maxInputBytes, Number.POSITIVE_INFINITY, 1),
-    blankLines: (o.blankLines as 'skip' | 'reject' | undefined) ?? 'skip',
+    maxRejects: countOption('maxRejects', o.maxRejects, Number.POSITIVE_INFINITY, {
+      min: 0,
+      allowInfinity: true,
+    }),
+    maxRowBytes: countOption('maxRowBytes', o.maxRowBytes, INGEST_DEFAULTS.maxRowBytes),
+    maxInputBytes: countOption('maxInputBytes', o.maxInputBytes, Number.POSITIVE_INFINITY, {
+      allowInfinity: true,
+    }),
+    blankLines,
     sourceName: o.sourceName as string | undefined,
     signal: o.signal as AbortSignal | undefined,
-    onProgress: o.onProgress as ((p: IngestProgress) => void) | undefined,
+    onProgress,
     progressIntervalMs,
   };
 }

@@ -335,6 +335,32 @@ describe('stopping and flushing', () => {
     );
     await sink.close();
   });
+
+  it('refuses every bad option with a TypeError coded SPILLWAY_INVALID_OPTION that names the option', async () => {
+    const sink = new Sink(new MemoryAdapter<Row>());
+    const bad: Array<[string, Record<string, unknown>]> = [
+      ['format', {}], // a stream's format cannot be guessed
+      ['format', { format: 'xml' }],
+      ['header', { format: 'csv', header: 'yes' }],
+      ['maxRowBytes', { format: 'csv', maxRowBytes: 0 }],
+      ['maxRejects', { format: 'csv', maxRejects: -1 }],
+      ['maxInputBytes', { format: 'csv', maxInputBytes: 1.5 }],
+      ['blankLines', { format: 'ndjson', blankLines: 'keep' }],
+      ['rejectFormat', { format: 'csv', rejects: 'x.ndjson', rejectFormat: 'xml' }],
+      ['map', { format: 'csv', map: 'upper' }],
+      ['onProgress', { format: 'csv', onProgress: 1 }],
+      ['progressIntervalMs', { format: 'csv', progressIntervalMs: -1 }],
+      ['columns[0].required', { format: 'csv', columns: [{ name: 'a', required: 'yes' }] }],
+      ['columns[0].type', { format: 'csv', columns: [{ name: 'a', type: 'date' }] }],
+    ];
+    for (const [name, options] of bad) {
+      const error = await ingest(Readable.from(['']), sink, options as never).catch((e: unknown) => e);
+      expect(error, name).toBeInstanceOf(TypeError);
+      expect((error as TypeError & { code: string }).code, name).toBe('SPILLWAY_INVALID_OPTION');
+      expect((error as Error).message, name).toContain(`\`${name}\``);
+    }
+    await sink.close();
+  });
 });
 
 describe('bounded memory', () => {
@@ -384,5 +410,7 @@ describe('bounded memory', () => {
     // 32 MiB of input went through; growth of a few MiB is noise, 8 MiB would mean rows are kept.
     expect(growth).toBeLessThan(8 * 1024 * 1024);
     await sink.close();
-  });
+    // About 3 s of CPU; the generous limit is for a machine shared with other builds, where this
+    // process gets a small share of a core. It bounds nothing about speed.
+  }, 180_000);
 });

@@ -2,10 +2,12 @@
  * The partitions this member owns: their state, the commit fence, the pause flags kafkajs keeps,
  * and what an assignment (GROUP_JOIN) or a consumer crash changes.
  */
+
+import { partitionKey } from '@spillway/core/kit';
 import type { Consumer } from 'kafkajs';
 import type { BridgeEvents } from './bridge-types.js';
 import { CommitFence } from './commits.js';
-import { type Hold, PartitionState, partitionKey } from './partition.js';
+import { type Hold, PartitionState } from './partition.js';
 
 export class Assignment {
   readonly fence = new CommitFence();

@@ -1,7 +1,14 @@
 /**
  * Options of the consumer bridge (`KafkaBridge`), their defaults and their validation.
  */
-import { type DeadLetterTarget, invalidOption, type ShutdownCoordinator, type Sink } from '@spillway/core';
+import type { DeadLetterTarget, ShutdownCoordinator, Sink } from '@spillway/core';
+import {
+  booleanOption,
+  invalidOption,
+  knownOptions,
+  nonNegativeOption,
+  positiveOption,
+} from '@spillway/core/kit';
 import type { Consumer, ConsumerConfig, Kafka, KafkaMessage } from 'kafkajs';
 import type { DecodeError, KafkaSource, UndecodableMessage } from './decode.js';
 
@@ -174,34 +181,10 @@ const KNOWN = new Set([
   'offsetStores',
 ]);
 
-function positive(name: string, value: unknown, fallback: number, integer = false): number {
-  if (value === undefined) return fallback;
-  if (
-    typeof value !== 'number' ||
-    !Number.isFinite(value) ||
-    value <= 0 ||
-    (integer && !Number.isInteger(value))
-  ) {
-    throw invalidOption(name, `${integer ? 'an integer' : 'a finite number'} > 0`, value);
-  }
-  return value;
-}
-
-function nonNegative(name: string, value: unknown, fallback: number): number {
-  if (value === undefined) return fallback;
-  if (typeof value !== 'number' || !Number.isFinite(value) || value < 0)
-    throw invalidOption(name, 'a finite number >= 0', value);
-  return value;
-}
-
 /** Applies defaults and validates; throws a `TypeError` naming the first bad option. */
 export function resolveBridgeOptions<R>(options: KafkaBridgeOptions<R>): ResolvedBridgeOptions<R> {
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
-  const o = options as unknown as Record<string, unknown>;
-  for (const key of Object.keys(o)) {
-    if (!KNOWN.has(key))
-      throw invalidOption(key, `one of the known options (${[...KNOWN].join(', ')})`, o[key]);
-  }
+  knownOptions(options, KNOWN);
   let consumer: Consumer;
   if (options.consumer !== undefined) {
     if (options.kafka !== undefined)
@@ -231,8 +214,6 @@ export function resolveBridgeOptions<R>(options: KafkaBridgeOptions<R>): Resolve
   ) {
     throw invalidOption('topics', 'a non-empty array of topic names or RegExps', topics);
   }
-  if (options.fromBeginning !== undefined && typeof options.fromBeginning !== 'boolean')
-    throw invalidOption('fromBeginning', 'a boolean', options.fromBeginning);
   if (typeof options.decode !== 'function')
     throw invalidOption('decode', 'a function (message, source) => record | DecodeError', options.decode);
   if (typeof options.route !== 'function')
@@ -278,15 +259,15 @@ export function resolveBridgeOptions<R>(options: KafkaBridgeOptions<R>): Resolve
     groupId,
     consumer,
     topics,
-    fromBeginning: options.fromBeginning ?? false,
+    fromBeginning: booleanOption('fromBeginning', options.fromBeginning, false),
     decode: options.decode,
     route: options.route,
     deadLetter: options.deadLetter,
-    commitIntervalMs: positive('commitIntervalMs', options.commitIntervalMs, 1000),
-    rebalanceFlushMs: positive('rebalanceFlushMs', options.rebalanceFlushMs, 5000),
-    pauseAfterMs: nonNegative('pauseAfterMs', options.pauseAfterMs, 1000),
+    commitIntervalMs: positiveOption('commitIntervalMs', options.commitIntervalMs, 1000),
+    rebalanceFlushMs: positiveOption('rebalanceFlushMs', options.rebalanceFlushMs, 5000),
+    pauseAfterMs: nonNegativeOption('pauseAfterMs', options.pauseAfterMs, 1000),
     shutdown,
     name,
-    maxPendingDeadLetters: positive('maxPendingDeadLetters', options.maxPendingDeadLetters, 1000, true),
+    maxPendingDeadLetters: positiveOption('maxPendingDeadLetters', options.maxPendingDeadLetters, 1000, true),
   };
 }

@@ -7,14 +7,8 @@
  * `partition.ts` (per partition progress) → `commits.ts` (fenced commits). `assignment.ts` keeps
  * what this member owns across rebalances. This file wires them and runs the lifecycle.
  */
-import { EventEmitter } from 'node:events';
-import {
-  invalidOption,
-  type PendingCounts,
-  type RecordMeta,
-  ShutdownTimeoutError,
-  Sink,
-} from '@spillway/core';
+import { type PendingCounts, type RecordMeta, ShutdownTimeoutError, Sink } from '@spillway/core';
+import { positiveOption, TypedEmitter } from '@spillway/core/kit';
 import type { Consumer } from 'kafkajs';
 import { Assignment } from './assignment.js';
 import {
@@ -52,7 +46,7 @@ export class KafkaBridge<R> {
   readonly name: string;
   private readonly o: ResolvedBridgeOptions<R>;
   private readonly consumer: Consumer;
-  private readonly events = new EventEmitter();
+  private readonly events = new TypedEmitter<BridgeEvents>();
   private readonly counts: BridgeCounts = {
     messages: 0,
     undecodable: 0,
@@ -92,7 +86,7 @@ export class KafkaBridge<R> {
       draining: () => this.draining,
       halted: () => this.draining || this.stateValue === 'failed',
       fail: (error) => this.fail(error),
-      emit: (event, payload) => this.emit(event, payload),
+      emit: (event, payload) => this.events.emit(event, payload),
     };
     const maxPending = this.o.maxPendingDeadLetters;
     this.decodeSink = new Sink(
@@ -143,9 +137,12 @@ export class KafkaBridge<R> {
    * reads them again) and the promise rejects with `SPILLWAY_SHUTDOWN_TIMEOUT`.
    */
   stop(options: StopOptions = {}): Promise<void> {
-    const timeoutMs = options.timeoutMs ?? 25_000;
-    if (typeof timeoutMs !== 'number' || !Number.isFinite(timeoutMs) || timeoutMs <= 0)
-      return Promise.reject(invalidOption('timeoutMs', 'a finite number > 0', timeoutMs));
+    let timeoutMs: number;
+    try {
+      timeoutMs = positiveOption('timeoutMs', options.timeoutMs, 25_000);
+    } catch (error) {
+      return Promise.reject(error);
+    }
     this.stopping ??= this.doStop(timeoutMs);
     return this.stopping;
   }
@@ -219,12 +216,12 @@ export class KafkaBridge<R> {
   }
 
   on<E extends BridgeEventName>(event: E, listener: (payload: BridgeEvents[E]) => void): this {
-    this.events.on(event, listener as (p: unknown) => void);
+    this.events.on(event, listener);
     return this;
   }
 
   off<E extends BridgeEventName>(event: E, listener: (payload: BridgeEvents[E]) => void): this {
-    this.events.off(event, listener as (p: unknown) => void);
+    this.events.off(event, listener);
     return this;
   }
 
@@ -234,7 +231,7 @@ export class KafkaBridge<R> {
       c.on(c.events.GROUP_JOIN, (e) => {
         this.counts.rebalances++;
         const { memberId, memberAssignment } = e.payload;
-        this.emit('assign', this.assignment.join(memberId, memberAssignment, this.draining));
+        this.events.emit('assign', this.assignment.join(memberId, memberAssignment, this.draining));
       }),
       c.on(c.events.REBALANCING, () => {
         // No handler is running (all partitions idle or paused), so nothing can hold the group
@@ -324,11 +321,6 @@ export class KafkaBridge<R> {
     // Committing stays correct (a failed sink never settles its records); taking more does not.
     this.assignment.pauseAll();
     this.handoff.wakeAll();
-    this.emit('error', { error, fatal: true });
-  }
-
-  private emit<E extends BridgeEventName>(event: E, payload: BridgeEvents[E]): void {
-    if (event === 'error' && this.events.listenerCount('error') === 0) return;
-    this.events.emit(event, payload);
+    this.events.emit('error', { error, fatal: true });
   }
 }

@@ -5,6 +5,7 @@
  * protocol `type` first, then the kafkajs class name, then its `retriable` flag.
  */
 import { type ErrorClass, SpillwayError, StoreError } from '@spillway/core';
+import { isSocketError } from '@spillway/core/kit';
 
 /** Broker error types that mean one record (or the request built from it) is bad. */
 const RECORD_ERRORS: ReadonlySet<string> = new Set([
@@ -78,18 +79,6 @@ const FATAL_NAMES: ReadonlySet<string> = new Set([
   'KafkaJSUnsupportedMagicByteInMessageSet',
 ]);
 
-/** Node socket codes that mean the broker is unreachable right now. */
-const SOCKET_CODES: ReadonlySet<string> = new Set([
-  'ECONNREFUSED',
-  'ECONNRESET',
-  'EPIPE',
-  'ETIMEDOUT',
-  'EHOSTUNREACH',
-  'ENETUNREACH',
-  'ENOTFOUND',
-  'EAI_AGAIN',
-]);
-
 export interface KafkaClassifyOptions {
   /**
    * How to read UNKNOWN_TOPIC_OR_PARTITION once kafkajs has given up on it. With topic
@@ -159,8 +148,7 @@ export function classifyKafkaError(error: unknown, options: KafkaClassifyOptions
     if (typeof name === 'string' && (FATAL_NAMES.has(name) || name === 'KafkaJSSASLAuthenticationError'))
       return 'fatal';
     if (typeof name === 'string' && TRANSIENT_NAMES.has(name)) return 'retry';
-    const code = field(e, 'code');
-    if (typeof code === 'string' && SOCKET_CODES.has(code)) return 'retry';
+    if (isSocketError(field(e, 'code'))) return 'retry';
   }
   // A protocol error we have no entry for: trust the broker's own retriable flag.
   for (let i = chain.length - 1; i >= 0; i--) {

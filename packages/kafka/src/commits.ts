@@ -6,10 +6,11 @@
  * was planned in.
  */
 import { messageOf, StoreError } from '@spillway/core';
+import { partitionKey } from '@spillway/core/kit';
 import type { Consumer } from 'kafkajs';
 import type { BridgeControl } from './bridge-types.js';
 import { kafkaErrorType } from './classify.js';
-import { type PartitionState, partitionKey } from './partition.js';
+import type { PartitionState } from './partition.js';
 
 export interface PlannedCommit {
   readonly generation: number;

@@ -4,6 +4,7 @@
  * sink has no room for is held while the handler waits for room, and the partition pauses if the
  * room comes too late.
  */
+import { toOffset } from '@spillway/core/kit';
 import type { EachBatchPayload, KafkaMessage } from 'kafkajs';
 import type { Assignment } from './assignment.js';
 import type { BridgeControl } from './bridge-types.js';
@@ -138,7 +139,7 @@ export class Intake<R> {
     let offset = 0n;
     for (let i = from; i < to; i++) {
       const m = messages[i]!;
-      offset = parseOffset(m.offset);
+      offset = toOffset(m.offset);
       if (since !== undefined && offset < since) {
         // Redelivered after a rejoin: already taken (and buffered, in flight, or durable).
         this.control.counts.skippedRedeliveries++;
@@ -205,11 +206,6 @@ export class Intake<R> {
     this.control.counts.pauses++;
     this.control.emit('pause', { topic: st.topic, partition: st.partition, sink: waitingSink(st.hold) });
   }
-}
-
-/** Kafka offsets are decimal strings of up to 19 digits; up to 15 a double is exact and faster. */
-function parseOffset(offset: string): bigint {
-  return offset.length <= 15 ? BigInt(Number(offset)) : BigInt(offset);
 }
 
 function yieldToIo(): Promise<void> {

@@ -4,11 +4,7 @@
  * and the messages of a batch still waiting for room in a sink.
  */
 import type { RecordMeta, Sink } from '@spillway/core';
-
-/** `topic:partition`, the same key as core's `progressKey`. */
-export function partitionKey(topic: string, partition: number): string {
-  return `${topic}:${partition}`;
-}
+import { partitionKey } from '@spillway/core/kit';
 
 // Sinks of any record type: the bridge only calls tryWriteMany/flush/revoke and listens to events.
 // biome-ignore lint/suspicious/noExplicitAny: a route may mix sinks of different record types

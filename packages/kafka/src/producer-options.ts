@@ -2,7 +2,8 @@
  * Options of the Kafka producer sink adapter (`kafkaProducerAdapter()`), validated in the
  * constructor.
  */
-import { invalidOption, type RecordMeta } from '@spillway/core';
+import type { RecordMeta } from '@spillway/core';
+import { booleanOption, countOption, invalidOption, knownOptions } from '@spillway/core/kit';
 import type { CompressionTypes, IHeaders, Kafka, ProducerConfig } from 'kafkajs';
 
 /** What one record becomes on the topic. */
@@ -138,14 +139,7 @@ export function resolveKafkaProducerOptions<T>(
   options: KafkaProducerAdapterOptions<T>,
 ): ResolvedKafkaProducerOptions<T> {
   if (typeof options !== 'object' || options === null) throw invalidOption('options', 'an object', options);
-  for (const key of Object.keys(options)) {
-    if (!KNOWN.has(key))
-      throw invalidOption(
-        key,
-        `one of the known options (${[...KNOWN].join(', ')})`,
-        (options as unknown as Record<string, unknown>)[key],
-      );
-  }
+  knownOptions(options, KNOWN);
   const { kafka, topic, mapper } = options;
   if (
     typeof kafka !== 'object' ||
@@ -162,8 +156,7 @@ export function resolveKafkaProducerOptions<T>(
       'a function (record, meta) => { value, key?, headers?, partition?, timestamp?, topic? }',
       mapper,
     );
-  const idempotent = options.idempotent ?? true;
-  if (typeof idempotent !== 'boolean') throw invalidOption('idempotent', 'a boolean', idempotent);
+  const idempotent = booleanOption('idempotent', options.idempotent, true);
   const acks = options.acks ?? -1;
   if (acks !== -1 && acks !== 0 && acks !== 1) throw invalidOption('acks', '-1, 0 or 1', acks);
   if (idempotent && acks !== -1)
@@ -172,24 +165,13 @@ export function resolveKafkaProducerOptions<T>(
       '-1 with `idempotent: true` (the idempotent producer needs every in-sync replica)',
       acks,
     );
-  const ackTimeoutMs = options.ackTimeoutMs ?? 30_000;
-  if (!(Number.isInteger(ackTimeoutMs) && ackTimeoutMs > 0))
-    throw invalidOption('ackTimeoutMs', 'an integer > 0', ackTimeoutMs);
-  const maxRecordBytes = options.maxRecordBytes ?? 1_048_576;
-  if (
-    !(maxRecordBytes === Number.POSITIVE_INFINITY || (Number.isInteger(maxRecordBytes) && maxRecordBytes > 0))
-  ) {
-    throw invalidOption('maxRecordBytes', 'an integer > 0 or Infinity', maxRecordBytes);
-  }
-  const maxRequestBytes = options.maxRequestBytes ?? 1_048_576;
-  if (
-    !(
-      maxRequestBytes === Number.POSITIVE_INFINITY ||
-      (Number.isInteger(maxRequestBytes) && maxRequestBytes > 0)
-    )
-  ) {
-    throw invalidOption('maxRequestBytes', 'an integer > 0 or Infinity', maxRequestBytes);
-  }
+  const ackTimeoutMs = countOption('ackTimeoutMs', options.ackTimeoutMs, 30_000);
+  const maxRecordBytes = countOption('maxRecordBytes', options.maxRecordBytes, 1_048_576, {
+    allowInfinity: true,
+  });
+  const maxRequestBytes = countOption('maxRequestBytes', options.maxRequestBytes, 1_048_576, {
+    allowInfinity: true,
+  });
   const unknownTopic = options.unknownTopic ?? 'fatal';
   if (unknownTopic !== 'fatal' && unknownTopic !== 'retry')
     throw invalidOption('unknownTopic', "'fatal' or 'retry'", unknownTopic);

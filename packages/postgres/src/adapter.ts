@@ -1,7 +1,6 @@
 import {
   type Batch,
   type ErrorClass,
-  invalidOption,
   messageOf,
   type PartialWrite,
   type Prepared,
@@ -11,6 +10,7 @@ import {
   SpillwayError,
   StoreError,
 } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import type { PoolClient } from 'pg';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
 import { CopyChunks, copyLine, copyRow } from './copy-format.js';

@@ -14,8 +14,8 @@ import { qualifiedName } from './identifiers.js';
 export interface PartitionRange {
   readonly topic: string;
   readonly partition: number;
-  readonly first: bigint;
-  readonly next: bigint;
+  first: bigint;
+  next: bigint;
 }
 
 /** Ranges by `topic:partition`. */
@@ -50,13 +50,9 @@ export function rangesOf(metas: ReadonlyArray<RecordMeta | undefined>, indexes: 
     const r = ranges.get(key);
     if (r === undefined)
       ranges.set(key, { topic: c.topic, partition: c.partition, first: c.offset, next: c.offset + 1n });
-    else if (c.offset < r.first || c.offset >= r.next) {
-      ranges.set(key, {
-        topic: c.topic,
-        partition: c.partition,
-        first: c.offset < r.first ? c.offset : r.first,
-        next: c.offset >= r.next ? c.offset + 1n : r.next,
-      });
+    else {
+      if (c.offset < r.first) r.first = c.offset;
+      if (c.offset >= r.next) r.next = c.offset + 1n;
     }
   }
   return ranges;

@@ -135,7 +135,7 @@ export interface PostgresAdapterOptions<T> {
    * @default 1000
    * @example 5000
    */
-  readonly upsertViaCopyAbove?: number;
+  readonly upsertViaCopyAbove?: number | undefined;
   /**
    * Statement form of `insert` batches (and of `upsert` batches at or below `upsertViaCopyAbove`).
    * `values`: multi-row `INSERT … VALUES ($1, …), (…)`, split so that no statement binds more than

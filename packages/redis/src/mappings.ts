@@ -2,7 +2,8 @@
  * Ready-made mappings for the common shapes of live data in Redis. Each states whether it is
  * idempotent under replay (the same record written twice leaves the same data as once).
  */
-import { invalidOption, type RecordMeta } from '@spillway/core';
+import type { RecordMeta } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import type { RedisArg, RedisCommand, RedisMapping } from './commands.js';
 
 /** A value taken from the record (and its metadata). */

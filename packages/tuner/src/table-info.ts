@@ -159,3 +159,34 @@ export function copyLacks(t: TableInfo): string[] {
     );
   return out;
 }
+
+/** The upsert key: the one given (it must be a unique key of the table), else the primary key (or, without one, the first unique key). */
+export function resolveKey(info: TableInfo, given: string[] | undefined): string[] {
+  const keys = info.uniqueKeys;
+  const show = keys.map((k) => `(${k.join(', ')})`).join(', ') || 'none';
+  if (given === undefined || given.length === 0) {
+    const first = keys[0];
+    if (!first)
+      throw invalidOption(
+        'key',
+        `the conflict columns for upsert (${info.schema}.${info.name} has no unique key)`,
+        given,
+      );
+    return first;
+  }
+  const unknown = given.filter((k) => !info.columns.some((c) => c.name === k));
+  if (unknown.length > 0)
+    throw invalidOption(
+      'key',
+      `columns of ${info.schema}.${info.name} (no column ${unknown.map((k) => `"${k}"`).join(', ')})`,
+      given,
+    );
+  const same = (k: string[]) => k.length === given.length && k.every((c) => given.includes(c));
+  if (!keys.some(same))
+    throw invalidOption(
+      'key',
+      `the columns of a unique index or primary key of ${info.schema}.${info.name}: ${show}`,
+      given,
+    );
+  return given;
+}

@@ -1,5 +1,6 @@
 // What a table tune prints: the setup, the table of trials, the recommendation with its
 // validation, and a paste-ready options object; and the chart of p99 against store cost.
+import type { Settings } from './cell-spec.js';
 import { scatterSvg } from './chart-svg.js';
 import { byCost, type RankedTrial } from './table-search.js';
 import type { TableTuneOutcome } from './tune-table.js';
@@ -8,7 +9,7 @@ const n0 = (v: number) => Math.round(v).toLocaleString('en-US');
 const us = (ms: number) => (ms * 1000).toFixed(1);
 
 /** `maxRecords 500, maxAgeMs 25, idleMs 25, concurrency 1` */
-export function settingsText(t: RankedTrial): string {
+export function settingsText(t: { settings: Settings }): string {
   const s = t.settings;
   return `maxRecords ${s.maxRecords}, maxAgeMs ${s.maxAgeMs}, idleMs ${s.idleMs}, concurrency ${s.concurrency}`;
 }
@@ -126,15 +127,21 @@ export function formatTableTune(o: TableTuneOutcome): string {
       `Recommended: ${settingsText(best)}`,
       `  p99 ${best.p99Ms.toFixed(1)} ms (aim ≤ ${o.target.aimMs} ms), ${n0(best.throughput)} records/s, ${n0(best.writesPerSecond)} writes/s, ${us(best.storeMsPerRecord)} µs of store time per record, estimated ceiling ${n0(best.ceiling)} records/s.`,
     );
-    const v = o.validation;
-    if (v) {
+    for (const v of o.validations ?? []) {
       const t = v.trial;
+      const s = t.settings;
       out.push(
         '',
-        `Validation: ${(v.durationMs / 1000).toFixed(0)} s at ${n0(o.load.rate)} records/s on the copy — ${v.holds ? 'the advice holds' : `the advice did NOT hold: ${v.why.join('; ')}`}.`,
+        `Validation: ${(v.durationMs / 1000).toFixed(0)} s at ${n0(o.load.rate)} records/s on the copy, maxRecords ${s.maxRecords}, maxAgeMs ${s.maxAgeMs}, idleMs ${s.idleMs}, concurrency ${s.concurrency} — ${v.holds ? 'the advice holds' : `did NOT hold: ${v.why.join('; ')}`}.`,
         `  p99 ${t.p99Ms.toFixed(1)} ms (target ${o.target.p99Ms} ms) · ${n0(t.throughput)} records/s durable (offered ${n0(t.offeredRate)}) · ${t.stuck} stuck · ${t.deadLettered} refused · ${us(t.storeMsPerRecord)} µs store time per record`,
       );
     }
+    const first = o.validations?.[0];
+    if (first && !first.holds && o.validation?.holds)
+      out.push(
+        '',
+        `The cheapest setting that met the aim (${settingsText(first.trial)}) missed the target in its validation run; the recommendation is the next cheapest with a lower p99, which held.`,
+      );
     out.push('', 'Options to paste:', '', optionsSnippet(o));
   } else {
     out.push(

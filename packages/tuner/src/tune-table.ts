@@ -4,9 +4,10 @@ import { invalidOption, SpillwayError } from '@spillway/core';
 import type pg from 'pg';
 import type { Settings } from './cell-spec.js';
 import { round } from './numbers.js';
+import { prefillScratch } from './prefill.js';
 import type { ScratchTable } from './scratch.js';
 import { SHAPES } from './shapes.js';
-import { copyLacks, type TableInfo } from './table-info.js';
+import { copyLacks, resolveKey, type TableInfo } from './table-info.js';
 import { recordedRate, type TableLoad, type TableShape, tableArrivals } from './table-load.js';
 import type { RecordCycle, RecordSet, TableRow, VariedColumn } from './table-records.js';
 import {
@@ -23,6 +24,19 @@ import {
 import type { TableTrial } from './table-trial.js';
 
 export type TableMode = 'insert' | 'copy' | 'upsert';
+
+export interface Validation {
+  durationMs: number;
+  trial: TableTrial & { scheduled: number };
+  holds: boolean;
+  why: string[];
+}
+
+const sameSettings = (a: Settings, b: Settings) =>
+  a.maxRecords === b.maxRecords &&
+  a.maxAgeMs === b.maxAgeMs &&
+  a.idleMs === b.idleMs &&
+  a.concurrency === b.concurrency;
 
 export interface TableTuneOptions {
   /** postgres://… of the server that holds the table. */
@@ -51,6 +65,8 @@ export interface TableTuneOptions {
   trialMs?: number;
   /** Length of the validation run, ms; 0 skips it. @default 10000 */
   validateMs?: number;
+  /** Validation runs at most: when one misses the target, the next cheapest setting with a lower p99 is run. @default 2 */
+  validateAttempts?: number;
   /** Rows written into the copy before measuring. @default 0 */
   prefill?: number;
   /** Highest concurrency tried. @default 4 */
@@ -65,7 +81,7 @@ export type TuneTableEvent =
   | { kind: 'plan'; trials: number; estimateMs: number; validateMs: number }
   | { kind: 'note'; text: string }
   | { kind: 'trial'; done: number; total: number; trial: TableTrial; round: 1 | 2 }
-  | { kind: 'validate'; durationMs: number };
+  | { kind: 'validate'; durationMs: number; settings: Settings };
 
 export interface TableTuneOutcome {
   table: string;
@@ -93,7 +109,10 @@ export interface TableTuneOutcome {
   writeCost: WriteCost;
   trials: RankedTrial[];
   recommended?: RankedTrial;
-  validation?: { durationMs: number; trial: TableTrial; holds: boolean; why: string[] };
+  /** The last validation run: of `recommended`. */
+  validation?: Validation;
+  /** Every validation run, in order: a pick that missed, then the next cheapest with a lower p99. */
+  validations?: Validation[];
   elapsedMs: number;
 }
 
@@ -121,6 +140,7 @@ function check(o: TableTuneOptions): void {
   positive('budgetMs', o.budgetMs);
   positive('validateMs', o.validateMs, 0, true);
   positive('prefill', o.prefill, 0, true);
+  positive('validateAttempts', o.validateAttempts, 1, true);
   positive('maxConcurrency', o.maxConcurrency, 1, true);
   if (o.headroom !== undefined && !(o.headroom >= 0 && o.headroom < 1))
     throw invalidOption('headroom', 'a fraction in [0, 1)', o.headroom);
@@ -145,6 +165,7 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
   const headroom = o.headroom ?? 0.25;
   const trialMs = o.trialMs ?? 2000;
   const validateMs = o.validateMs ?? 10_000;
+  const validateAttempts = Math.floor(o.validateAttempts ?? 2);
   const budgetMs = o.budgetMs ?? 60_000;
   const maxConcurrency = Math.floor(o.maxConcurrency ?? 4);
   const prefill = Math.floor(o.prefill ?? 0);
@@ -250,31 +271,21 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
       map: (r) => r,
     });
 
+    let prefilled = 0;
     if (prefill > 0) {
       note(`Prefilling the copy with ${prefill.toLocaleString('en-US')} rows …`);
-      const fill = postgresAdapter<TableRow>({
+      prefilled = await prefillScratch(
         pool,
-        schema: scratch.schema,
-        table: scratch.table,
-        columns: set.columns,
-        mode: 'copy',
-        map: (r) => r,
-      });
-      for (let done = 0; done < prefill; ) {
-        halt();
-        const n = Math.min(10_000, prefill - done);
-        const rows = Array.from({ length: n }, () => cycle.next());
-        await fill.write({
-          id: 0,
-          reason: 'manual',
-          attempt: 1,
-          records: rows,
-          metas: rows.map(() => undefined),
-          bytes: 0,
-        });
-        done += n;
-      }
-      await pool.query(`ANALYZE ${scratch.qualified}`);
+        scratch,
+        set,
+        new records.RecordCycle(set, info, { mode: 'insert' }),
+        prefill,
+        halt,
+      );
+      if (prefilled < prefill)
+        note(
+          `Prefilled ${prefilled.toLocaleString('en-US')} rows, not ${prefill.toLocaleString('en-US')}: the rows make no more distinct unique keys.`,
+        );
     }
     const reset = async () => {
       if (prefill === 0) await scratch!.truncate();
@@ -361,22 +372,40 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
     }
     const writeCost = fitWriteCost(done.map((t) => t.sums));
     ranked = judge(done, writeCost, target);
-    const best = recommend(ranked);
+    let best = recommend(ranked);
 
-    let validation: TableTuneOutcome['validation'];
+    // The validation: the pick once more, for longer. When it misses, the next cheapest setting
+    // that met the aim with a lower p99 gets its own run, up to `validateAttempts` runs in all.
+    const validations: Validation[] = [];
     if (best && validateMs > 0) {
-      halt();
-      o.onProgress?.({ kind: 'validate', durationMs: validateMs });
-      const v = await trial(best.settings, validateMs, 7777);
-      halt();
-      const why: string[] = [];
-      if (v.p99Ms > o.p99Ms) why.push(`p99 ${v.p99Ms} ms > target ${o.p99Ms} ms`);
-      if (v.stuck > 0) why.push(`${v.stuck} record(s) not durable after the grace period`);
-      if (v.deadLettered > 0) why.push(`${v.deadLettered} record(s) refused by the store`);
-      if (v.offered < 0.95 * v.scheduled)
-        why.push(`held the load back (${v.offered} of ${v.scheduled} offered)`);
-      validation = { durationMs: validateMs, trial: v, holds: why.length === 0, why };
+      let candidate: RankedTrial | undefined = best;
+      while (candidate && validations.length < validateAttempts) {
+        halt();
+        await reset();
+        o.onProgress?.({ kind: 'validate', durationMs: validateMs, settings: candidate.settings });
+        const v = await trial(candidate.settings, validateMs, 7777 + validations.length);
+        halt();
+        const why: string[] = [];
+        if (v.p99Ms > o.p99Ms) why.push(`p99 ${v.p99Ms} ms > target ${o.p99Ms} ms`);
+        if (v.stuck > 0) why.push(`${v.stuck} record(s) not durable after the grace period`);
+        if (v.deadLettered > 0) why.push(`${v.deadLettered} record(s) refused by the store`);
+        if (v.offered < 0.95 * v.scheduled)
+          why.push(`held the load back (${v.offered} of ${v.scheduled} offered)`);
+        validations.push({ durationMs: validateMs, trial: v, holds: why.length === 0, why });
+        best = candidate;
+        if (why.length === 0) break;
+        const missed: RankedTrial = candidate;
+        candidate = ranked
+          .filter(
+            (t) =>
+              t.meets &&
+              t.p99Ms < missed.p99Ms &&
+              !validations.some((w) => sameSettings(w.trial.settings, t.settings)),
+          )
+          .sort(byCost)[0];
+      }
     }
+    const validation = validations[validations.length - 1];
     return {
       table: `${info.schema}.${info.name}`,
       scratch: scratch.qualified.replace(/"/g, ''),
@@ -395,7 +424,7 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
       },
       lacks,
       reseeded: scratch.reseeded,
-      prefilled: prefill,
+      prefilled,
       load: { shape, rate: round(rate, 1), trialMs },
       target: { p99Ms: o.p99Ms, headroom, aimMs: round(o.p99Ms * (1 - headroom), 1) },
       writeCost: {
@@ -405,7 +434,7 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
       },
       trials: ranked,
       ...(best ? { recommended: best } : {}),
-      ...(validation ? { validation } : {}),
+      ...(validation ? { validation, validations } : {}),
       elapsedMs: Math.round(performance.now() - started),
     };
   } finally {
@@ -418,35 +447,4 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
       process.off('SIGTERM', onSignal);
     }
   }
-}
-
-/** The upsert key: the one given (it must be a unique key of the table), else the primary key. */
-function resolveKey(info: TableInfo, given: string[] | undefined): string[] {
-  const keys = info.uniqueKeys;
-  const show = keys.map((k) => `(${k.join(', ')})`).join(', ') || 'none';
-  if (given === undefined || given.length === 0) {
-    const first = keys[0];
-    if (!first)
-      throw invalidOption(
-        'key',
-        `the conflict columns for upsert (${info.schema}.${info.name} has no unique key)`,
-        given,
-      );
-    return first;
-  }
-  const unknown = given.filter((k) => !info.columns.some((c) => c.name === k));
-  if (unknown.length > 0)
-    throw invalidOption(
-      'key',
-      `columns of ${info.schema}.${info.name} (no column ${unknown.map((k) => `"${k}"`).join(', ')})`,
-      given,
-    );
-  const same = (k: string[]) => k.length === given.length && k.every((c) => given.includes(c));
-  if (!keys.some(same))
-    throw invalidOption(
-      'key',
-      `the columns of a unique index or primary key of ${info.schema}.${info.name}: ${show}`,
-      given,
-    );
-  return given;
 }

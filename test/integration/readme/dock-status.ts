@@ -3,10 +3,10 @@
 import { existsSync, mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { services, sleep, withSchema } from '../../harness/index.js';
+import { services, withSchema } from '../../harness/index.js';
 import { fencedBlocks, readmeBlocks } from './blocks.js';
 import { type Program, program } from './project.js';
-import { describeRun, type RunResult, startProgram } from './run.js';
+import { type RunResult, startProgram, whileRunning } from './run.js';
 
 export const blocks = readmeBlocks();
 
@@ -69,20 +69,12 @@ export async function runDockStatus(
     };
     if (options.limit !== undefined) env.DOCK_FEED_LIMIT = String(options.limit);
     const run = startProgram(js, { cwd: dir, env });
-    let exited = false;
-    void run.done.then(() => {
-      exited = true;
-    });
     if (options.signal) {
-      const deadline = Date.now() + 120_000;
-      for (;;) {
-        if (exited)
-          throw new Error(`the program ended before any row landed: ${describeRun(await run.done)}`);
-        if (Date.now() > deadline) throw new Error('no row landed within 120 s');
+      const afterRows = options.afterRows ?? 1;
+      await whileRunning(run, `${afterRows} rows in the table`, async () => {
         const { rows } = await schema.pool.query<{ n: number }>('SELECT count(*)::int AS n FROM dock_status');
-        if (rows[0]!.n >= (options.afterRows ?? 1)) break;
-        await sleep(50);
-      }
+        return rows[0]!.n >= afterRows;
+      });
       run.child.kill(options.signal);
     }
     const result = await run.done;

@@ -120,6 +120,17 @@ export async function compile(
   return diagnostics;
 }
 
+/** A project with `programs` compiled to JavaScript (types are the compile test's business). */
+export async function compiledProject(programs: readonly Program[]): Promise<ReadmeProject> {
+  const project = createProject(programs);
+  const diagnostics = await compile(project, programs, 'emitOnly');
+  if (diagnostics.length > 0) {
+    project.remove();
+    throw new Error(diagnostics.map((d) => `${d.at}: ${d.message}`).join('\n'));
+  }
+  return project;
+}
+
 /**
  * The programs import the built packages, as users do: refuse to test a dist/ older than its
  * sources (`npm test` builds first; a targeted run needs `npm run build`).

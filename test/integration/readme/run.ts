@@ -3,6 +3,7 @@
 // 'exit' listener prints the sink's counters as the process ends, so that the test can compare
 // the store's contents with what the library took in.
 import { type ChildProcess, spawn } from 'node:child_process';
+import { setTimeout as sleep } from 'node:timers/promises';
 import type { Program } from './project.js';
 
 /** The counters the preamble prints at exit. */
@@ -92,6 +93,26 @@ export function startProgram(js: string, options: { cwd: string; env: Record<str
     });
   });
   return { child, done };
+}
+
+/**
+ * Polls `reached` until it is true; fails if the program exits first or `timeoutMs` passes. Used
+ * to send a signal once the program is mid-stream (its first rows are in the store).
+ */
+export async function whileRunning(
+  run: Run,
+  what: string,
+  reached: () => Promise<boolean>,
+  timeoutMs = 120_000,
+): Promise<void> {
+  const deadline = Date.now() + timeoutMs;
+  for (;;) {
+    if (run.child.exitCode !== null || run.child.signalCode !== null)
+      throw new Error(`the program ended before ${what}: ${describeRun(await run.done)}`);
+    if (Date.now() > deadline) throw new Error(`no ${what} within ${timeoutMs / 1000} s`);
+    if (await reached()) return;
+    await sleep(50);
+  }
 }
 
 /** What to show when a run did not end as expected. */

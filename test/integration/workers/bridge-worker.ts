@@ -43,7 +43,12 @@ const shutdown = installShutdown({
   timeoutMs: 20_000,
   log: (line) => process.stderr.write(`[${config.label}] ${line}\n`),
 });
-const pool = new pg.Pool({ connectionString: config.pgUrl, max: config.tables.length + 1 });
+// Named after the worker, so that a test can see when the server has ended its sessions.
+const pool = new pg.Pool({
+  connectionString: config.pgUrl,
+  max: config.tables.length + 1,
+  application_name: config.label,
+});
 pool.on('error', () => undefined);
 
 const adapters = config.tables.map(({ table, mode }) =>

@@ -60,6 +60,24 @@ export function groupChecks(kafka: TestKafka, schema: TestSchema, producer: Prod
       );
     },
 
+    /**
+     * Waits until the server has ended every session of a killed worker (its `application_name`
+     * is the worker's label): a transaction it had fully received may still commit until then.
+     */
+    async sessionsGone(label: string): Promise<void> {
+      await waitFor(
+        `the sessions of ${label} to end`,
+        async () => {
+          const { rows } = await schema.pool.query<{ n: string }>(
+            'SELECT count(*) AS n FROM pg_stat_activity WHERE application_name = $1',
+            [label],
+          );
+          return Number(rows[0]!.n) === 0 ? true : undefined;
+        },
+        { timeoutMs: 60_000, intervalMs: 50 },
+      );
+    },
+
     /** Rows, distinct `seq` values, and the smallest and largest `seq` of a dock table. */
     async counts(table: string): Promise<RowCounts> {
       const { rows } = await schema.pool.query<{

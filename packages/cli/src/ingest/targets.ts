@@ -65,7 +65,12 @@ export async function openTarget(
         table: flags.table,
         ...(flags.pgSchema && { schema: flags.pgSchema }),
         columns,
-        map: (r) => columns.map((c) => r[c]),
+        map: (r) => {
+          // A plain loop: this runs twice per row (size estimate, then the write).
+          const values = new Array<unknown>(columns.length);
+          for (let i = 0; i < columns.length; i++) values[i] = r[columns[i]!];
+          return values;
+        },
         mode,
         ...(keys && { conflict: { key: keys } }),
       });
