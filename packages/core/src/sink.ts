@@ -22,7 +22,7 @@ import {
   SinkFailedError,
   type SpillwayError,
 } from './errors.js';
-import { type ExitFlushable, ExitHold } from './exit-net.js';
+import { type ExitFlushable, ExitHold, reportLossAtExit } from './exit-net.js';
 import { invalidOption, numberOption } from './option-checks.js';
 import {
   type CloseOptions,
@@ -325,7 +325,14 @@ export class Sink<T> implements ExitFlushable {
     const refused = new SinkFailedError(this.name, error);
     this.admission.rejectAll(refused);
     this.settlement.rejectAll(refused);
+    const failureCode = refused.driverCode ?? refused.code;
+    reportLossAtExit({ name: this.name, failureCode, unwritten: () => this.unwritten() });
     this.events.emit('error', { sink: this.name, error });
+  }
+
+  private unwritten(): number {
+    const p = this.pending();
+    return p.buffered + p.inFlight;
   }
 
   private readonly settle: Settlement<T>['settle'] = (batch, entries, outcome) =>
