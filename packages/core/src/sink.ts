@@ -31,7 +31,7 @@ import {
   type SinkOptions,
   type WriteOptions,
 } from './options.js';
-import { ProgressTracker, partitionKey } from './progress.js';
+import { ProgressTracker } from './progress.js';
 import { TypedEmitter } from './typed-emitter.js';
 import type {
   FlushReason,
@@ -48,11 +48,6 @@ import type {
 const PARKED = new Promise<void>(() => {});
 const PARK = Symbol('park');
 const ALL = () => true;
-
-/** @deprecated the progress key of a record's source partition: use `partitionKey()` from the kit. */
-export function progressKey(meta: RecordMeta): string {
-  return partitionKey(meta.topic, meta.partition);
-}
 
 /**
  * A buffered sink: accepts records one at a time and writes them to its adapter in batches that
