@@ -174,9 +174,10 @@ describe('spillway tune --table', () => {
     expect(outcome.load).toMatchObject({ shape: 'replay', rate: 400 });
     expect(outcome.prefilled).toBe(2000);
     expect(r.err).toContain('Prefilling the copy with 2,000 rows');
-    // About 200 records in each half-second trial, landing on the 150 keys the prefill wrote.
+    // About 200 records in each half-second trial (fewer when the machine is slow to start a
+    // trial), landing on the 150 keys the prefill wrote.
     for (const t of outcome.trials) {
-      expect(t.offered).toBeGreaterThan(150);
+      expect(t.offered).toBeGreaterThan(100);
       expect(t.offered).toBeLessThan(260);
       expect(t.deadLettered).toBe(0);
     }
