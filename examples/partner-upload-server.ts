@@ -257,7 +257,7 @@ if (import.meta.url === pathToFileURL(process.argv[1] ?? '').href) {
   await pool.query(SERVICE_RECORDS_DDL);
   const { server, close } = createUploadServer({
     pool,
-    rejectsDir: process.env.REJECTS_DIR,
+    ...(process.env.REJECTS_DIR && { rejectsDir: process.env.REJECTS_DIR }),
     log: (l) => console.log(l),
   });
   const port = Number(process.env.PORT ?? 8080);

@@ -691,7 +691,7 @@ describe('KafkaBridge', () => {
     expect(() => new KafkaBridge({ ...base, pauseAfterMs: 0 })).not.toThrow();
     expect(() => new KafkaBridge({ ...base, topics: [] })).toThrow(/`topics`/);
     expect(() => new KafkaBridge({ ...base, deadLetter: undefined as never })).toThrow(/`deadLetter`/);
-    expect(() => new KafkaBridge({ ...base, consumer: undefined })).toThrow(/`kafka`/);
+    expect(() => new KafkaBridge({ ...base, consumer: undefined as never })).toThrow(/`kafka`/);
     expect(() => new KafkaBridge({ ...base, colour: 'red' } as never)).toThrow(TypeError);
     const sink = new Sink(new GatedAdapter());
     const store: OffsetStore = { storedOffsets: async () => [] };

@@ -7,12 +7,19 @@ import { classifyKafkaError, kafkaErrorType } from '../src/classify.js';
 // (kafkajs 2.2.4, src/errors.js and src/protocol/error.js), the way its producer raises them.
 const {
   KafkaJSProtocolError,
-  KafkaJSNonRetriableError,
   KafkaJSNumberOfRetriesExceeded,
   KafkaJSConnectionError,
   KafkaJSRequestTimeoutError,
-  KafkaJSSASLAuthenticationError,
 } = kafkajs;
+// kafkajs' type declarations leave out arguments its constructors take (src/errors.js): the
+// NonRetriable error's options with its cause, and the SASL error's message.
+const KafkaJSNonRetriableError = kafkajs.KafkaJSNonRetriableError as unknown as new (
+  error: Error,
+  options: { cause: Error },
+) => Error;
+const KafkaJSSASLAuthenticationError = kafkajs.KafkaJSSASLAuthenticationError as unknown as new (
+  message: string,
+) => Error;
 
 function protocol(type: string, retriable: boolean, code = 0): InstanceType<typeof KafkaJSProtocolError> {
   return new KafkaJSProtocolError({ type, code, retriable, message: type } as never);
