@@ -225,11 +225,14 @@ describe('the Kafka producer sink on a three-broker cluster', () => {
     expect(r.written).toBe(SINK_RECORDS);
     expect(r.missing).toBe(0);
     expect(r.afterKillOnPartition0).toBeGreaterThan(0);
-    // At least once, not exactly once: when the request to the dead leader fails past kafkajs'
-    // own retries, sendBatch rejects as a whole although the other brokers appended their
-    // partitions' records, and the engine retries the whole batch. Those records get new
-    // sequence numbers and are written again. Each retried batch adds at most its own records.
-    expect(r.duplicates).toBeLessThanOrEqual(r.retries * SINK_BATCH);
+    // At least once, not exactly once, on the surviving partitions: kafkajs 2.2.4 retries a
+    // sendBatch after the first failed broker request while the other brokers' requests are still
+    // in flight, and sends those again with new sequence numbers (producer/sendMessages.js: a
+    // broker without a response yet is resent), so the broker appends them twice (627 copies with
+    // 0 sink retries in one run). And when the request to the dead leader fails past kafkajs' own
+    // retries, the engine retries the whole batch. Each of these copies at most one batch: the
+    // one in flight at the kill, and each batch the sink retried.
+    expect(r.duplicates).toBeLessThanOrEqual((r.retries + 1) * SINK_BATCH);
     // The dead leader's own partition is retried with the same sequence numbers: no copy there.
     expect(r.duplicatesPerPartition[0]).toBe(0);
   });
