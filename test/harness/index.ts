@@ -121,10 +121,17 @@ export async function deleteRedisPrefix(redis: Redis, prefix: string): Promise<n
 }
 
 /** A connection to the shared Redis and a unique key prefix. Call `drop()` in afterAll. */
-export async function withRedis(prefix = 'spw', options: RedisOptions = {}): Promise<TestRedis> {
+// ioredis 6 declares `replyMapping` without `| undefined` in its constructor, unlike RedisOptions,
+// so under exactOptionalPropertyTypes a RedisOptions value only fits without that key.
+export async function withRedis(
+  prefix = 'spw',
+  options: Omit<RedisOptions, 'replyMapping'> = {},
+): Promise<TestRedis> {
   const { redisUrl } = services();
   const keyPrefix = redisPrefix(prefix);
-  const redis = new Redis(redisUrl, { lazyConnect: true, ...options });
+  // ioredis 6 types a RedisOptions field as `T | undefined` where its constructor takes `T`, which
+  // exactOptionalPropertyTypes tells apart; the options object is handed on as it is.
+  const redis = new Redis(redisUrl, { lazyConnect: true, ...(options as object) });
   await redis.connect();
   return {
     prefix: keyPrefix,

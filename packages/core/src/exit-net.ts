@@ -44,3 +44,40 @@ export class ExitHold {
     holding.delete(this.sink);
   }
 }
+
+/** What the exit report needs of a sink that stopped on a fatal error. */
+export interface FailedSink {
+  readonly name: string;
+  /** Accepted records that are neither durable nor dead-lettered. */
+  unwritten(): number;
+  /** The stable code of the fatal error (its driver code when it has one). */
+  readonly failureCode: string;
+}
+
+const failed = new Set<FailedSink>();
+let reporting = false;
+
+function onExit(): void {
+  for (const sink of failed) {
+    const n = sink.unwritten();
+    if (n === 0) continue;
+    // Never record contents: the sink's name, the error's code and a count.
+    process.stderr.write(
+      `spillway: sink "${sink.name}" stopped after a fatal error (${sink.failureCode}) with ${n} accepted record(s) not written\n`,
+    );
+    if (!process.exitCode) process.exitCode = 1;
+  }
+}
+
+/**
+ * A sink that failed for good may still hold accepted records, which will never be written. If the
+ * process ends with any of them, it says so on stderr and exits 1 instead of 0: an end of input
+ * followed by a store that refuses everything must not look like success.
+ */
+export function reportLossAtExit(sink: FailedSink): void {
+  failed.add(sink);
+  if (!reporting) {
+    reporting = true;
+    process.on('exit', onExit);
+  }
+}

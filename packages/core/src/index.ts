@@ -18,14 +18,7 @@ export {
   SpillwayError,
   StoreError,
 } from './errors.js';
-/** @deprecated import from `@spillway/core/testing` */
-export { ManualClock } from './manual-clock.js';
-// Kept at the root for one step, until the ingest, kafka and cli packages, the benchmarks and the
-// integration tests import them from their new homes; then removed.
-/** @deprecated import from `@spillway/core/kit` */
-export { Histogram } from './metrics.js';
-/** @deprecated import from `@spillway/core/kit` */
-export { InvalidOptionError, invalidOption } from './option-checks.js';
+export { InvalidOptionError } from './option-checks.js';
 export type { CloseOptions, ResolvedOptions, RetryOptions, SinkOptions, WriteOptions } from './options.js';
 export { DEFAULTS, defaultOrderingKey } from './options.js';
 export { ProgressTracker } from './progress.js';
@@ -38,10 +31,7 @@ export type {
   StepContext,
 } from './shutdown.js';
 export { installShutdown, SHUTDOWN_STAGES, ShutdownCoordinator } from './shutdown.js';
-/** @deprecated import `partitionKey` from `@spillway/core/kit` */
-export { progressKey, Sink } from './sink.js';
-/** @deprecated import from `@spillway/core/kit` */
-export { estimateJsonBytes } from './size.js';
+export { Sink } from './sink.js';
 export type {
   Batch,
   DeadLetter,

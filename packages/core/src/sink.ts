@@ -22,7 +22,7 @@ import {
   SinkFailedError,
   type SpillwayError,
 } from './errors.js';
-import { type ExitFlushable, ExitHold } from './exit-net.js';
+import { type ExitFlushable, ExitHold, reportLossAtExit } from './exit-net.js';
 import { invalidOption, numberOption } from './option-checks.js';
 import {
   type CloseOptions,
@@ -31,7 +31,7 @@ import {
   type SinkOptions,
   type WriteOptions,
 } from './options.js';
-import { ProgressTracker, partitionKey } from './progress.js';
+import { ProgressTracker } from './progress.js';
 import { TypedEmitter } from './typed-emitter.js';
 import type {
   FlushReason,
@@ -48,11 +48,6 @@ import type {
 const PARKED = new Promise<void>(() => {});
 const PARK = Symbol('park');
 const ALL = () => true;
-
-/** @deprecated the progress key of a record's source partition: use `partitionKey()` from the kit. */
-export function progressKey(meta: RecordMeta): string {
-  return partitionKey(meta.topic, meta.partition);
-}
 
 /**
  * A buffered sink: accepts records one at a time and writes them to its adapter in batches that
@@ -325,7 +320,14 @@ export class Sink<T> implements ExitFlushable {
     const refused = new SinkFailedError(this.name, error);
     this.admission.rejectAll(refused);
     this.settlement.rejectAll(refused);
+    const failureCode = refused.driverCode ?? refused.code;
+    reportLossAtExit({ name: this.name, failureCode, unwritten: () => this.unwritten() });
     this.events.emit('error', { sink: this.name, error });
+  }
+
+  private unwritten(): number {
+    const p = this.pending();
+    return p.buffered + p.inFlight;
   }
 
   private readonly settle: Settlement<T>['settle'] = (batch, entries, outcome) =>

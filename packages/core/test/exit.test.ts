@@ -56,6 +56,15 @@ describe('a program that never calls close()', () => {
     expect(lastJson(stdout)).toMatchObject({ stored: 3, timersAfterDrain: 0 });
   });
 
+  it('says on stderr how many records a fatal store error left unwritten and exits 1, not 0', async () => {
+    const { code, stdout, stderr } = await run(exitChild, { SCENARIO: 'fatal' });
+    expect(code).toBe(1);
+    expect(lastJson(stdout)).toMatchObject({ accepted: 3, stored: 0 });
+    expect(stderr).toContain(
+      'stopped after a fatal error (SPILLWAY_SINK_FAILED) with 3 accepted record(s) not written',
+    );
+  });
+
   it('flushes at once on beforeExit when its clock lets the event loop empty with records buffered', async () => {
     const { code, stdout } = await run(exitChild, { SCENARIO: 'unref-clock' });
     expect(code).toBe(0);

@@ -2,8 +2,8 @@ import { createReadStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
-import { messageOf, progressKey, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
-import { invalidOption } from '@spillway/core/kit';
+import { messageOf, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
+import { invalidOption, partitionKey } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
@@ -349,7 +349,7 @@ async function run<T>(
     }
   }
   run.release();
-  sink.progress.forget(progressKey({ topic: source, partition: runId }));
+  sink.progress.forget(partitionKey(source, runId));
   if (o.ownsRejects) {
     try {
       await o.rejects?.close?.();

@@ -155,6 +155,7 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
     await producer.disconnect().catch(() => undefined);
   }
 
+  // biome-ignore lint/suspicious/noConfusingVoidType: matches SinkAdapter.write
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
     const { mapper, maxRecordBytes, maxRequestBytes } = this.o;
     const rejected: Array<{ index: number; error: unknown }> = [];

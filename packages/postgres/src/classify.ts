@@ -4,6 +4,7 @@
  * no SQLSTATE, by the socket's errno code or pg's message.
  */
 import { type ErrorClass, SpillwayError } from '@spillway/core';
+import { SOCKET_ERROR_CODES } from '@spillway/core/kit';
 
 /** Exact SQLSTATEs whose reading differs from their class's. */
 const BY_CODE: Readonly<Record<string, ErrorClass>> = {
@@ -44,21 +45,6 @@ const BY_CLASS: Readonly<Record<string, ErrorClass>> = {
   '0A': 'fatal', // feature_not_supported
 };
 
-/** Socket errno codes of a connection that failed or dropped. */
-const CONNECTION_ERRNOS: ReadonlySet<string> = new Set([
-  'ECONNRESET',
-  'ECONNREFUSED',
-  'ECONNABORTED',
-  'EPIPE',
-  'ETIMEDOUT',
-  'EHOSTUNREACH',
-  'EHOSTDOWN',
-  'ENETUNREACH',
-  'ENETDOWN',
-  'ENOTFOUND',
-  'EAI_AGAIN',
-]);
-
 /** pg's own messages for a connection that is gone (these errors carry no code). */
 const CONNECTION_MESSAGES =
   /Connection terminated|not queryable|timeout exceeded when trying to connect|Query read timeout|connection timeout|socket hang up|Connection closed/i;
@@ -69,7 +55,7 @@ const SQLSTATE = /^[0-9A-Z]{5}$/;
 export function sqlstateOf(error: unknown): string | undefined {
   if (typeof error !== 'object' || error === null) return undefined;
   const code = (error as { code?: unknown }).code;
-  if (typeof code !== 'string' || !SQLSTATE.test(code) || CONNECTION_ERRNOS.has(code)) return undefined;
+  if (typeof code !== 'string' || !SQLSTATE.test(code) || SOCKET_ERROR_CODES.has(code)) return undefined;
   return code;
 }
 
@@ -83,7 +69,7 @@ export function isConnectionError(error: unknown): boolean {
   if (typeof error !== 'object' || error === null) return false;
   const code = (error as { code?: unknown }).code;
   if (typeof code === 'string') {
-    if (CONNECTION_ERRNOS.has(code)) return true;
+    if (SOCKET_ERROR_CODES.has(code)) return true;
     if (SQLSTATE.test(code)) {
       // Class 08 and the shutdown codes end the session on the server's side.
       return (

@@ -54,6 +54,7 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
     return this.o.mapping;
   }
 
+  // biome-ignore lint/suspicious/noConfusingVoidType: matches SinkAdapter.write
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
     const { mapping } = this.o;
     const commands: RedisCommand[] = [];

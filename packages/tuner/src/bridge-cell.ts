@@ -1,7 +1,8 @@
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { FLUSH_REASONS, type FlushReason, fileDeadLetter, Histogram, Sink } from '@spillway/core';
+import { FLUSH_REASONS, type FlushReason, fileDeadLetter, Sink } from '@spillway/core';
+import { Histogram } from '@spillway/core/kit';
 import { KafkaBridge } from '@spillway/kafka';
 import { Kafka, logLevel, type Message } from 'kafkajs';
 import type { CellResult } from './cell-result.js';

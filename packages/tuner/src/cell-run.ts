@@ -1,4 +1,5 @@
-import { estimateJsonBytes, Sink, type SinkAdapter } from '@spillway/core';
+import { Sink, type SinkAdapter } from '@spillway/core';
+import { estimateJsonBytes } from '@spillway/core/kit';
 import type { CellResult } from './cell-result.js';
 import type { CellSpec } from './cell-spec.js';
 import { drive } from './drive.js';

@@ -1,4 +1,5 @@
-import { FLUSH_REASONS, type FlushReason, Histogram, type RecordMeta } from '@spillway/core';
+import { FLUSH_REASONS, type FlushReason, type RecordMeta } from '@spillway/core';
+import { Histogram } from '@spillway/core/kit';
 import type { CellResult, Stuck } from './cell-result.js';
 import type { CellSpec } from './cell-spec.js';
 import { round, roundDist } from './numbers.js';

@@ -1,11 +1,5 @@
-import {
-  type Batch,
-  type Distribution,
-  type FlushReason,
-  Histogram,
-  type RecordMeta,
-  type SinkAdapter,
-} from '@spillway/core';
+import type { Batch, Distribution, FlushReason, RecordMeta, SinkAdapter } from '@spillway/core';
+import { Histogram } from '@spillway/core/kit';
 import type { DockStatus } from './records.js';
 import type { Subject } from './subject.js';
 

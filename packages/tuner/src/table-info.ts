@@ -1,6 +1,6 @@
 // What the tuner knows about the user's table, read from the system catalogs only: no query here
 // scans or locks the table itself, so its pg_stat_user_tables counters do not move.
-import { invalidOption } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import type pg from 'pg';
 
 export interface TableColumn {

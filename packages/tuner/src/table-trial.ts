@@ -1,6 +1,7 @@
 // One trial on the scratch copy: a sink with one setting, fed the user's rows at the user's rate
 // and shape, measured from the sink's own events.
-import { type DeadLetterTarget, Histogram, type RecordMeta, Sink, type SinkAdapter } from '@spillway/core';
+import { type DeadLetterTarget, type RecordMeta, Sink, type SinkAdapter } from '@spillway/core';
+import { Histogram } from '@spillway/core/kit';
 import type { Settings } from './cell-spec.js';
 import { round } from './numbers.js';
 import type { RecordCycle, TableRow } from './table-records.js';

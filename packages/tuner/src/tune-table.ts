@@ -1,6 +1,7 @@
 // tuneTable(): picks batch settings on a scratch copy of the user's own PostgreSQL table, with
 // the user's rows, write mode, rate and arrival shape, then checks the pick with one more run.
-import { invalidOption, SpillwayError } from '@spillway/core';
+import { SpillwayError } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import type pg from 'pg';
 import type { Settings } from './cell-spec.js';
 import { round } from './numbers.js';

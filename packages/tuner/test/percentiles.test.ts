@@ -1,4 +1,4 @@
-import { Histogram } from '@spillway/core';
+import { Histogram } from '@spillway/core/kit';
 import * as hdr from 'hdr-histogram-js';
 import { describe, expect, it } from 'vitest';
 import { SeededRandom } from '../src/random.js';

@@ -1,4 +1,4 @@
-import { invalidOption } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 
 /** What `spillway demo` runs against and for how long. Flags win over environment variables. */
 export interface DemoOptions {
