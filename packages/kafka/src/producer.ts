@@ -11,7 +11,14 @@ import {
   type SinkAdapter,
   StoreError,
 } from '@spillway/core';
-import type { Message, Producer, TopicMessages } from 'kafkajs';
+import {
+  type ICustomPartitioner,
+  type Message,
+  type PartitionerArgs,
+  Partitioners,
+  type Producer,
+  type TopicMessages,
+} from 'kafkajs';
 import { classifyKafkaError, kafkaErrorType } from './classify.js';
 import {
   type KafkaOutgoing,
@@ -45,11 +52,19 @@ const RESET_PRODUCER: ReadonlySet<string> = new Set([
 const RECORD_OVERHEAD = 24;
 
 interface Chunk {
+  /** Batch indexes of the chunk's records, and beside each the topic and message it went out as. */
   indexes: number[];
+  topics: string[];
+  messages: Message[];
   bytes: number;
   byTopic: Map<string, Message[]>;
-  /** `topic\u0000partition` → indexes of records the mapper sent to that explicit partition. */
-  explicit: Map<string, number[]> | undefined;
+}
+
+/** Where a message of a sendBatch was placed, as the partitioner saw it. */
+interface Placement {
+  partition: number;
+  /** False for an explicit partition the topic's metadata does not list. */
+  exists: boolean;
 }
 
 function byteLength(v: Buffer | string | null | undefined): number {
@@ -74,6 +89,11 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   private producer: Producer | undefined;
   private connecting: Promise<Producer> | undefined;
   private closed = false;
+  /**
+   * The partition each message of a send was placed on. The check after `sendBatch` reads it, so
+   * that every record is known to be in the produce response of its own partition.
+   */
+  private readonly placed = new WeakMap<Message, Placement>();
   /** Producers created so far; more than one means a producer was replaced after a failure. */
   producersCreated = 0;
 
@@ -85,7 +105,10 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   private connected(): Promise<Producer> {
     if (this.producer) return Promise.resolve(this.producer);
     this.connecting ??= (async () => {
-      const producer = this.o.kafka.producer(this.o.producer);
+      const producer = this.o.kafka.producer({
+        ...this.o.producer,
+        createPartitioner: this.placing(this.o.producer.createPartitioner ?? Partitioners.DefaultPartitioner),
+      });
       this.producersCreated++;
       try {
         await producer.connect();
@@ -99,6 +122,30 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
       this.connecting = undefined;
     });
     return this.connecting;
+  }
+
+  /**
+   * The user's partitioner (kafkajs' default, murmur2 of the key as the Java client, unless one
+   * was given), recording where it put each message. kafkajs calls the partitioner again on each
+   * of its own retries inside one `sendBatch`: a message keeps its first placement, so that a
+   * retry cannot move an unkeyed record to another partition (written twice) while the check
+   * looks for it under the last one.
+   */
+  private placing(create: ICustomPartitioner): ICustomPartitioner {
+    const placed = this.placed;
+    return () => {
+      const choose = create();
+      return (args: PartitionerArgs): number => {
+        const before = placed.get(args.message);
+        if (before !== undefined) return before.partition;
+        const partition = choose(args);
+        const exists =
+          args.message.partition === undefined ||
+          args.partitionMetadata.some((p) => p.partitionId === partition);
+        placed.set(args.message, { partition, exists });
+        return partition;
+      };
+    };
   }
 
   /** Drops a producer whose state cannot be trusted; the next write creates a new one. */
@@ -163,17 +210,12 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
       if (out.timestamp !== undefined) message.timestamp = String(out.timestamp);
       const bytes = size + RECORD_OVERHEAD;
       if (chunk === undefined || (chunk.bytes + bytes > maxRequestBytes && chunk.indexes.length > 0)) {
-        chunks.push((chunk = { indexes: [], bytes: 0, byTopic: new Map(), explicit: undefined }));
+        chunks.push((chunk = { indexes: [], topics: [], messages: [], bytes: 0, byTopic: new Map() }));
       }
       chunk.indexes.push(i);
+      chunk.topics.push(topic);
+      chunk.messages.push(message);
       chunk.bytes += bytes;
-      if (out.partition !== undefined) {
-        const where = `${topic}\u0000${out.partition}`;
-        chunk.explicit ??= new Map();
-        const list = chunk.explicit.get(where);
-        if (list) list.push(i);
-        else chunk.explicit.set(where, [i]);
-      }
       let list = chunk.byTopic.get(topic);
       if (!list) chunk.byTopic.set(topic, (list = []));
       list.push(message);
@@ -192,8 +234,7 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
             timeout: this.o.ackTimeoutMs,
             ...(this.o.compression === undefined ? {} : { compression: this.o.compression }),
           });
-          if (c.explicit !== undefined && this.o.acks !== 0)
-            this.checkExplicit(c.explicit, written, rejected);
+          if (this.o.acks !== 0) this.checkAcknowledged(c, written, rejected);
         } catch (error) {
           const type = kafkaErrorType(error);
           if (this.o.idempotent && type !== undefined && RESET_PRODUCER.has(type)) await this.reset(producer);
@@ -225,27 +266,64 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   }
 
   /**
-   * kafkajs silently skips messages whose explicit partition is not in its topic metadata (the
-   * partition does not exist): `sendBatch` resolves and they are gone. Every partition written
-   * appears in the produce response, so any explicit partition missing from it did not get its
-   * records: they are reported as not written (UNKNOWN_TOPIC_OR_PARTITION).
+   * `sendBatch` can resolve without having written some partitions, and says nothing:
+   * - kafkajs skips messages whose explicit partition the topic does not have;
+   * - kafkajs resends a failed produce request only to brokers that have not answered in the same
+   *   call (`producer/sendMessages.js`, 2.2.4): when a dead leader's partition moves to a broker
+   *   that already answered, that partition's records are sent to nobody.
+   * Every partition written appears in the produce response, so the records of a partition
+   * missing from it are reported as not written: UNKNOWN_TOPIC_OR_PARTITION for a partition that
+   * does not exist, otherwise a retryable error, and the engine writes only those again.
    */
-  private checkExplicit(
-    explicit: Map<string, number[]>,
+  private checkAcknowledged(
+    chunk: Chunk,
     written: ReadonlyArray<{ topicName: string; partition: number }>,
     rejected: Array<{ index: number; error: unknown }>,
   ): void {
-    const landed = new Set(written.map((w) => `${w.topicName}\u0000${w.partition}`));
-    for (const [where, indexes] of explicit) {
-      if (landed.has(where)) continue;
-      const [topic, partition] = where.split('\u0000');
-      const error = new StoreError(
-        `Kafka topic "${topic}" has no partition ${partition}: ${indexes.length} record(s) not written`,
-        {
-          driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
-          details: { topic, partition: Number(partition), records: indexes.length },
-        },
-      );
+    const landed = new Map<string, Set<number>>();
+    for (const w of written) {
+      let set = landed.get(w.topicName);
+      if (!set) landed.set(w.topicName, (set = new Set()));
+      set.add(w.partition);
+    }
+    // `topic\u0000partition` → the indexes of records placed there and not acknowledged.
+    let missing:
+      | Map<string, { topic: string; placement: Placement | undefined; indexes: number[] }>
+      | undefined;
+    for (let j = 0; j < chunk.indexes.length; j++) {
+      const topic = chunk.topics[j]!;
+      const placement = this.placed.get(chunk.messages[j]!);
+      if (placement !== undefined && landed.get(topic)?.has(placement.partition)) continue;
+      const where = `${topic}\u0000${placement?.partition ?? ''}`;
+      missing ??= new Map();
+      let entry = missing.get(where);
+      if (!entry) missing.set(where, (entry = { topic, placement, indexes: [] }));
+      entry.indexes.push(chunk.indexes[j]!);
+    }
+    if (missing === undefined) return;
+    for (const { topic, placement, indexes } of missing.values()) {
+      const error =
+        placement !== undefined && !placement.exists
+          ? new StoreError(
+              `Kafka topic "${topic}" has no partition ${placement.partition}: ${indexes.length} record(s) not written`,
+              {
+                driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
+                details: { topic, partition: placement.partition, records: indexes.length },
+              },
+            )
+          : new StoreError(
+              `Kafka produce response has no acknowledgement for topic "${topic}"` +
+                `${placement === undefined ? '' : ` partition ${placement.partition}`} (its leader changed during the send): ` +
+                `${indexes.length} record(s) not known to be written; sending them again`,
+              {
+                details: {
+                  stage: 'unacknowledged',
+                  topic,
+                  ...(placement === undefined ? {} : { partition: placement.partition }),
+                  records: indexes.length,
+                },
+              },
+            );
       for (const index of indexes) rejected.push({ index, error });
     }
   }
@@ -262,6 +340,7 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   classify(error: unknown): ErrorClass {
     if (error instanceof StoreError && error.details.stage === 'mapping') return 'split';
     if (error instanceof StoreError && error.details.stage === 'resend') return 'retry';
+    if (error instanceof StoreError && error.details.stage === 'unacknowledged') return 'retry';
     if (error instanceof StoreError && error.cause === undefined && error.driverCode === 'MESSAGE_TOO_LARGE')
       return 'split';
     return classifyKafkaError(error, { unknownTopic: this.o.unknownTopic });

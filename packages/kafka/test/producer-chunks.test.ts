@@ -1,23 +1,48 @@
 // Unit tests of the producer adapter's chunking with a stand-in producer (the real broker
 // behaviour is covered in test/integration/kafka-producer.test.ts).
-import kafkajs from 'kafkajs';
+import kafkajs, { Partitioners } from 'kafkajs';
 import { describe, expect, it } from 'vitest';
 import { KafkaProducerAdapter } from '../src/producer.js';
 
 const { KafkaJSProtocolError, KafkaJSNumberOfRetriesExceeded, KafkaJSConnectionError } = kafkajs;
 
-function fakeKafka(failOnCall: number, error: unknown) {
+const PARTITIONS = [0, 1, 2].map((partitionId) => ({
+  partitionErrorCode: 0,
+  partitionId,
+  leader: partitionId + 1,
+  replicas: [1, 2, 3],
+  isr: [1, 2, 3],
+}));
+
+type Partition = (args: { topic: string; partitionMetadata: typeof PARTITIONS; message: unknown }) => number;
+
+/**
+ * A stand-in producer that places messages with the configured partitioner, as kafkajs does, and
+ * answers for every partition it placed a message on except those in `unanswered`.
+ */
+function fakeKafka(failOnCall: number, error: unknown, unanswered: readonly number[] = []) {
   const calls: number[] = [];
-  const producer = {
-    async connect() {},
-    async disconnect() {},
-    async sendBatch(b: { topicMessages: Array<{ messages: unknown[] }> }) {
-      calls.push(b.topicMessages.reduce((n, t) => n + t.messages.length, 0));
-      if (calls.length === failOnCall) throw error;
-      return [];
+  const kafka = {
+    producer(config: { createPartitioner: () => Partition }) {
+      const partition = config.createPartitioner();
+      return {
+        async connect() {},
+        async disconnect() {},
+        async sendBatch(b: { topicMessages: Array<{ topic: string; messages: unknown[] }> }) {
+          calls.push(b.topicMessages.reduce((n, t) => n + t.messages.length, 0));
+          if (calls.length === failOnCall) throw error;
+          const answered = new Map<string, { topicName: string; partition: number }>();
+          for (const { topic, messages } of b.topicMessages)
+            for (const message of messages) {
+              const p = partition({ topic, partitionMetadata: PARTITIONS, message });
+              if (!unanswered.includes(p)) answered.set(`${topic}/${p}`, { topicName: topic, partition: p });
+            }
+          return [...answered.values()];
+        },
+      };
     },
   };
-  return { kafka: { producer: () => producer } as never, calls };
+  return { kafka: kafka as never, calls };
 }
 
 const batch = (n: number) => ({
@@ -123,5 +148,82 @@ describe('producer adapter chunking', () => {
     expect(out?.rejected.map((r) => r.index)).toEqual([1, 3]);
     expect(out!.rejected.map((r) => a.classify(r.error))).toEqual(['split', 'split']);
     expect(out!.rejected[0]!.error).toMatchObject({ driverCode: 'MESSAGE_TOO_LARGE' });
+  });
+});
+
+describe('producer adapter acknowledgement check', () => {
+  it('reports the records of a partition missing from the produce response as not written and retryable, and only those', async () => {
+    const { kafka } = fakeKafka(0, undefined, [1]);
+    const a = new KafkaProducerAdapter<number>({
+      kafka,
+      topic: 't',
+      mapper: (n) => ({ key: `dock-${n}`, value: String(n) }),
+    });
+    const out = await a.write(batch(60));
+    // Where kafkajs' own default partitioner puts each key (murmur2, as the Java client).
+    const place = Partitioners.DefaultPartitioner();
+    const onPartition1 = Array.from({ length: 60 }, (_, n) => n).filter(
+      (n) =>
+        place({
+          topic: 't',
+          partitionMetadata: PARTITIONS,
+          message: { key: `dock-${n}`, value: String(n) },
+        }) === 1,
+    );
+    expect(onPartition1.length).toBeGreaterThan(0);
+    expect(onPartition1.length).toBeLessThan(60);
+    expect(out?.rejected.map((r) => r.index)).toEqual(onPartition1);
+    const error = out!.rejected[0]!.error;
+    expect(error).toMatchObject({
+      code: 'SPILLWAY_STORE_ERROR',
+      details: { stage: 'unacknowledged', topic: 't', partition: 1, records: onPartition1.length },
+    });
+    expect(a.classify(error)).toBe('retry');
+  });
+
+  it('reports records sent to an explicit partition the topic does not have as UNKNOWN_TOPIC_OR_PARTITION', async () => {
+    const { kafka } = fakeKafka(0, undefined, [7]);
+    const a = new KafkaProducerAdapter<number>({
+      kafka,
+      topic: 't',
+      mapper: (n) => ({ value: String(n), partition: n % 2 === 0 ? 0 : 7 }),
+    });
+    const out = await a.write(batch(6));
+    expect(out?.rejected.map((r) => r.index)).toEqual([1, 3, 5]);
+    expect(out!.rejected[0]!.error).toMatchObject({
+      driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
+      details: { topic: 't', partition: 7, records: 3 },
+    });
+  });
+
+  it('keeps an unkeyed record on its first partition when kafkajs places it again on a retry within one send', async () => {
+    let answered: Array<{ topicName: string; partition: number }> = [];
+    const kafka = {
+      producer(config: { createPartitioner: () => Partition }) {
+        const partition = config.createPartitioner();
+        return {
+          async connect() {},
+          async disconnect() {},
+          async sendBatch(b: { topicMessages: Array<{ topic: string; messages: unknown[] }> }) {
+            const { topic, messages } = b.topicMessages[0]!;
+            const place = () =>
+              messages.map((message) => partition({ topic, partitionMetadata: PARTITIONS, message }));
+            const first = place();
+            // kafkajs groups the messages again on each of its retries (producer/sendMessages.js).
+            const again = place();
+            expect(again).toEqual(first);
+            answered = [...new Set(first)].map((p) => ({ topicName: topic, partition: p }));
+            return answered;
+          },
+        };
+      },
+    };
+    const a = new KafkaProducerAdapter<number>({
+      kafka: kafka as never,
+      topic: 't',
+      mapper: (n) => ({ value: String(n) }),
+    });
+    expect(await a.write(batch(10))).toBeUndefined();
+    expect(answered.length).toBeGreaterThan(0);
   });
 });
