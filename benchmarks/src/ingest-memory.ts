@@ -7,14 +7,14 @@
 //   INGEST_BYTES=268435456 INGEST_RUNS=3 node --import tsx benchmarks/src/ingest-memory.ts
 //   INGEST_STORE=postgres SPILLWAY_PG_URL=postgres://127.0.0.1:5432/test node --import tsx benchmarks/src/ingest-memory.ts
 import { spawn } from 'node:child_process';
-import { once } from 'node:events';
-import { createReadStream, createWriteStream } from 'node:fs';
+import { createReadStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
 import { cpus, tmpdir, totalmem } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { Sink, type SinkAdapter } from '@spillway/core';
 import { type ColumnSpec, ingestFile, type Row } from '@spillway/ingest';
+import { writeServiceRecords } from './service-records.js';
 
 const COLUMNS: ColumnSpec[] = [
   { name: 'record_id', type: 'string', required: true, pattern: '^SR-\\d+$' },
@@ -26,37 +26,6 @@ const COLUMNS: ColumnSpec[] = [
   { name: 'kind', enum: ['brakes', 'chain', 'tyre', 'battery', 'lights'] },
   { name: 'note' },
 ];
-const KINDS = ['brakes', 'chain', 'tyre', 'battery', 'lights'];
-const NOTES = [
-  'pads replaced',
-  '"worn, replaced" front and rear',
-  'ok',
-  'tightened\r\nchecked again',
-  'café stop: saddle',
-];
-
-export async function generateCsv(path: string, bytes: number): Promise<number> {
-  const out = createWriteStream(path);
-  out.write('record_id,dock_id,bike_id,serviced_at,odometer_km,passed,kind,note\r\n');
-  let written = 0;
-  let n = 0;
-  const start = Date.UTC(2024, 0, 1);
-  while (written < bytes) {
-    let block = '';
-    for (let i = 0; i < 2000; i++, n++) {
-      const note = NOTES[n % NOTES.length]!;
-      const quoted = /[",\r\n]/.test(note) ? `"${note.replaceAll('"', '""')}"` : note;
-      const at = new Date(start + n * 37_000).toISOString();
-      block += `SR-${n},DK-${String(n % 4000).padStart(4, '0')},${(n % 9000) + 1},${at},${(n % 50000) / 10},${n % 7 === 0 ? 'false' : 'true'},${KINDS[n % KINDS.length]},${quoted}\r\n`;
-    }
-    written += Buffer.byteLength(block);
-    if (!out.write(block)) await once(out, 'drain');
-  }
-  out.end();
-  await once(out, 'close');
-  return n;
-}
-
 /** A store that acknowledges at once: the figures are the ingest's own. */
 const nullAdapter: SinkAdapter<Row> = { kind: 'null', async write() {}, classify: () => 'fatal' };
 
@@ -152,7 +121,7 @@ async function main(): Promise<void> {
   const existing = await stat(path).catch(() => undefined);
   if (!existing || existing.size < bytes) {
     const t0 = performance.now();
-    const rows = await generateCsv(path, bytes);
+    const rows = await writeServiceRecords(path, bytes);
     process.stdout.write(
       `generated ${path}: ${rows} rows in ${((performance.now() - t0) / 1000).toFixed(1)} s\n`,
     );

@@ -9,52 +9,18 @@
 //   INGEST_MB=80 INGEST_RUNS=5 SPILLWAY_PG_URL=postgres://postgres@127.0.0.1:5432/test node benchmarks/dist/ingest-speed.js
 import { spawn, spawnSync } from 'node:child_process';
 import { once } from 'node:events';
-import { createReadStream, createWriteStream, existsSync } from 'node:fs';
+import { createReadStream, existsSync } from 'node:fs';
 import { readFile, rm, stat } from 'node:fs/promises';
 import { cpus, loadavg, tmpdir, totalmem } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import pg from 'pg';
 import { fmt, summary } from './numbers.js';
+import { writeServiceRecords } from './service-records.js';
 
 const TABLE = 'spillway_bench.ingest_speed';
 const TYPED =
   'record_id!,dock_id!,bike_id:integer!,serviced_at:timestamp!,odometer_km:number,passed:boolean,kind,note';
-const KINDS = ['brakes', 'chain', 'tyre', 'battery', 'lights'];
-const NOTES = [
-  'pads replaced',
-  '"worn, replaced" front and rear',
-  'ok',
-  'tightened\r\nchecked again',
-  'café stop: saddle',
-];
-
-/** Writes about `megabytes` MiB of service records (a quoted note in 2 of 5 rows); returns the row count. */
-async function generate(path: string, megabytes: number): Promise<number> {
-  const out = createWriteStream(path);
-  out.write('record_id,dock_id,bike_id,serviced_at,odometer_km,passed,kind,note\r\n');
-  let written = 0;
-  let n = 0;
-  const start = Date.UTC(2024, 0, 1);
-  while (written < megabytes * 1024 * 1024) {
-    let block = '';
-    for (let i = 0; i < 2000; i++, n++) {
-      const note = NOTES[n % NOTES.length]!;
-      const quoted = /[",\r\n]/.test(note) ? `"${note.replaceAll('"', '""')}"` : note;
-      // Microseconds in every timestamp: they must land as sent.
-      const at = new Date(start + n * 37_000)
-        .toISOString()
-        .replace('.000Z', `.${String(n % 1_000_000).padStart(6, '0')}Z`);
-      block += `SR-${n},DK-${String(n % 4000).padStart(4, '0')},${(n % 9000) + 1},${at},${(n % 50000) / 10},${n % 7 === 0 ? 'false' : 'true'},${KINDS[n % KINDS.length]},${quoted}\r\n`;
-    }
-    written += Buffer.byteLength(block);
-    if (!out.write(block)) await once(out, 'drain');
-  }
-  out.end();
-  await once(out, 'close');
-  return n;
-}
-
 /** Child mode `read`: the baseline, the same file through a 256 KiB read stream, no parsing. */
 async function readChild(path: string): Promise<void> {
   let lines = 0;
@@ -107,7 +73,7 @@ async function main(): Promise<void> {
   const load0 = loadavg();
 
   const t0 = performance.now();
-  const rows = await generate(path, megabytes);
+  const rows = await writeServiceRecords(path, megabytes * 1024 * 1024, { microseconds: true });
   const bytes = (await stat(path)).size;
   console.log(
     `generated ${path}: ${fmt(rows)} rows, ${(bytes / 1048576).toFixed(1)} MiB in ${((performance.now() - t0) / 1000).toFixed(1)} s`,
