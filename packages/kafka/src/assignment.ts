@@ -5,7 +5,7 @@
 
 import { partitionKey } from '@spillway/core/kit';
 import type { Consumer } from 'kafkajs';
-import type { BridgeEvents } from './bridge-types.js';
+import type { BridgeCounts, BridgeEvents } from './bridge-types.js';
 import { CommitFence } from './commits.js';
 import { type Hold, PartitionState } from './partition.js';
 
@@ -13,14 +13,16 @@ export class Assignment {
   readonly fence = new CommitFence();
   readonly parts = new Map<string, PartitionState>();
   private readonly consumer: Consumer;
+  private readonly counts: BridgeCounts;
   /** Called for every partition this member starts to own (not for kept ones). */
   private readonly fresh: ((st: PartitionState) => void) | undefined;
   private memberId: string | undefined;
   /** Partitions with messages held for room in a sink. */
   private heldCount = 0;
 
-  constructor(consumer: Consumer, fresh?: (st: PartitionState) => void) {
+  constructor(consumer: Consumer, counts: BridgeCounts, fresh?: (st: PartitionState) => void) {
     this.consumer = consumer;
+    this.counts = counts;
     this.fresh = fresh;
   }
 
@@ -103,6 +105,12 @@ export class Assignment {
     this.fence.revokeAll();
   }
 
+  /** The consumer disconnected: it owns nothing, and what it took past its commits is counted. */
+  revokeAll(): void {
+    for (const st of this.parts.values()) this.countUncommitted(st);
+    this.fence.revokeAll();
+  }
+
   private add(topic: string, partition: number): PartitionState {
     const st = new PartitionState(topic, partition, Date.now());
     this.parts.set(st.key, st);
@@ -111,9 +119,18 @@ export class Assignment {
   }
 
   private drop(st: PartitionState): void {
+    this.countUncommitted(st);
     this.release(st);
     st.live = false;
     this.parts.delete(st.key);
+  }
+
+  /** Counts the messages of `st` taken past this member's last accepted commit (once per ownership). */
+  private countUncommitted(st: PartitionState): void {
+    const { next, firstTaken } = st;
+    if (next === undefined || firstTaken === undefined || !this.fence.owns(st.key)) return;
+    const from = this.fence.lastCommitted(st.key) ?? firstTaken;
+    if (next > from) this.counts.uncommittedAtRevoke += Number(next - from);
   }
 
   private dropAll(): void {

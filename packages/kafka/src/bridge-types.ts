@@ -48,6 +48,12 @@ export interface BridgeCounts {
   rebalanceFlushes: number;
   /** Rebalances where the buffered records were not all durable within `rebalanceFlushMs`. */
   rebalanceFlushTimeouts: number;
+  /**
+   * Messages taken from a partition this member then lost (a rebalance, a crash of the consumer,
+   * or the disconnect) beyond its last accepted commit. The partition's next owner reads them
+   * again, so this bounds the duplicates an at-least-once sink can get from this member.
+   */
+  uncommittedAtRevoke: number;
 }
 
 export interface BridgeSnapshot extends BridgeCounts {

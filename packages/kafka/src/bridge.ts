@@ -58,6 +58,7 @@ export class KafkaBridge<R> {
     rebalances: 0,
     rebalanceFlushes: 0,
     rebalanceFlushTimeouts: 0,
+    uncommittedAtRevoke: 0,
   };
   private readonly control: BridgeControl;
   private readonly assignment: Assignment;
@@ -104,7 +105,7 @@ export class KafkaBridge<R> {
       offsetStores.length > 0 && groupId !== undefined
         ? new StoredOffsetReader(offsetStores, groupId, this.control)
         : undefined;
-    this.assignment = new Assignment(this.consumer, reader?.fresh);
+    this.assignment = new Assignment(this.consumer, this.counts, reader?.fresh);
     reader?.attach(this.assignment);
     this.handoff = new Handoff(this.assignment, this.control);
     this.handoff.watch(this.decodeSink);
@@ -194,7 +195,7 @@ export class KafkaBridge<R> {
       for (const off of this.unsubscribe.splice(0)) off();
       this.handoff.unwatchAll();
       if (this.stateValue !== 'failed') this.stateValue = 'stopped';
-      this.assignment.fence.revokeAll();
+      this.assignment.revokeAll();
     }
   }
 
@@ -298,6 +299,9 @@ export class KafkaBridge<R> {
   private beforeRejoin(): Promise<void> {
     this.rejoinFlush ??= (async () => {
       this.counts.rebalanceFlushes++;
+      // What is durable already is committed at once: on the REBALANCING path kafkajs is sending
+      // its join meanwhile, and a commit that reaches the coordinator first is still accepted.
+      const early = this.commit().catch(() => undefined);
       try {
         const ours = (meta: RecordMeta | undefined) =>
           meta !== undefined && MessageMeta.ownerOf(meta) !== undefined;
@@ -306,6 +310,7 @@ export class KafkaBridge<R> {
         ).then(() => true);
         const ok = await within(flushed, this.o.rebalanceFlushMs, () => undefined).catch(() => false);
         if (!ok) this.counts.rebalanceFlushTimeouts++;
+        await early;
         await this.commit().catch(() => undefined);
       } finally {
         this.rejoinFlush = undefined;

@@ -158,6 +158,7 @@ export class Intake<R> {
     }
     if (runSinks === undefined) return undefined;
     runs.push(newRun(runFrom, metas.length, runSinks));
+    st.firstTaken ??= metas[0]!.offset;
     st.next = offset + 1n;
     st.lastSeen = offset;
     st.lastMessageAt = now;

@@ -103,6 +103,8 @@ export class PartitionState {
   live = true;
   /** Next offset to take; anything below was taken in this ownership (a redelivery). */
   next: bigint | undefined;
+  /** The first offset taken in this ownership: the group's committed offset when it began. */
+  firstTaken: bigint | undefined;
   /** While set the partition is paused, so this never exceeds one fetched batch per partition. */
   hold: Hold | undefined;
   paused = false;

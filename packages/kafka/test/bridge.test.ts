@@ -494,6 +494,37 @@ describe('KafkaBridge', () => {
     expect(consumer.lastCommit(0)).toBe('3');
   });
 
+  it('counts the messages it took past its last commit of a partition it loses, the bound of what the next owner reads again', async () => {
+    const { consumer, adapters, sinks, bridge } = setup();
+    await bridge.start();
+    consumer.join([0, 1]);
+    await consumer.deliver(0, 0, ['0', '1', '2']);
+    await consumer.deliver(1, 10, ['10', '11']);
+    await flushAcking(sinks, adapters);
+    await bridge.commit();
+    expect(consumer.lastCommit(1)).toBe('12');
+    // Three more of partition 1 become durable, but the partition moves before a commit.
+    await consumer.deliver(1, 12, ['12', '13', '14']);
+    await flushAcking(sinks, adapters);
+    consumer.join([0]);
+    expect(bridge.snapshot().uncommittedAtRevoke).toBe(3);
+    // A partition that never saw a commit counts from the first offset it took.
+    consumer.join([0, 2]);
+    await consumer.deliver(2, 40, ['40', '41']);
+    consumer.join([0]);
+    expect(bridge.snapshot().uncommittedAtRevoke).toBe(5);
+    // A clean stop commits everything first: nothing more is counted at the disconnect.
+    await consumer.deliver(0, 3, ['3']);
+    const auto = setInterval(() => adapters[0]!.releaseAll(), 1);
+    try {
+      await bridge.stop({ timeoutMs: 5000 });
+    } finally {
+      clearInterval(auto);
+    }
+    expect(consumer.lastCommit(0)).toBe('4');
+    expect(bridge.snapshot().uncommittedAtRevoke).toBe(5);
+  });
+
   it('on a rebalance signal from heartbeat, flushes and commits before rethrowing the same error', async () => {
     const { consumer, adapters, bridge } = setup();
     await bridge.start();

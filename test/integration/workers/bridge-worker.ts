@@ -111,6 +111,7 @@ const printStats = () => {
     skipped: s.skippedRedeliveries,
     flushes: s.rebalanceFlushes,
     flushTimeouts: s.rebalanceFlushTimeouts,
+    uncommittedAtRevoke: s.uncommittedAtRevoke,
     skippedStored: s.skippedStored,
     pauses: s.pauses,
     paused: s.partitions.filter((p) => p.paused).length,

@@ -42,6 +42,11 @@ export function groupChecks(kafka: TestKafka, schema: TestSchema, producer: Prod
       }
     },
 
+    /** Messages in the topic: the sum of its partitions' end offsets (nothing is deleted here). */
+    async topicSize(topic: string): Promise<number> {
+      return [...(await endOffsets(topic)).values()].reduce((a, b) => a + b, 0);
+    },
+
     /** The sum over partitions of the group's committed offsets (none counts 0). */
     async committedTotal(groupId: string, topic: string): Promise<number> {
       return [...(await committed(groupId, topic)).values()].reduce((a, b) => a + Math.max(0, b), 0);
@@ -114,7 +119,9 @@ export function groupFixture(schemaPrefix: string): GroupFixture {
   const f = {} as GroupFixture;
   beforeAll(async () => {
     [f.kafka, f.schema] = await Promise.all([withKafka(), withSchema(schemaPrefix)]);
-    f.producer = f.kafka.kafka.producer({ allowAutoTopicCreation: false });
+    // Idempotent, so a retried send under load cannot put an event in the topic twice: the
+    // duplicates the tests count are then the bridge's alone.
+    f.producer = f.kafka.kafka.producer({ allowAutoTopicCreation: false, idempotent: true });
     await f.producer.connect();
     f.dir = mkdtempSync(join(tmpdir(), `spillway-${schemaPrefix}-`));
     f.checks = groupChecks(f.kafka, f.schema, f.producer);
