@@ -37,7 +37,7 @@ let dir: string;
 
 beforeAll(async () => {
   [kafka, schema, redis] = await Promise.all([withKafka(), withSchema('bridge'), withRedis('bridge')]);
-  producer = kafka.kafka.producer({ allowAutoTopicCreation: false });
+  producer = kafka.kafka.producer({ allowAutoTopicCreation: false, idempotent: true });
   await producer.connect();
   dir = mkdtempSync(join(tmpdir(), 'spillway-bridge-'));
 });

@@ -35,7 +35,7 @@ beforeAll(async () => {
   await schema.pool.query(createDockStatus);
   topic = await kafka.topic(PARTITIONS, 'readme');
   dir = mkdtempSync(join(tmpdir(), 'spillway-readme-bridge-'));
-  const producer = kafka.kafka.producer({ allowAutoTopicCreation: false });
+  const producer = kafka.kafka.producer({ allowAutoTopicCreation: false, idempotent: true });
   await producer.connect();
   try {
     for (let from = 0; from < MESSAGES; from += 10_000) {
