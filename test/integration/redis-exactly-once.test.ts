@@ -187,7 +187,7 @@ describe('Redis storeOffsets', () => {
     }
   });
 
-  it('a record Redis refuses is dead-lettered alone, and its partition’s stored offset stops at that record', async () => {
+  it('a record Redis refuses, or one whose mapping throws, is dead-lettered alone, and its partition’s stored offset stops at that record', async () => {
     const k = keys();
     const wrongType = `${k.data}_string`;
     await r.redis.set(wrongType, 'not a list');
@@ -195,20 +195,26 @@ describe('Redis storeOffsets', () => {
       commandMapping<DockEvent>({
         name: 'dock-list',
         idempotent: false,
-        // Event 301 (partition 1, offset 100) goes to a string key: WRONGTYPE.
-        commands: (e) => ['RPUSH', e.seq === 301 ? wrongType : k.data, String(e.seq)],
+        // Event 301 (partition 1, offset 100) goes to a string key: WRONGTYPE. The mapping
+        // throws for event 305 (partition 2, offset 101).
+        commands: (e) => {
+          if (e.seq === 305) throw new RangeError('no dock for event 305');
+          return ['RPUSH', e.seq === 301 ? wrongType : k.data, String(e.seq)];
+        },
       }),
       k.offsets,
     );
     await writeRange(sink, 0, 450); // one batch: 150 records per partition
     await sink.close();
-    expect(deadLetters.letters.map((l) => l.record.seq)).toEqual([301]);
-    expect((deadLetters.letters[0]?.error as Error).message).toMatch(/WRONGTYPE/);
-    expect((await listSeqs(k.data)).count).toBe(449);
+    expect(deadLetters.letters.map((l) => l.record.seq).sort()).toEqual([301, 305]);
+    const byRecord = new Map(deadLetters.letters.map((l) => [l.record.seq, (l.error as Error).message]));
+    expect(byRecord.get(301)).toMatch(/WRONGTYPE/);
+    expect(byRecord.get(305)).toMatch(/no dock for event 305/);
+    expect((await listSeqs(k.data)).count).toBe(448);
     expect(await r.redis.hgetall(k.offsets)).toEqual({
       [`dock-writer/${TOPIC}/0`]: '150',
       [`dock-writer/${TOPIC}/1`]: '100',
-      [`dock-writer/${TOPIC}/2`]: '150',
+      [`dock-writer/${TOPIC}/2`]: '101',
     });
   });
 

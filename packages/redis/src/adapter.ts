@@ -222,7 +222,6 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
           throw new StoreError(
             `Mapping "${mapping.name}" sends ${name}, which cannot run inside the script that stores offsets (\`storeOffsets\`); use a mapping without a script of its own`,
             {
-              driverCode: 'NOSCRIPTINSCRIPT',
               details: { command: name, mapping: mapping.name, step: 'offsets' },
             },
           );

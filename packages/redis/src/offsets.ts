@@ -44,8 +44,9 @@ export function kafkaCoordinates(
 /*
  * KEYS[1]   the offsets hash (KEYS[2…] the data keys, declared for a cluster node's checks)
  * ARGV      P, then P × (field, first offset, next offset); then per record: its partition's
- *           number (1…P, 0 for a record without one), its offset, its command count, and per
- *           command its argument count followed by the command and its arguments.
+ *           number (1…P, 0 for a record without one), its offset, its command count (-1: the
+ *           record was refused before sending), and per command its argument count followed by
+ *           the command and its arguments.
  * Returns   {'ahead', stored of partition 1, …, stored of partition P} ('' where none) when some
  *           partition's stored offset is past its first offset in the batch: nothing was run.
  *           Otherwise {'done', n1, error1, n2, error2, …}: the 1-based numbers of the commands
@@ -54,8 +55,8 @@ export function kafkaCoordinates(
  * which Lua's doubles are not.
  *
  * A record whose command fails still has its other commands run (Redis does not roll back), and
- * its partition's stored offset stops at that record, so the record is not skipped when it is
- * written again.
+ * its partition's stored offset stops at that record (as at a record refused before sending), so
+ * the record is not skipped when it is written again.
  */
 export const OFFSETS_SCRIPT = `local function below(a, b)
   if #a ~= #b then return #a < #b end
@@ -86,6 +87,10 @@ local n = 0
 while i <= #ARGV do
   local p, offset, count = tonumber(ARGV[i]), ARGV[i + 1], tonumber(ARGV[i + 2])
   i = i + 3
+  if count < 0 then
+    if stop[p] == nil then stop[p] = offset end
+    count = 0
+  end
   for _ = 1, count do
     local argc = tonumber(ARGV[i])
     local reply = redis.pcall(unpack(ARGV, i + 1, i + argc))
@@ -162,8 +167,8 @@ export class OffsetHash {
     let guarded = true;
     for (let i = 0; i < lists.length; i++) {
       const list = lists[i];
-      if (list === undefined) continue;
       const c = kafkaCoordinates(metas[i]);
+      if (list === undefined && c === undefined) continue;
       let number = 0;
       if (c === undefined) guarded = false;
       else {
@@ -183,6 +188,11 @@ export class OffsetHash {
           if (c.offset >= r.next) r.next = c.offset + 1n;
         }
         number = r.number;
+      }
+      if (list === undefined) {
+        // Refused before sending (its mapping failed): its partition's stored offset stops here.
+        body.push(number, c!.offset.toString(), -1);
+        continue;
       }
       records++;
       body.push(number, c === undefined ? '' : c.offset.toString(), list.length);
