@@ -1,5 +1,5 @@
-// The Redis adapter with an ioredis Cluster client against a real three-node Redis Cluster
-// of its own (startRedisCluster; cluster mode cannot be switched on for the shared server): batches are
+// The Redis adapter with an ioredis Cluster client against a real three-node Redis Cluster of its
+// own (startRedisCluster; cluster mode cannot be switched on for the shared server): batches are
 // split by node (pipelines) and by slot (transactions), and replies are still attributed to
 // their records.
 import { type DeadLetter, type DeadLetterTarget, Sink } from '@spillway/core';

@@ -1,8 +1,8 @@
-// `storeOffsets` with an ioredis Cluster client against a real three-node Redis Cluster of its
-// own (startRedisCluster; cluster mode cannot be switched on for the shared server): a sink whose keys all share
-// the offsets hash's {hash tag} is exactly-once (one script on that slot's node); a sink whose keys
-// spread over slots is refused before anything is sent, since a batch split across nodes cannot be
-// atomic.
+// `storeOffsets` with an ioredis Cluster client against a real three-node Redis Cluster of its own
+// (startRedisCluster; cluster mode cannot be switched on for the shared server): a sink whose keys
+// all share the offsets hash's {hash tag} is exactly-once (one script on that slot's node); a sink
+// whose keys spread over slots is refused before anything is sent, since a batch split across
+// nodes cannot be atomic.
 import { Sink, StoreError } from '@spillway/core';
 import { commandMapping, hashFields, keySlot, redisAdapter } from '@spillway/redis';
 import { Cluster } from 'ioredis';
