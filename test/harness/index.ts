@@ -19,6 +19,7 @@ export {
   startKafkaCluster,
 } from './kafka-cluster.js';
 export { sleep, waitFor } from './process.js';
+export { type RedisCluster, startRedisCluster } from './redis-cluster.js';
 
 /** Addresses of the shared servers, provided by test/harness/global-setup.ts. */
 export function services(): ProvidedServices {

@@ -1,23 +1,12 @@
-// The Redis adapter with an ioredis Cluster client against a real three-node Redis Cluster
-// started by this file (cluster mode cannot be switched on for the shared server): batches are
+// The Redis adapter with an ioredis Cluster client against a real three-node Redis Cluster of its
+// own (startRedisCluster; cluster mode cannot be switched on for the shared server): batches are
 // split by node (pipelines) and by slot (transactions), and replies are still attributed to
 // their records.
-import { type ChildProcess, spawn } from 'node:child_process';
-import { closeSync, mkdtempSync, openSync, rmSync } from 'node:fs';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
 import { type DeadLetter, type DeadLetterTarget, Sink } from '@spillway/core';
 import { counter, hashFields, keySlot, redisAdapter } from '@spillway/redis';
 import { Cluster, Redis } from 'ioredis';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import {
-  freePort,
-  onProcessExit,
-  run,
-  stopGroup,
-  waitFor,
-  withParentDeathSignal,
-} from '../harness/process.js';
+import { type RedisCluster, startRedisCluster } from '../harness/index.js';
 
 interface DockStatus {
   seq: number;
@@ -35,106 +24,18 @@ class CollectedDeadLetters<T> implements DeadLetterTarget<T> {
 const dock = (seq: number): DockStatus => ({ seq, dock: `dock-${seq}`, free: seq % 12 });
 
 describe('Redis adapter with a Cluster client', () => {
-  const nodes: ChildProcess[] = [];
-  const ports: number[] = [];
-  let root: string;
-  let removeHook: () => void = () => undefined;
+  let nodes: RedisCluster;
   let cluster: Cluster;
 
   beforeAll(async () => {
-    root = mkdtempSync(join(tmpdir(), 'spillway-redis-cluster-'));
-    removeHook = onProcessExit(() => {
-      for (const n of nodes)
-        if (n.pid !== undefined)
-          try {
-            process.kill(-n.pid, 'SIGKILL');
-          } catch {
-            /* gone */
-          }
-      rmSync(root, { recursive: true, force: true });
-    });
-    for (let i = 0; i < 3; i++) {
-      const port = await freePort();
-      ports.push(port);
-      const fd = openSync(join(root, `node-${port}.log`), 'a');
-      const [cmd, args] = withParentDeathSignal('redis-server', [
-        '--port',
-        String(port),
-        '--bind',
-        '127.0.0.1',
-        '--cluster-enabled',
-        'yes',
-        '--cluster-config-file',
-        join(root, `nodes-${port}.conf`),
-        '--save',
-        '',
-        '--appendonly',
-        'no',
-        '--dir',
-        root,
-      ]);
-      const child = spawn(cmd, args, { detached: true, stdio: ['ignore', fd, fd] });
-      closeSync(fd);
-      child.unref();
-      nodes.push(child);
-    }
-    for (const port of ports) {
-      await waitFor(
-        `cluster node ${port}`,
-        async () => {
-          const r = new Redis(port, '127.0.0.1', {
-            lazyConnect: true,
-            maxRetriesPerRequest: 0,
-            retryStrategy: () => null,
-          });
-          r.on('error', () => undefined);
-          try {
-            await r.connect();
-            return (await r.ping()) === 'PONG' ? true : undefined;
-          } finally {
-            r.disconnect();
-          }
-        },
-        { timeoutMs: 15_000, intervalMs: 100 },
-      );
-    }
-    // Source: Redis documentation, "Scale with Redis Cluster" (redis-cli --cluster create).
-    await run(
-      'redis-cli',
-      [
-        '--cluster',
-        'create',
-        ...ports.map((p) => `127.0.0.1:${p}`),
-        '--cluster-replicas',
-        '0',
-        '--cluster-yes',
-      ],
-      { timeoutMs: 60_000 },
-    );
-    await waitFor(
-      'cluster_state:ok on every node',
-      async () => {
-        for (const port of ports) {
-          const r = new Redis(port, '127.0.0.1');
-          try {
-            if (!/cluster_state:ok/.test(await r.cluster('INFO'))) return undefined;
-          } finally {
-            r.disconnect();
-          }
-        }
-        return true;
-      },
-      { timeoutMs: 30_000, intervalMs: 200 },
-    );
-    cluster = new Cluster(ports.map((port) => ({ host: '127.0.0.1', port })));
+    nodes = await startRedisCluster();
+    cluster = new Cluster(nodes.ports.map((port) => ({ host: '127.0.0.1', port })));
     await cluster.ping();
   });
 
   afterAll(async () => {
     cluster?.disconnect();
-    for (const n of nodes) await stopGroup(n, 5000);
-    removeHook();
-    if (root) rmSync(root, { recursive: true, force: true });
+    await nodes?.stop();
   });
 
   it('agrees with the server on key slots', async () => {
@@ -163,7 +64,7 @@ describe('Redis adapter with a Cluster client', () => {
     }
     expect(found).toBe(n);
     // The keys really are spread: every node holds some.
-    for (const port of ports) {
+    for (const port of nodes.ports) {
       const r = new Redis(port, '127.0.0.1');
       expect(await r.dbsize()).toBeGreaterThan(0);
       r.disconnect();

@@ -1,6 +1,7 @@
 /**
- * The Redis sink adapter: a batch goes out as one pipeline (or one MULTI/EXEC), and every reply
- * is checked and attributed to the record whose command it answers.
+ * The Redis sink adapter: a batch goes out as one pipeline (or one MULTI/EXEC, or with
+ * `storeOffsets` one script that also stores the source offsets), and every reply is checked and
+ * attributed to the record whose command it answers.
  */
 import {
   type Batch,
@@ -10,11 +11,46 @@ import {
   type SinkAdapter,
   StoreError,
 } from '@spillway/core';
+import { invalidOption } from '@spillway/core/kit';
 import type { ChainableCommander, Cluster } from 'ioredis';
 import { classifyRedisError, isUnknownOutcome, redisErrorPrefix } from './classify.js';
-import { commandList, type RedisCommand, type RedisMapping } from './commands.js';
+import { commandList, type RedisArg, type RedisCommand, type RedisMapping } from './commands.js';
+import { OffsetHash, rangeKey, type ScriptCall, type ScriptReply, type StoredOffsets } from './offsets.js';
 import { type RedisAdapterOptions, type ResolvedRedisOptions, resolveRedisOptions } from './options.js';
 import { keySlot } from './slot.js';
+
+/** Counters of the offsets script (`storeOffsets`). They only grow. */
+export interface RedisAdapterStats {
+  /** Scripts that ran their commands and moved the stored offsets. */
+  offsetScripts: number;
+  /**
+   * Scripts that changed nothing because a partition's stored offset was already past the batch's
+   * first record (stored before: by a replay, a stale consumer, or a script ioredis sent twice);
+   * the batch was then sent again without the stored records.
+   */
+  offsetConflicts: number;
+  /** Records left out of a batch because the stored offset of their partition was past them. */
+  alreadyStored: number;
+}
+
+/** Rounds of "someone stored these already, send the rest" before a batch gives up (and is retried). */
+const MAX_OFFSET_ROUNDS = 5;
+
+/** Commands that run a script, which a script cannot call. */
+const SCRIPT_COMMANDS: ReadonlySet<string> = new Set([
+  'EVAL',
+  'EVALSHA',
+  'EVAL_RO',
+  'EVALSHA_RO',
+  'FCALL',
+  'FCALL_RO',
+]);
+
+/** Arguments one command may have inside the offsets script (Lua's `unpack` stops near 8,000). */
+const MAX_SCRIPT_COMMAND_ARGS = 7000;
+
+/** A Lua error of the offsets script itself (not of a command it ran): Redis 6 and 7 wordings. */
+const SCRIPT_FAILURE = /user_script:|Error running script/;
 
 type Reply = [error: Error | null, result: unknown];
 
@@ -45,9 +81,18 @@ function safeMessage(error: unknown): string {
 export class RedisAdapter<T> implements SinkAdapter<T> {
   readonly kind = 'redis';
   private readonly o: ResolvedRedisOptions<T>;
+  /** With `storeOffsets`: the hash of stored offsets and its script. */
+  private readonly offsets: OffsetHash | undefined;
+  private readonly counters: RedisAdapterStats = { offsetScripts: 0, offsetConflicts: 0, alreadyStored: 0 };
 
   constructor(options: RedisAdapterOptions<T>) {
     this.o = resolveRedisOptions(options);
+    this.offsets = this.o.storeOffsets === undefined ? undefined : new OffsetHash(this.o.storeOffsets);
+  }
+
+  /** A copy of the counters (they move only with `storeOffsets`). */
+  stats(): RedisAdapterStats {
+    return { ...this.counters };
   }
 
   get mapping(): RedisMapping<T> {
@@ -57,15 +102,13 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
   // biome-ignore lint/suspicious/noConfusingVoidType: matches SinkAdapter.write
   async write(batch: Batch<T>): Promise<void | PartialWrite> {
     const { mapping } = this.o;
-    const commands: RedisCommand[] = [];
-    const owner: number[] = [];
+    // Per record: its commands, or undefined when its mapping failed.
+    const lists = new Array<readonly RedisCommand[] | undefined>(batch.records.length);
     // Record index → its worst error so far.
     const failed = new Map<number, StoreError>();
     for (let i = 0; i < batch.records.length; i++) {
-      let list: readonly RedisCommand[];
       try {
-        list = commandList(mapping, batch.records[i] as T, batch.metas[i]);
-        if (list.length === 0) continue;
+        lists[i] = commandList(mapping, batch.records[i] as T, batch.metas[i]);
       } catch (error) {
         failed.set(
           i,
@@ -74,35 +117,184 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
             details: { mapping: mapping.name, stage: 'mapping' },
           }),
         );
-        continue;
       }
-      for (const c of list) {
+    }
+    if (this.offsets !== undefined) await this.writeStored(batch, lists, failed);
+    else await this.writePlain(lists, failed);
+    if (failed.size === 0) return undefined;
+    return { rejected: [...failed].map(([index, error]) => ({ index, error })) };
+  }
+
+  /** A pipeline (or MULTI/EXEC) per group of commands; errors land in `failed`. */
+  private async writePlain(
+    lists: ReadonlyArray<readonly RedisCommand[] | undefined>,
+    failed: Map<number, StoreError>,
+  ): Promise<void> {
+    const { mapping } = this.o;
+    const commands: RedisCommand[] = [];
+    const owner: number[] = [];
+    for (let i = 0; i < lists.length; i++) {
+      for (const c of lists[i] ?? []) {
         commands.push(c);
         owner.push(i);
       }
     }
+    if (commands.length === 0) return;
+    const groups = this.groups(commands);
+    await Promise.all(
+      groups.map(async (indexes) => {
+        const replies = await this.send(
+          indexes.map((k) => commands[k]!),
+          groups.length === 1,
+        );
+        for (let j = 0; j < indexes.length; j++) {
+          const k = indexes[j]!;
+          const error = replies[j]?.[0];
+          if (!error) continue;
+          const command = commands[k]!;
+          if (mapping.isReplay?.(error, command)) continue;
+          this.blame(failed, owner[k]!, this.wrap(error, command));
+        }
+      }),
+    );
+  }
 
-    if (commands.length > 0) {
-      const groups = this.groups(commands);
-      await Promise.all(
-        groups.map(async (indexes) => {
-          const replies = await this.send(
-            indexes.map((k) => commands[k]!),
-            groups.length === 1,
-          );
-          for (let j = 0; j < indexes.length; j++) {
-            const k = indexes[j]!;
-            const error = replies[j]?.[0];
-            if (!error) continue;
-            const command = commands[k]!;
-            if (mapping.isReplay?.(error, command)) continue;
-            this.blame(failed, owner[k]!, this.wrap(error, command));
-          }
-        }),
-      );
+  /**
+   * `storeOffsets`: the batch and its offsets as one script. When the stored offsets are ahead of
+   * the batch, nothing ran; the records below them are left out and the rest is sent again.
+   */
+  private async writeStored(
+    batch: Batch<T>,
+    lists: Array<readonly RedisCommand[] | undefined>,
+    failed: Map<number, StoreError>,
+  ): Promise<void> {
+    const hash = this.offsets!;
+    const { mapping } = this.o;
+    this.refuseInScript(lists, failed);
+    let stored: StoredOffsets | undefined;
+    for (let round = 1; ; round++) {
+      const call = hash.call(batch.metas, lists, stored);
+      this.counters.alreadyStored += call.skipped;
+      if (call.records === 0) return;
+      const keys = this.scriptKeys(call);
+      let reply: ScriptReply;
+      try {
+        reply = await hash.run(this.o.client, call, keys);
+      } catch (error) {
+        throw this.wrap(error, ['EVAL'], { step: 'offsets', guarded: call.guarded });
+      }
+      if (reply.kind === 'done') {
+        this.counters.offsetScripts++;
+        for (const { command, error } of reply.errors) {
+          const c = call.commands[command]!;
+          if (mapping.isReplay?.(error, c)) continue;
+          this.blame(failed, call.owner[command]!, this.wrap(error, c));
+        }
+        return;
+      }
+      this.counters.offsetConflicts++;
+      stored = reply.stored;
+      if (round >= MAX_OFFSET_ROUNDS) {
+        throw new StoreError(
+          `The stored offsets in "${hash.key}" kept moving past this batch (${round} rounds); the batch is retried`,
+          { details: { mapping: mapping.name, step: 'offsets', offsets: 'moving' } },
+        );
+      }
     }
-    if (failed.size === 0) return undefined;
-    return { rejected: [...failed].map(([index, error]) => ({ index, error })) };
+  }
+
+  /**
+   * Records whose commands cannot run inside the offsets script are refused before it is sent:
+   * a script command (Redis does not let a script call another) stops the sink; a command with
+   * more arguments than Lua can pass on fails its record alone.
+   */
+  private refuseInScript(
+    lists: Array<readonly RedisCommand[] | undefined>,
+    failed: Map<number, StoreError>,
+  ): void {
+    const { mapping } = this.o;
+    for (let i = 0; i < lists.length; i++) {
+      const list = lists[i];
+      if (list === undefined) continue;
+      for (const c of list) {
+        const name = String(c[0]).toUpperCase();
+        if (SCRIPT_COMMANDS.has(name)) {
+          throw new StoreError(
+            `Mapping "${mapping.name}" sends ${name}, which cannot run inside the script that stores offsets (\`storeOffsets\`); use a mapping without a script of its own`,
+            {
+              details: { command: name, mapping: mapping.name, step: 'offsets' },
+            },
+          );
+        }
+        if (c.length > MAX_SCRIPT_COMMAND_ARGS) {
+          failed.set(
+            i,
+            new StoreError(
+              `Mapping "${mapping.name}" made a ${name} with ${c.length} arguments; with \`storeOffsets\` a command may have at most ${MAX_SCRIPT_COMMAND_ARGS}`,
+              { details: { mapping: mapping.name, stage: 'mapping', command: name } },
+            ),
+          );
+          lists[i] = undefined;
+          break;
+        }
+      }
+    }
+  }
+
+  /**
+   * The data keys to declare with the script. None on a standalone server. On a cluster the
+   * script runs on the node of the offsets hash, so every key must be in its slot: a batch split
+   * across nodes cannot be atomic, and is refused (fatal) rather than stored half.
+   */
+  private scriptKeys(call: ScriptCall): RedisArg[] {
+    const client = this.o.client as { isCluster?: boolean };
+    if (client.isCluster !== true) return [];
+    const hash = this.offsets!;
+    const slot = keySlot(hash.key);
+    const keys: RedisArg[] = [];
+    for (const c of call.commands) {
+      const key = commandKey(c);
+      if (key === undefined) continue;
+      const s = keySlot(key);
+      if (s !== slot) {
+        throw new StoreError(
+          `storeOffsets with a Redis Cluster needs every key of a batch in the slot of the offsets hash "${hash.key}" (slot ${slot}); a ${String(c[0]).toUpperCase()} of mapping "${this.o.mapping.name}" has its key in slot ${s}. A batch split across cluster nodes cannot be atomic: put the sink's keys and \`storeOffsets.key\` under one {hash tag}`,
+          {
+            driverCode: 'CROSSSLOT',
+            details: { mapping: this.o.mapping.name, step: 'offsets', slot: s, offsetsSlot: slot },
+          },
+        );
+      }
+      keys.push(key);
+    }
+    return keys;
+  }
+
+  /**
+   * The offsets stored with this sink's data for a Kafka bridge's consumer group: the next offset
+   * to read per partition (absent where nothing is stored). Used by the bridge on assignment.
+   */
+  async storedOffsets(
+    group: string,
+    partitions: ReadonlyArray<{ topic: string; partition: number }>,
+  ): Promise<Array<{ topic: string; partition: number; offset: string }>> {
+    const hash = this.offsets;
+    if (hash === undefined)
+      throw invalidOption('storeOffsets', 'set on the Redis sink whose stored offsets are read', undefined);
+    if (group !== hash.group)
+      throw invalidOption('groupId', `the group the sink stores offsets for ("${hash.group}")`, group);
+    let stored: StoredOffsets;
+    try {
+      stored = await hash.read(this.o.client, partitions);
+    } catch (error) {
+      throw this.wrap(error, ['HMGET'], { step: 'read stored offsets' });
+    }
+    const out: Array<{ topic: string; partition: number; offset: string }> = [];
+    for (const p of partitions) {
+      const next = stored.get(rangeKey(p.topic, p.partition));
+      if (next !== undefined) out.push({ topic: p.topic, partition: p.partition, offset: next.toString() });
+    }
+    return out;
   }
 
   /** Keeps the worst error of a record (fatal over split over retry). */
@@ -190,7 +382,11 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
     return pipeline;
   }
 
-  private wrap(error: unknown, command: readonly [string, ...unknown[]]): StoreError {
+  private wrap(
+    error: unknown,
+    command: readonly [string, ...unknown[]],
+    extra: Record<string, unknown> = {},
+  ): StoreError {
     if (error instanceof StoreError) return error;
     const unknown = isUnknownOutcome(error);
     const name = String(command[0]).toUpperCase();
@@ -201,12 +397,25 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
     return new StoreError(`Redis ${what} (mapping "${this.o.mapping.name}"): ${safeMessage(error)}`, {
       cause: error,
       driverCode,
-      details: { command: name, mapping: this.o.mapping.name, outcome: unknown ? 'unknown' : 'failed' },
+      details: {
+        command: name,
+        mapping: this.o.mapping.name,
+        outcome: unknown ? 'unknown' : 'failed',
+        ...extra,
+      },
     });
   }
 
   classify(error: unknown): ErrorClass {
-    if (error instanceof StoreError && error.details.stage === 'mapping') return 'split';
+    if (error instanceof StoreError) {
+      const { details } = error;
+      if (details.stage === 'mapping') return 'split';
+      if (details.offsets === 'moving') return 'retry';
+      // A script whose records all carry offsets may run twice: the second run changes nothing.
+      if (details.guarded === true && isUnknownOutcome(error)) return 'retry';
+      // The offsets script itself failed (not a command it ran): no record is to blame.
+      if (details.step === 'offsets' && SCRIPT_FAILURE.test(messageOf(error.cause))) return 'fatal';
+    }
     const cls = classifyRedisError(error, {
       unknownOutcome: this.o.onUnknownOutcome === 'retry' ? 'retry' : 'split',
     });

@@ -80,8 +80,8 @@ export interface RedisClassifyOptions {
  * Classifies a Redis / ioredis error:
  * - `retry`: LOADING, BUSY, TRYAGAIN, CLUSTERDOWN, MASTERDOWN, READONLY, MOVED/ASK, OOM; lost
  *   connections, refused connections, commands flushed unsent; unknown outcomes by default.
- * - `fatal`: NOAUTH, NOPERM, WRONGPASS, CROSSSLOT, NOSCRIPT, `ERR unknown command`, a client that
- *   was ended, and errors that are not from Redis (bugs).
+ * - `fatal`: NOAUTH, NOPERM, WRONGPASS, CROSSSLOT, NOSCRIPT, `ERR unknown command`, a command a
+ *   script may not call, a client that was ended, and errors that are not from Redis (bugs).
  * - `split`: any other error reply (WRONGTYPE, `ERR value is not an integer`, EXECABORT, …): the
  *   data of some record is wrong for its key; bisecting isolates it and it is dead-lettered.
  */
@@ -93,7 +93,12 @@ export function classifyRedisError(error: unknown, options: RedisClassifyOptions
     if (RETRY_PREFIXES.has(prefix)) return 'retry';
     if (FATAL_PREFIXES.has(prefix)) return 'fatal';
     const message = String(field(inner, 'message') ?? '');
-    if (/^ERR unknown command/i.test(message) || /^ERR wrong number of arguments/i.test(message))
+    if (
+      /^ERR unknown command/i.test(message) ||
+      /^ERR wrong number of arguments/i.test(message) ||
+      // A command a script may not call (e.g. inside the script of `storeOffsets`).
+      /^ERR This Redis command is not allowed from script/i.test(message)
+    )
       return 'fatal';
     if (prefix === 'EXECABORT') {
       // A queue-time error: the causes tell whether it was the data or the command itself.

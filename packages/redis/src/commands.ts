@@ -23,6 +23,11 @@ export interface RedisMapping<T> {
    * what the adapter does when the outcome of a write is unknown (see `onUnknownOutcome`).
    */
   readonly idempotent: boolean;
+  /**
+   * True when the commands run a script (`EVAL`, `EVALSHA`, `FCALL`): they cannot go inside the
+   * script `storeOffsets` sends a batch as (Redis does not let a script call another).
+   */
+  readonly scripted?: boolean;
   /** The command(s) for one record, in the order they must run. */
   commands(record: T, meta: RecordMeta | undefined): RedisCommand | readonly RedisCommand[];
   /**

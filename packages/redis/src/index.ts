@@ -1,4 +1,4 @@
-export { RedisAdapter, redisAdapter } from './adapter.js';
+export { RedisAdapter, type RedisAdapterStats, redisAdapter } from './adapter.js';
 export type { RedisClassifyOptions } from './classify.js';
 export { classifyRedisError, isUnknownOutcome, redisErrorPrefix } from './classify.js';
 export type { RedisArg, RedisCommand, RedisMapping } from './commands.js';
@@ -19,5 +19,5 @@ export {
   streamEntry,
   stringValue,
 } from './mappings.js';
-export type { RedisAdapterOptions } from './options.js';
+export type { RedisAdapterOptions, StoreOffsetsOptions } from './options.js';
 export { keySlot } from './slot.js';

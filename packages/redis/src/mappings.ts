@@ -230,6 +230,7 @@ export function counter<T>(options: CounterMapping<T>): RedisMapping<T> {
   return {
     name: 'counter',
     idempotent: dedupe !== undefined,
+    scripted: dedupe !== undefined,
     commands(record, meta): RedisCommand {
       const n = by(record, meta);
       if (dedupe !== undefined) {

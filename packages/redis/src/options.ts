@@ -41,11 +41,34 @@ export interface RedisAdapterOptions<T> {
    */
   onUnknownOutcome?: 'retry' | 'dead-letter';
   /**
+   * Exactly-once from a Kafka bridge: each batch goes out as one Lua script that also stores, for
+   * every source partition in the batch, the next offset to read, in the hash `key` under `group`
+   * (field `<group>/<topic>/<partition>`). Data and offsets land together; the store is a
+   * compare-and-set, so a batch whose records are stored already (a replay, a stale consumer, a
+   * script ioredis sent twice) writes only the records not yet stored. Give the bridge this adapter
+   * in `offsetStores`. Implies `atomic`; with a `Cluster` every key of a batch must be in `key`'s
+   * slot (one `{hash tag}`), or the batch is refused. Not with a mapping that runs its own script
+   * (`counter` with `dedupe`: the plain `counter` is exactly-once here).
+   * @default undefined (offsets are not stored; at-least-once)
+   * @example { group: 'dock-availability', key: 'tandem:{events}:offsets' }
+   */
+  storeOffsets?: StoreOffsetsOptions;
+  /**
    * Quit the client when the sink closes.
    * @default false
    * @example true
    */
   closeClient?: boolean;
+}
+
+export interface StoreOffsetsOptions {
+  /** The Kafka consumer group the offsets belong to (the bridge's `groupId`). */
+  group: string;
+  /**
+   * The hash holding this sink's offsets. One per sink: two sinks sharing it would skip each
+   * other's records. With a `Cluster`, in the slot of the sink's data keys.
+   */
+  key: string;
 }
 
 export interface ResolvedRedisOptions<T> {
@@ -54,9 +77,36 @@ export interface ResolvedRedisOptions<T> {
   atomic: boolean;
   onUnknownOutcome: 'retry' | 'dead-letter';
   closeClient: boolean;
+  storeOffsets: StoreOffsetsOptions | undefined;
 }
 
-const KNOWN = new Set(['client', 'mapping', 'atomic', 'onUnknownOutcome', 'closeClient']);
+const KNOWN = new Set(['client', 'mapping', 'atomic', 'onUnknownOutcome', 'closeClient', 'storeOffsets']);
+
+function storeOffsetsOption(
+  value: unknown,
+  atomic: boolean | undefined,
+  mapping: { name: string; scripted?: boolean },
+): StoreOffsetsOptions | undefined {
+  if (value === undefined) return undefined;
+  const o = knownOptions(value, ['group', 'key'], 'storeOffsets');
+  if (typeof o.group !== 'string' || o.group.length === 0)
+    throw invalidOption('storeOffsets.group', 'the consumer group id (a non-empty string)', o.group);
+  if (typeof o.key !== 'string' || o.key.length === 0)
+    throw invalidOption('storeOffsets.key', 'the name of the hash holding this sink’s offsets', o.key);
+  if (atomic === false)
+    throw invalidOption(
+      'atomic',
+      'true or left out with `storeOffsets` (the offsets go with the batch)',
+      atomic,
+    );
+  if (mapping.scripted === true)
+    throw invalidOption(
+      'mapping',
+      `a mapping that runs no script of its own with \`storeOffsets\` (scripts cannot call scripts; "${mapping.name}" with \`dedupe\` does — the plain counter is exactly-once with \`storeOffsets\`)`,
+      mapping.name,
+    );
+  return { group: o.group, key: o.key };
+}
 
 export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): ResolvedRedisOptions<T> {
   if (options === undefined) throw invalidOption('options', 'an object', options);
@@ -81,7 +131,8 @@ export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): Resolve
       mapping,
     );
   }
-  const atomic = booleanOption('atomic', options.atomic, false);
+  const storeOffsets = storeOffsetsOption(options.storeOffsets, options.atomic, mapping);
+  const atomic = booleanOption('atomic', options.atomic, storeOffsets !== undefined);
   const onUnknownOutcome = choiceOption(
     'onUnknownOutcome',
     options.onUnknownOutcome,
@@ -89,5 +140,5 @@ export function resolveRedisOptions<T>(options: RedisAdapterOptions<T>): Resolve
     mapping.idempotent ? 'retry' : 'dead-letter',
   );
   const closeClient = booleanOption('closeClient', options.closeClient, false);
-  return { client, mapping, atomic, onUnknownOutcome, closeClient };
+  return { client, mapping, atomic, onUnknownOutcome, closeClient, storeOffsets };
 }

@@ -1,7 +1,15 @@
 import { StoreError } from '@spillway/core';
 import { describe, expect, it } from 'vitest';
+import { redisAdapter } from '../src/adapter.js';
 import { classifyRedisError, isUnknownOutcome, redisErrorPrefix } from '../src/classify.js';
-import { counter, hashFields, offsetStreamId, streamEntry, stringValue } from '../src/mappings.js';
+import {
+  commandMapping,
+  counter,
+  hashFields,
+  offsetStreamId,
+  streamEntry,
+  stringValue,
+} from '../src/mappings.js';
 import { resolveRedisOptions } from '../src/options.js';
 import { crc16, keySlot } from '../src/slot.js';
 
@@ -182,5 +190,111 @@ describe('options', () => {
     expect(() => resolveRedisOptions({ client: {} as never, mapping })).toThrow(/client/);
     expect(() => resolveRedisOptions({ client, mapping, batchSize: 3 } as never)).toThrow(/batchSize/);
     expect(() => stringValue({ key: 'k' as never, value: () => 'v' })).toThrow(/`key`/);
+  });
+});
+
+describe('storeOffsets', () => {
+  const client = { pipeline() {}, status: 'ready' } as never;
+  const mapping = counter({ key: () => 'c', by: () => 1 });
+
+  it('implies atomic and takes a group and a key', () => {
+    const o = resolveRedisOptions({ client, mapping, storeOffsets: { group: 'g', key: 'tandem:offsets' } });
+    expect(o.atomic).toBe(true);
+    expect(o.storeOffsets).toEqual({ group: 'g', key: 'tandem:offsets' });
+  });
+
+  it('names what is missing or cannot go with it', () => {
+    expect(() => resolveRedisOptions({ client, mapping, storeOffsets: { group: 'g' } as never })).toThrow(
+      /`storeOffsets.key`/,
+    );
+    expect(() => resolveRedisOptions({ client, mapping, storeOffsets: { key: 'k' } as never })).toThrow(
+      /`storeOffsets.group`/,
+    );
+    expect(() =>
+      resolveRedisOptions({ client, mapping, storeOffsets: { group: 'g', key: 'k', table: 't' } as never }),
+    ).toThrow(/`storeOffsets.table`/);
+    expect(() =>
+      resolveRedisOptions({ client, mapping, atomic: false, storeOffsets: { group: 'g', key: 'k' } }),
+    ).toThrow(/`atomic`/);
+    const deduped = counter({ key: () => 'c', by: () => 1, dedupe: { key: () => 'm', ttlMs: 1000 } });
+    expect(() =>
+      resolveRedisOptions({ client, mapping: deduped, storeOffsets: { group: 'g', key: 'k' } }),
+    ).toThrow(/`mapping`.*dedupe/);
+  });
+
+  it('refuses, as fatal, a cluster batch whose keys are not all in the offsets hash’s slot', async () => {
+    // A stand-in for an ioredis Cluster: the refusal comes before anything is sent.
+    let sent = 0;
+    const cluster = {
+      isCluster: true,
+      status: 'ready',
+      pipeline() {},
+      async eval() {
+        sent++;
+        return ['done'];
+      },
+    } as never;
+    const adapter = redisAdapter<{ dock: string }>({
+      client: cluster,
+      mapping: hashFields({ key: (r) => `tandem:{docks}:${r.dock}`, fields: () => ({ free: 1 }) }),
+      storeOffsets: { group: 'g', key: 'tandem:{docks}:offsets' },
+    });
+    const metas = [0, 1].map((offset) => ({ topic: 't', partition: 0, offset: String(offset) }));
+    // Keys under the hash tag of the offsets hash: one slot (Redis Cluster specification, "Hash tags").
+    await adapter.write({
+      id: 1,
+      reason: 'size',
+      attempt: 1,
+      records: [{ dock: 'a' }, { dock: 'b' }],
+      metas,
+      bytes: 2,
+    });
+    expect(sent).toBe(1);
+
+    const spread = redisAdapter<{ dock: string }>({
+      client: cluster,
+      mapping: hashFields({ key: (r) => `tandem:dock:${r.dock}`, fields: () => ({ free: 1 }) }),
+      storeOffsets: { group: 'g', key: 'tandem:{docks}:offsets' },
+    });
+    const error = await spread
+      .write({ id: 2, reason: 'size', attempt: 1, records: [{ dock: 'a' }, { dock: 'b' }], metas, bytes: 2 })
+      .catch((e: unknown) => e);
+    expect(error).toBeInstanceOf(StoreError);
+    expect((error as StoreError).message).toMatch(/cannot be atomic.*\{hash tag\}/);
+    expect(spread.classify(error)).toBe('fatal');
+    expect(sent).toBe(1);
+  });
+
+  it('stops the sink on a mapping that sends a script of its own', async () => {
+    const adapter = redisAdapter<number>({
+      client: { pipeline() {}, status: 'ready', eval: async () => ['done'] } as never,
+      mapping: commandMapping({ idempotent: true, commands: () => ['EVALSHA', 'abc', 0] }),
+      storeOffsets: { group: 'g', key: 'k' },
+    });
+    const error = await adapter
+      .write({ id: 1, reason: 'size', attempt: 1, records: [1], metas: [undefined], bytes: 1 })
+      .catch((e: unknown) => e);
+    expect((error as StoreError).message).toMatch(/EVALSHA.*cannot run inside the script/);
+    expect(adapter.classify(error)).toBe('fatal');
+  });
+
+  it('retries an unknown outcome of a script whose records all carry offsets, whatever onUnknownOutcome says', () => {
+    const adapter = redisAdapter<number>({
+      client,
+      mapping,
+      storeOffsets: { group: 'g', key: 'k' },
+      onUnknownOutcome: 'dead-letter',
+    });
+    const abort = named('AbortError', 'Command aborted due to connection close');
+    const guarded = new StoreError('Redis outcome unknown for EVAL', {
+      cause: abort,
+      details: { command: 'EVAL', outcome: 'unknown', step: 'offsets', guarded: true },
+    });
+    const unguarded = new StoreError('Redis outcome unknown for EVAL', {
+      cause: abort,
+      details: { command: 'EVAL', outcome: 'unknown', step: 'offsets', guarded: false },
+    });
+    expect(adapter.classify(guarded)).toBe('retry');
+    expect(adapter.classify(unguarded)).toBe('split');
   });
 });

@@ -116,6 +116,8 @@ const printStats = () => {
     pauses: s.pauses,
     paused: s.partitions.filter((p) => p.paused).length,
     held: s.partitions.reduce((n, p) => n + p.heldMessages, 0),
+    // The PostgreSQL adapters' own counters (failed writes, offset conflicts, resolved commits).
+    adapters: adapters.map((a) => (a as { stats?: () => unknown }).stats?.()),
   });
 };
 const stats = setInterval(printStats, 500);

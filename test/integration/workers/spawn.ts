@@ -5,7 +5,7 @@ import { createInterface } from 'node:readline';
 import { fileURLToPath } from 'node:url';
 import type { WorkerConfig } from './bridge-worker.js';
 
-const script = fileURLToPath(new URL('./bridge-worker.ts', import.meta.url));
+const bridgeWorker = fileURLToPath(new URL('./bridge-worker.ts', import.meta.url));
 const tsconfig = fileURLToPath(new URL('./tsconfig.json', import.meta.url));
 
 export interface WorkerLine {
@@ -29,7 +29,8 @@ export interface Worker {
   stderr(): string;
 }
 
-export function startWorker(config: WorkerConfig): Worker {
+/** Starts a worker process: bridge-worker.ts, or another `script` that reads BRIDGE_WORKER. */
+export function startWorker(config: WorkerConfig | { label: string }, script = bridgeWorker): Worker {
   const child = spawn(process.execPath, ['--import', 'tsx', script], {
     env: { ...process.env, TSX_TSCONFIG_PATH: tsconfig, BRIDGE_WORKER: JSON.stringify(config) },
     stdio: ['ignore', 'pipe', 'pipe'],

@@ -1,0 +1,124 @@
+// A consumer process for the Redis exactly-once tests: a KafkaBridge in a consumer group appending
+// dock events to one Redis list (RPUSH) or stream (XADD with server-made ids), neither of which is
+// idempotent, with the offsets stored in the same script as each batch (`storeOffsets`). The
+// process-wide shutdown coordinator is installed, so a test can SIGTERM it (exit 143) or SIGKILL it.
+//
+// Run: TSX_TSCONFIG_PATH=test/integration/workers/tsconfig.json node --import tsx \
+//        test/integration/workers/redis-bridge-worker.ts   with BRIDGE_WORKER='{"brokers":[…],…}'
+// Prints one JSON object per line on stdout, as bridge-worker.ts does.
+import { fileDeadLetter, installShutdown, Sink } from '@spillway/core';
+import { KafkaBridge } from '@spillway/kafka';
+import { commandMapping, redisAdapter, streamEntry } from '@spillway/redis';
+import { Redis } from 'ioredis';
+import { Kafka, logLevel } from 'kafkajs';
+import { type DockRow, decodeDockEvent } from './dock-rows.js';
+
+export interface RedisWorkerConfig {
+  label: string;
+  brokers: string[];
+  topic: string;
+  groupId: string;
+  redisUrl: string;
+  /** Where the events go: a list (one JSON element per event) or a stream (one entry per event). */
+  layout: 'list' | 'stream';
+  /** The list or stream key. */
+  dataKey: string;
+  /** The hash of stored offsets (`storeOffsets.key`). */
+  offsetsKey: string;
+  deadLetterPath: string;
+  /** The bridge's commitIntervalMs. @default 300 */
+  commitIntervalMs?: number;
+  maxRecords?: number;
+  maxAgeMs?: number;
+}
+
+const config = JSON.parse(process.env.BRIDGE_WORKER ?? '{}') as RedisWorkerConfig;
+const out = (event: string, data: Record<string, unknown> = {}) =>
+  process.stdout.write(
+    `${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`,
+  );
+
+const shutdown = installShutdown({
+  timeoutMs: 20_000,
+  log: (line) => process.stderr.write(`[${config.label}] ${line}\n`),
+});
+// Named after the worker, so that a test can see when the server has dropped its connection.
+const redis = new Redis(config.redisUrl, { connectionName: config.label });
+redis.on('error', () => undefined);
+
+const mapping =
+  config.layout === 'list'
+    ? commandMapping<DockRow>({
+        name: 'dock-list',
+        idempotent: false,
+        commands: (r) => [
+          'RPUSH',
+          config.dataKey,
+          JSON.stringify({ seq: r.seq, p: r.partition, o: r.offset }),
+        ],
+      })
+    : streamEntry<DockRow>({
+        key: () => config.dataKey,
+        fields: (r) => ({ seq: r.seq, dock: r.dock, p: r.partition, o: r.offset }),
+      });
+const adapter = redisAdapter<DockRow>({
+  client: redis,
+  mapping,
+  storeOffsets: { group: config.groupId, key: config.offsetsKey },
+});
+const sink = new Sink<DockRow>(adapter, {
+  name: config.dataKey,
+  maxRecords: config.maxRecords ?? 1000,
+  maxAgeMs: config.maxAgeMs ?? 200,
+  deadLetter: fileDeadLetter(`${config.deadLetterPath}.sink`),
+});
+shutdown.addSink(sink);
+
+const kafka = new Kafka({ clientId: config.label, brokers: config.brokers, logLevel: logLevel.NOTHING });
+const bridge = new KafkaBridge<DockRow>({
+  kafka,
+  groupId: config.groupId,
+  // Short group timers so a rebalance takes about a second; the flush deadline stays well under them.
+  consumerConfig: {
+    sessionTimeout: 10_000,
+    rebalanceTimeout: 20_000,
+    heartbeatInterval: 500,
+    maxWaitTimeInMs: 200,
+  },
+  topics: [config.topic],
+  fromBeginning: true,
+  decode: decodeDockEvent,
+  route: () => sink,
+  deadLetter: fileDeadLetter(config.deadLetterPath),
+  commitIntervalMs: config.commitIntervalMs ?? 300,
+  offsetStores: [{ sink, store: adapter }],
+  rebalanceFlushMs: 4000,
+  shutdown,
+  name: config.label,
+});
+shutdown.add('clients', 'redis', async () => {
+  await redis.quit().catch(() => redis.disconnect());
+});
+
+bridge.on('assign', (e) => out('assign', { assigned: e.assigned, revoked: e.revoked, kept: e.kept }));
+bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Error)?.message }));
+
+const printStats = () => {
+  const s = bridge.snapshot();
+  const a = adapter.stats();
+  out('stats', {
+    messages: s.messages,
+    commits: s.commits,
+    skippedStored: s.skippedStored,
+    offsetConflicts: a.offsetConflicts,
+    alreadyStored: a.alreadyStored,
+    deadLettered: sink.snapshot().deadLettered,
+  });
+};
+const stats = setInterval(printStats, 500);
+stats.unref();
+shutdown.add('sources', 'stats', () => clearInterval(stats));
+shutdown.add('clients', 'final stats', printStats);
+
+await bridge.start();
+out('ready');
