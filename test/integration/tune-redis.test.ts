@@ -228,7 +228,7 @@ describe('tuning with the user’s Redis key template and mapping', () => {
     expect(await userKeys(r.redis)).toEqual(before);
   });
 
-  it('`spillway tune --key-template` tunes a string mapping from the flags, prints the outcome as JSON, and refuses a missing sample or a non-Redis URL with exit 64', async () => {
+  it('`spillway tune --key-template` tunes a string mapping from the flags, prints the outcome as JSON, and refuses a missing sample, a non-Redis URL or a mapping flag without a key template with exit 64', async () => {
     const before = await userKeys(r.redis);
     const chart = join(dir, 'redis.svg');
     const ok = await spillway(
@@ -282,6 +282,9 @@ describe('tuning with the user’s Redis key template and mapping', () => {
     );
     expect(wrongStore.code).toBe(64);
     expect(wrongStore.err).toContain('--key-template works with a redis:// --to only');
+    const stray = await spillway('--to', services().redisUrl, '--fields', 'status', '--p99', '100');
+    expect(stray.code).toBe(64);
+    expect(stray.err).toContain('--fields goes with --key-template only');
     expect(await userKeys(r.redis)).toEqual(before);
   });
 });

@@ -333,6 +333,8 @@ export function registerTune(program: Command): void {
         return fail(`${own.join(' and ')} do not go together: tune one store at a time`, 64);
       if (own.length === 1 && (o.shape?.length ?? 0) > 1)
         return fail(`--shape takes one shape with ${own[0]}`, 64);
+      const stray = strayFlag(o);
+      if (stray) return fail(stray, 64);
       if (o.table !== undefined) return tuneTableCommand(o);
       if (o.keyTemplate !== undefined) return tuneRedisCommand(o);
       if (o.topic !== undefined) return tuneKafkaCommand(o);
@@ -370,6 +372,41 @@ export function registerTune(program: Command): void {
       process.stdout.write(o.json ? `${JSON.stringify(outcome, null, 1)}\n` : `${formatTune(outcome)}\n`);
       if (!outcome.best) process.exitCode = 3;
     });
+}
+
+/** A flag of one store's tune given without that store's flag, named with the flag it needs. */
+function strayFlag(o: TuneCommandOptions): string | undefined {
+  const groups: [string, unknown, [string, unknown][]][] = [
+    [
+      '--key-template',
+      o.keyTemplate,
+      [
+        ['--mapping', o.mapping],
+        ['--fields', o.fields],
+        ['--value-field', o.valueField],
+        ['--member-field', o.memberField],
+        ['--score-field', o.scoreField],
+        ['--by-field', o.byField],
+        ['--ttl', o.ttl],
+        ['--max-len', o.maxLen],
+        ['--atomic', o.atomic],
+      ],
+    ],
+    [
+      '--topic',
+      o.topic,
+      [
+        ['--message-key', o.messageKey],
+        ['--acks', o.acks],
+        ['--no-idempotent', o.idempotent === false ? true : undefined],
+        ['--compression', o.compression],
+      ],
+    ],
+  ];
+  for (const [owner, given, flags] of groups)
+    if (given === undefined)
+      for (const [flag, value] of flags) if (value !== undefined) return `${flag} goes with ${owner} only`;
+  return undefined;
 }
 
 const redact = (url: string) => url.replace(/\/\/[^@/]*@/, '//***@');
