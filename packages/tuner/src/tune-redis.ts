@@ -94,11 +94,12 @@ export async function tuneRedis(o: RedisTuneOptions): Promise<RedisTuneOutcome> 
   const sample: RecordSample = await loadRecords(o.sample, mappingNeeds(spec, key), o.timestampColumn);
   const load = planLoad(o, sample.timesMs);
   const fields = writtenFields(spec, key, sample.fields);
-  const mapping: RedisMappingSpec = {
-    kind: spec.kind,
-    ...Object.fromEntries(Object.entries(spec).filter(([k, v]) => k !== 'kind' && v !== undefined)),
+  // The mapping as it ran, for the report: the options given, and the fields a hash or stream wrote.
+  const given = Object.entries(spec).filter(([, v]) => v !== undefined);
+  const mapping = {
+    ...Object.fromEntries(given),
     ...(spec.kind === 'hash' || spec.kind === 'stream' ? { fields } : {}),
-  };
+  } as RedisMappingSpec;
 
   const stop = interruption(o, 'the scratch keys were deleted');
   const client: Redis = new RedisClient(o.url, {
