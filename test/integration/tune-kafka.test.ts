@@ -130,10 +130,12 @@ describe('tuning a Kafka producer sink on a scratch topic made like the user’s
         topic,
         key: 'dock_id',
         sample,
-        rate: 500,
-        p99Ms: 400,
+        // A loose target: the machine running the tests is shared, and the check here is on where
+        // the records go, not on how fast the broker is.
+        rate: 300,
+        p99Ms: 1000,
         trialMs: 500,
-        budgetMs: 4000,
+        budgetMs: 5000,
         validateMs: 1500,
         maxConcurrency: 2,
         onProgress: (e) => {

