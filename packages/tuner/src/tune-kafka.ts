@@ -5,6 +5,7 @@
 import { invalidOption } from '@spillway/core/kit';
 import type { Row } from '@spillway/ingest';
 import type { Admin } from 'kafkajs';
+import { cannotConnect } from './cannot-connect.js';
 import { interruption } from './interrupt.js';
 import type { ScratchTopic, TopicShape } from './kafka-topic.js';
 import { keepOpen } from './keep-open.js';
@@ -105,7 +106,9 @@ export async function tuneKafka(o: KafkaTuneOptions): Promise<KafkaTuneOutcome> 
   let scratch: ScratchTopic | undefined;
   let close: (() => Promise<void>) | undefined;
   try {
-    await admin.connect();
+    await admin.connect().catch((e: unknown) => {
+      throw cannotConnect(`the Kafka brokers ${o.brokers.join(',')}`, e);
+    });
     const cluster = await admin.describeCluster();
     const server = `Kafka cluster ${cluster.clusterId}, ${cluster.brokers.length} broker(s)`;
     const like = await topics.describeTopic(admin, o.topic);

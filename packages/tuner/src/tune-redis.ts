@@ -4,6 +4,7 @@
 import { invalidOption } from '@spillway/core/kit';
 import type { Row } from '@spillway/ingest';
 import type { Redis } from 'ioredis';
+import { cannotConnect, redactUrl } from './cannot-connect.js';
 import { interruption } from './interrupt.js';
 import { round } from './numbers.js';
 import type { RecordSample } from './record-sample.js';
@@ -107,11 +108,15 @@ export async function tuneRedis(o: RedisTuneOptions): Promise<RedisTuneOutcome> 
     maxRetriesPerRequest: 3,
     connectionName: 'spillway-tune',
   });
-  client.on('error', () => undefined);
+  // ioredis reports why a connection failed here; connect() itself only says it closed.
+  let lastError: unknown;
+  client.on('error', (e) => (lastError = e));
   const prefix = scratchPrefix();
   let wrote = false;
   try {
-    await client.connect();
+    await client.connect().catch((e: unknown) => {
+      throw cannotConnect(`Redis at ${redactUrl(o.url)}`, lastError ?? e);
+    });
     const info = await client.info('server');
     const server = `Redis ${/redis_version:(\S+)/.exec(info)?.[1] ?? '?'}`;
     stop.halt();

@@ -2,6 +2,7 @@
 // the user's rows, write mode, rate and arrival shape, then checks the pick with one more run.
 import { invalidOption } from '@spillway/core/kit';
 import type pg from 'pg';
+import { cannotConnect, redactUrl } from './cannot-connect.js';
 import { interruption } from './interrupt.js';
 import { round } from './numbers.js';
 import { prefillScratch } from './prefill.js';
@@ -112,7 +113,11 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
   let scratch: ScratchTable | undefined;
   try {
     const server =
-      (await pool.query<{ server_version: string }>('SHOW server_version')).rows[0]?.server_version ?? '?';
+      (
+        await pool.query<{ server_version: string }>('SHOW server_version').catch((e: unknown) => {
+          throw cannotConnect(`PostgreSQL at ${redactUrl(o.url)}`, e);
+        })
+      ).rows[0]?.server_version ?? '?';
     const info: TableInfo = await inspectTable(pool, o.table);
     const key = mode === 'upsert' ? resolveKey(info, o.key) : undefined;
     const needs = {

@@ -70,7 +70,8 @@ export function progressPrinter(): (e: TuneTableEvent) => void {
 
 /**
  * Runs `tune` and prints its outcome. Exit codes: 0 recommended and validated, 3 no setting met
- * the target, 4 the validation missed, 64 bad input, 130 / 143 interrupted.
+ * the target, 4 the validation missed, 64 bad input, 69 the server could not be connected to,
+ * 130 / 143 interrupted.
  */
 export async function runUserTune<O extends SearchOutcome>(
   flags: SearchFlags,
@@ -94,6 +95,7 @@ export async function runUserTune<O extends SearchOutcome>(
     const e = error as Error & { code?: string; details?: { signal?: string } };
     if (e.code === 'SPILLWAY_ABORTED') return fail(e.message, e.details?.signal === 'SIGTERM' ? 143 : 130);
     if (e.code === 'SPILLWAY_INVALID_OPTION' || e.code === 'SPILLWAY_INPUT_ERROR') return fail(e.message, 64);
+    if (e.code === 'SPILLWAY_STORE_ERROR') return fail(e.message, 69);
     throw error;
   }
 }

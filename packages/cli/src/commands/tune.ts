@@ -224,7 +224,8 @@ Example (Kafka, a real run, trimmed where marked; the README shows it whole):
 
 Exit codes: 0 a setting is recommended and its validation run held · 3 no setting met the target ·
 4 the validation run missed the target · 64 bad input (unknown table, topic or sample field, …) ·
-130 / 143 interrupted (the scratch copy, keys or topic are removed first).`;
+69 the server could not be connected to · 130 / 143 interrupted (the scratch copy, keys or topic
+are removed first).`;
 
 /** Registers `tune`: pick settings for a p99 target on your store. The tuner loads when it runs. */
 export function registerTune(program: Command): void {
