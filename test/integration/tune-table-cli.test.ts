@@ -246,10 +246,18 @@ describe('spillway tune --table', () => {
     expect(await userRows()).toBe(1);
   });
 
-  it('shows a full example run on a user table with a sample file in --help', async () => {
+  it('shows an example run on a user table, on Redis keys and on a Kafka topic, each with a sample file, in --help', async () => {
     const r = await spillway('--help');
-    expect(r.out + r.err).toContain('--table <schema.table>');
-    expect(r.out + r.err).toContain('--sample <file>');
-    expect(r.out + r.err).toContain('spillway tune --to postgres://');
+    const help = r.out + r.err;
+    expect(help).toContain('--table <schema.table>');
+    expect(help).toContain('--sample <file>');
+    expect(help).toContain('spillway tune --to postgres://');
+    expect(help).toContain('--key-template <template>');
+    expect(help).toContain(
+      "spillway tune --to redis://127.0.0.1:6379 --key-template 'tandem:dock:{dock_id}'",
+    );
+    expect(help).toContain('--topic <name>');
+    expect(help).toContain('spillway tune --to kafka://127.0.0.1:39661 --topic tandem.dock-events');
+    expect(help).toContain('Validation: 10 s at 2,000 records/s on the scratch topic');
   });
 });

@@ -1,5 +1,6 @@
 // When the records of a table trial arrive: one of the suite's shapes at the user's rate, or a
 // replay of the sample's own timestamps.
+import { SpillwayError } from '@spillway/core';
 import { type Arrival, arrivals, type ShapeName, shapeParams } from './shapes.js';
 
 /** A trial's load: a named shape, or `replay` of the sample's timestamps. */
@@ -57,4 +58,43 @@ export function recordedRate(timesMs: number[]): number {
   if (timesMs.length < 2) return 1;
   const span = timesMs[timesMs.length - 1]! - timesMs[0]!;
   return span <= 0 ? timesMs.length : ((timesMs.length - 1) / span) * 1000;
+}
+
+/** The load of every trial of a tune: its shape, its rate, and each trial's arrival times. */
+export interface LoadPlan {
+  shape: TableShape;
+  rate: number;
+  /** Arrival times (ms from the start) of a trial; `startRow` is where the records pick up. */
+  schedule(durationMs: number, seed: number, startRow: number): number[];
+}
+
+/**
+ * The shape and rate asked for (`replay` when a timestamp column is named), the rate of a replay
+ * defaulting to the recording's own. Throws SPILLWAY_INPUT_ERROR when the timestamps span no time.
+ */
+export function planLoad(
+  o: { shape?: TableShape | undefined; rate?: number | undefined; timestampColumn?: string | undefined },
+  timesMs: number[] | undefined,
+): LoadPlan {
+  const shape: TableShape = o.shape ?? (o.timestampColumn !== undefined ? 'replay' : 'steady');
+  let rate = o.rate ?? 1000;
+  let scale = 1;
+  if (shape === 'replay') {
+    const times = timesMs ?? [];
+    if (times.length < 2 || times[times.length - 1]! <= times[0]!)
+      throw new SpillwayError(
+        'SPILLWAY_INPUT_ERROR',
+        `--timestamp-column ${o.timestampColumn}: the sample's timestamps span no time, so there is nothing to replay`,
+      );
+    const natural = recordedRate(times);
+    rate = o.rate ?? natural;
+    scale = natural / rate;
+  }
+  return {
+    shape,
+    rate,
+    schedule: (durationMs, seed, startRow) => [
+      ...tableArrivals({ shape, rate, durationMs, seed }, timesMs ? { timesMs, scale, startRow } : undefined),
+    ],
+  };
 }

@@ -1,11 +1,10 @@
-// The rows a table trial writes: the user's sample (read by @spillway/ingest's CSV and NDJSON
-// readers, mapped to the table's columns by name), or rows generated from the column types. Both
-// are cycled through the trials; unique columns get a new value on every pass so that an insert
-// does not collide with the rows of an earlier pass.
+// The rows a table trial writes: the user's sample (read by sample-file.ts, mapped to the table's
+// columns by name), or rows generated from the column types. Both are cycled through the trials;
+// unique columns get a new value on every pass so that an insert does not collide with the rows
+// of an earlier pass.
 import { basename } from 'node:path';
-import { type Batch, type ErrorClass, Sink, type SinkAdapter, SpillwayError } from '@spillway/core';
-import { formatFromPath, IngestError, ingestFile, type Row } from '@spillway/ingest';
 import { SeededRandom } from './random.js';
+import { inputError, readSample, timeOrder } from './sample-file.js';
 import { type TableColumn, type TableInfo, writableColumns } from './table-info.js';
 
 /** Values of one row, in the order of `RecordSet.columns`. */
@@ -36,21 +35,6 @@ export interface RecordNeeds {
   timestampColumn?: string;
 }
 
-const inputError = (message: string, details: Record<string, unknown> = {}) =>
-  new SpillwayError('SPILLWAY_INPUT_ERROR', message, { details });
-
-/** Collects what the ingest readers hand over. */
-class Collect implements SinkAdapter<Row> {
-  readonly kind = 'sample';
-  readonly rows: Row[] = [];
-  async write(batch: Batch<Row>): Promise<void> {
-    for (const r of batch.records) this.rows.push(r);
-  }
-  classify(): ErrorClass {
-    return 'fatal';
-  }
-}
-
 /**
  * Reads a CSV or NDJSON sample (format from the extension: .csv, .tsv, .ndjson, .jsonl) and maps
  * its fields to the table's columns by name. A malformed line stops with an error naming the line;
@@ -58,34 +42,8 @@ class Collect implements SinkAdapter<Row> {
  * with an error naming the column.
  */
 export async function loadSample(path: string, table: TableInfo, needs: RecordNeeds): Promise<RecordSet> {
-  const format = formatFromPath(path);
-  if (!format)
-    throw inputError(
-      `--sample ${basename(path)}: expected a .csv, .tsv, .ndjson or .jsonl file (the format is told by the extension)`,
-      { sample: path },
-    );
-  const collect = new Collect();
-  const sink = new Sink(collect, { name: 'sample', maxRecords: 10_000, maxAgeMs: 1000, idleMs: 0 });
-  try {
-    await ingestFile(path, sink, { maxRejects: 0 });
-  } catch (error) {
-    if (error instanceof IngestError) {
-      const first = error.summary.firstRejects[0];
-      const where = first
-        ? `line ${first.line}${first.column ? `, column ${first.column}` : ''}: ${first.message}`
-        : error.message;
-      throw inputError(`--sample ${basename(path)}: ${where}`, { sample: path, line: first?.line });
-    }
-    throw inputError(`--sample ${basename(path)}: ${(error as Error).message}`, { sample: path });
-  } finally {
-    await sink.close().catch(() => undefined);
-  }
-  const rows = collect.rows;
-  if (rows.length === 0)
-    throw inputError(`--sample ${basename(path)}: the file holds no rows`, { sample: path });
-
-  const fields = new Set<string>();
-  for (const r of rows.slice(0, 1000)) for (const k of Object.keys(r)) fields.add(k);
+  const { format, rows, fields: found } = await readSample(path);
+  const fields = new Set(found);
   const writable = writableColumns(table);
   const columns = writable.filter((c) => fields.has(c.name));
   const tableNames = new Set(table.columns.map((c) => c.name));
@@ -119,20 +77,9 @@ export async function loadSample(path: string, table: TableInfo, needs: RecordNe
   let mapped = rows.map((r) => columns.map((c) => value(Object.hasOwn(r, c.name) ? r[c.name] : null)));
   let timesMs: number[] | undefined;
   if (needs.timestampColumn !== undefined) {
-    const col = needs.timestampColumn;
-    const stamps = rows.map((r, i) => {
-      const t = timestampMs(r[col]);
-      if (t === undefined)
-        throw inputError(
-          `--sample ${basename(path)}: row ${i + 1} has no timestamp in "${col}" (--timestamp-column wants RFC 3339 text or epoch milliseconds)`,
-          { sample: path, row: i + 1, column: col },
-        );
-      return t;
-    });
-    const order = stamps.map((_, i) => i).sort((a, b) => stamps[a]! - stamps[b]! || a - b);
-    mapped = order.map((i) => mapped[i]!);
-    const t0 = stamps[order[0]!]!;
-    timesMs = order.map((i) => stamps[i]! - t0);
+    const timed = timeOrder(rows, needs.timestampColumn, path);
+    mapped = timed.order.map((i) => mapped[i]!);
+    timesMs = timed.timesMs;
   }
   return {
     source: basename(path),
@@ -148,14 +95,6 @@ export async function loadSample(path: string, table: TableInfo, needs: RecordNe
 /** A column a row must fill: NOT NULL, no default, not an identity. */
 function needsValue(c: TableColumn): boolean {
   return c.notNull && c.defaultExpr === undefined && c.identity === '';
-}
-
-function timestampMs(v: unknown): number | undefined {
-  if (typeof v === 'number' && Number.isFinite(v)) return v;
-  if (typeof v !== 'string' || v.trim() === '') return undefined;
-  if (/^\d+(\.\d+)?$/.test(v.trim())) return Number(v);
-  const t = Date.parse(v);
-  return Number.isNaN(t) ? undefined : t;
 }
 
 /**

@@ -1,10 +1,10 @@
-// One trial on the scratch copy: a sink with one setting, fed the user's rows at the user's rate
-// and shape, measured from the sink's own events.
+// One trial on the scratch store (a copy of the user's table, scratch Redis keys, a scratch topic):
+// a sink with one setting, fed the user's records at the user's rate and shape, measured from the
+// sink's own events.
 import { type DeadLetterTarget, type RecordMeta, Sink, type SinkAdapter } from '@spillway/core';
 import { Histogram } from '@spillway/core/kit';
 import type { Settings } from './cell-spec.js';
 import { round } from './numbers.js';
-import type { RecordCycle, TableRow } from './table-records.js';
 
 const sleep = (ms: number) => new Promise<void>((resolve) => setTimeout(resolve, ms));
 
@@ -48,22 +48,23 @@ export interface TableTrial {
   firstError?: string;
 }
 
-export interface TrialRun {
-  adapter: SinkAdapter<TableRow>;
-  cycle: RecordCycle;
+export interface TrialRun<T> {
+  adapter: SinkAdapter<T>;
+  /** The records, handed out one after another. */
+  cycle: { next(): T };
   settings: Settings;
   /** Arrival times, ms from the start, in order. */
   schedule: Iterable<number>;
   durationMs: number;
   signal?: AbortSignal;
+  /** The sink's `orderingKey`, when the user's sink will set one (records of a key are never in flight twice). */
+  orderingKey?: ((record: T) => string | undefined) | undefined;
 }
 
-/** Counts dead letters and keeps the first error's code and message, never the record. */
-class CountingDeadLetter implements DeadLetterTarget<TableRow> {
-  count = 0;
+/** Keeps the first dead letter's error code and message, never the record. */
+class FirstError<T> implements DeadLetterTarget<T> {
   first: string | undefined;
   async write(letters: readonly { error: unknown }[]): Promise<void> {
-    this.count += letters.length;
     if (this.first === undefined && letters[0]) {
       const e = letters[0].error as { driverCode?: string; message?: string } | undefined;
       this.first = `${e?.driverCode ? `${e.driverCode} ` : ''}${e?.message ?? String(e)}`;
@@ -72,9 +73,9 @@ class CountingDeadLetter implements DeadLetterTarget<TableRow> {
 }
 
 /** Runs one trial and measures it. */
-export async function runTableTrial(run: TrialRun): Promise<TableTrial> {
+export async function runTableTrial<T>(run: TrialRun<T>): Promise<TableTrial> {
   const s = run.settings;
-  const dead = new CountingDeadLetter();
+  const dead = new FirstError<T>();
   const sink = new Sink(run.adapter, {
     name: 'tune',
     maxRecords: s.maxRecords,
@@ -84,12 +85,14 @@ export async function runTableTrial(run: TrialRun): Promise<TableTrial> {
     deadLetter: dead,
     // A trial must not sit out a long outage: it measures, it does not keep data.
     retry: { maxAttempts: 3, maxElapsedMs: 5000 },
+    ...(run.orderingKey ? { orderingKey: run.orderingKey } : {}),
   });
   const latency = new Histogram(1000);
   const writeTimes = new Histogram(1000);
   const sums: WriteSums = { count: 0, records: 0, ms: 0, recordsSq: 0, recordsMs: 0 };
   const held = new Map<RecordMeta, number>();
   let durable = 0;
+  let deadSettled = 0;
   let backpressureMs = 0;
   sink.on('written', (e) => {
     writeTimes.record(e.durationMs);
@@ -99,13 +102,17 @@ export async function runTableTrial(run: TrialRun): Promise<TableTrial> {
     sums.recordsSq += e.records * e.records;
     sums.recordsMs += e.records * e.durationMs;
   });
+  // Set at the end of the grace period: what settles while the sink closes is not measured.
+  let cutOff = false;
   sink.on('settled', (e) => {
+    if (cutOff) return;
     for (let i = 0; i < e.metas.length; i++) {
       const m = e.metas[i];
       if (m) held.delete(m);
       if (e.outcome === 'durable') latency.record(e.latenciesMs[i] ?? 0);
     }
     if (e.outcome === 'durable') durable += e.metas.length;
+    else deadSettled += e.metas.length;
   });
   sink.on('backpressure', (e) => (backpressureMs += e.waitedMs));
 
@@ -147,6 +154,9 @@ export async function runTableTrial(run: TrialRun): Promise<TableTrial> {
   const graceEnd = Math.max(loadEnd, start + run.durationMs) + grace;
   while (held.size > 0 && performance.now() < graceEnd && !run.signal?.aborted) await sleep(5);
   const cutoff = performance.now();
+  // Counted at the cutoff: a stuck record that lands while the sink closes stays counted as stuck
+  // only, so that durable + dead-lettered + stuck = offered.
+  cutOff = true;
   const stuck = held.size;
   const withStuck = new Histogram(1000);
   // Rebuild p99 over every offered record: the durable ones' latencies, and each stuck one at its age.
@@ -164,7 +174,7 @@ export async function runTableTrial(run: TrialRun): Promise<TableTrial> {
     offered,
     offeredRate: round(offered / (run.durationMs / 1000), 1),
     durable,
-    deadLettered: dead.count,
+    deadLettered: deadSettled,
     stuck,
     throughput: round(durable / loadSeconds, 1),
     p50Ms: round(Math.min(latency.percentile(50), durableSummary.max), 2),

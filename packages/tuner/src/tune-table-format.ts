@@ -1,11 +1,13 @@
 // What a table tune prints: the setup, the table of trials, the recommendation with its
-// validation, and a paste-ready options object; and the chart of p99 against store cost.
+// validation, and a paste-ready options object; and the chart of p99 against store cost. The
+// parts after the setup are the same for a Redis or Kafka tune, which print them from here.
 import type { Settings } from './cell-spec.js';
 import { scatterSvg } from './chart-svg.js';
+import type { SearchOutcome } from './search.js';
 import { byCost, type RankedTrial } from './table-search.js';
 import type { TableTuneOutcome } from './tune-table.js';
 
-const n0 = (v: number) => Math.round(v).toLocaleString('en-US');
+export const n0 = (v: number) => Math.round(v).toLocaleString('en-US');
 const us = (ms: number) => (ms * 1000).toFixed(1);
 
 /** `maxRecords 500, maxAgeMs 25, idleMs 25, concurrency 1` */
@@ -20,7 +22,7 @@ const short = (t: RankedTrial) => {
 };
 
 /** The table of trials, cheapest store cost first. */
-export function trialsTable(o: TableTuneOutcome): string {
+export function trialsTable(o: SearchOutcome): string {
   const head = [
     'maxRecords',
     'maxAgeMs',
@@ -112,6 +114,17 @@ export function formatTableTune(o: TableTuneOutcome): string {
     );
   if (r.repeating.length > 0)
     out.push(`  Unique column(s) that repeat after one pass (expect refusals): ${r.repeating.join(', ')}.`);
+  out.push(...searchReport(o, 'on the copy', optionsSnippet(o)));
+  return out.join('\n');
+}
+
+/**
+ * The report after the setup lines: load and target, the fitted write cost, the trials, the
+ * recommendation with its validation runs and the options to paste. `where` says where the
+ * validation ran ("on the copy", "on the scratch keys").
+ */
+export function searchReport(o: SearchOutcome, where: string, snippet: string): string[] {
+  const out: string[] = [];
   out.push(
     `Load: ${o.load.shape} at ${n0(o.load.rate)} records/s, ${o.load.trialMs} ms per trial. Target: p99 accept → durable ≤ ${o.target.p99Ms} ms; with ${Math.round(o.target.headroom * 100)} % headroom a setting must reach ≤ ${o.target.aimMs} ms.`,
     `Store write cost fitted over ${n0(o.writeCost.writes)} writes: ${o.writeCost.fixedMs.toFixed(2)} ms + ${us(o.writeCost.perRecordMs)} µs per record.`,
@@ -132,7 +145,7 @@ export function formatTableTune(o: TableTuneOutcome): string {
       const s = t.settings;
       out.push(
         '',
-        `Validation: ${(v.durationMs / 1000).toFixed(0)} s at ${n0(o.load.rate)} records/s on the copy, maxRecords ${s.maxRecords}, maxAgeMs ${s.maxAgeMs}, idleMs ${s.idleMs}, concurrency ${s.concurrency} — ${v.holds ? 'the advice holds' : `did NOT hold: ${v.why.join('; ')}`}.`,
+        `Validation: ${(v.durationMs / 1000).toFixed(0)} s at ${n0(o.load.rate)} records/s ${where}, maxRecords ${s.maxRecords}, maxAgeMs ${s.maxAgeMs}, idleMs ${s.idleMs}, concurrency ${s.concurrency} — ${v.holds ? 'the advice holds' : `did NOT hold: ${v.why.join('; ')}`}.`,
         `  p99 ${t.p99Ms.toFixed(1)} ms (target ${o.target.p99Ms} ms) · ${n0(t.throughput)} records/s durable (offered ${n0(t.offeredRate)}) · ${t.stuck} stuck · ${t.deadLettered} refused · ${us(t.storeMsPerRecord)} µs store time per record`,
       );
     }
@@ -142,7 +155,7 @@ export function formatTableTune(o: TableTuneOutcome): string {
         '',
         `The cheapest setting that met the aim (${settingsText(first.trial)}) missed the target in its validation run; the recommendation is the next cheapest with a lower p99, which held.`,
       );
-    out.push('', 'Options to paste:', '', optionsSnippet(o));
+    out.push('', 'Options to paste:', '', snippet);
   } else {
     out.push(
       `No setting met p99 ≤ ${o.target.aimMs} ms (the target less the headroom) at ${n0(o.load.rate)} records/s.`,
@@ -155,13 +168,18 @@ export function formatTableTune(o: TableTuneOutcome): string {
         `Why: one store write already takes ${floor.toFixed(1)} ms at p99, so no batching setting can reach the aim.`,
       );
   }
-  return out.join('\n');
+  return out;
 }
 
 /** The chart of p99 against store cost over the settings tried. */
 export function tableChart(o: TableTuneOutcome): string {
+  return searchChart(o, `${o.table}, ${o.mode}`);
+}
+
+/** The chart of p99 against store cost over the settings of any tune; `what` starts the title. */
+export function searchChart(o: SearchOutcome, what: string): string {
   return scatterSvg({
-    title: `${o.table}, ${o.mode}, ${o.load.shape} at ${n0(o.load.rate)}/s: p99 against store cost`,
+    title: `${what}, ${o.load.shape} at ${n0(o.load.rate)}/s: p99 against store cost`,
     xLabel: 'store time per record, µs',
     yLabel: 'p99 accept → durable, ms',
     points: o.trials.map((t) => ({
