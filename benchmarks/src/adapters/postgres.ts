@@ -266,7 +266,7 @@ async function main(): Promise<void> {
       `per-row INSERT: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)}, spread ${one.spreadPct.toFixed(0)}%)`,
     );
     console.log(
-      'mode   | batch  | raw driver           | sink                 | sink/raw [pairs]  | median pair | sink/per-row | client CPU µs/row raw → sink',
+      'mode   | batch  | raw driver           | sink                 | sink/raw [pairs]  | median pair | sink/per-row | client CPU µs/row raw → sink | CPU sink/raw [pairs]',
     );
     for (const mode of MODES) {
       for (const size of SIZES) {
@@ -276,12 +276,16 @@ async function main(): Promise<void> {
           .get(`sink:${mode}@${size}`)!
           .map((v, i) => v / samples.get(`raw:${mode}@${size}`)![i]!);
         const pr = summary(pairs);
+        // Client CPU per row of the sink over the raw driver's, pair by pair (run back to back).
+        const cpuRaw = samples.get(`cpu:raw:${mode}@${size}`)!;
+        const cpuPairs = summary(samples.get(`cpu:sink:${mode}@${size}`)!.map((v, i) => v / cpuRaw[i]!));
         console.log(
           `${mode.padEnd(6)} | ${String(size).padEnd(6)} | ${`${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +
             `${`${fmt(s.median).padStart(9)} (±${(s.spreadPct / 2).toFixed(0)}%)`.padEnd(20)} | ` +
             `${`${(s.median / r.median).toFixed(2)} [${pr.min.toFixed(2)}–${pr.max.toFixed(2)}]`.padEnd(17)} | ${pr.median.toFixed(2).padEnd(11)} | ` +
             `${`${(s.median / one.median).toFixed(1)}×`.padEnd(12)} | ` +
-            `${summary(samples.get(`cpu:raw:${mode}@${size}`)!).median.toFixed(2)} → ${summary(samples.get(`cpu:sink:${mode}@${size}`)!).median.toFixed(2)}`,
+            `${`${summary(cpuRaw).median.toFixed(2)} → ${summary(samples.get(`cpu:sink:${mode}@${size}`)!).median.toFixed(2)}`.padEnd(28)} | ` +
+            `${cpuPairs.median.toFixed(2)} [${cpuPairs.min.toFixed(2)}–${cpuPairs.max.toFixed(2)}]`,
         );
       }
     }
