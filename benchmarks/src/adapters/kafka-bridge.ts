@@ -17,7 +17,7 @@
 // PostgreSQL backends, of the PostgreSQL server's background processes and of the Kafka broker
 // (read from /proc when the servers run on this machine), since all of them share the machine's
 // cores: the budget shows what the cores allow, whatever the bridge does.
-// --profile DIR writes a CPU profile (.cpuprofile) of each bridge phase into DIR.
+// --profile DIR writes a CPU profile (.cpuprofile) of each phase into DIR (the phase's set-up included).
 // bridge-eos (not in the default run; `--phases bridge,bridge-eos`): the bridge phase with
 // exactly-once on (the adapter's storeOffsets, the bridge's offsetStores); with both phases the run
 // prints the ratio bridge-eos / bridge.
@@ -407,7 +407,7 @@ async function runStore(rows: DockStatus[], meter: CpuMeter, metas?: RecordMeta[
   return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
-async function runBridge(meter: CpuMeter, rep: number, exactlyOnce = false): Promise<Run> {
+async function runBridge(meter: CpuMeter, exactlyOnce = false): Promise<Run> {
   const groupId = `bench-bridge-${tag}-${randomBytes(3).toString('hex')}`;
   const a = adapter(exactlyOnce ? groupId : undefined);
   const s = sink(a);
@@ -441,14 +441,8 @@ async function runBridge(meter: CpuMeter, rep: number, exactlyOnce = false): Pro
       last.end();
     }
   });
-  const profiler = PROFILE_DIR === undefined ? undefined : new Profiler();
-  await profiler?.start();
   await bridge.start();
   await last.done;
-  if (profiler && PROFILE_DIR !== undefined) {
-    const file = await profiler.stop(PROFILE_DIR, `bridge-${tag}-${rep + 1}`);
-    console.log(`CPU profile of bridge phase ${rep + 1}: ${file}`);
-  }
   const pauses = bridge.snapshot().pauses;
   await bridge.stop({ timeoutMs: 20_000 });
   await s.close();
@@ -543,11 +537,17 @@ async function main(): Promise<void> {
         const which = PHASES[(k + rep) % PHASES.length]!;
         await setup.query(`TRUNCATE ${SCHEMA}.${TABLE}`);
         let run: Run;
+        const profiler = PROFILE_DIR === undefined ? undefined : new Profiler();
+        await profiler?.start();
         if (which === 'source') run = await runSource(meter);
         else if (which === 'store') run = await runStore(rows, meter);
         else if (which === 'store-meta') run = await runStore(rows, meter, metas);
-        else {
-          run = await runBridge(meter, rep, which === 'bridge-eos');
+        else run = await runBridge(meter, which === 'bridge-eos');
+        if (profiler && PROFILE_DIR !== undefined) {
+          const file = await profiler.stop(PROFILE_DIR, `${which}-${tag}-${rep + 1}`);
+          console.log(`CPU profile of ${which} phase ${rep + 1}: ${file}`);
+        }
+        if (which === 'bridge' || which === 'bridge-eos') {
           const n = Number(
             (await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n,
           );

@@ -139,6 +139,9 @@ export class Intake<R> {
     const runs: Run[] = [];
     let runSinks: AnySink[] | undefined;
     let runFrom = 0;
+    // Messages produced together share their timestamp: each distinct one is parsed once.
+    let tsText: string | undefined;
+    let ts = Number.NaN;
     for (let i = from; i < to; i++) {
       const m = messages[i]!;
       if (redelivered && BigInt(m.offset) < since) {
@@ -147,7 +150,11 @@ export class Intake<R> {
       }
       let sinks = this.router.routeInto(m, source, records);
       if (st.floors !== undefined) sinks = this.aboveFloors(st, sinks, BigInt(m.offset));
-      const meta = new MessageMeta(st, m.offset, Number(m.timestamp), now, sinks.length);
+      if (m.timestamp !== tsText) {
+        tsText = m.timestamp;
+        ts = Number(tsText);
+      }
+      const meta = new MessageMeta(st, m.offset, ts, now, sinks.length);
       if (runSinks === undefined || (sinks !== runSinks && !sameSinks(sinks, runSinks))) {
         if (runSinks !== undefined) runs.push(newRun(runFrom, metas.length, runSinks));
         runSinks = sinks;
