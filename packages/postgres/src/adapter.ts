@@ -350,14 +350,21 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   }
 
   private rounds(rows: RowValue[][]): RowValue[][][] {
-    const seen = new Map<string, number>();
+    const seen = new Map<string | number, number>();
     const out: RowValue[][][] = [];
     const keys = this.keyIndexes;
+    const one = keys.length === 1 ? keys[0]! : -1;
     for (const row of rows) {
+      // A number key is its own map key, with no string made for it. (A column that mixes the
+      // number 1 and the text '1' puts both in one round: the server refuses it with 21000, and
+      // the batch is split until they are apart.)
+      const v = one >= 0 ? row[one] : undefined;
       const k =
-        keys.length === 1
-          ? keyPart(row[keys[0]!] as RowValue)
-          : JSON.stringify(keys.map((i) => keyPart(row[i] as RowValue)));
+        typeof v === 'number'
+          ? v
+          : one >= 0
+            ? keyPart(v as RowValue)
+            : JSON.stringify(keys.map((i) => keyPart(row[i] as RowValue)));
       const n = seen.get(k) ?? 0;
       seen.set(k, n + 1);
       const round = out[n];
