@@ -4,7 +4,6 @@
  * sink has no room for is held while the handler waits for room, and the partition pauses if the
  * room comes too late.
  */
-import { toOffset } from '@spillway/core/kit';
 import type { EachBatchPayload, KafkaMessage } from 'kafkajs';
 import type { Assignment } from './assignment.js';
 import type { BridgeControl } from './bridge-types.js';
@@ -130,24 +129,32 @@ export class Intake<R> {
   ): Hold | undefined {
     const source: KafkaSource = { topic: st.topic, partition: st.partition };
     const now = Date.now();
+    // Redelivered after a rejoin: below `st.next`, already taken (and buffered, in flight, or
+    // durable). A fetched batch holds one partition's messages in offset order, so one look at
+    // the chunk's first offset tells whether any is below; only then is each one converted.
     const since = st.next;
+    const redelivered = since !== undefined && BigInt(messages[from]!.offset) < since;
     const records: unknown[] = [];
     const metas: MessageMeta[] = [];
     const runs: Run[] = [];
     let runSinks: AnySink[] | undefined;
     let runFrom = 0;
-    let offset = 0n;
+    // Messages produced together share their timestamp: each distinct one is parsed once.
+    let tsText: string | undefined;
+    let ts = Number.NaN;
     for (let i = from; i < to; i++) {
       const m = messages[i]!;
-      offset = toOffset(m.offset);
-      if (since !== undefined && offset < since) {
-        // Redelivered after a rejoin: already taken (and buffered, in flight, or durable).
+      if (redelivered && BigInt(m.offset) < since) {
         this.control.counts.skippedRedeliveries++;
         continue;
       }
       let sinks = this.router.routeInto(m, source, records);
-      if (st.floors !== undefined) sinks = this.aboveFloors(st, sinks, offset);
-      const meta = new MessageMeta(st, offset, Number(m.timestamp), now, sinks.length);
+      if (st.floors !== undefined) sinks = this.aboveFloors(st, sinks, BigInt(m.offset));
+      if (m.timestamp !== tsText) {
+        tsText = m.timestamp;
+        ts = Number(tsText);
+      }
+      const meta = new MessageMeta(st, m.offset, ts, now, sinks.length);
       if (runSinks === undefined || (sinks !== runSinks && !sameSinks(sinks, runSinks))) {
         if (runSinks !== undefined) runs.push(newRun(runFrom, metas.length, runSinks));
         runSinks = sinks;
@@ -158,9 +165,10 @@ export class Intake<R> {
     }
     if (runSinks === undefined) return undefined;
     runs.push(newRun(runFrom, metas.length, runSinks));
-    st.firstTaken ??= metas[0]!.offset;
-    st.next = offset + 1n;
-    st.lastSeen = offset;
+    st.firstTaken ??= BigInt(metas[0]!.offset);
+    const last = BigInt(metas[metas.length - 1]!.offset);
+    st.next = last + 1n;
+    st.lastSeen = last;
     st.lastMessageAt = now;
     this.control.counts.messages += metas.length;
     // Messages routed nowhere are done at once.

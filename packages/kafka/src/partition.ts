@@ -19,19 +19,22 @@ export type AnySink = Sink<any>;
 export class MessageMeta implements RecordMeta {
   readonly topic: string;
   readonly partition: number;
-  /** A bigint, so that the sinks' own progress tracking does not parse it again. */
-  readonly offset: bigint;
+  /**
+   * kafkajs' own decimal string, kept as it came: no number is made per message. The bridge turns
+   * offsets into bigints once per chunk (and once per commit), never per message.
+   */
+  readonly offset: string;
   /** Always present (possibly undefined), so that every meta has one shape. */
   readonly eventTime: number | undefined;
   /** `topic:partition`, the sinks' default ordering key, computed once per partition. */
   readonly key: string;
   readonly #owner: PartitionState;
-  /** Kafka timestamp, or the time it was taken when the message has none. */
-  readonly #ts: number;
+  /** When it was taken, kept only for a message without a timestamp (else the same as eventTime). */
+  readonly #takenAt: number | undefined;
   /** Sinks the record was routed to that have not yet made it durable or dead-lettered it. */
   #open: number;
 
-  constructor(owner: PartitionState, offset: bigint, ts: number, now: number, sinks: number) {
+  constructor(owner: PartitionState, offset: string, ts: number, now: number, sinks: number) {
     this.topic = owner.topic;
     this.partition = owner.partition;
     this.offset = offset;
@@ -39,7 +42,7 @@ export class MessageMeta implements RecordMeta {
     this.eventTime = known ? ts : undefined;
     this.key = owner.key;
     this.#owner = owner;
-    this.#ts = known ? ts : now;
+    this.#takenAt = known ? undefined : now;
     this.#open = sinks;
   }
 
@@ -68,8 +71,9 @@ export class MessageMeta implements RecordMeta {
     return meta.#open <= 0;
   }
 
+  /** Kafka timestamp, or the time it was taken when the message has none. */
   get ts(): number {
-    return this.#ts;
+    return this.eventTime ?? this.#takenAt!;
   }
 }
 
@@ -135,7 +139,7 @@ export class PartitionState {
     while (h < q.length && MessageMeta.done(q[h]!)) h++;
     this.head = h;
     if (h > 1024 && h * 2 > q.length) {
-      this.doneBefore = q[h - 1]!.offset + 1n;
+      this.doneBefore = BigInt(q[h - 1]!.offset) + 1n;
       this.queue = q.slice(h);
       this.head = 0;
     }
@@ -143,7 +147,7 @@ export class PartitionState {
 
   /** The next offset to read: every message before it is durable or dead-lettered everywhere. */
   committable(): bigint | undefined {
-    return this.head > 0 ? this.queue[this.head - 1]!.offset + 1n : this.doneBefore;
+    return this.head > 0 ? BigInt(this.queue[this.head - 1]!.offset) + 1n : this.doneBefore;
   }
 
   /** Taken messages not yet durable everywhere. */

@@ -21,7 +21,13 @@ function partitionSnapshot(st: PartitionState, fence: CommitFence, now: number):
   const durable = st.committable();
   const committed = fence.lastCommitted(st.key);
   const oldest = st.oldest;
-  const base = durable ?? oldest?.offset ?? (st.lastSeen === undefined ? undefined : st.lastSeen + 1n);
+  const base =
+    durable ??
+    (oldest === undefined
+      ? st.lastSeen === undefined
+        ? undefined
+        : st.lastSeen + 1n
+      : BigInt(oldest.offset));
   const lag =
     st.highWatermark !== undefined && base !== undefined && st.highWatermark > base
       ? Number(st.highWatermark - base)

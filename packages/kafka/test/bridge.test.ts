@@ -267,7 +267,10 @@ describe('KafkaBridge', () => {
     await flushAcking(sinks, adapters);
     await bridge.stop({ timeoutMs: 5000 });
     expect(letters).toHaveLength(1);
-    expect(letters[0]).toMatchObject({ reason: 'decode', meta: { topic: TOPIC, partition: 2, offset: 41n } });
+    expect(letters[0]).toMatchObject({
+      reason: 'decode',
+      meta: { topic: TOPIC, partition: 2, offset: '41' },
+    });
     expect(letters[0]!.record.value?.equals(raw)).toBe(true);
     expect((letters[0]!.error as DecodeError).code).toBe('SPILLWAY_DECODE_ERROR');
     // 41 (dead-lettered) and 42 (routed nowhere) do not hold the commit point back.

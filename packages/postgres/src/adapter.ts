@@ -13,7 +13,7 @@ import {
 import { invalidOption } from '@spillway/core/kit';
 import type { PoolClient } from 'pg';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
-import { CopyChunks, copyLine, copyRow } from './copy-format.js';
+import { CopyChunks } from './copy-format.js';
 import { CopyIn } from './copy-in.js';
 import {
   allStored,
@@ -32,7 +32,7 @@ import {
 } from './options.js';
 import { copyRowBytes, insertRowBytes, makeEstimator } from './size.js';
 import { buildStatements, type Statements } from './statements.js';
-import { columnArrayLiteral, toWire, type WireValue } from './values.js';
+import { columnArrayLiteral, type RowValue, toRowValue } from './values.js';
 
 /** Counters of what the adapter sent. They only grow. */
 export interface PostgresAdapterStats {
@@ -84,11 +84,11 @@ const MAX_OFFSET_ROUNDS = 5;
 /** The parts of one batch, as the adapter will send them. */
 type Step =
   /** INSERT statements over these rows. */
-  | { readonly kind: 'values'; readonly rows: readonly (readonly WireValue[])[] }
+  | { readonly kind: 'values'; readonly rows: readonly (readonly RowValue[])[] }
   /** COPY into the target (`copy` mode): `fill` encodes the batch while its data goes out. */
   | { readonly kind: 'copy'; readonly fill: (data: CopyChunks) => number }
   /** COPY into a staging table, then a merge into the target (large upserts). */
-  | { readonly kind: 'stage'; readonly rows: readonly (readonly WireValue[])[] };
+  | { readonly kind: 'stage'; readonly rows: readonly (readonly RowValue[])[] };
 
 /**
  * A `SinkAdapter` that writes batches into one PostgreSQL table through the application's pg
@@ -169,9 +169,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     };
   }
 
-  private wireRow(values: readonly unknown[]): WireValue[] {
-    const row = new Array<WireValue>(this.width);
-    for (let c = 0; c < this.width; c++) row[c] = toWire(values[c]);
+  private wireRow(values: readonly unknown[]): RowValue[] {
+    const row = new Array<RowValue>(this.width);
+    for (let c = 0; c < this.width; c++) row[c] = toRowValue(values[c]);
     return row;
   }
 
@@ -240,7 +240,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
    */
   private async attempt(batch: Batch<T>, stored: StoredOffsets | undefined): Promise<Attempt> {
     const rejected: Array<{ index: number; error: unknown }> = [];
-    const { map, mode, copyFormat } = this.options;
+    const { map, mode } = this.options;
     const metas = batch.metas;
     const skip = (i: number): boolean => {
       if (stored === undefined) return false;
@@ -270,7 +270,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         for (let i = 0; i < batch.records.length; i++) {
           if (skip(i)) continue;
           try {
-            data.push(copyLine(this.mapped(map(batch.records[i] as T)), copyFormat));
+            data.row(this.mapped(map(batch.records[i] as T)));
             sent.push(i);
             count++;
           } catch (error) {
@@ -283,11 +283,11 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     } else {
       // What prepare() made of each record when it was accepted; redone here where it is missing.
       const prepared = batch.prepared;
-      const rows: WireValue[][] = [];
+      const rows: RowValue[][] = [];
       for (let i = 0; i < batch.records.length; i++) {
         if (skip(i)) continue;
         const ready = prepared?.[i];
-        if (Array.isArray(ready)) rows.push(ready as WireValue[]);
+        if (Array.isArray(ready)) rows.push(ready as RowValue[]);
         else {
           try {
             rows.push(this.wireRow(this.mapped(map(batch.records[i] as T))));
@@ -339,7 +339,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   }
 
   /** Cuts an upsert batch into the steps it is sent as. */
-  private plan(rows: WireValue[][]): Step[] {
+  private plan(rows: RowValue[][]): Step[] {
     const { conflict, upsertViaCopyAbove } = this.options;
     // ON CONFLICT DO UPDATE refuses to touch one row twice in a statement (21000). Records of
     // one key are applied in rounds, in batch order, which is what writing them one by one would do.
@@ -349,15 +349,22 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     );
   }
 
-  private rounds(rows: WireValue[][]): WireValue[][][] {
-    const seen = new Map<string, number>();
-    const out: WireValue[][][] = [];
+  private rounds(rows: RowValue[][]): RowValue[][][] {
+    const seen = new Map<string | number, number>();
+    const out: RowValue[][][] = [];
     const keys = this.keyIndexes;
+    const one = keys.length === 1 ? keys[0]! : -1;
     for (const row of rows) {
+      // A number key is its own map key, with no string made for it. (A column that mixes the
+      // number 1 and the text '1' puts both in one round: the server refuses it with 21000, and
+      // the batch is split until they are apart.)
+      const v = one >= 0 ? row[one] : undefined;
       const k =
-        keys.length === 1
-          ? keyPart(row[keys[0]!] as WireValue)
-          : JSON.stringify(keys.map((i) => keyPart(row[i] as WireValue)));
+        typeof v === 'number'
+          ? v
+          : one >= 0
+            ? keyPart(v as RowValue)
+            : JSON.stringify(keys.map((i) => keyPart(row[i] as RowValue)));
       const n = seen.get(k) ?? 0;
       seen.set(k, n + 1);
       const round = out[n];
@@ -494,26 +501,26 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     await client.query(text);
   }
 
-  private async insertValues(client: PoolClient, rows: readonly (readonly WireValue[])[]): Promise<void> {
+  private async insertValues(client: PoolClient, rows: readonly (readonly RowValue[])[]): Promise<void> {
     const per = this.options.rowsPerStatement;
     const width = this.width;
     for (let start = 0; start < rows.length; start += per) {
       const n = Math.min(per, rows.length - start);
-      const values = new Array<WireValue>(n * width);
+      const values = new Array<RowValue>(n * width);
       let k = 0;
       for (let r = start; r < start + n; r++) {
         const row = rows[r]!;
-        for (let c = 0; c < width; c++) values[k++] = row[c] as WireValue;
+        for (let c = 0; c < width; c++) values[k++] = row[c] as RowValue;
       }
       await this.sendInsert(client, n, values);
     }
   }
 
   /** One INSERT of `rows` rows whose parameters are `flat` (row-major). */
-  private async sendInsert(client: PoolClient, rows: number, flat: WireValue[]): Promise<void> {
-    let values: WireValue[] = flat;
+  private async sendInsert(client: PoolClient, rows: number, flat: RowValue[]): Promise<void> {
+    let values: RowValue[] = flat;
     if (this.options.insertForm === 'unnest') {
-      values = new Array<WireValue>(this.width);
+      values = new Array<RowValue>(this.width);
       for (let c = 0; c < this.width; c++) values[c] = columnArrayLiteral(flat, c, this.width);
     }
     if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
@@ -523,10 +530,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
   }
 
   /** Encodes rows of wire values as COPY data (the staging table of an upsert). */
-  private copyRows(rows: readonly (readonly WireValue[])[]): (data: CopyChunks) => number {
-    const { copyFormat } = this.options;
+  private copyRows(rows: readonly (readonly RowValue[])[]): (data: CopyChunks) => number {
     return (data) => {
-      for (const row of rows) data.push(copyRow(row, copyFormat));
+      for (const row of rows) data.row(row);
       return rows.length;
     };
   }
@@ -540,7 +546,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     const copy = new CopyIn(text);
     // The client is ours and idle: pg submits the statement right away, and each chunk follows.
     client.query(copy as never);
-    const data = new CopyChunks((chunk) => copy.send(chunk));
+    const data = new CopyChunks((chunk) => copy.send(chunk), this.options.copyFormat);
     let rows: number;
     try {
       rows = fill(data);
@@ -601,8 +607,10 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
 }
 
 /** An unambiguous string for one key value (its type tagged, so 'x' never equals a Buffer of x). */
-function keyPart(v: WireValue): string {
+function keyPart(v: RowValue): string {
   if (v === null) return 'n';
+  // A number is the same key as its text (pg sends it as that text).
+  if (typeof v === 'number') return `s${v}`;
   return typeof v === 'string' ? `s${v}` : `b${v.toString('hex')}`;
 }
 

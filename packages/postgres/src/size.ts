@@ -4,7 +4,7 @@
  */
 import { csvField, textField } from './copy-format.js';
 import type { ResolvedPostgresOptions } from './options.js';
-import { toWire, type WireValue } from './values.js';
+import { type RowValue, toWire, type WireValue } from './values.js';
 
 // A placeholder such as `$12345` plus its comma, averaged over a large statement, and the
 // `(` `)` `,` around each tuple: the SQL text that a row adds to an INSERT.
@@ -15,25 +15,32 @@ const PARAM_LENGTH_BYTES = 4;
 // What a record whose mapper throws is taken to weigh; it is refused before anything is sent.
 const UNMAPPABLE_BYTES = 64;
 
-function wireBytes(v: WireValue): number {
+function wireBytes(v: RowValue): number {
   if (v === null) return 0;
+  if (typeof v === 'number') return numberBytes(v);
   return typeof v === 'string' ? utf8Bytes(v) : v.length;
 }
 
+/** Bytes of a number as text. */
+function numberBytes(v: number): number {
+  return Number.isSafeInteger(v) ? integerDigits(v) : String(v).length;
+}
+
 /** Bytes a row adds to a multi-row INSERT: the Bind values and the SQL text of its tuple. */
-export function insertRowBytes(row: readonly WireValue[]): number {
+export function insertRowBytes(row: readonly RowValue[]): number {
   let n = TUPLE_BYTES;
   for (const v of row) n += PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES + wireBytes(v);
   return n;
 }
 
 /** Bytes a row adds to COPY data in the given format (escapes of rare characters ignored). */
-export function copyRowBytes(row: readonly WireValue[], format: 'csv' | 'text'): number {
+export function copyRowBytes(row: readonly RowValue[], format: 'csv' | 'text'): number {
   let n = 0;
   for (const v of row) {
     // one separator per field (the last one is the newline)
     n += 1;
     if (v === null) n += format === 'text' ? 2 : 0;
+    else if (typeof v === 'number') n += numberBytes(v) + (format === 'csv' ? 2 : 0);
     else if (typeof v === 'string') n += utf8Bytes(v) + (format === 'csv' ? 2 : 0);
     else n += 2 * v.length + (format === 'csv' ? 4 : 3);
   }

@@ -7,6 +7,18 @@
 /** A value ready to send: text input syntax, raw bytes, or SQL NULL. */
 export type WireValue = string | Buffer | null;
 
+/**
+ * A value of a prepared row (insert and upsert): a wire value, or a number kept as it is. pg sends
+ * a number parameter as `String(n)`, the very text `toWire` makes, so the row holds no string per
+ * number while it waits in the buffer.
+ */
+export type RowValue = WireValue | number;
+
+/** `toWire`, except that numbers stay numbers. */
+export function toRowValue(value: unknown): RowValue {
+  return typeof value === 'number' ? value : toWire(value);
+}
+
 export function toWire(value: unknown): WireValue {
   switch (typeof value) {
     case 'string':
@@ -36,12 +48,13 @@ export function toWire(value: unknown): WireValue {
  * A one-dimensional array literal of wire values, every element quoted (the `unnest` insert
  * form binds one per column). Stride and offset pick one column out of a flat row-major array.
  */
-export function columnArrayLiteral(flat: readonly WireValue[], offset: number, stride: number): string {
+export function columnArrayLiteral(flat: readonly RowValue[], offset: number, stride: number): string {
   let out = '{';
   for (let i = offset; i < flat.length; i += stride) {
     if (i !== offset) out += ',';
-    const w = flat[i] as WireValue;
+    const w = flat[i] as RowValue;
     if (w === null) out += 'NULL';
+    else if (typeof w === 'number') out += `"${w}"`;
     else if (typeof w === 'string')
       out += ARRAY_SPECIAL.test(w) ? `"${w.replace(ARRAY_SPECIAL_ALL, '\\$&')}"` : `"${w}"`;
     else out += `"\\\\x${w.toString('hex')}"`;

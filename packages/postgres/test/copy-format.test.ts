@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { copyLine, copyRow, csvField, encodeCopy, textField } from '../src/copy-format.js';
+import { CopyChunks, copyLine, copyRow, csvField, encodeCopy, textField } from '../src/copy-format.js';
 import { quoteIdentifier } from '../src/identifiers.js';
 import { columnArrayLiteral, toWire } from '../src/values.js';
 
@@ -102,6 +102,53 @@ describe('copyLine (the copy-mode hot path)', () => {
   it('writes numbers bare, which both formats read as the number', () => {
     expect(copyLine([1, -2.5, 10n, null, 'x'], 'csv')).toBe('1,-2.5,10,,"x"\n');
     expect(copyLine([1, -2.5, 10n, null, 'x'], 'text')).toBe('1\t-2.5\t10\t\\N\tx\n');
+  });
+});
+
+describe('CopyChunks (COPY rows written as bytes)', () => {
+  const rows: unknown[][] = [
+    ['tab\t', 'nl\n', 'cr\r', 'back\\slash', '\\N', '\\.', '"q"', '', 'Zürich 🚲 東京', null, undefined],
+    [0, -0, 7, -42, 2147483647, -2147483647, 2147483648, 1.5, -2.5e-7, 1e21, Number.NaN, 10n, -(2n ** 70n)],
+    [true, false, new Date(Date.UTC(2026, 11, 3, 6, 30)), Buffer.from([0, 255]), [1, 'a"b'], { dock: 'A1' }],
+    // lone surrogates become U+FFFD, as Buffer.from(string) writes them
+    ['\ud83d', 'x\ude80y', 'é'.repeat(300), `${'"'.repeat(100)}${'\t'.repeat(200)}`],
+  ];
+
+  const written = (format: 'csv' | 'text', input: unknown[][], rowsBeforeCut = Number.POSITIVE_INFINITY) => {
+    const chunks: Buffer[] = [];
+    const data = new CopyChunks((c) => chunks.push(Buffer.from(c)), format);
+    input.forEach((r, i) => {
+      data.row(r);
+      if (i + 1 === rowsBeforeCut) data.finish();
+    });
+    data.finish();
+    return { chunks, bytes: data.bytes };
+  };
+
+  it.each(['csv', 'text'] as const)('writes each row as the UTF-8 bytes of its %s line', (format) => {
+    const { chunks, bytes } = written(format, rows);
+    const expected = Buffer.from(rows.map((r) => copyLine(r, format)).join(''), 'utf8');
+    expect(Buffer.concat(chunks).equals(expected)).toBe(true);
+    expect(bytes).toBe(expected.length);
+  });
+
+  it('ends every chunk at the end of a row when the rows fill many chunks', () => {
+    const many = Array.from({ length: 5000 }, (_, i) => [i, `dock-${i} "north" ✓`, 'x'.repeat(i % 400)]);
+    const { chunks } = written('csv', many);
+    expect(chunks.length).toBeGreaterThan(5);
+    for (const c of chunks) expect(c[c.length - 1]).toBe(0x0a);
+    const expected = Buffer.from(many.map((r) => copyLine(r, 'csv')).join(''), 'utf8');
+    expect(Buffer.concat(chunks).equals(expected)).toBe(true);
+  });
+
+  it('leaves nothing of a row whose value cannot be written, and writes the rows around it', () => {
+    const chunks: Buffer[] = [];
+    const data = new CopyChunks((c) => chunks.push(Buffer.from(c)), 'text');
+    data.row([1, 'a']);
+    expect(() => data.row([2, 'b', () => 0])).toThrow(TypeError);
+    data.row([3, 'c']);
+    data.finish();
+    expect(Buffer.concat(chunks).toString('utf8')).toBe('1\ta\n3\tc\n');
   });
 });
 
