@@ -39,6 +39,7 @@ export function copyOptions(format: CopyFormat): string {
 // enough to keep the per-chunk cost low, small enough that the server gets the first rows of a
 // big batch while the rest is still being encoded.
 const CHUNK_CHARS = 1 << 16;
+const NEWLINE = Buffer.from('\n');
 
 /**
  * One COPY line (with its newline) straight from mapped values, without an intermediate array
@@ -58,11 +59,17 @@ export function copyLine(values: readonly unknown[], format: CopyFormat): string
   return `${line}\n`;
 }
 
-/** Joins COPY lines into Buffers of about CHUNK_CHARS characters and hands each to `onChunk`. */
+/**
+ * Joins COPY lines into Buffers of about CHUNK_CHARS characters (or bytes) and hands each to
+ * `onChunk`. Lines come as strings to encode, or as bytes that already are COPY lines.
+ */
 export class CopyChunks {
   /** Bytes handed on so far. */
   bytes = 0;
   private text = '';
+  /** Encoded parts not handed on yet, in order, and their length. */
+  private parts: Buffer[] = [];
+  private partsBytes = 0;
 
   constructor(private readonly onChunk: (chunk: Buffer) => void) {}
 
@@ -71,15 +78,38 @@ export class CopyChunks {
     if (this.text.length >= CHUNK_CHARS) this.cut();
   }
 
+  /** A line that is COPY data already (without its newline), sent as it is. */
+  pushBytes(line: Uint8Array): void {
+    if (this.text.length > 0) this.encodeText();
+    this.parts.push(line as Buffer, NEWLINE);
+    this.partsBytes += line.length + 1;
+    if (this.partsBytes >= CHUNK_CHARS) this.cut();
+  }
+
   /** Hands on whatever is still pending. */
   finish(): void {
-    if (this.text.length > 0) this.cut();
+    if (this.text.length > 0 || this.partsBytes > 0) this.cut();
+  }
+
+  private encodeText(): void {
+    const b = Buffer.from(this.text, 'utf8');
+    this.text = '';
+    this.parts.push(b);
+    this.partsBytes += b.length;
   }
 
   private cut(): void {
-    const b = Buffer.from(this.text, 'utf8');
+    let b: Buffer;
+    if (this.partsBytes === 0) {
+      b = Buffer.from(this.text, 'utf8');
+      this.text = '';
+    } else {
+      if (this.text.length > 0) this.encodeText();
+      b = Buffer.concat(this.parts, this.partsBytes);
+      this.parts = [];
+      this.partsBytes = 0;
+    }
     this.bytes += b.length;
-    this.text = '';
     this.onChunk(b);
   }
 }
