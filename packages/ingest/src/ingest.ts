@@ -495,6 +495,10 @@ function checkInOrder(
       if (raw.includes(QUOTE_BYTE)) asWritten = false;
       continue;
     }
+    // The common cases need no conversion: their text is valid and is what would be written.
+    if (c.bare && (c.type === 'string' || (c.type === 'boolean' && (text === 'true' || text === 'false'))))
+      continue;
+    if (c.bare && c.type === 'integer' && isPlainInteger(text)) continue;
     const v = convert(c, text);
     if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
     if (asWritten && !writtenAsSpelled(c, text, v.value)) asWritten = false;
@@ -504,6 +508,22 @@ function checkInOrder(
     if (scanLine(raw, delimiter) & NOT_A_LINE) return 'convert';
   }
   return undefined;
+}
+
+/**
+ * True for an integer written as JavaScript writes it, and safe: an optional minus, no leading
+ * zero, at most 15 digits (so below 2^53), not "-0".
+ */
+function isPlainInteger(text: string): boolean {
+  const n = text.length;
+  let i = text.charCodeAt(0) === 0x2d ? 1 : 0;
+  if (n === i || n - i > 15) return false;
+  if (text.charCodeAt(i) === 0x30) return n === 1;
+  for (; i < n; i++) {
+    const c = text.charCodeAt(i);
+    if (c < 0x30 || c > 0x39) return false;
+  }
+  return true;
 }
 
 /** True when a converted value goes to the store as the same text it came as. */
