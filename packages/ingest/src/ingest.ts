@@ -27,6 +27,8 @@ export type IngestInput = Readable | AsyncIterable<Uint8Array | string>;
 let runs = 0;
 
 const COMMA = 0x2c;
+/** Bytes of input parsed at a time (see the read loop). */
+const READ_SLICE = 16 * 1024;
 const QUOTE_BYTE = 0x22;
 const CR_BYTE = 0x0d;
 
@@ -362,9 +364,14 @@ async function run<T>(
       s.bytes += chunk.length;
       if (s.bytes > o.maxInputBytes)
         throw new Stop('too-large', `The input is larger than ${o.maxInputBytes} bytes`);
-      for (const item of reader.push(chunk)) {
-        const wait = handle(item);
-        if (wait) await wait;
+      // In slices: the rows parsed from one slice wait together while the sink is full, so the
+      // slice, not the chunk a stream happens to deliver, bounds what an upload holds meanwhile.
+      for (let at = 0; at < chunk.length; at += READ_SLICE) {
+        const slice = at === 0 && chunk.length <= READ_SLICE ? chunk : chunk.subarray(at, at + READ_SLICE);
+        for (const item of reader.push(slice)) {
+          const wait = handle(item);
+          if (wait) await wait;
+        }
       }
       progress(false);
     }
