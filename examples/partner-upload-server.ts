@@ -258,6 +258,9 @@ if (import.meta.url === pathToFileURL(process.argv[1] ?? '').href) {
   const { server, close } = createUploadServer({
     pool,
     ...(process.env.REJECTS_DIR && { rejectsDir: process.env.REJECTS_DIR }),
+    ...(process.env.MAX_CONCURRENT_UPLOADS && {
+      maxConcurrentUploads: Number(process.env.MAX_CONCURRENT_UPLOADS),
+    }),
     log: (l) => console.log(l),
   });
   const port = Number(process.env.PORT ?? 8080);
