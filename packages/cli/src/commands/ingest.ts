@@ -165,7 +165,11 @@ export function registerIngest(program: Command): void {
       int('--max-rejects', 0),
     )
     // batching
-    .option('--batch-size <n>', 'rows per batch written to the store (default 1000)', int('--batch-size', 1))
+    .option(
+      '--batch-size <n>',
+      'rows per batch written to the store (default 5000 into PostgreSQL in copy mode, else 1000)',
+      int('--batch-size', 1),
+    )
     .option(
       '--max-age-ms <n>',
       'longest a row waits in a batch before it is written (default 500)',
