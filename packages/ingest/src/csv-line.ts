@@ -9,8 +9,12 @@
  * - a CR outside quotes ends a line for COPY, it is data here: such a row is not sent as a line;
  * - a lone `\.` is COPY's end-of-data marker: not sent as a line either.
  * The framer has already refused every quote RFC 4180 does not allow, and the line break is gone.
+ * With declared columns, a row goes as its line only when each value is written as it is spelled
+ * (`checkInOrder`); the rules are in the package README.
  */
+import { convert, type ResolvedColumn } from './columns.js';
 import type { Row } from './options.js';
+import type { RejectReason } from './reject.js';
 
 const QUOTE = 0x22;
 const CR = 0x0d;
@@ -100,4 +104,75 @@ export function quoteEmptyFields(b: Buffer, delimiter: number, fields: number): 
     out[o++] = QUOTE;
   }
   return out.subarray(0, o);
+}
+
+/**
+ * Checks the fields of a record against declared columns that read them in order. Returns
+ * undefined when the row passes and every value would be written as the file spells it (the row
+ * can go as its line), the first failure as the row builder (`fromColumns` in `ingest.ts`)
+ * would report it, or `'convert'` when the row needs its row object.
+ */
+export function checkInOrder(
+  columns: ResolvedColumn[],
+  fields: string[],
+  raw: Buffer,
+  delimiter: number,
+): 'convert' | { reason: RejectReason; message: string; column: string } | undefined {
+  let asWritten = true;
+  for (let i = 0; i < columns.length; i++) {
+    const c = columns[i]!;
+    const text = fields[i]!;
+    if (text === '') {
+      if (c.required) return { reason: 'required', message: 'a required value is missing', column: c.name };
+      // NULL: an unquoted empty field is NULL to COPY too, a quoted one is not.
+      if (raw.includes(QUOTE)) asWritten = false;
+      continue;
+    }
+    // The common cases need no conversion: their text is valid and is what would be written.
+    if (c.bare && (c.type === 'string' || (c.type === 'boolean' && (text === 'true' || text === 'false'))))
+      continue;
+    if (c.bare && c.type === 'integer' && isPlainInteger(text)) continue;
+    const v = convert(c, text);
+    if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
+    if (asWritten && !writtenAsSpelled(c, text, v.value)) asWritten = false;
+  }
+  if (!asWritten) return 'convert';
+  if (raw.includes(CR) || (raw.length === 2 && raw[0] === BACKSLASH && raw[1] === DOT)) {
+    if (scanLine(raw, delimiter) & NOT_A_LINE) return 'convert';
+  }
+  return undefined;
+}
+
+/**
+ * True for an integer written as JavaScript writes it, and safe: an optional minus, no leading
+ * zero, at most 15 digits (so below 2^53), not "-0".
+ */
+function isPlainInteger(text: string): boolean {
+  const n = text.length;
+  let i = text.charCodeAt(0) === 0x2d ? 1 : 0;
+  if (n === i || n - i > 15) return false;
+  if (text.charCodeAt(i) === 0x30) return n === 1;
+  for (; i < n; i++) {
+    const c = text.charCodeAt(i);
+    if (c < 0x30 || c > 0x39) return false;
+  }
+  return true;
+}
+
+/** True when a converted value goes to the store as the same text it came as. */
+function writtenAsSpelled(c: ResolvedColumn, text: string, value: unknown): boolean {
+  switch (c.type) {
+    case 'string':
+      return true;
+    case 'integer':
+    case 'number':
+      return String(value) === text;
+    case 'boolean':
+      return (value ? 'true' : 'false') === text;
+    case 'timestamp':
+      return value === text;
+    case 'json':
+      // Parsed and written again: a store sees JSON text, not the same string.
+      return false;
+  }
 }

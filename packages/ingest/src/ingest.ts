@@ -6,7 +6,15 @@ import { messageOf, type RecordMeta, type Sink, SpillwayError } from '@spillway/
 import { invalidOption } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { splitRecords } from './csv-fields.js';
-import { CsvLine, EMPTY_FIELD, type LineLayout, NOT_A_LINE, quoteEmptyFields, scanLine } from './csv-line.js';
+import {
+  CsvLine,
+  checkInOrder,
+  EMPTY_FIELD,
+  type LineLayout,
+  NOT_A_LINE,
+  quoteEmptyFields,
+  scanLine,
+} from './csv-line.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
   type IngestFormat,
@@ -29,8 +37,6 @@ let runs = 0;
 const COMMA = 0x2c;
 /** Bytes of input parsed at a time (see the read loop). */
 const READ_SLICE = 16 * 1024;
-const QUOTE_BYTE = 0x22;
-const CR_BYTE = 0x0d;
 
 /** The format a file name implies, if any. */
 export function formatFromPath(path: string): IngestFormat | undefined {
@@ -79,8 +85,8 @@ export async function ingestFile<T>(
  *
  * Rows carry `meta = { topic: sourceName, partition: <run id>, offset: <line>, externalProgress:
  * true }`: one upload is one ordering key, so its rows reach the store in file order (a later row
- * for the same key wins in an upsert); the summary counts them, not the sink's progress tracker. The input is not destroyed on an early stop: the caller owns it (an HTTP server
- * answers first).
+ * for the same key wins in an upsert); the summary counts them, not the sink's progress tracker.
+ * The input is not destroyed on an early stop: the caller owns it (an HTTP server answers first).
  */
 export function ingest<T>(
   input: IngestInput,
@@ -478,77 +484,6 @@ function lineLayout(h: HeaderMap, delimiter: number): LineLayout {
 
 function splitOne(bytes: Buffer, delimiter: number): string[] {
   return splitRecords(bytes.toString('utf8'), delimiter)[0] ?? [''];
-}
-
-/**
- * Checks the fields of a record against declared columns that read them in order. Returns
- * undefined when the row passes and every value would be written as the file spells it (the row
- * can go as its line), the first failure as `fromColumns` would report it, or `'convert'` when the
- * row needs its row object.
- */
-function checkInOrder(
-  columns: ResolvedColumn[],
-  fields: string[],
-  raw: Buffer,
-  delimiter: number,
-): 'convert' | { reason: RejectReason; message: string; column: string } | undefined {
-  let asWritten = true;
-  for (let i = 0; i < columns.length; i++) {
-    const c = columns[i]!;
-    const text = fields[i]!;
-    if (text === '') {
-      if (c.required) return { reason: 'required', message: 'a required value is missing', column: c.name };
-      // NULL: an unquoted empty field is NULL to COPY too, a quoted one is not.
-      if (raw.includes(QUOTE_BYTE)) asWritten = false;
-      continue;
-    }
-    // The common cases need no conversion: their text is valid and is what would be written.
-    if (c.bare && (c.type === 'string' || (c.type === 'boolean' && (text === 'true' || text === 'false'))))
-      continue;
-    if (c.bare && c.type === 'integer' && isPlainInteger(text)) continue;
-    const v = convert(c, text);
-    if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
-    if (asWritten && !writtenAsSpelled(c, text, v.value)) asWritten = false;
-  }
-  if (!asWritten) return 'convert';
-  if (raw.includes(CR_BYTE) || (raw.length === 2 && raw[0] === 0x5c && raw[1] === 0x2e)) {
-    if (scanLine(raw, delimiter) & NOT_A_LINE) return 'convert';
-  }
-  return undefined;
-}
-
-/**
- * True for an integer written as JavaScript writes it, and safe: an optional minus, no leading
- * zero, at most 15 digits (so below 2^53), not "-0".
- */
-function isPlainInteger(text: string): boolean {
-  const n = text.length;
-  let i = text.charCodeAt(0) === 0x2d ? 1 : 0;
-  if (n === i || n - i > 15) return false;
-  if (text.charCodeAt(i) === 0x30) return n === 1;
-  for (; i < n; i++) {
-    const c = text.charCodeAt(i);
-    if (c < 0x30 || c > 0x39) return false;
-  }
-  return true;
-}
-
-/** True when a converted value goes to the store as the same text it came as. */
-function writtenAsSpelled(c: ResolvedColumn, text: string, value: unknown): boolean {
-  switch (c.type) {
-    case 'string':
-      return true;
-    case 'integer':
-    case 'number':
-      return String(value) === text;
-    case 'boolean':
-      return (value ? 'true' : 'false') === text;
-    case 'timestamp':
-      return value === text;
-    case 'json':
-      // Parsed and written again: a store sees JSON text, not the same string.
-      return false;
-  }
 }
 
 type Built = { row: Row } | { reason: RejectReason; message: string; column: string };
