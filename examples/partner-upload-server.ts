@@ -5,6 +5,7 @@
 //   npm run build   # the example imports the built packages
 //   DATABASE_URL=postgres://postgres@127.0.0.1:5432/test node --import tsx examples/partner-upload-server.ts
 //   (it creates the service_records table if it is missing: SERVICE_RECORDS_DDL)
+//   (PORT, REJECTS_DIR and MAX_CONCURRENT_UPLOADS may be set in the environment too)
 //   curl -T examples/data/service-records.csv -H 'Content-Type: text/csv' http://127.0.0.1:8080/uploads/velofix
 //
 // Answers: 200 + summary (rows with problems are listed in it by line, column and reason, never
@@ -258,6 +259,9 @@ if (import.meta.url === pathToFileURL(process.argv[1] ?? '').href) {
   const { server, close } = createUploadServer({
     pool,
     ...(process.env.REJECTS_DIR && { rejectsDir: process.env.REJECTS_DIR }),
+    ...(process.env.MAX_CONCURRENT_UPLOADS && {
+      maxConcurrentUploads: Number(process.env.MAX_CONCURRENT_UPLOADS),
+    }),
     log: (l) => console.log(l),
   });
   const port = Number(process.env.PORT ?? 8080);

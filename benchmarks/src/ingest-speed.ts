@@ -6,7 +6,7 @@
 // Prints rows/s, MB/s and each process's peak RSS. Nothing here asserts a time.
 //
 //   npm run build && node benchmarks/dist/ingest-speed.js
-//   INGEST_MB=80 INGEST_RUNS=5 SPILLWAY_PG_URL=postgres://postgres@127.0.0.1:5432/test node benchmarks/dist/ingest-speed.js
+//   INGEST_MB=80 INGEST_RUNS=5 [INGEST_BATCH=10000] SPILLWAY_PG_URL=postgres://postgres@127.0.0.1:5432/test node benchmarks/dist/ingest-speed.js
 import { spawn, spawnSync } from 'node:child_process';
 import { once } from 'node:events';
 import { createReadStream, existsSync } from 'node:fs';
@@ -31,20 +31,87 @@ async function readChild(path: string): Promise<void> {
   if (lines === 0) process.exitCode = 1;
 }
 
-// Written by every Node child at exit: its peak resident set (resourceUsage().maxRSS, KiB).
+// Written by every Node child at exit: its peak resident set (resourceUsage().maxRSS, KiB) and
+// the CPU time it used (user + system, µs).
 const RSS_HOOK =
-  "data:text/javascript,import{writeFileSync}from'node:fs';process.on('exit',()=>writeFileSync(process.env.SPILLWAY_RSS_OUT,String(process.resourceUsage().maxRSS)))";
+  "data:text/javascript,import{writeFileSync}from'node:fs';process.on('exit',()=>{const u=process.resourceUsage();writeFileSync(process.env.SPILLWAY_RSS_OUT,u.maxRSS+' '+(u.userCPUTime+u.systemCPUTime))})";
 
 interface Sample {
   ms: number;
   rssMiB: number | undefined;
+  /** CPU time of the process (not of the server it wrote to), ms. */
+  cpuMs: number | undefined;
+  /** CPU time of the PostgreSQL backends that served it, ms (sampled; see BackendCpu). */
+  serverMs: number | undefined;
 }
 
-async function timed(command: string, args: string[], rssOut: string | undefined): Promise<Sample> {
+const TICK_MS = 1000 / Number(spawnSync('getconf', ['CLK_TCK']).stdout?.toString().trim() || 100);
+
+/**
+ * The CPU time of the server backends serving one phase (its `application_name`), read from
+ * /proc/<pid>/stat (utime + stime) every 20 ms while it runs: the server is on this machine.
+ * A backend's last < 20 ms before it exits are not seen, and the sampler's own queries cost the
+ * server a little; both are small against a phase of seconds. Undefined where /proc is not there.
+ */
+class BackendCpu {
+  private readonly ticks = new Map<number, number>();
+  private timer: NodeJS.Timeout | undefined;
+  private busy = false;
+
+  constructor(
+    private readonly pool: pg.Pool,
+    private readonly app: string,
+  ) {}
+
+  start(): void {
+    if (!existsSync('/proc/self/stat')) return;
+    this.timer = setInterval(() => void this.sample(), 20);
+  }
+
+  private async sample(): Promise<void> {
+    if (this.busy) return;
+    this.busy = true;
+    try {
+      const { rows } = await this.pool.query('SELECT pid FROM pg_stat_activity WHERE application_name = $1', [
+        this.app,
+      ]);
+      for (const { pid } of rows as Array<{ pid: number }>) {
+        const stat = await readFile(`/proc/${pid}/stat`, 'utf8').catch(() => undefined);
+        if (stat === undefined) continue;
+        // Fields after the command name: state is the first, utime the 12th, stime the 13th.
+        const f = stat.slice(stat.lastIndexOf(')') + 2).split(' ');
+        this.ticks.set(pid, Number(f[11]) + Number(f[12]));
+      }
+    } finally {
+      this.busy = false;
+    }
+  }
+
+  async stop(): Promise<number | undefined> {
+    if (this.timer === undefined) return undefined;
+    clearInterval(this.timer);
+    while (this.busy) await new Promise((r) => setTimeout(r, 5));
+    let ticks = 0;
+    for (const t of this.ticks.values()) ticks += t;
+    return ticks * TICK_MS;
+  }
+}
+
+let phaseNo = 0;
+
+async function timed(
+  command: string,
+  args: string[],
+  rssOut: string | undefined,
+  pool: pg.Pool,
+): Promise<Sample> {
+  const app = `spillway-ingest-speed-${process.pid}-${++phaseNo}`;
+  const server = new BackendCpu(pool, app);
+  server.start();
   const t0 = performance.now();
   const child = spawn(command, args, {
     stdio: ['ignore', 'ignore', 'pipe'],
-    env: { ...process.env, ...(rssOut && { SPILLWAY_RSS_OUT: rssOut }) },
+    env: { ...process.env, PGAPPNAME: app, ...(rssOut && { SPILLWAY_RSS_OUT: rssOut }) },
   });
   let err = '';
   child.stderr.on('data', (d) => {
@@ -52,19 +119,32 @@ async function timed(command: string, args: string[], rssOut: string | undefined
   });
   const [code] = (await once(child, 'exit')) as [number | null];
   const ms = performance.now() - t0;
+  const serverMs = await server.stop();
   // Exit 0: every row written (the CLI's own contract); anything else spoils the sample.
   if (code !== 0) throw new Error(`${command} ${args.join(' ')} exited ${code}: ${err.slice(0, 1000)}`);
   let rssMiB: number | undefined;
+  let cpuMs: number | undefined;
   if (rssOut) {
-    rssMiB = Number(await readFile(rssOut, 'utf8')) / 1024;
+    const text = (await readFile(rssOut, 'utf8')).trim();
+    if (command === '/usr/bin/time') {
+      // time(1) -f '%U %S': user and system seconds.
+      const [user, sys] = text.split(/\s+/).slice(-2).map(Number);
+      cpuMs = (user! + sys!) * 1000;
+    } else {
+      const [rss, cpu] = text.split(' ').map(Number);
+      rssMiB = rss! / 1024;
+      cpuMs = cpu! / 1000;
+    }
     await rm(rssOut, { force: true });
   }
-  return { ms, rssMiB };
+  return { ms, rssMiB, cpuMs, serverMs };
 }
 
 async function main(): Promise<void> {
   const megabytes = Number(process.env.INGEST_MB ?? 80);
   const runs = Number(process.env.INGEST_RUNS ?? 3);
+  // The CLI's batch size when set (default: the CLI's own).
+  const batch = process.env.INGEST_BATCH;
   const url = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
   const cli = fileURLToPath(new URL('../../packages/cli/dist/bin.js', import.meta.url));
   const self = fileURLToPath(import.meta.url);
@@ -82,12 +162,14 @@ async function main(): Promise<void> {
     `machine: ${cpus().length} × ${cpus()[0]?.model.trim()}, ${(totalmem() / 1048576).toFixed(0)} MiB, node ${process.version}; load average ${load0.map((l) => l.toFixed(1)).join(' ')}`,
   );
 
-  const pool = new pg.Pool({ connectionString: url, max: 1 });
+  const pool = new pg.Pool({ connectionString: url, max: 2 });
   await pool.query('CREATE SCHEMA IF NOT EXISTS spillway_bench');
   await pool.query(`DROP TABLE IF EXISTS ${TABLE}`);
   await pool.query(`CREATE TABLE ${TABLE} (record_id text, dock_id text, bike_id int, serviced_at timestamptz,
     odometer_km double precision, passed boolean, kind text, note text)`);
   const havePsql = spawnSync('psql', ['--version']).status === 0;
+  const haveTime = existsSync('/usr/bin/time');
+  const timeOut = join(tmpdir(), `spillway-ingest-speed-${process.pid}.time`);
   if (!havePsql) console.log('psql not found: the psql ratios are left out');
 
   const ingestArgs = (typed: boolean) => [
@@ -106,19 +188,30 @@ async function main(): Promise<void> {
     '--rejects',
     `${path}.rejects.ndjson`,
     ...(typed ? ['--columns', TYPED] : []),
+    ...(batch ? ['--batch-size', batch] : []),
   ];
   const phases: Record<string, () => Promise<Sample>> = {
-    read: () => timed(process.execPath, ['--import', RSS_HOOK, self, '--child-read', path], rssOut),
+    read: () => timed(process.execPath, ['--import', RSS_HOOK, self, '--child-read', path], rssOut, pool),
     ...(havePsql && {
+      // psql's own CPU time through time(1) where it is installed (psql is not a Node process).
       psql: () =>
         timed(
-          'psql',
-          [url, '-q', '-v', 'ON_ERROR_STOP=1', '-c', `\\copy ${TABLE} FROM '${path}' CSV HEADER`],
-          undefined,
+          haveTime ? '/usr/bin/time' : 'psql',
+          [
+            ...(haveTime ? ['-f', '%U %S', '-o', timeOut, 'psql'] : []),
+            url,
+            '-q',
+            '-v',
+            'ON_ERROR_STOP=1',
+            '-c',
+            `\\copy ${TABLE} FROM '${path}' CSV HEADER`,
+          ],
+          haveTime ? timeOut : undefined,
+          pool,
         ),
     }),
-    text: () => timed(process.execPath, ingestArgs(false), rssOut),
-    typed: () => timed(process.execPath, ingestArgs(true), rssOut),
+    text: () => timed(process.execPath, ingestArgs(false), rssOut, pool),
+    typed: () => timed(process.execPath, ingestArgs(true), rssOut, pool),
   };
   const names = Object.keys(phases);
   const samples: Record<string, Sample[]> = Object.fromEntries(names.map((n) => [n, []]));
@@ -143,14 +236,24 @@ async function main(): Promise<void> {
   await pool.query(`DROP TABLE IF EXISTS ${TABLE}`);
   await pool.end();
 
-  console.log('\nphase   rows/s (median, min–max)        MB/s    spread   peak RSS (max)');
+  console.log(
+    '\nphase   rows/s (median, min–max)        MB/s    spread   peak RSS (max)   CPU µs/row, process + server (median, min–max)',
+  );
   for (const name of names) {
     const rates = samples[name]!.map((s) => rows / (s.ms / 1000));
     const m = summary(rates);
     const rss = samples[name]!.map((s) => s.rssMiB).filter((x): x is number => x !== undefined);
+    const perRow = (ms: number | undefined) => (ms === undefined ? undefined : (ms * 1000) / rows);
+    const range = (xs: Array<number | undefined>) => {
+      const ys = xs.filter((x): x is number => x !== undefined);
+      if (ys.length === 0) return '—';
+      const m = summary(ys);
+      return `${m.median.toFixed(2)} (${m.min.toFixed(2)}–${m.max.toFixed(2)})`;
+    };
+    const cpu = `${range(samples[name]!.map((s) => perRow(s.cpuMs)))} + ${range(samples[name]!.map((s) => perRow(s.serverMs)))}`;
     console.log(
       `${name.padEnd(7)} ${fmt(m.median).padStart(10)} (${fmt(m.min)}–${fmt(m.max)})`.padEnd(41) +
-        `${((bytes / 1e6) * (m.median / rows)).toFixed(1).padStart(6)}  ${m.spreadPct.toFixed(0).padStart(5)} %   ${rss.length > 0 ? `${Math.max(...rss).toFixed(0)} MiB` : '—'}`,
+        `${((bytes / 1e6) * (m.median / rows)).toFixed(1).padStart(6)}  ${m.spreadPct.toFixed(0).padStart(5)} %   ${(rss.length > 0 ? `${Math.max(...rss).toFixed(0)} MiB` : '—').padEnd(16)} ${cpu}`,
     );
   }
   const ratio = (a: string, b: string) => {
@@ -168,6 +271,26 @@ async function main(): Promise<void> {
   ratio('text', 'read');
   ratio('typed', 'read');
   ratio('psql', 'read');
+  // Rows per CPU second, process and server together: what the phase costs the machine, less
+  // disturbed by the other work on it than its wall-clock time.
+  const cpuRatio = (a: string, b: string) => {
+    if (!samples[a] || !samples[b]) return;
+    const total = (s: Sample) =>
+      s.cpuMs === undefined || s.serverMs === undefined ? undefined : s.cpuMs + s.serverMs;
+    const xs = samples[a]!.map((s, i) => {
+      const ta = total(s);
+      const tb = total(samples[b]![i]!);
+      return ta === undefined || tb === undefined ? undefined : tb / ta;
+    }).filter((x): x is number => x !== undefined);
+    if (xs.length === 0) return;
+    const m = summary(xs);
+    console.log(
+      `${`${a} ÷ ${b}`.padEnd(16)} ${m.median.toFixed(3)} (runs ${xs.map((x) => x.toFixed(3)).join(', ')}; spread ${m.spreadPct.toFixed(0)} %)`,
+    );
+  };
+  console.log('\nratios of rows per CPU second (process + server), within each run:');
+  cpuRatio('text', 'psql');
+  cpuRatio('typed', 'psql');
   console.log(
     `load average at the end: ${loadavg()
       .map((l) => l.toFixed(1))

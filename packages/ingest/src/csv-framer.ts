@@ -100,7 +100,22 @@ export class CsvFramer {
     let segStart = i;
     const delim = this.delimiter;
     const n = chunk.length;
+    // Where the next line break and quote are (n: none in this chunk), found by native search.
+    let nextLf = -1;
+    let nextQuote = -1;
     for (; i < n; i++) {
+      if (this.state === State.FieldStart || this.state === State.Unquoted) {
+        // No quote is open: when none comes before the next line break, the rest of the record
+        // is plain text and ends there, whatever it holds (most records of a file).
+        if (nextLf < i) nextLf = indexOr(chunk, LF, i, n);
+        if (nextQuote < i) nextQuote = indexOr(chunk, QUOTE, i, n);
+        if (nextLf < nextQuote) {
+          i = nextLf;
+          this.emit(out, chunk, segStart, i);
+          segStart = i + 1;
+          continue;
+        }
+      }
       const b = chunk[i]!;
       switch (this.state) {
         case State.FieldStart:
@@ -272,6 +287,12 @@ function fieldAt(bytes: Buffer, pos: number, delim: number): number {
     else if (b === delim && !quoted) field++;
   }
   return field;
+}
+
+/** The index of `byte` in `chunk` from `from` on, or `n` when there is none. */
+function indexOr(chunk: Buffer, byte: number, from: number, n: number): number {
+  const at = chunk.indexOf(byte, from);
+  return at < 0 ? n : at;
 }
 
 function isBomPrefix(chunk: Buffer): boolean {

@@ -3,8 +3,18 @@ import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
 import { messageOf, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
-import { invalidOption, partitionKey } from '@spillway/core/kit';
+import { invalidOption } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
+import { splitRecords } from './csv-fields.js';
+import {
+  CsvLine,
+  checkInOrder,
+  EMPTY_FIELD,
+  type LineLayout,
+  NOT_A_LINE,
+  quoteEmptyFields,
+  scanLine,
+} from './csv-line.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
   type IngestFormat,
@@ -23,6 +33,10 @@ import { FIRST_REJECTS, type IngestSummary, type RejectNote } from './summary.js
 export type IngestInput = Readable | AsyncIterable<Uint8Array | string>;
 
 let runs = 0;
+
+const COMMA = 0x2c;
+/** Bytes of input parsed at a time (see the read loop). */
+const READ_SLICE = 16 * 1024;
 
 /** The format a file name implies, if any. */
 export function formatFromPath(path: string): IngestFormat | undefined {
@@ -69,10 +83,10 @@ export async function ingestFile<T>(
  * and reason, and the summary comes only after `sink.flush()` resolved — every row counted as
  * written is durable. Stops early with an `IngestError` (whose `summary` counts what was done).
  *
- * Rows carry `meta = { topic: sourceName, partition: <run id>, offset: <line> }`: one upload is
- * one ordering key, so its rows reach the store in file order (a later row for the same key wins
- * in an upsert). The input is not destroyed on an early stop: the caller owns it (an HTTP server
- * answers first).
+ * Rows carry `meta = { topic: sourceName, partition: <run id>, offset: <line>, externalProgress:
+ * true }`: one upload is one ordering key, so its rows reach the store in file order (a later row
+ * for the same key wins in an upsert); the summary counts them, not the sink's progress tracker.
+ * The input is not destroyed on an early stop: the caller owns it (an HTTP server answers first).
  */
 export function ingest<T>(
   input: IngestInput,
@@ -106,8 +120,13 @@ async function run<T>(
   const source = o.sourceName ?? 'stream';
   const runId = `ingest-${process.pid}-${++runs}`;
   const started = performance.now();
+  // Valid rows go on as their CSV text only where COPY reads the same text: comma-delimited.
+  const asLine = format === 'csv' && o.delimiter === COMMA ? o.asCsvLine : undefined;
+  // Text columns need no field values at all: records stay bytes after the header.
   const reader: ItemReader =
-    format === 'csv' ? csvReader(o.delimiter, o.maxRowBytes) : ndjsonReader(o.maxRowBytes);
+    format === 'csv'
+      ? csvReader(o.delimiter, o.maxRowBytes, asLine !== undefined && !o.columns)
+      : ndjsonReader(o.maxRowBytes);
 
   // Count this run's records as the sink settles them; other writers may share the sink.
   const run = trackRun(sink, runId, source);
@@ -192,7 +211,8 @@ async function run<T>(
       : new Stop('sink', `The sink refused a row: ${messageOf(error)}`, error);
   // Synchronous while the sink has room: a promise per row would cost more than the row.
   const accept = (record: T, line: number): Promise<void> | undefined => {
-    const meta: RecordMeta = { topic: source, partition: runId, offset: line };
+    // The summary counts settlements itself: the sink's progress tracker need not follow them.
+    const meta: RecordMeta = { topic: source, partition: runId, offset: line, externalProgress: true };
     let taken: boolean;
     try {
       taken = sink.tryWrite(record, meta);
@@ -215,6 +235,7 @@ async function run<T>(
 
   let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
   const needHeader = format === 'csv' && o.header;
+  let layout: LineLayout | undefined = header && asLine ? lineLayout(header, o.delimiter) : undefined;
 
   /** Handles one item; returns a promise only when it has to wait (a full sink, a reject target, an async schema). */
   const handle = (item: Item): Promise<void> | undefined => {
@@ -233,6 +254,7 @@ async function run<T>(
           `The CSV header (line ${item.line}) is malformed: ${item.kind === 'reject' ? item.message : 'no fields'}`,
         );
       header = headerMap(item.fields, o.columns);
+      if (asLine) layout = lineLayout(header, o.delimiter);
       return undefined;
     }
     s.rowsRead++;
@@ -242,7 +264,25 @@ async function run<T>(
       return reject(item.line, item.raw, item.reason, item.message, column, item.truncated);
     }
     let row: Row;
-    if (item.kind === 'fields') {
+    if (item.kind === 'line') {
+      // Text columns, the record still bytes: count its fields without splitting it.
+      const h = header!;
+      const scan = scanLine(item.raw, o.delimiter);
+      const width = scan >>> 2;
+      if (width !== h.width)
+        return reject(
+          item.line,
+          item.raw,
+          'column-count',
+          `expected ${h.width} field(s), got ${width}`,
+          undefined,
+        );
+      if ((scan & NOT_A_LINE) === 0) {
+        const bytes = scan & EMPTY_FIELD ? quoteEmptyFields(item.raw, o.delimiter, width) : item.raw;
+        return accept(asLine!(new CsvLine(bytes, layout!)), item.line);
+      }
+      row = fromHeader(h.names, splitOne(item.raw, o.delimiter)).row;
+    } else if (item.kind === 'fields') {
       const h = header!;
       if (item.fields.length !== h.width) {
         return reject(
@@ -252,6 +292,12 @@ async function run<T>(
           `expected ${h.width} field(s), got ${item.fields.length}`,
           undefined,
         );
+      }
+      if (asLine && h.inOrder) {
+        const verdict = checkInOrder(h.columns!, item.fields, item.raw, o.delimiter);
+        if (verdict === undefined) return accept(asLine(new CsvLine(item.raw, layout!)), item.line);
+        if (verdict !== 'convert')
+          return reject(item.line, item.raw, verdict.reason, verdict.message, verdict.column);
       }
       const built = o.columns
         ? fromColumns(h.columns!, (c) => item.fields[h.index.get(c.name)!])
@@ -286,7 +332,7 @@ async function run<T>(
   };
 
   const validated = (
-    item: Item & { raw: Buffer },
+    item: Item & { kind: 'fields' | 'line' | 'value' },
     result: StandardResult<unknown>,
   ): Promise<void> | undefined => {
     if (result.issues) {
@@ -302,7 +348,10 @@ async function run<T>(
     return mapped(item, result.value as Row);
   };
 
-  const mapped = (item: Item & { raw: Buffer }, row: Row): Promise<void> | undefined => {
+  const mapped = (
+    item: Item & { kind: 'fields' | 'line' | 'value' },
+    row: Row,
+  ): Promise<void> | undefined => {
     let record: T;
     if (o.map) {
       try {
@@ -321,9 +370,14 @@ async function run<T>(
       s.bytes += chunk.length;
       if (s.bytes > o.maxInputBytes)
         throw new Stop('too-large', `The input is larger than ${o.maxInputBytes} bytes`);
-      for (const item of reader.push(chunk)) {
-        const wait = handle(item);
-        if (wait) await wait;
+      // In slices: the rows parsed from one slice wait together while the sink is full, so the
+      // slice, not the chunk a stream happens to deliver, bounds what an upload holds meanwhile.
+      for (let at = 0; at < chunk.length; at += READ_SLICE) {
+        const slice = at === 0 && chunk.length <= READ_SLICE ? chunk : chunk.subarray(at, at + READ_SLICE);
+        for (const item of reader.push(slice)) {
+          const wait = handle(item);
+          if (wait) await wait;
+        }
       }
       progress(false);
     }
@@ -349,7 +403,6 @@ async function run<T>(
     }
   }
   run.release();
-  sink.progress.forget(partitionKey(source, runId));
   if (o.ownsRejects) {
     try {
       await o.rejects?.close?.();
@@ -374,6 +427,8 @@ interface HeaderMap {
   columns: ResolvedColumn[] | undefined;
   /** Column spec name → field index. */
   index: Map<string, number>;
+  /** The declared columns are the record's fields one to one, in order. */
+  inOrder: boolean;
 }
 
 function positional(columns: ResolvedColumn[]): HeaderMap {
@@ -382,6 +437,7 @@ function positional(columns: ResolvedColumn[]): HeaderMap {
     width: columns.length,
     columns,
     index: new Map(columns.map((c, i) => [c.name, i])),
+    inOrder: true,
   };
 }
 
@@ -391,7 +447,7 @@ function headerMap(names: string[], columns: ResolvedColumn[] | undefined): Head
     if (seen.has(n)) throw new Stop('header', `The CSV header names column "${n}" twice`);
     seen.set(n, i);
   });
-  if (!columns) return { names, width: names.length, columns: undefined, index: seen };
+  if (!columns) return { names, width: names.length, columns: undefined, index: seen, inOrder: false };
   const index = new Map<string, number>();
   const missing: string[] = [];
   const present: ResolvedColumn[] = [];
@@ -408,7 +464,26 @@ function headerMap(names: string[], columns: ResolvedColumn[] | undefined): Head
     throw new Stop('header', `The CSV header lacks required column(s): ${missing.join(', ')}`);
   // Optional columns absent from the header are null in every row.
   const absent = columns.filter((c) => !index.has(c.name));
-  return { names, width: names.length, columns: [...present, ...absent], index };
+  const inOrder = columns.length === names.length && columns.every((c, i) => index.get(c.name) === i);
+  return { names, width: names.length, columns: [...present, ...absent], index, inOrder };
+}
+
+/** How a `CsvLine` of this CSV turns back into its row (dead letters, other sinks). */
+function lineLayout(h: HeaderMap, delimiter: number): LineLayout {
+  const columns = h.columns;
+  if (!columns) return { row: (bytes) => fromHeader(h.names, splitOne(bytes, delimiter)).row };
+  return {
+    row: (bytes) => {
+      const fields = splitOne(bytes, delimiter);
+      const built = fromColumns(columns, (c) => fields[h.index.get(c.name)!]);
+      // A line passed every check: it always builds.
+      return 'row' in built ? built.row : {};
+    },
+  };
+}
+
+function splitOne(bytes: Buffer, delimiter: number): string[] {
+  return splitRecords(bytes.toString('utf8'), delimiter)[0] ?? [''];
 }
 
 type Built = { row: Row } | { reason: RejectReason; message: string; column: string };
@@ -429,7 +504,7 @@ function fromColumns(columns: ResolvedColumn[], read: (c: ResolvedColumn) => unk
   return { row };
 }
 
-function fromHeader(names: string[], fields: string[]): Built {
+function fromHeader(names: string[], fields: string[]): { row: Row } {
   const row: Row = {};
   for (let i = 0; i < names.length; i++) setField(row, names[i]!, fields[i]);
   return { row };

@@ -8,6 +8,7 @@ import {
   nonNegativeOption,
 } from '@spillway/core/kit';
 import { type ColumnSpec, type ResolvedColumn, resolveColumns } from './columns.js';
+import type { CsvLine } from './csv-line.js';
 import type { RejectTarget } from './reject.js';
 import { RejectFile, type RejectFormat } from './reject-file.js';
 import { isStandardSchema, type StandardSchemaV1 } from './standard-schema.js';
@@ -77,6 +78,17 @@ export interface IngestOptions<T = Row> {
    */
   map?: (row: Row, context: RowContext) => T;
   /**
+   * CSV with the `,` delimiter: a row that passes every check, and whose values would be written
+   * exactly as the file spells them, goes to the sink as `asCsvLine(line)` instead of as a row
+   * object: its bytes as a COPY (FORMAT csv) line, for a sink that reads CSV itself (a PostgreSQL
+   * sink in `copy` mode with its `csvLine` option). Other rows are row objects as usual, so the
+   * sink takes both. `line.row()` gives the row a line stands for. Not with `map` or `schema`,
+   * which need row objects.
+   * @default undefined (every row is a row object)
+   * @example (line) => line
+   */
+  asCsvLine?: (line: CsvLine) => T;
+  /**
    * Where rejected rows go: a path (a `RejectFile`, created 0600, format from the extension:
    * `.csv` → CSV, anything else → NDJSON) or any `RejectTarget`. Without one, rejects are only
    * counted (and the first 20 listed in the summary).
@@ -143,6 +155,7 @@ export interface ResolvedIngestOptions<T> {
   columns: ResolvedColumn[] | undefined;
   schema: StandardSchemaV1 | undefined;
   map: ((row: Row, context: RowContext) => T) | undefined;
+  asCsvLine: ((line: CsvLine) => T) | undefined;
   rejects: RejectTarget | undefined;
   /** True when the ingest opened the reject target and so closes it. */
   ownsRejects: boolean;
@@ -163,6 +176,7 @@ const KNOWN = new Set([
   'columns',
   'schema',
   'map',
+  'asCsvLine',
   'rejects',
   'rejectFormat',
   'maxRejects',
@@ -202,6 +216,13 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
       o.schema,
     );
   const map = functionOption<(row: Row, context: RowContext) => T>('map', o.map);
+  const asCsvLine = functionOption<(line: CsvLine) => T>('asCsvLine', o.asCsvLine);
+  if (asCsvLine !== undefined && (map !== undefined || o.schema !== undefined))
+    throw invalidOption(
+      'asCsvLine',
+      'undefined when `map` or `schema` is given (they need row objects)',
+      o.asCsvLine,
+    );
   if (!header && columns === undefined)
     throw invalidOption(
       'columns',
@@ -243,6 +264,7 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
     columns,
     schema: o.schema as StandardSchemaV1 | undefined,
     map,
+    asCsvLine,
     rejects,
     ownsRejects,
     maxRejects: countOption('maxRejects', o.maxRejects, Number.POSITIVE_INFINITY, {

@@ -7,6 +7,8 @@ import type { RejectReason } from './reject.js';
 /** One data row found in the input, parsed but not yet validated, or why it could not be. */
 export type Item =
   | { readonly kind: 'fields'; readonly line: number; readonly raw: Buffer; readonly fields: string[] }
+  /** A well-formed UTF-8 CSV record left as its bytes (`csvReader` with `lines`). */
+  | { readonly kind: 'line'; readonly line: number; readonly raw: Buffer }
   | { readonly kind: 'value'; readonly line: number; readonly raw: Buffer; readonly value: unknown }
   | { readonly kind: 'blank'; readonly line: number }
   | {
@@ -31,11 +33,13 @@ const LF = Buffer.from('\n');
 
 /**
  * CSV: the framer finds records and isolates malformed ones; the well-formed records of a chunk
- * are then decoded at once and split into fields in one call.
+ * are then decoded at once and split into fields in one call. With `lines`, every well-formed
+ * record after the first (the header) is left as its bytes instead (kind `line`).
  */
-export function csvReader(delimiter: number, maxRowBytes: number): ItemReader {
+export function csvReader(delimiter: number, maxRowBytes: number, lines = false): ItemReader {
   const framer = new CsvFramer(delimiter, maxRowBytes);
   let lastLine = 0;
+  let first = true;
   const items = (frames: CsvFrame[]): Item[] => {
     const out: Item[] = new Array(frames.length);
     const good: number[] = [];
@@ -62,7 +66,9 @@ export function csvReader(delimiter: number, maxRowBytes: number): ItemReader {
           field: badUtf8Field(f.bytes, delimiter),
           truncated: false,
         };
-      } else good.push(i);
+      } else if (lines && !first) out[i] = { kind: 'line', line: f.line, raw: f.bytes };
+      else good.push(i);
+      first = false;
     }
     if (good.length === 0) return out;
     const parts: Buffer[] = new Array(good.length * 2);

@@ -7,7 +7,16 @@ import { runInNewContext } from 'node:vm';
 import { type FlushReason, Sink } from '@spillway/core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { z } from 'zod';
-import { type ColumnSpec, IngestError, ingest, ingestFile, RejectFile, type Row } from '../src/index.js';
+import {
+  type ColumnSpec,
+  CsvLine,
+  IngestError,
+  ingest,
+  ingestFile,
+  type Reject,
+  RejectFile,
+  type Row,
+} from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
 let dir: string;
@@ -352,6 +361,16 @@ describe('stopping and flushing', () => {
       ['progressIntervalMs', { format: 'csv', progressIntervalMs: -1 }],
       ['columns[0].required', { format: 'csv', columns: [{ name: 'a', required: 'yes' }] }],
       ['columns[0].type', { format: 'csv', columns: [{ name: 'a', type: 'date' }] }],
+      ['asCsvLine', { format: 'csv', asCsvLine: 'yes' }],
+      ['asCsvLine', { format: 'csv', asCsvLine: (l: unknown) => l, map: (r: unknown) => r }],
+      [
+        'asCsvLine',
+        {
+          format: 'csv',
+          asCsvLine: (l: unknown) => l,
+          schema: { '~standard': { version: 1, vendor: 'test', validate: (v: unknown) => ({ value: v }) } },
+        },
+      ],
     ];
     for (const [name, options] of bad) {
       const error = await ingest(Readable.from(['']), sink, options as never).catch((e: unknown) => e);
@@ -413,4 +432,33 @@ describe('bounded memory', () => {
     // About 3 s of CPU; the generous limit is for a machine shared with other builds, where this
     // process gets a small share of a core. It bounds nothing about speed.
   }, 180_000);
+});
+
+describe('CSV rows as their own text (asCsvLine)', () => {
+  it('hands valid rows on as CsvLines whose row() is the row the ingest would have built', async () => {
+    const csv = 'a,b,c\r\nr1,x,y\r\nr2,,"q, ""z"""\nr3,lone\rcr,y\nr4,only two\n,,\n';
+    const lines = new MemoryAdapter<Row | CsvLine>();
+    const objects = new MemoryAdapter<Row>();
+    const a = new Sink(lines);
+    const b = new Sink(objects);
+    const rejects: Reject[] = [];
+    await ingest(Readable.from([csv]), a, {
+      format: 'csv',
+      asCsvLine: (line) => line,
+      rejects: { write: (r) => void rejects.push(r) },
+    });
+    await ingest(Readable.from([csv]), b, { format: 'csv' });
+    await a.close();
+    await b.close();
+    const stored = lines.stored;
+    expect(stored.map((r) => (r instanceof CsvLine ? r.row() : r))).toEqual(objects.stored);
+    // r3 has a CR outside quotes: a row object; the others are lines, empty fields written "".
+    expect(stored.map((r) => (r instanceof CsvLine ? r.bytes.toString() : 'object'))).toEqual([
+      'r1,x,y',
+      'r2,"","q, ""z"""',
+      'object',
+      '"","",""',
+    ]);
+    expect(rejects.map((r) => [r.line, r.reason])).toEqual([[5, 'column-count']]);
+  });
 });

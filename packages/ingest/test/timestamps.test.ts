@@ -2,6 +2,7 @@
 import { Readable } from 'node:stream';
 import { Sink } from '@spillway/core';
 import { describe, expect, it } from 'vitest';
+import { timestamp } from '../src/columns.js';
 import { ingest, type Reject, type Row } from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
@@ -103,5 +104,45 @@ describe('timestamp columns', () => {
       ['2024-05-01T10:00:00.123001Z', 'range'],
       ['0099-01-01', 'range'],
     ]);
+  });
+
+  it('reads exactly the forms of the RFC 3339 grammar, checked against it as a regular expression', () => {
+    // Source: RFC 3339, section 5.6 "Internet Date/Time Format" (with its note's "t", "z" and
+    // space), written as a regular expression here and read by hand in `timestamp()`.
+    const grammar =
+      /^(\d{4})-(\d{2})-(\d{2})(?:[Tt ](\d{2}):(\d{2}):(\d{2})(?:\.(\d+))?(?:[Zz]|([+-])(\d{2}):(\d{2})))?$/;
+    // Valid stamps, then each mutated one character at a time (seeded, so the run repeats).
+    const seeds = [
+      '2024-05-01',
+      '2024-05-01T10:00:00Z',
+      '2024-05-01t10:00:00.123456z',
+      '2024-05-01 10:00:00.5+02:00',
+      '1985-04-12T23:20:50.52-08:30',
+    ];
+    const alphabet = '0123456789-:.+Tt Zz5x';
+    let seed = 42;
+    const random = (n: number) => {
+      seed = (seed * 1_103_515_245 + 12_345) % 2_147_483_648;
+      return seed % n;
+    };
+    let checked = 0;
+    for (let k = 0; k < 20_000; k++) {
+      let s = seeds[random(seeds.length)]!;
+      for (let edits = random(3); edits > 0; edits--) {
+        const at = random(s.length + 1);
+        const op = random(3);
+        const c = alphabet[random(alphabet.length)]!;
+        s =
+          op === 0
+            ? s.slice(0, at) + c + s.slice(at + 1)
+            : op === 1
+              ? s.slice(0, at) + c + s.slice(at)
+              : s.slice(0, at) + s.slice(at + 1);
+      }
+      const form = timestamp(s) !== 'form';
+      expect([s, form]).toEqual([s, grammar.test(s)]);
+      checked++;
+    }
+    expect(checked).toBe(20_000);
   });
 });

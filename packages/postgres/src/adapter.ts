@@ -240,7 +240,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
    */
   private async attempt(batch: Batch<T>, stored: StoredOffsets | undefined): Promise<Attempt> {
     const rejected: Array<{ index: number; error: unknown }> = [];
-    const { map, mode } = this.options;
+    const { map, mode, csvLine } = this.options;
     const metas = batch.metas;
     const skip = (i: number): boolean => {
       if (stored === undefined) return false;
@@ -270,7 +270,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         for (let i = 0; i < batch.records.length; i++) {
           if (skip(i)) continue;
           try {
-            data.row(this.mapped(map(batch.records[i] as T)));
+            const ready = csvLine?.(batch.records[i] as T);
+            if (ready !== undefined) data.pushBytes(ready);
+            else data.row(this.mapped(map(batch.records[i] as T)));
             sent.push(i);
             count++;
           } catch (error) {

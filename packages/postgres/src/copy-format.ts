@@ -107,6 +107,15 @@ export class CopyChunks {
     }
   }
 
+  /** A line that is COPY data already (without its newline), copied in as it is. */
+  pushBytes(line: Uint8Array): void {
+    this.rowStart = this.at;
+    this.room(line.length + 1);
+    this.buf.set(line, this.at);
+    this.at += line.length;
+    this.buf[this.at++] = NEWLINE;
+  }
+
   /** Hands on whatever is still pending. */
   finish(): void {
     if (this.at === 0) return;

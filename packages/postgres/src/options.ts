@@ -1,4 +1,4 @@
-import { countOption, invalidOption, knownOptions } from '@spillway/core/kit';
+import { countOption, functionOption, invalidOption, knownOptions } from '@spillway/core/kit';
 import type { Pool } from 'pg';
 
 /**
@@ -129,6 +129,17 @@ export interface PostgresAdapterOptions<T> {
    */
   readonly copyFormat?: CopyFormat;
   /**
+   * `copy` mode with `copyFormat: 'csv'`: the record's COPY line when the record already holds one,
+   * sent as it is instead of going through `map` and the encoder. The bytes must be one CSV record
+   * as COPY reads it (PostgreSQL documentation, COPY, "CSV Format"): UTF-8, the fields of
+   * `columns` in order separated by commas, no line break outside quotes, NULL as an unquoted
+   * empty field, and not a lone `\.`. Return `undefined` for a record that must be mapped. For
+   * producers that hold valid CSV already, such as an upload read by `@spillway/ingest`.
+   * @default undefined
+   * @example (r) => (r instanceof Uint8Array ? r : undefined)
+   */
+  readonly csvLine?: ((record: T) => Uint8Array | undefined) | undefined;
+  /**
    * `upsert` batches with more rows than this are copied into a temporary table and merged with
    * one `INSERT … SELECT … ON CONFLICT`; smaller ones use multi-row `INSERT … ON CONFLICT`.
    * `Infinity` never uses COPY.
@@ -175,6 +186,7 @@ export interface ResolvedPostgresOptions<T> {
   mode: PostgresMode;
   conflict: { key: string[]; action: 'update' | 'nothing'; update: string[] } | undefined;
   copyFormat: CopyFormat;
+  csvLine: ((record: T) => Uint8Array | undefined) | undefined;
   upsertViaCopyAbove: number;
   insertForm: InsertForm;
   rowsPerStatement: number;
@@ -200,6 +212,7 @@ const KNOWN = new Set([
   'mode',
   'conflict',
   'copyFormat',
+  'csvLine',
   'upsertViaCopyAbove',
   'insertForm',
   'maxRowsPerStatement',
@@ -322,6 +335,9 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
   const copyFormat = (o.copyFormat ?? POSTGRES_DEFAULTS.copyFormat) as CopyFormat;
   if (copyFormat !== 'csv' && copyFormat !== 'text')
     throw invalidOption('copyFormat', '"csv" or "text"', o.copyFormat);
+  const csvLine = functionOption<(record: T) => Uint8Array | undefined>('csvLine', o.csvLine);
+  if (csvLine !== undefined && (mode !== 'copy' || copyFormat !== 'csv'))
+    throw invalidOption('csvLine', 'undefined unless mode is "copy" and copyFormat "csv"', o.csvLine);
 
   const upsertViaCopyAbove = countOption(
     'upsertViaCopyAbove',
@@ -380,6 +396,7 @@ export function resolvePostgresOptions<T>(options: PostgresAdapterOptions<T>): R
     mode,
     conflict,
     copyFormat,
+    csvLine,
     upsertViaCopyAbove,
     insertForm,
     // The protocol bound wins over a larger request; unnest binds one array per column, whatever the rows.

@@ -104,7 +104,13 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
       : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
   const numberOverhead = unnest ? 3 : viaCopy ? 1 : PARAM_LENGTH_BYTES + PLACEHOLDER_BYTES;
   const rowOverhead = viaCopy || unnest ? 0 : TUPLE_BYTES;
+  const csvLine = o.csvLine;
   return (record: T) => {
+    if (csvLine !== undefined) {
+      // A line sent as it is weighs its bytes and the newline.
+      const line = csvLine(record);
+      if (line !== undefined) return line.length + 1;
+    }
     let values: readonly unknown[];
     try {
       values = o.map(record);

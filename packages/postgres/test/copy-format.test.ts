@@ -163,3 +163,31 @@ describe('columnArrayLiteral (the unnest insert form)', () => {
     expect(columnArrayLiteral(flat as never, 1, 2)).toBe('{"1",NULL,"\\\\x","\\\\xff"}');
   });
 });
+
+describe('COPY chunks', () => {
+  it('keeps lines given as bytes and as rows of values in order, each ended by a newline', () => {
+    const chunks: Buffer[] = [];
+    const data = new CopyChunks((c) => chunks.push(c));
+    data.row(['a', 1]);
+    data.pushBytes(Buffer.from('b,2'));
+    data.pushBytes(Buffer.from('"c, ""q""",3'));
+    data.row(['d', null]);
+    data.finish();
+    const all = Buffer.concat(chunks);
+    expect(all.toString()).toBe(
+      `${copyLine(['a', 1], 'csv')}b,2\n"c, ""q""",3\n${copyLine(['d', null], 'csv')}`,
+    );
+    expect(data.bytes).toBe(all.length);
+  });
+
+  it('cuts a long run of byte lines into chunks of about 64 KiB', () => {
+    const chunks: Buffer[] = [];
+    const data = new CopyChunks((c) => chunks.push(c));
+    const line = Buffer.from('x'.repeat(99));
+    for (let i = 0; i < 2000; i++) data.pushBytes(line);
+    data.finish();
+    expect(Buffer.concat(chunks).length).toBe(200_000);
+    expect(chunks.length).toBe(4);
+    expect(Math.max(...chunks.map((c) => c.length))).toBeLessThanOrEqual(65_536 + 100);
+  });
+});

@@ -2,6 +2,7 @@ import { stat, writeFile } from 'node:fs/promises';
 import { messageOf } from '@spillway/core';
 import {
   type ColumnSpec,
+  type CsvLine,
   formatFromPath,
   IngestError,
   type IngestFormat,
@@ -16,7 +17,7 @@ import {
 import { Command, type CommanderError, InvalidArgumentError, Option } from 'commander';
 import { parseColumnsFlag, readSchemaFile } from '../ingest/columns-flag.js';
 import { type ProgressMode, progressView } from '../ingest/progress.js';
-import { openTarget } from '../ingest/targets.js';
+import { type IngestRecord, openTarget, rowOf } from '../ingest/targets.js';
 import { UsageError } from '../ingest/usage-error.js';
 
 /** Exit codes of `spillway ingest`. */
@@ -164,7 +165,11 @@ export function registerIngest(program: Command): void {
       int('--max-rejects', 0),
     )
     // batching
-    .option('--batch-size <n>', 'rows per batch written to the store (default 1000)', int('--batch-size', 1))
+    .option(
+      '--batch-size <n>',
+      'rows per batch written to the store (default 5000 into PostgreSQL in copy mode, else 1000)',
+      int('--batch-size', 1),
+    )
     .option(
       '--max-age-ms <n>',
       'longest a row waits in a batch before it is written (default 500)',
@@ -245,16 +250,18 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
         ...(flags.maxAgeMs !== undefined && { maxAgeMs: flags.maxAgeMs }),
         ...(flags.concurrency !== undefined && { concurrency: flags.concurrency }),
       },
-      rejects.deadLetterTarget<Row>((r) => jsonRow(r)),
+      rejects.deadLetterTarget<IngestRecord>((r) => jsonRow(rowOf(r))),
     );
 
     const view = progressView(flags.quiet ? 'none' : flags.progress, totalBytes);
     process.on('SIGINT', onSigint);
-    const options: IngestOptions<Row> = {
+    const options: IngestOptions<IngestRecord> = {
       format,
       header: flags.header,
       ...(delimiter !== undefined && { delimiter }),
       ...(columns && { columns }),
+      // Valid CSV rows go to a COPY as their own text.
+      ...(target.takesCsvLines && { asCsvLine: (line: CsvLine) => line }),
       rejects,
       ...(flags.maxRejects !== undefined && { maxRejects: flags.maxRejects }),
       ...(flags.maxRowBytes !== undefined && { maxRowBytes: flags.maxRowBytes }),
