@@ -97,17 +97,15 @@ export class Sink<T> implements ExitFlushable {
     const settle = this.settle;
     this.buffer = new RecordBuffer<T>(o.clock.now());
     this.scheduler = new Scheduler(name, o, this.buffer, stats, events, {
-      deliver: (batch, reason) => this.delivery.deliver(batch, reason, batch.entries),
+      deliver: (batch, reason) => this.delivery.deliver(batch, reason, undefined),
       fail,
       failed,
       waitingWriters: () => this.admission.waiting,
       wake: () => this.admission.wake(),
     });
     this.settlement = new Settlement(name, o.clock, this.progress, stats, events, {
-      forEachPending: (fn) => {
-        this.buffer.forEach(fn);
-        for (const b of this.scheduler.inflight) for (const e of b.entries) if (!e.done) fn(e);
-      },
+      holdPending: (match, barrier) =>
+        this.buffer.holdBarrier(match, barrier) + this.scheduler.holdBarrier(match, barrier),
       retire: (records, bytes) => this.scheduler.retire(records, bytes),
       roomFreed: () => this.admission.wake(),
       idle: () => this.exitHold.release(),
@@ -330,8 +328,8 @@ export class Sink<T> implements ExitFlushable {
     return p.buffered + p.inFlight;
   }
 
-  private readonly settle: Settlement<T>['settle'] = (batch, entries, outcome) =>
-    this.settlement.settle(batch, entries, outcome);
+  private readonly settle: Settlement<T>['settle'] = (batch, part, outcome) =>
+    this.settlement.settle(batch, part, outcome);
 
   /**
    * The event loop is about to empty while this sink holds buffered records (see exit-net.ts):
