@@ -5,7 +5,7 @@
  */
 import { systemClock } from '../clock.js';
 import { AbortedError } from '../errors.js';
-import type { ResolvedOptions } from '../options.js';
+import { defaultOrderingKey, type ResolvedOptions } from '../options.js';
 import { estimateJsonBytes } from '../size.js';
 import type { TypedEmitter } from '../typed-emitter.js';
 import type { Prepared, RecordMeta, SinkAdapter, SinkEvents } from '../types.js';
@@ -35,6 +35,9 @@ export class Admission<T> {
   private readonly waiters: Waiter<T>[] = [];
   private readonly estimate: (record: T) => number;
   private readonly prepareHook: ((record: T) => Prepared) | undefined;
+  /** The ordering key is the default one, which reads only the metadata. */
+  private readonly keyNeedsMeta: boolean;
+  private readonly systemTime: boolean;
   /** acceptNow()'s reading and how many more accepts it may stamp. */
   private reading = 0;
   private readingUses = 0;
@@ -53,13 +56,15 @@ export class Admission<T> {
     private readonly settlement: Settlement<T>,
     private readonly stats: SinkStats,
     private readonly events: TypedEmitter<SinkEvents>,
-    /** Called for every accepted record (the sink holds the process open while any is pending). */
+    /** Called when a record is accepted while nothing is pending (the sink then holds the process open). */
     private readonly onAccept: () => void,
     /** Writers are let in only while the sink is open (close() admits the waiting ones itself). */
     private readonly isOpen: () => boolean,
   ) {
     this.estimate = o.estimateBytes ?? adapter.estimateBytes?.bind(adapter) ?? estimateJsonBytes;
     this.prepareHook = adapter.prepare?.bind(adapter);
+    this.keyNeedsMeta = o.orderingKey === defaultOrderingKey;
+    this.systemTime = o.clock === systemClock;
   }
 
   /** Writers waiting for room. */
@@ -132,11 +137,19 @@ export class Admission<T> {
     return Number.isFinite(n) && n > 0 ? n : 1;
   }
 
+  /**
+   * Room for one more record of `bytes` under the pending bounds. Against `maxPendingBytes` each
+   * record counts as its estimated bytes plus `recordOverheadBytes` (what it holds on the heap
+   * beyond them).
+   */
   private hasRoom(bytes: number): boolean {
     const pending = this.pendingRecords;
     if (pending + 1 > this.o.maxPendingRecords) return false;
     // A single record larger than the byte bound still goes through when nothing is pending.
-    return pending === 0 || this.pendingBytes + bytes <= this.o.maxPendingBytes;
+    return (
+      pending === 0 ||
+      this.pendingBytes + bytes + (pending + 1) * this.o.recordOverheadBytes <= this.o.maxPendingBytes
+    );
   }
 
   private accept(
@@ -148,12 +161,15 @@ export class Admission<T> {
     at?: number,
   ): void {
     const now = at ?? this.acceptNow();
-    const key = this.o.orderingKey(record, meta);
+    // The default ordering key comes from the metadata alone: no call for a record without it.
+    const key = meta === undefined && this.keyNeedsMeta ? undefined : this.o.orderingKey(record, meta);
     if (barrier) this.settlement.hold(barrier);
-    this.settlement.track(meta);
+    if (meta !== undefined) this.settlement.track(meta);
+    const first = this.buffer.count === 0 && this.scheduler.inflightRecords === 0;
     this.buffer.push(record, meta, bytes, prepared, now, key, barrier);
     this.stats.accepted++;
-    this.onAccept();
+    // Nothing was pending: the sink now holds the process open (it lets go when all is settled).
+    if (first) this.onAccept();
     this.scheduler.accepted();
   }
 
@@ -164,7 +180,7 @@ export class Admission<T> {
    * and accept → durable latency reads at most that much longer. Any other clock is read every time.
    */
   private acceptNow(): number {
-    if (this.o.clock !== systemClock) return this.o.clock.now();
+    if (!this.systemTime) return this.o.clock.now();
     if (this.readingUses > 0) {
       this.readingUses--;
       return this.reading;

@@ -68,11 +68,6 @@ export class Settlement<T> {
     const { times, metas, barriers } = batch;
     const h = this.stats;
     const durable = outcome === 'durable';
-    if (part !== undefined) {
-      // Part of the batch ends before the rest: remember which records did.
-      const done = (batch.done ??= new Uint8Array(batch.records.length));
-      for (const i of part) done[i] = 1;
-    }
     // Consecutive records accepted within one histogram step share a value: record them as a
     // run, which keeps the per-record cost of the latency distribution near zero. Records
     // stamped with one clock reading (see Admission.acceptNow()) need not even be rounded.
@@ -126,8 +121,27 @@ export class Settlement<T> {
         latenciesMs: latencies,
       });
     }
+    if (part !== undefined) this.release(batch, part);
     // The last records of a batch: the scheduler lets writers in once the next batch has started.
     if (batch.open > 0) this.hooks.roomFreed();
+  }
+
+  /**
+   * Part of a batch ended before the rest (a partial write, a split): marks those records done and
+   * lets go of them while the rest is still being written. (A whole batch is let go of with the
+   * batch itself.)
+   */
+  private release(batch: InFlight<T>, part: readonly number[]): void {
+    const done = (batch.done ??= new Uint8Array(batch.records.length));
+    const records = batch.records as (T | undefined)[];
+    const metas = batch.metas as (RecordMeta | undefined)[] | undefined;
+    const prepared = batch.prepared as unknown[] | undefined;
+    for (const i of part) {
+      done[i] = 1;
+      records[i] = undefined;
+      if (metas !== undefined) metas[i] = undefined;
+      if (prepared !== undefined) prepared[i] = undefined;
+    }
   }
 
   /** Event-time latency and source progress of settled records that carry metadata. */
