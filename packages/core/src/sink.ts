@@ -106,7 +106,10 @@ export class Sink<T> implements ExitFlushable {
     this.settlement = new Settlement(name, o.clock, this.progress, stats, events, {
       holdPending: (match, barrier) =>
         this.buffer.holdBarrier(match, barrier) + this.scheduler.holdBarrier(match, barrier),
-      retire: (records, bytes) => this.scheduler.retire(records, bytes),
+      retire: (records, bytes) => {
+        this.scheduler.retire(records, bytes);
+        this.admission.released(records, bytes);
+      },
       roomFreed: () => this.admission.wake(),
       idle: () => this.exitHold.release(),
       pendingRecords: () => this.admission.pendingRecords,

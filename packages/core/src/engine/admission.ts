@@ -38,6 +38,8 @@ export class Admission<T> {
   /** The ordering key is the default one, which reads only the metadata. */
   private readonly keyNeedsMeta: boolean;
   private readonly systemTime: boolean;
+  /** A prepared record's size is the one `prepare()` gave, unless the user gave an estimator. */
+  private readonly sizeFromPrepared: boolean;
   /** acceptNow()'s reading and how many more accepts it may stamp. */
   private reading = 0;
   private readingUses = 0;
@@ -64,6 +66,7 @@ export class Admission<T> {
     this.estimate = o.estimateBytes ?? adapter.estimateBytes?.bind(adapter) ?? estimateJsonBytes;
     this.prepareHook = adapter.prepare?.bind(adapter);
     this.keyNeedsMeta = o.orderingKey === defaultOrderingKey;
+    this.sizeFromPrepared = o.estimateBytes === undefined;
     this.systemTime = o.clock === systemClock;
   }
 
@@ -72,12 +75,23 @@ export class Admission<T> {
     return this.waiters.length;
   }
 
-  get pendingRecords(): number {
-    return this.buffer.count + this.scheduler.inflightRecords;
-  }
+  /** Records accepted and not yet terminal (buffered + in flight), and their estimated bytes. */
+  pendingRecords = 0;
+  pendingBytes = 0;
+  /** What `maxPendingBytes` counts of them: their estimated bytes plus the per-record overhead. */
+  private pendingCost = 0;
 
-  get pendingBytes(): number {
-    return this.buffer.bytes + this.scheduler.inflightBytes;
+  /** Records became terminal: they no longer count against the pending bounds. */
+  released(records: number, bytes: number): void {
+    this.pendingRecords -= records;
+    if (this.pendingRecords === 0) {
+      // Sums of fractional estimates would otherwise drift.
+      this.pendingBytes = 0;
+      this.pendingCost = 0;
+    } else {
+      this.pendingBytes -= bytes;
+      this.pendingCost -= bytes + records * this.o.recordOverheadBytes;
+    }
   }
 
   /** Accepts now when there is room and nobody waits; otherwise waits for room. */
@@ -132,8 +146,7 @@ export class Admission<T> {
 
   /** The record's size in bytes (the prepared size, unless the user gave an estimator). */
   private sizeOf(record: T, prepared: Prepared | undefined): number {
-    const n =
-      prepared === undefined || this.o.estimateBytes !== undefined ? this.estimate(record) : prepared.bytes;
+    const n = prepared === undefined || !this.sizeFromPrepared ? this.estimate(record) : prepared.bytes;
     return Number.isFinite(n) && n > 0 ? n : 1;
   }
 
@@ -144,12 +157,9 @@ export class Admission<T> {
    */
   private hasRoom(bytes: number): boolean {
     const pending = this.pendingRecords;
-    if (pending + 1 > this.o.maxPendingRecords) return false;
+    if (pending >= this.o.maxPendingRecords) return false;
     // A single record larger than the byte bound still goes through when nothing is pending.
-    return (
-      pending === 0 ||
-      this.pendingBytes + bytes + (pending + 1) * this.o.recordOverheadBytes <= this.o.maxPendingBytes
-    );
+    return pending === 0 || this.pendingCost + bytes + this.o.recordOverheadBytes <= this.o.maxPendingBytes;
   }
 
   private accept(
@@ -165,7 +175,10 @@ export class Admission<T> {
     const key = meta === undefined && this.keyNeedsMeta ? undefined : this.o.orderingKey(record, meta);
     if (barrier) this.settlement.hold(barrier);
     if (meta !== undefined) this.settlement.track(meta);
-    const first = this.buffer.count === 0 && this.scheduler.inflightRecords === 0;
+    const first = this.pendingRecords === 0;
+    this.pendingRecords++;
+    this.pendingBytes += bytes;
+    this.pendingCost += bytes + this.o.recordOverheadBytes;
     this.buffer.push(record, meta, bytes, prepared, now, key, barrier);
     this.stats.accepted++;
     // Nothing was pending: the sink now holds the process open (it lets go when all is settled).
