@@ -149,6 +149,7 @@ export class Sink<T> implements ExitFlushable {
    * shutdown coordinator's); after a fatal error it rejects with `SPILLWAY_SINK_FAILED`.
    */
   write(record: T, meta?: RecordMeta, options?: WriteOptions): Promise<void> {
+    if (this.stateValue === 'open') return this.admission.write(record, meta, options?.signal, undefined);
     const refused = this.refusal();
     if (refused === PARK) return PARKED;
     if (refused) return Promise.reject(refused);
@@ -161,6 +162,7 @@ export class Sink<T> implements ExitFlushable {
    * returns false when the close parks later writes (see `CloseOptions.laterWrites`).
    */
   tryWrite(record: T, meta?: RecordMeta): boolean {
+    if (this.stateValue === 'open') return this.admission.tryWrite(record, meta);
     const refused = this.refusal();
     if (refused === PARK) return false;
     if (refused) throw refused;

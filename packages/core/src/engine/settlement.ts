@@ -71,27 +71,29 @@ export class Settlement<T> {
     // Consecutive records accepted within one histogram step share a value: record them as a
     // run, which keeps the per-record cost of the latency distribution near zero. Records
     // stamped with one clock reading (see Admission.acceptNow()) need not even be rounded.
-    let lastAt = Number.NaN;
-    let runValue = Number.NaN;
-    let runCount = 0;
-    for (let k = 0; k < n; k++) {
-      const at = times[part === undefined ? k : part[k]!]!;
-      if (wantEvent) latencies[k] = now - at;
-      if (!durable) continue;
-      if (at === lastAt) {
-        runCount++;
-        continue;
+    const at = part === undefined ? times : pick(times, part);
+    if (wantEvent) for (let k = 0; k < n; k++) latencies[k] = now - at[k]!;
+    if (durable) {
+      let lastAt = Number.NaN;
+      let runValue = Number.NaN;
+      let runCount = 0;
+      for (let k = 0; k < n; k++) {
+        const t = at[k]!;
+        if (t === lastAt) {
+          runCount++;
+          continue;
+        }
+        lastAt = t;
+        const v = Math.round((now - t) * LATENCY_STEPS_PER_MS) / LATENCY_STEPS_PER_MS;
+        if (v === runValue) runCount++;
+        else {
+          if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
+          runValue = v;
+          runCount = 1;
+        }
       }
-      lastAt = at;
-      const v = Math.round((now - at) * LATENCY_STEPS_PER_MS) / LATENCY_STEPS_PER_MS;
-      if (v === runValue) runCount++;
-      else {
-        if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
-        runValue = v;
-        runCount = 1;
-      }
+      if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
     }
-    if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
     if (metas !== undefined) this.settleMetas(metas, part, n, durable);
     if (barriers !== undefined) {
       for (let k = 0; k < n; k++) {
