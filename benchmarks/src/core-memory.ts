@@ -14,6 +14,10 @@
  * - that every record landed exactly once (row count and distinct ids in the table).
  * Goal (issue 20): live ≤ 1.2 × bound + 20 MB, peak ≤ 2 × bound + 20 MB.
  *
+ * The sink's bound counts each pending record as its estimated bytes plus `recordOverheadBytes`
+ * (`--overhead` sets it; its default otherwise), and "the bound is reached" is read the same way;
+ * the plain queue counts estimated bytes only.
+ *
  * Why PostgreSQL and not a slow fake store: the prepared rows the real adapter keeps per pending
  * record are part of what the bound has to cover. The store is slowed by a wait before each
  * batch's real INSERT (calibrated from the producer's rate into a no-op sink); once the window
