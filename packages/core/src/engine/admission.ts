@@ -119,7 +119,11 @@ export class Admission<T> {
     return true;
   }
 
-  /** Accepts from the front of `records` while there is room; one clock read serves the call. */
+  /**
+   * Accepts from the front of `records` while there is room. One clock read serves the call, and
+   * the scheduler hears of the accepted records once, after the last (a batch that became full
+   * on the way starts then, still within this call).
+   */
   tryWriteMany(records: readonly T[], metas: readonly (RecordMeta | undefined)[] | undefined): number {
     if (this.waiters.length > 0) return 0;
     const now = this.o.clock.now();
@@ -129,8 +133,9 @@ export class Admission<T> {
       const prepared = this.prepare(record);
       const bytes = this.sizeOf(record, prepared);
       if (!this.hasRoom(bytes)) break;
-      this.accept(record, metas?.[n], bytes, prepared?.value, undefined, now);
+      this.enter(record, metas?.[n], bytes, prepared?.value, undefined, now);
     }
+    if (n > 0) this.scheduler.accepted();
     return n;
   }
 
@@ -168,9 +173,20 @@ export class Admission<T> {
     bytes: number,
     prepared: unknown,
     barrier: Barrier | undefined,
-    at?: number,
   ): void {
-    const now = at ?? this.acceptNow();
+    this.enter(record, meta, bytes, prepared, barrier, this.acceptNow());
+    this.scheduler.accepted();
+  }
+
+  /** Counts an accepted record and buffers it; the caller tells the scheduler. */
+  private enter(
+    record: T,
+    meta: RecordMeta | undefined,
+    bytes: number,
+    prepared: unknown,
+    barrier: Barrier | undefined,
+    now: number,
+  ): void {
     // The default ordering key comes from the metadata alone: no call for a record without it.
     const key = meta === undefined && this.keyNeedsMeta ? undefined : this.o.orderingKey(record, meta);
     if (barrier) this.settlement.hold(barrier);
@@ -183,7 +199,6 @@ export class Admission<T> {
     this.stats.accepted++;
     // Nothing was pending: the sink now holds the process open (it lets go when all is settled).
     if (first) this.onAccept();
-    this.scheduler.accepted();
   }
 
   /**
