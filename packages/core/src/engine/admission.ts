@@ -75,23 +75,17 @@ export class Admission<T> {
     return this.waiters.length;
   }
 
-  /** Records accepted and not yet terminal (buffered + in flight), and their estimated bytes. */
+  /** Records accepted and not yet terminal (buffered + in flight). */
   pendingRecords = 0;
-  pendingBytes = 0;
-  /** What `maxPendingBytes` counts of them: their estimated bytes plus the per-record overhead. */
-  private pendingCost = 0;
+
+  /** Their estimated bytes. */
+  get pendingBytes(): number {
+    return this.buffer.bytes + this.scheduler.inflightBytes;
+  }
 
   /** Records became terminal: they no longer count against the pending bounds. */
-  released(records: number, bytes: number): void {
+  released(records: number): void {
     this.pendingRecords -= records;
-    if (this.pendingRecords === 0) {
-      // Sums of fractional estimates would otherwise drift.
-      this.pendingBytes = 0;
-      this.pendingCost = 0;
-    } else {
-      this.pendingBytes -= bytes;
-      this.pendingCost -= bytes + records * this.o.recordOverheadBytes;
-    }
   }
 
   /** Accepts now when there is room and nobody waits; otherwise waits for room. */
@@ -164,7 +158,10 @@ export class Admission<T> {
     const pending = this.pendingRecords;
     if (pending >= this.o.maxPendingRecords) return false;
     // A single record larger than the byte bound still goes through when nothing is pending.
-    return pending === 0 || this.pendingCost + bytes + this.o.recordOverheadBytes <= this.o.maxPendingBytes;
+    return (
+      pending === 0 ||
+      this.pendingBytes + bytes + (pending + 1) * this.o.recordOverheadBytes <= this.o.maxPendingBytes
+    );
   }
 
   private accept(
@@ -193,8 +190,6 @@ export class Admission<T> {
     if (meta !== undefined) this.settlement.track(meta);
     const first = this.pendingRecords === 0;
     this.pendingRecords++;
-    this.pendingBytes += bytes;
-    this.pendingCost += bytes + this.o.recordOverheadBytes;
     this.buffer.push(record, meta, bytes, prepared, now, key, barrier);
     this.stats.accepted++;
     // Nothing was pending: the sink now holds the process open (it lets go when all is settled).
