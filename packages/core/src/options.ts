@@ -75,15 +75,28 @@ export interface SinkOptions<T> {
    */
   maxPendingRecords?: number;
   /**
-   * Bound on estimated bytes accepted but not yet terminal. Must be at least `maxBytes`.
-   * The bytes are the size estimate (what a record adds to a write), not heap: a pending record
-   * also holds its object and, with an adapter `prepare()`, its prepared row. Measured with
-   * ~520-byte rows into PostgreSQL insert mode (`benchmarks/src/core-memory.ts`), the live heap
-   * was about 1.4–1.6 × this bound; plan memory for that factor, larger for records of many small
-   * fields.
-   * @default maxBytes × (concurrency + 2)
+   * Bound on the bytes of the records accepted but not yet terminal (buffered + in flight); `write()`
+   * waits beyond it. Must be at least `maxBytes`. Each pending record counts as its estimated bytes
+   * (what it adds to a write) plus `recordOverheadBytes` (what it holds on the heap beyond that),
+   * so that the bound follows the heap the pending records take. Measured with ~520-byte rows of
+   * 8 fields into PostgreSQL insert mode (`benchmarks/src/core-memory.ts`), the live heap was
+   * 0.97–0.98 × this bound at 64 and 256 MiB with the default overhead (about 1.4 × with none).
+   * The `pendingBytes` gauge is the estimated bytes alone.
+   * @default (maxBytes + maxRecords × recordOverheadBytes) × (concurrency + 2)
+   * @example 64 * 1024 * 1024
    */
   maxPendingBytes?: number;
+  /**
+   * Heap bytes a pending record holds beyond its estimated bytes, counted per record against
+   * `maxPendingBytes`: the record's object header and field slots, the engine's slots for it, and
+   * the value an adapter's `prepare()` made of it. The default is calibrated on ~520-byte rows of 8
+   * fields into PostgreSQL insert mode, which hold about 230 bytes of heap each beyond their
+   * estimate; records of many small fields hold more, large flat records less. 0 counts estimated
+   * bytes only.
+   * @default 256
+   * @example 512 // records of many short fields
+   */
+  recordOverheadBytes?: number;
   /**
    * Ordering key of a record. Records of one key are written in accept order. Records with no key
    * have no ordering promise between batches (with `concurrency: 1` everything stays in order).
@@ -118,6 +131,7 @@ export interface ResolvedOptions<T> {
   concurrency: number;
   maxPendingRecords: number;
   maxPendingBytes: number;
+  recordOverheadBytes: number;
   orderingKey: (record: T, meta: RecordMeta | undefined) => string | undefined;
   estimateBytes: ((record: T) => number) | undefined;
   retry: Required<RetryOptions>;
@@ -131,6 +145,7 @@ export const DEFAULTS = {
   maxAgeMs: 500,
   idleMs: 100,
   concurrency: 1,
+  recordOverheadBytes: 256,
   retry: { maxAttempts: 12, baseDelayMs: 100, maxDelayMs: 5000, maxElapsedMs: 120_000 },
 } as const;
 
@@ -143,6 +158,7 @@ const KNOWN = new Set([
   'concurrency',
   'maxPendingRecords',
   'maxPendingBytes',
+  'recordOverheadBytes',
   'orderingKey',
   'estimateBytes',
   'retry',
@@ -184,7 +200,18 @@ export function resolveOptions<T>(
       maxPendingRecords,
     );
   }
-  const maxPendingBytes = countOption('maxPendingBytes', o.maxPendingBytes, maxBytes * (concurrency + 2));
+  const recordOverheadBytes = numberOption(
+    'recordOverheadBytes',
+    o.recordOverheadBytes,
+    DEFAULTS.recordOverheadBytes,
+    { min: 0 },
+  );
+  // Room for `concurrency + 2` full batches, each counted with its records' overhead.
+  const maxPendingBytes = countOption(
+    'maxPendingBytes',
+    o.maxPendingBytes,
+    Math.ceil((maxBytes + maxRecords * recordOverheadBytes) * (concurrency + 2)),
+  );
   if (maxPendingBytes < maxBytes) {
     throw invalidOption(
       'maxPendingBytes',
@@ -227,6 +254,7 @@ export function resolveOptions<T>(
     concurrency,
     maxPendingRecords,
     maxPendingBytes,
+    recordOverheadBytes,
     orderingKey: functionOption('orderingKey', o.orderingKey) ?? defaultOrderingKey,
     estimateBytes: functionOption('estimateBytes', o.estimateBytes),
     retry,

@@ -97,18 +97,19 @@ export class Sink<T> implements ExitFlushable {
     const settle = this.settle;
     this.buffer = new RecordBuffer<T>(o.clock.now());
     this.scheduler = new Scheduler(name, o, this.buffer, stats, events, {
-      deliver: (batch, reason) => this.delivery.deliver(batch, reason, batch.entries),
+      deliver: (batch, reason) => this.delivery.deliver(batch, reason, undefined),
       fail,
       failed,
       waitingWriters: () => this.admission.waiting,
       wake: () => this.admission.wake(),
     });
     this.settlement = new Settlement(name, o.clock, this.progress, stats, events, {
-      forEachPending: (fn) => {
-        this.buffer.forEach(fn);
-        for (const b of this.scheduler.inflight) for (const e of b.entries) if (!e.done) fn(e);
+      holdPending: (match, barrier) =>
+        this.buffer.holdBarrier(match, barrier) + this.scheduler.holdBarrier(match, barrier),
+      retire: (records, bytes) => {
+        this.scheduler.retire(records, bytes);
+        this.admission.released(records);
       },
-      retire: (records, bytes) => this.scheduler.retire(records, bytes),
       roomFreed: () => this.admission.wake(),
       idle: () => this.exitHold.release(),
       pendingRecords: () => this.admission.pendingRecords,
@@ -148,6 +149,7 @@ export class Sink<T> implements ExitFlushable {
    * shutdown coordinator's); after a fatal error it rejects with `SPILLWAY_SINK_FAILED`.
    */
   write(record: T, meta?: RecordMeta, options?: WriteOptions): Promise<void> {
+    if (this.stateValue === 'open') return this.admission.write(record, meta, options?.signal, undefined);
     const refused = this.refusal();
     if (refused === PARK) return PARKED;
     if (refused) return Promise.reject(refused);
@@ -160,6 +162,7 @@ export class Sink<T> implements ExitFlushable {
    * returns false when the close parks later writes (see `CloseOptions.laterWrites`).
    */
   tryWrite(record: T, meta?: RecordMeta): boolean {
+    if (this.stateValue === 'open') return this.admission.tryWrite(record, meta);
     const refused = this.refusal();
     if (refused === PARK) return false;
     if (refused) throw refused;
@@ -330,8 +333,8 @@ export class Sink<T> implements ExitFlushable {
     return p.buffered + p.inFlight;
   }
 
-  private readonly settle: Settlement<T>['settle'] = (batch, entries, outcome) =>
-    this.settlement.settle(batch, entries, outcome);
+  private readonly settle: Settlement<T>['settle'] = (batch, part, outcome) =>
+    this.settlement.settle(batch, part, outcome);
 
   /**
    * The event loop is about to empty while this sink holds buffered records (see exit-net.ts):

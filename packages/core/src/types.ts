@@ -44,7 +44,11 @@ export const FLUSH_REASONS: readonly FlushReason[] = [
  */
 export type ErrorClass = 'retry' | 'split' | 'fatal';
 
-/** One batch handed to an adapter. `records[i]` came with `metas[i]`. */
+/**
+ * One batch handed to an adapter. `records[i]` came with `metas[i]`. The arrays belong to the
+ * engine: read them while `write()` runs; once it has settled the engine may clear the slots of
+ * records that are terminal, so copy what you keep.
+ */
 export interface Batch<T> {
   /** Unique per sink; sub-batches of a split carry their parent's id. */
   readonly id: number;

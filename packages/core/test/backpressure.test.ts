@@ -71,8 +71,56 @@ describe('backpressure', () => {
       maxPendingRecords: 100,
       maxBytes: 100,
       maxPendingBytes: 250,
+      // Estimated bytes only: the per-record overhead has a test of its own below.
+      recordOverheadBytes: 0,
       estimateBytes: () => 100,
     });
     expect([sink.tryWrite(1), sink.tryWrite(2), sink.tryWrite(3)]).toEqual([true, true, false]);
+  });
+
+  it('counts each pending record as its estimated bytes plus recordOverheadBytes against maxPendingBytes', async () => {
+    const { sink, gates } = gatedSink({
+      maxRecords: 100,
+      maxPendingRecords: 100,
+      maxBytes: 100,
+      maxPendingBytes: 1000,
+      recordOverheadBytes: 150,
+      estimateBytes: () => 100,
+    });
+    // 250 a record: four fit in 1,000, a fifth would need 1,250.
+    const taken = Array.from({ length: 6 }, (_, i) => sink.tryWrite(i));
+    expect(taken).toEqual([true, true, true, true, false, false]);
+    // The gauge stays the estimated bytes; the overhead only counts against the bound.
+    expect(sink.counters()).toMatchObject({ pendingRecords: 4, pendingBytes: 400 });
+    const drain = async () => {
+      const flushed = sink.flush();
+      for (let round = 0; round < 20 && sink.counters().pendingRecords > 0; round++) {
+        for (const g of gates.splice(0)) g.resolve();
+        await settle();
+      }
+      await flushed;
+    };
+    await drain();
+    expect(sink.counters()).toMatchObject({ pendingRecords: 0, pendingBytes: 0, written: 4 });
+    // Settled records freed their overhead with their bytes: four fit again.
+    expect(Array.from({ length: 5 }, (_, i) => sink.tryWrite(10 + i))).toEqual([
+      true,
+      true,
+      true,
+      true,
+      false,
+    ]);
+    await drain();
+    expect(sink.counters().written).toBe(8);
+  });
+
+  it('lets one record through whatever its overhead when nothing is pending', () => {
+    const { sink } = gatedSink({
+      maxBytes: 100,
+      maxPendingBytes: 100,
+      recordOverheadBytes: 10_000,
+      estimateBytes: () => 100,
+    });
+    expect([sink.tryWrite(1), sink.tryWrite(2)]).toEqual([true, false]);
   });
 });

@@ -3,7 +3,7 @@ import { runInNewContext } from 'node:vm';
 import { describe, expect, it } from 'vitest';
 import { Sink, type SinkAdapter } from '../src/index.js';
 import { ManualClock, settle } from '../src/testing.js';
-import { seeded } from './fakes.js';
+import { deferred, seeded, Transient } from './fakes.js';
 
 interface Ev {
   key: string;
@@ -41,6 +41,48 @@ describe('the buffer', () => {
     const alive = refs.filter((r) => r.deref() !== undefined).length;
     expect(alive).toBe(0);
     await sink.close();
+  });
+
+  it('lets go of the records a partial write landed while the rest of the batch waits out a retry', async () => {
+    const retryHeld = deferred();
+    let calls = 0;
+    let secondCall: () => void = () => {};
+    const secondCallSeen = new Promise<void>((resolve) => (secondCall = resolve));
+    // Keeps nothing; the first write lands every record but the first, the retry is held open.
+    const adapter: SinkAdapter<{ dockId: number }> = {
+      kind: 'partial',
+      write: async () => {
+        calls++;
+        if (calls === 1) return { rejected: [{ index: 0, error: new Transient('dock 0 busy') }] };
+        secondCall();
+        await retryHeld.promise;
+        return undefined;
+      },
+      classify: (error) => (error instanceof Transient ? 'retry' : 'fatal'),
+    };
+    const sink = new Sink(adapter, {
+      maxRecords: 100,
+      maxAgeMs: 60_000,
+      idleMs: 0,
+      retry: { baseDelayMs: 0 },
+    });
+    const refs: WeakRef<object>[] = [];
+    const writeOne = (i: number) => {
+      const record = { dockId: i };
+      refs.push(new WeakRef(record));
+      return sink.write(record);
+    };
+    for (let i = 0; i < 100; i++) await writeOne(i);
+    await secondCallSeen;
+    expect(sink.counters()).toMatchObject({ written: 99, inFlightRecords: 1 });
+    await new Promise((resolve) => setImmediate(resolve));
+    collectGarbage();
+    const alive = refs.map((r, i) => (r.deref() === undefined ? -1 : i)).filter((i) => i >= 0);
+    // Only the record being retried is still held.
+    expect(alive).toEqual([0]);
+    retryHeld.resolve();
+    await sink.close();
+    expect(sink.counters()).toMatchObject({ written: 100, accepted: 100 });
   });
 
   it('keeps each key in accept order and writes every record once while it grows, wraps and skips busy keys', async () => {

@@ -15,6 +15,9 @@ describe('option validation', () => {
     expect(make({ idleMs: '100' })).toThrow(/Expected `idleMs` to be a finite number >= 0, got `"100"`/);
     expect(make({ concurrency: 1.5 })).toThrow(/`concurrency` to be an integer/);
     expect(make({ retry: { maxAttempts: 0 } })).toThrow(/`retry.maxAttempts`/);
+    expect(make({ recordOverheadBytes: -1 })).toThrow(
+      /^Expected `recordOverheadBytes` to be a finite number >= 0, got `-1`$/,
+    );
   });
 
   it('refuses pending bounds smaller than one batch', () => {
@@ -22,6 +25,14 @@ describe('option validation', () => {
       /`maxPendingRecords` to be an integer >= maxRecords \(100\)/,
     );
     expect(make({ maxBytes: 1000, maxPendingBytes: 999 })).toThrow(/`maxPendingBytes`/);
+  });
+
+  it('makes the default pending byte bound room for concurrency + 2 full batches, overhead included', () => {
+    const sink = new Sink(new FakeAdapter<number>(), { maxBytes: 1000, maxRecords: 10, concurrency: 2 });
+    expect(sink.options.recordOverheadBytes).toBe(256);
+    expect(sink.options.maxPendingBytes).toBe((1000 + 10 * 256) * 4);
+    const plain = new Sink(new FakeAdapter<number>(), { maxBytes: 1000, recordOverheadBytes: 0 });
+    expect(plain.options.maxPendingBytes).toBe(3000);
   });
 
   it('refuses unknown options, so a typo is not silently ignored', () => {

@@ -5,7 +5,7 @@
  */
 import { systemClock } from '../clock.js';
 import { AbortedError } from '../errors.js';
-import type { ResolvedOptions } from '../options.js';
+import { defaultOrderingKey, type ResolvedOptions } from '../options.js';
 import { estimateJsonBytes } from '../size.js';
 import type { TypedEmitter } from '../typed-emitter.js';
 import type { Prepared, RecordMeta, SinkAdapter, SinkEvents } from '../types.js';
@@ -35,6 +35,11 @@ export class Admission<T> {
   private readonly waiters: Waiter<T>[] = [];
   private readonly estimate: (record: T) => number;
   private readonly prepareHook: ((record: T) => Prepared) | undefined;
+  /** The ordering key is the default one, which reads only the metadata. */
+  private readonly keyNeedsMeta: boolean;
+  private readonly systemTime: boolean;
+  /** A prepared record's size is the one `prepare()` gave, unless the user gave an estimator. */
+  private readonly sizeFromPrepared: boolean;
   /** acceptNow()'s reading and how many more accepts it may stamp. */
   private reading = 0;
   private readingUses = 0;
@@ -53,13 +58,16 @@ export class Admission<T> {
     private readonly settlement: Settlement<T>,
     private readonly stats: SinkStats,
     private readonly events: TypedEmitter<SinkEvents>,
-    /** Called for every accepted record (the sink holds the process open while any is pending). */
+    /** Called when a record is accepted while nothing is pending (the sink then holds the process open). */
     private readonly onAccept: () => void,
     /** Writers are let in only while the sink is open (close() admits the waiting ones itself). */
     private readonly isOpen: () => boolean,
   ) {
     this.estimate = o.estimateBytes ?? adapter.estimateBytes?.bind(adapter) ?? estimateJsonBytes;
     this.prepareHook = adapter.prepare?.bind(adapter);
+    this.keyNeedsMeta = o.orderingKey === defaultOrderingKey;
+    this.sizeFromPrepared = o.estimateBytes === undefined;
+    this.systemTime = o.clock === systemClock;
   }
 
   /** Writers waiting for room. */
@@ -67,12 +75,17 @@ export class Admission<T> {
     return this.waiters.length;
   }
 
-  get pendingRecords(): number {
-    return this.buffer.count + this.scheduler.inflightRecords;
-  }
+  /** Records accepted and not yet terminal (buffered + in flight). */
+  pendingRecords = 0;
 
+  /** Their estimated bytes. */
   get pendingBytes(): number {
     return this.buffer.bytes + this.scheduler.inflightBytes;
+  }
+
+  /** Records became terminal: they no longer count against the pending bounds. */
+  released(records: number): void {
+    this.pendingRecords -= records;
   }
 
   /** Accepts now when there is room and nobody waits; otherwise waits for room. */
@@ -100,7 +113,11 @@ export class Admission<T> {
     return true;
   }
 
-  /** Accepts from the front of `records` while there is room; one clock read serves the call. */
+  /**
+   * Accepts from the front of `records` while there is room. One clock read serves the call, and
+   * the scheduler hears of the accepted records once, after the last (a batch that became full
+   * on the way starts then, still within this call).
+   */
   tryWriteMany(records: readonly T[], metas: readonly (RecordMeta | undefined)[] | undefined): number {
     if (this.waiters.length > 0) return 0;
     const now = this.o.clock.now();
@@ -110,8 +127,9 @@ export class Admission<T> {
       const prepared = this.prepare(record);
       const bytes = this.sizeOf(record, prepared);
       if (!this.hasRoom(bytes)) break;
-      this.accept(record, metas?.[n], bytes, prepared?.value, undefined, now);
+      this.enter(record, metas?.[n], bytes, prepared?.value, undefined, now);
     }
+    if (n > 0) this.scheduler.accepted();
     return n;
   }
 
@@ -127,16 +145,23 @@ export class Admission<T> {
 
   /** The record's size in bytes (the prepared size, unless the user gave an estimator). */
   private sizeOf(record: T, prepared: Prepared | undefined): number {
-    const n =
-      prepared === undefined || this.o.estimateBytes !== undefined ? this.estimate(record) : prepared.bytes;
+    const n = prepared === undefined || !this.sizeFromPrepared ? this.estimate(record) : prepared.bytes;
     return Number.isFinite(n) && n > 0 ? n : 1;
   }
 
+  /**
+   * Room for one more record of `bytes` under the pending bounds. Against `maxPendingBytes` each
+   * record counts as its estimated bytes plus `recordOverheadBytes` (what it holds on the heap
+   * beyond them).
+   */
   private hasRoom(bytes: number): boolean {
     const pending = this.pendingRecords;
-    if (pending + 1 > this.o.maxPendingRecords) return false;
+    if (pending >= this.o.maxPendingRecords) return false;
     // A single record larger than the byte bound still goes through when nothing is pending.
-    return pending === 0 || this.pendingBytes + bytes <= this.o.maxPendingBytes;
+    return (
+      pending === 0 ||
+      this.pendingBytes + bytes + (pending + 1) * this.o.recordOverheadBytes <= this.o.maxPendingBytes
+    );
   }
 
   private accept(
@@ -145,16 +170,30 @@ export class Admission<T> {
     bytes: number,
     prepared: unknown,
     barrier: Barrier | undefined,
-    at?: number,
   ): void {
-    const now = at ?? this.acceptNow();
-    const key = this.o.orderingKey(record, meta);
+    this.enter(record, meta, bytes, prepared, barrier, this.acceptNow());
+    this.scheduler.accepted();
+  }
+
+  /** Counts an accepted record and buffers it; the caller tells the scheduler. */
+  private enter(
+    record: T,
+    meta: RecordMeta | undefined,
+    bytes: number,
+    prepared: unknown,
+    barrier: Barrier | undefined,
+    now: number,
+  ): void {
+    // The default ordering key comes from the metadata alone: no call for a record without it.
+    const key = meta === undefined && this.keyNeedsMeta ? undefined : this.o.orderingKey(record, meta);
     if (barrier) this.settlement.hold(barrier);
-    this.settlement.track(meta);
+    if (meta !== undefined) this.settlement.track(meta);
+    const first = this.pendingRecords === 0;
+    this.pendingRecords++;
     this.buffer.push(record, meta, bytes, prepared, now, key, barrier);
     this.stats.accepted++;
-    this.onAccept();
-    this.scheduler.accepted();
+    // Nothing was pending: the sink now holds the process open (it lets go when all is settled).
+    if (first) this.onAccept();
   }
 
   /**
@@ -164,7 +203,7 @@ export class Admission<T> {
    * and accept → durable latency reads at most that much longer. Any other clock is read every time.
    */
   private acceptNow(): number {
-    if (this.o.clock !== systemClock) return this.o.clock.now();
+    if (!this.systemTime) return this.o.clock.now();
     if (this.readingUses > 0) {
       this.readingUses--;
       return this.reading;

@@ -6,21 +6,21 @@
  * record needs one — meta, prepared value, ordering key, forced reason, barriers) rather than an
  * object per record: a buffered record costs the engine about 24 bytes of heap plus 8 per column
  * in use, and a taken record's slots are cleared at once, so nothing the buffer no longer holds
- * stays reachable from it. The `Entry` objects of the rest of the engine are made when a batch is
- * taken.
+ * stays reachable from it. A batch leaves as slices of the same columns (`Columns`): delivery and
+ * settlement work on those, with no object per record either.
  */
 import type { FlushReason, RecordMeta } from '../types.js';
-import type { Barrier, Entry } from './records.js';
+import type { Barrier, Columns } from './records.js';
 
 /** What `take()` found. */
 export type Taken<T> =
   /** A batch that may leave now, and why. */
-  | { readonly entries: Entry<T>[]; readonly reason: FlushReason }
+  | { readonly batch: Columns<T>; readonly reason: FlushReason }
   /**
    * Nothing may leave yet: the due records' keys are busy. `waitUntil` is the age deadline of the
    * oldest record that could go (undefined when none could), for the timer.
    */
-  | { readonly entries: undefined; readonly waitUntil: number | undefined };
+  | { readonly batch: undefined; readonly waitUntil: number | undefined };
 
 export interface BatchLimits {
   readonly maxRecords: number;
@@ -37,7 +37,7 @@ export class RecordBuffer<T> {
   /** Ring position of the oldest record. */
   private head = 0;
   private n = 0;
-  private records: (T | undefined)[] = new Array(MIN_CAPACITY);
+  private records: (T | undefined)[] = new Array(MIN_CAPACITY).fill(undefined);
   // Plain arrays of doubles (unboxed, 8 bytes a slot), kept in the heap so that heap figures see them.
   private sizes: number[] = new Array<number>(MIN_CAPACITY).fill(0);
   private times: number[] = new Array<number>(MIN_CAPACITY).fill(0);
@@ -82,27 +82,28 @@ export class RecordBuffer<T> {
     this.records[i] = record;
     this.sizes[i] = bytes;
     this.times[i] = acceptedAt;
-    if (meta !== undefined) (this.metas ??= new Array(this.capacity))[i] = meta;
-    if (prepared !== undefined) (this.prepared ??= new Array(this.capacity))[i] = prepared;
-    if (key !== undefined) (this.keys ??= new Array(this.capacity))[i] = key;
-    if (barrier !== undefined) (this.barriers ??= new Array(this.capacity))[i] = [barrier];
+    if (meta !== undefined) (this.metas ??= this.emptyColumn())[i] = meta;
+    if (prepared !== undefined) (this.prepared ??= this.emptyColumn())[i] = prepared;
+    if (key !== undefined) (this.keys ??= this.emptyColumn())[i] = key;
+    if (barrier !== undefined) (this.barriers ??= this.emptyColumn())[i] = [barrier];
     this.n++;
     this.bytes += bytes;
     this.lastWriteAt = acceptedAt;
   }
 
-  /**
-   * Calls `fn` for every buffered record, oldest first, with an `Entry` made for the call; what
-   * `fn` sets in its `barriers` is kept.
-   */
-  forEach(fn: (entry: Entry<T>) => void): void {
+  /** Adds `barrier` to every buffered record whose metadata matches; returns how many it did. */
+  holdBarrier(match: (meta: RecordMeta | undefined) => boolean, barrier: Barrier): number {
+    let held = 0;
     for (let k = 0; k < this.n; k++) {
       const i = (this.head + k) & this.mask;
-      const e = this.entryAt(i);
-      fn(e);
-      if (e.barriers !== (this.barriers?.[i] ?? undefined))
-        (this.barriers ??= new Array(this.capacity))[i] = e.barriers;
+      if (!match(this.metas?.[i])) continue;
+      const column = (this.barriers ??= this.emptyColumn());
+      const list = column[i];
+      if (list === undefined) column[i] = [barrier];
+      else list.push(barrier);
+      held++;
     }
+    return held;
   }
 
   /** Marks the matching buffered records to leave now, for `reason`. */
@@ -110,7 +111,7 @@ export class RecordBuffer<T> {
     for (let k = 0; k < this.n; k++) {
       const i = (this.head + k) & this.mask;
       if (this.forced?.[i] === undefined && match(this.metas?.[i])) {
-        (this.forced ??= new Array(this.capacity))[i] = reason;
+        (this.forced ??= this.emptyColumn())[i] = reason;
         this.forcedCount++;
       }
     }
@@ -144,31 +145,31 @@ export class RecordBuffer<T> {
    */
   take(reason: FlushReason, now: number, limits: BatchLimits, locked: ReadonlyMap<string, number>): Taken<T> {
     const { maxRecords, maxBytes, maxAgeMs } = limits;
-    const out: Entry<T>[] = [];
-    let bytes = 0;
+    let taken: Columns<T>;
     let takenReason = reason;
     if (locked.size === 0 || this.keys === undefined) {
-      while (this.n > 0 && out.length < maxRecords) {
-        const i = this.head;
-        const size = this.sizes[i]!;
-        if (out.length > 0 && bytes + size > maxBytes) break;
-        out.push(this.entryAt(i));
-        this.clear(i);
+      // The oldest records, up to the batch limits: one run of the ring, copied out column by column.
+      const limit = Math.min(this.n, maxRecords);
+      let count = 0;
+      let bytes = 0;
+      while (count < limit) {
+        const size = this.sizes[(this.head + count) & this.mask]!;
+        if (count > 0 && bytes + size > maxBytes) break;
         bytes += size;
-        this.head = (i + 1) & this.mask;
-        this.n--;
+        count++;
       }
+      taken = this.cut(count, bytes);
     } else {
       // First find what may go (nothing moves unless it is due), then take it out and close up
       // the rest in place, in order.
       const keys = this.keys;
       const chosen: number[] = [];
+      let bytes = 0;
       let full = false;
       let firstAt = 0;
       let forced: FlushReason | undefined;
       for (let k = 0; k < this.n; k++) {
         const i = (this.head + k) & this.mask;
-        if (full) break;
         const key = keys[i];
         if (key !== undefined && locked.has(key)) continue;
         const size = this.sizes[i]!;
@@ -180,7 +181,10 @@ export class RecordBuffer<T> {
         forced ??= this.forced?.[i];
         chosen.push(k);
         bytes += size;
-        if (chosen.length >= maxRecords) full = true;
+        if (chosen.length >= maxRecords) {
+          full = true;
+          break;
+        }
       }
       // The reason this smaller set of records is due, if it is.
       const due: FlushReason | undefined = forced
@@ -194,44 +198,111 @@ export class RecordBuffer<T> {
             : reason === 'idle'
               ? 'idle'
               : undefined;
-      if (!due) return { entries: undefined, waitUntil: chosen.length > 0 ? firstAt + maxAgeMs : undefined };
+      if (!due) return { batch: undefined, waitUntil: chosen.length > 0 ? firstAt + maxAgeMs : undefined };
       takenReason = due;
-      let w = 0;
-      let c = 0;
-      for (let k = 0; k < this.n; k++) {
-        const i = (this.head + k) & this.mask;
-        if (c < chosen.length && chosen[c] === k) {
-          out.push(this.entryAt(i));
-          c++;
-        } else {
-          if (w !== k) this.move(i, (this.head + w) & this.mask);
-          w++;
-        }
-      }
-      for (let k = w; k < this.n; k++) this.clear((this.head + k) & this.mask);
-      this.n = w;
+      taken = this.pickOut(chosen, bytes);
     }
     // Shrinks only well above a batch's worth of slots, so a buffer that fills to a batch and
     // empties again keeps its columns.
     if (this.capacity > 4 * maxRecords && this.capacity > MIN_CAPACITY && this.n <= this.capacity >> 2)
       this.resize(this.capacity >> 1);
-    this.bytes -= bytes;
-    for (const e of out) if (e.forced !== undefined) this.forcedCount--;
-    return { entries: out, reason: takenReason };
+    return { batch: taken, reason: takenReason };
   }
 
-  private entryAt(i: number): Entry<T> {
-    return {
-      record: this.records[i] as T,
-      meta: this.metas?.[i],
-      bytes: this.sizes[i]!,
-      prepared: this.prepared?.[i],
-      acceptedAt: this.times[i]!,
-      key: this.keys?.[i],
-      forced: this.forced?.[i],
-      barriers: this.barriers?.[i],
-      done: false,
+  /** Takes the `count` oldest records (of `bytes` in all) out of the ring. */
+  private cut(count: number, bytes: number): Columns<T> {
+    const start = this.head;
+    const taken: Columns<T> = {
+      records: this.slice(this.records, start, count) as T[],
+      metas: this.metas && this.slice(this.metas, start, count),
+      prepared: this.prepared && this.slice(this.prepared, start, count),
+      sizes: this.slice(this.sizes, start, count),
+      times: this.slice(this.times, start, count),
+      keys: this.keys && this.slice(this.keys, start, count),
+      barriers: this.barriers && this.slice(this.barriers, start, count),
+      bytes,
     };
+    if (this.forcedCount > 0 && this.forced !== undefined) {
+      for (let k = 0; k < count; k++)
+        if (this.forced[(start + k) & this.mask] !== undefined) this.forcedCount--;
+    }
+    // Nothing the batch took stays reachable from the ring.
+    const end = start + count;
+    const wrap = end > this.capacity ? end - this.capacity : 0;
+    for (const column of this.slotColumns()) {
+      column.fill(undefined, start, end - wrap);
+      if (wrap > 0) column.fill(undefined, 0, wrap);
+    }
+    this.head = end & this.mask;
+    this.n -= count;
+    this.bytes -= bytes;
+    return taken;
+  }
+
+  /**
+   * Takes the records at the `chosen` ring offsets (ascending; of `bytes` in all) out of the ring
+   * and closes up the rest, in order.
+   */
+  private pickOut(chosen: readonly number[], bytes: number): Columns<T> {
+    const n = chosen.length;
+    const at = (k: number) => (this.head + k) & this.mask;
+    const column = <V>(from: readonly V[] | undefined): V[] | undefined => {
+      if (from === undefined) return undefined;
+      const out = new Array<V>(n);
+      for (let c = 0; c < n; c++) out[c] = from[at(chosen[c]!)]!;
+      return out;
+    };
+    const taken: Columns<T> = {
+      records: column(this.records) as T[],
+      metas: column(this.metas),
+      prepared: column(this.prepared),
+      sizes: column(this.sizes)!,
+      times: column(this.times)!,
+      keys: column(this.keys),
+      barriers: column(this.barriers),
+      bytes,
+    };
+    if (this.forced !== undefined)
+      for (const k of chosen) if (this.forced[at(k)] !== undefined) this.forcedCount--;
+    let w = 0;
+    let c = 0;
+    for (let k = 0; k < this.n; k++) {
+      if (c < n && chosen[c] === k) c++;
+      else {
+        if (w !== k) this.move(at(k), at(w));
+        w++;
+      }
+    }
+    for (let k = w; k < this.n; k++) this.clear(at(k));
+    this.n = w;
+    this.bytes -= bytes;
+    return taken;
+  }
+
+  /** `count` slots of `column` from ring position `start` on, as a new array. */
+  private slice<V>(column: V[], start: number, count: number): V[] {
+    const end = start + count;
+    if (end <= this.capacity) return column.slice(start, end);
+    return column.slice(start).concat(column.slice(0, end - this.capacity));
+  }
+
+  /** The columns that hold references (the numeric ones hold none). */
+  private slotColumns(): unknown[][] {
+    const out: unknown[][] = [this.records];
+    if (this.metas !== undefined) out.push(this.metas);
+    if (this.prepared !== undefined) out.push(this.prepared);
+    if (this.keys !== undefined) out.push(this.keys);
+    if (this.forced !== undefined) out.push(this.forced);
+    if (this.barriers !== undefined) out.push(this.barriers);
+    return out;
+  }
+
+  /**
+   * A column of the ring's capacity with every slot `undefined` (not a hole), so that a batch's
+   * slice of it is a dense array.
+   */
+  private emptyColumn<V>(): (V | undefined)[] {
+    return new Array<V | undefined>(this.capacity).fill(undefined);
   }
 
   /** Empties slot `i`, so that what it held is no longer reachable from the buffer. */
@@ -260,7 +331,7 @@ export class RecordBuffer<T> {
     const { head, n, mask } = this;
     const column = <V>(old: V[] | undefined): V[] | undefined => {
       if (old === undefined) return undefined;
-      const next = new Array<V>(capacity);
+      const next = new Array<V>(capacity).fill(undefined as V);
       for (let k = 0; k < n; k++) next[k] = old[(head + k) & mask]!;
       return next;
     };

@@ -7,10 +7,10 @@ import type { Clock } from '../clock.js';
 import { messageOf, SpillwayError } from '../errors.js';
 import type { TypedEmitter } from '../typed-emitter.js';
 import type { DeadLetter, DeadLetterReason, DeadLetterTarget, SinkEvents } from '../types.js';
-import type { Entry, InFlight, Outcome } from './records.js';
+import { type InFlight, type Outcome, type Part, partLength, positions } from './records.js';
 
 export interface DeadLetterHooks<T> {
-  settle(batch: InFlight<T>, entries: Entry<T>[], outcome: Outcome): void;
+  settle(batch: InFlight<T>, part: Part, outcome: Outcome): void;
   fail(error: unknown): void;
 }
 
@@ -23,29 +23,27 @@ export class DeadLetterRouter<T> {
     private readonly hooks: DeadLetterHooks<T>,
   ) {}
 
-  /** Hands records to the target and settles them; false when that failed (the sink is then failed). */
-  async route(
-    batch: InFlight<T>,
-    entries: Entry<T>[],
-    reason: DeadLetterReason,
-    error: unknown,
-  ): Promise<boolean> {
+  /**
+   * Hands the records of `batch` that `part` names to the target and settles them; false when
+   * that failed (the sink is then failed).
+   */
+  async route(batch: InFlight<T>, part: Part, reason: DeadLetterReason, error: unknown): Promise<boolean> {
     const target = this.target;
     if (!target) {
       this.hooks.fail(
         new SpillwayError(
           'SPILLWAY_NO_DEAD_LETTER_TARGET',
-          `Sink "${this.name}" has ${entries.length} record(s) to dead-letter (${reason}: ${messageOf(error)}) but no \`deadLetter\` target`,
+          `Sink "${this.name}" has ${partLength(batch, part)} record(s) to dead-letter (${reason}: ${messageOf(error)}) but no \`deadLetter\` target`,
           { cause: error },
         ),
       );
       return false;
     }
     const time = this.clock.wallNow();
-    const letters: DeadLetter<T>[] = entries.map((e) => ({
+    const letters: DeadLetter<T>[] = positions(batch, part).map((i) => ({
       sink: this.name,
-      record: e.record,
-      meta: e.meta,
+      record: batch.records[i] as T,
+      meta: batch.metas?.[i],
       reason,
       error,
       time,
@@ -64,11 +62,11 @@ export class DeadLetterRouter<T> {
       );
       return false;
     }
-    this.hooks.settle(batch, entries, 'dead-lettered');
+    this.hooks.settle(batch, part, 'dead-lettered');
     this.events.emit('dead-letter', {
       sink: this.name,
       batchId: batch.id,
-      count: entries.length,
+      count: partLength(batch, part),
       reason,
       error,
     });

@@ -7,9 +7,9 @@ import { sleep } from '../clock.js';
 import { messageOf, SpillwayError } from '../errors.js';
 import type { ResolvedOptions } from '../options.js';
 import type { TypedEmitter } from '../typed-emitter.js';
-import type { Batch, FlushReason, PartialWrite, RecordMeta, SinkAdapter, SinkEvents } from '../types.js';
+import type { Batch, FlushReason, PartialWrite, SinkAdapter, SinkEvents } from '../types.js';
 import type { DeadLetterRouter } from './dead-letter-routing.js';
-import { type Entry, type InFlight, type Outcome, sumBytes } from './records.js';
+import { type InFlight, type Outcome, type Part, partBytes, partLength, pick, positions } from './records.js';
 import type { SinkStats } from './stats.js';
 
 /**
@@ -28,7 +28,7 @@ export function fullJitterDelay(
 }
 
 export interface DeliveryHooks<T> {
-  settle(batch: InFlight<T>, entries: Entry<T>[], outcome: Outcome): void;
+  settle(batch: InFlight<T>, part: Part, outcome: Outcome): void;
   fail(error: unknown): void;
   failed(): boolean;
 }
@@ -49,14 +49,15 @@ export class Delivery<T> {
   }
 
   /**
-   * Writes `entries` until each is durable, dead-lettered, or the sink has failed. Sub-batches of
-   * a split are written one after the other, so records of one key keep their order.
+   * Writes the records of `batch` that `part` names (all of them when undefined) until each is
+   * durable, dead-lettered, or the sink has failed. Sub-batches of a split are written one after
+   * the other, so records of one key keep their order.
    */
-  async deliver(batch: InFlight<T>, reason: FlushReason, entries: Entry<T>[]): Promise<void> {
+  async deliver(batch: InFlight<T>, reason: FlushReason, part: Part): Promise<void> {
     const clock = this.o.clock;
     const { maxAttempts, baseDelayMs, maxDelayMs, maxElapsedMs } = this.o.retry;
     const firstTry = clock.now();
-    let current = entries;
+    let current = part;
     for (let attempt = 1; ; attempt++) {
       if (this.hooks.failed()) return;
       const started = clock.now();
@@ -64,7 +65,7 @@ export class Delivery<T> {
       let failed = false;
       let outcome: PartialWrite | undefined;
       try {
-        outcome = (await this.adapter.write(this.toBatch(batch.id, reason, attempt, current))) ?? undefined;
+        outcome = (await this.adapter.write(this.toBatch(batch, current, reason, attempt))) ?? undefined;
       } catch (e) {
         failed = true;
         error = e;
@@ -79,30 +80,34 @@ export class Delivery<T> {
           return;
         }
         // Some records landed, some did not: settle the landed ones first (the store acknowledged
-        // them, whatever happens next), then act on each refusal.
+        // them, whatever happens next), then act on each refusal. Indexes are into the batch the
+        // adapter was given; `at` maps them to positions in `batch`.
+        const at = positions(batch, current);
         const refusedIdx = new Set<number>();
-        const toRetry: Entry<T>[] = [];
-        const toDeadLetter: Array<{ entry: Entry<T>; error: unknown }> = [];
+        const toRetry: number[] = [];
+        const toDeadLetter: Array<{ position: number; error: unknown }> = [];
         let fatal: { error: unknown } | undefined;
         for (const r of rejected) {
-          const entry = current[r.index];
-          if (!entry || refusedIdx.has(r.index)) continue;
+          const position = at[r.index];
+          if (position === undefined || refusedIdx.has(r.index)) continue;
           refusedIdx.add(r.index);
           const cls = this.classify(r.error);
           if (cls === 'fatal') fatal ??= { error: r.error };
           else if (cls === 'retry') {
-            toRetry.push(entry);
+            toRetry.push(position);
             error = r.error;
-          } else toDeadLetter.push({ entry, error: r.error });
+          } else toDeadLetter.push({ position, error: r.error });
         }
-        const landed = current.filter((_, i) => !refusedIdx.has(i));
+        // Positions stay ascending: a retry keeps the records' order.
+        toRetry.sort((a, b) => a - b);
+        const landed = at.filter((_, i) => !refusedIdx.has(i));
         if (landed.length > 0) this.landed(batch, landed, durationMs, attempt);
         if (fatal) {
           this.hooks.fail(fatal.error);
           return;
         }
         for (const d of toDeadLetter) {
-          if (!(await this.deadLetters.route(batch, [d.entry], 'rejected', d.error))) return;
+          if (!(await this.deadLetters.route(batch, [d.position], 'rejected', d.error))) return;
         }
         if (toRetry.length === 0) return;
         current = toRetry;
@@ -113,13 +118,14 @@ export class Delivery<T> {
           return;
         }
         if (cls === 'split') {
-          if (current.length === 1) {
+          if (partLength(batch, current) === 1) {
             await this.deadLetters.route(batch, current, 'rejected', error);
             return;
           }
-          const mid = current.length >> 1;
-          await this.deliver(batch, reason, current.slice(0, mid));
-          await this.deliver(batch, reason, current.slice(mid));
+          const at = positions(batch, current);
+          const mid = at.length >> 1;
+          await this.deliver(batch, reason, at.slice(0, mid));
+          await this.deliver(batch, reason, at.slice(mid));
           return;
         }
       }
@@ -141,23 +147,24 @@ export class Delivery<T> {
       );
       this.stats.retries++;
       this.events.emit('retry', { sink: this.name, batchId: batch.id, attempt, delayMs, error });
-      batch.retrying += current.length;
+      const waiting = partLength(batch, current);
+      batch.retrying += waiting;
       try {
         // With the system clock this timer keeps the process alive through the back-off.
         await sleep(clock, delayMs);
       } finally {
-        batch.retrying -= current.length;
+        batch.retrying -= waiting;
       }
     }
   }
 
-  private landed(batch: InFlight<T>, entries: Entry<T>[], durationMs: number, attempts: number): void {
-    this.hooks.settle(batch, entries, 'durable');
+  private landed(batch: InFlight<T>, part: Part, durationMs: number, attempts: number): void {
+    this.hooks.settle(batch, part, 'durable');
     this.events.emit('written', {
       sink: this.name,
       batchId: batch.id,
-      records: entries.length,
-      bytes: sumBytes(entries),
+      records: partLength(batch, part),
+      bytes: partBytes(batch, part),
       durationMs,
       attempts,
     });
@@ -172,20 +179,18 @@ export class Delivery<T> {
     }
   }
 
-  private toBatch(id: number, reason: FlushReason, attempt: number, entries: Entry<T>[]): Batch<T> {
-    const records = new Array<T>(entries.length);
-    const metas = new Array<RecordMeta | undefined>(entries.length);
-    const prepared = this.withPrepared ? new Array<unknown>(entries.length) : undefined;
-    let bytes = 0;
-    for (let i = 0; i < entries.length; i++) {
-      const e = entries[i]!;
-      records[i] = e.record;
-      metas[i] = e.meta;
-      bytes += e.bytes;
-      if (prepared !== undefined) prepared[i] = e.prepared;
-    }
-    return prepared === undefined
-      ? { id, reason, attempt, records, metas, bytes }
-      : { id, reason, attempt, records, metas, bytes, prepared };
+  /**
+   * What the adapter is given: the batch's own columns for the whole batch (no copy), or the
+   * records of a part picked out of them.
+   */
+  private toBatch(batch: InFlight<T>, part: Part, reason: FlushReason, attempt: number): Batch<T> {
+    const n = partLength(batch, part);
+    const records = pick(batch.records, part);
+    const metas = batch.metas === undefined ? new Array(n).fill(undefined) : pick(batch.metas, part);
+    const bytes = partBytes(batch, part);
+    const { id } = batch;
+    if (!this.withPrepared) return { id, reason, attempt, records, metas, bytes };
+    const prepared = batch.prepared === undefined ? new Array(n).fill(undefined) : pick(batch.prepared, part);
+    return { id, reason, attempt, records, metas, bytes, prepared };
   }
 }

@@ -1,25 +1,47 @@
 /**
- * What the engine knows about the records it holds: an accepted record (`Entry`), a batch in
- * flight, and a barrier (a wait for a set of records to become terminal).
+ * What the engine knows about the records it holds: a batch's records as parallel columns (no
+ * object per record), a batch in flight, a part of one, and a barrier (a wait for a set of
+ * records to become terminal).
  */
-import type { FlushReason, RecordMeta } from '../types.js';
+import type { RecordMeta } from '../types.js';
 
-/** One accepted record and what the engine knows about it. */
-export interface Entry<T> {
-  readonly record: T;
-  readonly meta: RecordMeta | undefined;
+/**
+ * Records taken from the buffer, in accept order, as parallel columns: position `i` of every
+ * column belongs to record `i`. A column most records leave empty is absent when none of the
+ * buffer's records has used it.
+ */
+export interface Columns<T> {
+  readonly records: T[];
+  readonly metas: readonly (RecordMeta | undefined)[] | undefined;
+  /** The adapter's `prepare()` results. */
+  readonly prepared: readonly unknown[] | undefined;
+  /** Estimated bytes of each record. */
+  readonly sizes: readonly number[];
+  /** Accept time of each record. */
+  readonly times: readonly number[];
+  readonly keys: readonly (string | undefined)[] | undefined;
+  /** Waits (flush(), revoke(), writeDurable()) that each record holds open. */
+  barriers: (Barrier[] | undefined)[] | undefined;
+  /** Sum of `sizes`. */
   readonly bytes: number;
-  /** The adapter's `prepare()` result, if it has one. */
-  readonly prepared: unknown;
-  readonly acceptedAt: number;
-  readonly key: string | undefined;
-  /** Set when a manual / shutdown / revoke flush asked for this record to leave now. */
-  forced: FlushReason | undefined;
-  /** Waits (flush(), revoke(), writeDurable()) that this record holds open. */
-  barriers: Barrier[] | undefined;
-  /** True once durable or dead-lettered. */
-  done: boolean;
 }
+
+/** A batch handed to the adapter, until every record of it is terminal. */
+export interface InFlight<T> extends Columns<T> {
+  readonly id: number;
+  /** Records of this batch not yet terminal. */
+  open: number;
+  /** 1 for each record that is terminal; made when a part of the batch settles before the rest. */
+  done: Uint8Array | undefined;
+  /** Records of this batch waiting out a retry back-off. */
+  retrying: number;
+}
+
+/**
+ * Some records of one batch, by their positions in it (ascending); `undefined` stands for the
+ * whole batch, the common case, which needs no list.
+ */
+export type Part = readonly number[] | undefined;
 
 /** Resolves when `remaining` records have become terminal. */
 export interface Barrier {
@@ -32,18 +54,32 @@ export interface Barrier {
 /** How a record ended. */
 export type Outcome = 'durable' | 'dead-lettered';
 
-/** A batch handed to the adapter, until every record of it is terminal. */
-export interface InFlight<T> {
-  readonly id: number;
-  readonly entries: Entry<T>[];
-  /** Records of this batch not yet terminal. */
-  open: number;
-  /** Records of this batch waiting out a retry back-off. */
-  retrying: number;
+/** How many records `part` names. */
+export function partLength<T>(batch: Columns<T>, part: Part): number {
+  return part === undefined ? batch.records.length : part.length;
 }
 
-export function sumBytes<T>(entries: readonly Entry<T>[]): number {
+/** The positions `part` names, as a list. */
+export function positions<T>(batch: Columns<T>, part: Part): readonly number[] {
+  if (part !== undefined) return part;
+  const n = batch.records.length;
+  const all = new Array<number>(n);
+  for (let i = 0; i < n; i++) all[i] = i;
+  return all;
+}
+
+/** Estimated bytes of the records `part` names. */
+export function partBytes<T>(batch: Columns<T>, part: Part): number {
+  if (part === undefined) return batch.bytes;
   let n = 0;
-  for (const e of entries) n += e.bytes;
+  for (const i of part) n += batch.sizes[i]!;
   return n;
+}
+
+/** `column` at the positions `part` names (the column itself for the whole batch). */
+export function pick<V>(column: readonly V[], part: Part): readonly V[] {
+  if (part === undefined) return column;
+  const out = new Array<V>(part.length);
+  for (let k = 0; k < part.length; k++) out[k] = column[part[k]!]!;
+  return out;
 }

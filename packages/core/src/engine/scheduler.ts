@@ -6,9 +6,9 @@
 import type { Clock } from '../clock.js';
 import type { ResolvedOptions } from '../options.js';
 import type { TypedEmitter } from '../typed-emitter.js';
-import type { FlushReason, SinkEvents } from '../types.js';
+import type { FlushReason, RecordMeta, SinkEvents } from '../types.js';
 import type { RecordBuffer } from './buffer.js';
-import type { Entry, InFlight } from './records.js';
+import type { Barrier, Columns, InFlight } from './records.js';
 import type { SinkStats } from './stats.js';
 
 /** What the scheduler needs from the rest of the sink. */
@@ -82,33 +82,47 @@ export class Scheduler<T> {
         break;
       }
       const taken = this.buffer.take(reason, now, this.o, this.lockedKeys);
-      if (taken.entries === undefined || taken.entries.length === 0) {
+      if (taken.batch === undefined) {
         // The due records' keys have batches in flight (their completion pumps again), and what
         // could go now is not itself due (`keyWaitAt` arms the timer for it).
-        if (taken.entries === undefined) this.keyWaitAt = taken.waitUntil;
+        this.keyWaitAt = taken.waitUntil;
         this.slotWaitSince ??= now;
         break;
       }
-      this.start(taken.entries, taken.reason, now);
+      this.start(taken.batch, taken.reason, now);
     }
     this.arm();
   }
 
-  private start(entries: Entry<T>[], reason: FlushReason, now: number): void {
+  private start(taken: Columns<T>, reason: FlushReason, now: number): void {
     const id = this.nextBatchId++;
-    const batch: InFlight<T> = { id, entries, open: entries.length, retrying: 0 };
-    let bytes = 0;
-    for (const e of entries) {
-      bytes += e.bytes;
-      if (e.key !== undefined) this.lockedKeys.set(e.key, (this.lockedKeys.get(e.key) ?? 0) + 1);
+    const { records, bytes, keys } = taken;
+    const count = records.length;
+    const batch: InFlight<T> = {
+      id,
+      records,
+      metas: taken.metas,
+      prepared: taken.prepared,
+      sizes: taken.sizes,
+      times: taken.times,
+      keys,
+      barriers: taken.barriers,
+      bytes,
+      open: count,
+      done: undefined,
+      retrying: 0,
+    };
+    if (keys !== undefined) {
+      for (const key of keys)
+        if (key !== undefined) this.lockedKeys.set(key, (this.lockedKeys.get(key) ?? 0) + 1);
     }
     this.inflight.add(batch);
-    this.inflightRecords += entries.length;
+    this.inflightRecords += count;
     this.inflightBytes += bytes;
     const s = this.stats;
     s.batches++;
     s.flushes[reason]++;
-    s.batchRecords.record(entries.length);
+    s.batchRecords.record(count);
     s.batchBytes.record(bytes);
     const slotWaitMs = this.slotWaitSince === undefined ? 0 : now - this.slotWaitSince;
     this.slotWaitSince = undefined;
@@ -117,7 +131,7 @@ export class Scheduler<T> {
       sink: this.name,
       batchId: id,
       reason,
-      records: entries.length,
+      records: count,
       bytes,
       slotWaitMs,
     });
@@ -132,11 +146,13 @@ export class Scheduler<T> {
       this.hooks.fail(error);
     } finally {
       this.inflight.delete(batch);
-      for (const e of batch.entries) {
-        if (e.key === undefined) continue;
-        const n = (this.lockedKeys.get(e.key) ?? 1) - 1;
-        if (n <= 0) this.lockedKeys.delete(e.key);
-        else this.lockedKeys.set(e.key, n);
+      if (batch.keys !== undefined) {
+        for (const key of batch.keys) {
+          if (key === undefined) continue;
+          const n = (this.lockedKeys.get(key) ?? 1) - 1;
+          if (n <= 0) this.lockedKeys.delete(key);
+          else this.lockedKeys.set(key, n);
+        }
       }
       // The next batch goes first: its write starts (and, where the adapter sends right away,
       // reaches the store) before waiting writers refill the buffer. When one did start, writers
@@ -153,6 +169,26 @@ export class Scheduler<T> {
   retire(records: number, bytes: number): void {
     this.inflightRecords -= records;
     this.inflightBytes -= bytes;
+  }
+
+  /**
+   * Adds `barrier` to every record in flight, not yet terminal, whose metadata matches; returns
+   * how many it did.
+   */
+  holdBarrier(match: (meta: RecordMeta | undefined) => boolean, barrier: Barrier): number {
+    let held = 0;
+    for (const b of this.inflight) {
+      if (b.open === 0) continue;
+      for (let i = 0; i < b.records.length; i++) {
+        if (b.done?.[i] === 1 || !match(b.metas?.[i])) continue;
+        const column = (b.barriers ??= new Array<Barrier[] | undefined>(b.records.length).fill(undefined));
+        const list = column[i];
+        if (list === undefined) column[i] = [barrier];
+        else list.push(barrier);
+        held++;
+      }
+    }
+    return held;
   }
 
   /** Records waiting out a retry back-off, over every batch in flight. */

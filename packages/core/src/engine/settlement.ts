@@ -7,12 +7,23 @@ import type { Clock } from '../clock.js';
 import { type ProgressTracker, partitionKey } from '../progress.js';
 import type { TypedEmitter } from '../typed-emitter.js';
 import type { RecordMeta, SinkEvents } from '../types.js';
-import type { Barrier, Entry, InFlight, Outcome } from './records.js';
+import {
+  type Barrier,
+  type InFlight,
+  type Outcome,
+  type Part,
+  partBytes,
+  partLength,
+  pick,
+} from './records.js';
 import { LATENCY_STEPS_PER_MS, type SinkStats } from './stats.js';
 
-export interface SettlementHooks<T> {
-  /** Records the barriers may wait for: buffered ones, then unsettled ones in flight. */
-  forEachPending(fn: (entry: Entry<T>) => void): void;
+export interface SettlementHooks {
+  /**
+   * Adds `barrier` to every pending record (buffered, or in flight and not yet terminal) whose
+   * metadata matches; returns how many it did.
+   */
+  holdPending(match: (meta: RecordMeta | undefined) => boolean, barrier: Barrier): number;
   /** Settled records no longer count as in flight. */
   retire(records: number, bytes: number): void;
   /** Called after records settled while their batch still has open ones (room for writers). */
@@ -31,7 +42,7 @@ export class Settlement<T> {
     private readonly progress: ProgressTracker,
     private readonly stats: SinkStats,
     private readonly events: TypedEmitter<SinkEvents>,
-    private readonly hooks: SettlementHooks<T>,
+    private readonly hooks: SettlementHooks,
   ) {}
 
   /** Starts tracking a record's source offset (the progress tracker's commit point waits for it). */
@@ -45,88 +56,132 @@ export class Settlement<T> {
     this.barriers.add(barrier);
   }
 
-  /** Marks records terminal: metrics, progress, barriers, and room for waiting writers. */
-  settle(batch: InFlight<T>, entries: Entry<T>[], outcome: Outcome): void {
+  /**
+   * Marks the records of `batch` that `part` names (all of them when undefined) terminal:
+   * metrics, progress, barriers, and room for waiting writers.
+   */
+  settle(batch: InFlight<T>, part: Part, outcome: Outcome): void {
     const now = this.clock.now();
-    const wall = this.clock.wallNow();
+    const n = partLength(batch, part);
     const wantEvent = this.events.listenerCount('settled') > 0;
-    const latencies: number[] = wantEvent ? new Array(entries.length) : [];
+    const latencies: number[] = wantEvent ? new Array(n) : [];
+    const { times, metas, barriers } = batch;
     const h = this.stats;
-    let bytes = 0;
-    // Consecutive records accepted within one histogram step share a value: record them as a
-    // run, which keeps the per-record cost of the latency distribution near zero.
     const durable = outcome === 'durable';
-    let runValue = Number.NaN;
-    let runCount = 0;
-    let eventValue = Number.NaN;
-    let eventCount = 0;
-    for (let i = 0; i < entries.length; i++) {
-      const e = entries[i]!;
-      e.done = true;
-      bytes += e.bytes;
-      const latency = now - e.acceptedAt;
-      if (wantEvent) latencies[i] = latency;
-      if (durable) {
-        const v = Math.round(latency * LATENCY_STEPS_PER_MS) / LATENCY_STEPS_PER_MS;
+    // Consecutive records accepted within one histogram step share a value: record them as a
+    // run, which keeps the per-record cost of the latency distribution near zero. Records
+    // stamped with one clock reading (see Admission.acceptNow()) need not even be rounded.
+    const at = part === undefined ? times : pick(times, part);
+    if (wantEvent) for (let k = 0; k < n; k++) latencies[k] = now - at[k]!;
+    if (durable) {
+      let lastAt = Number.NaN;
+      let runValue = Number.NaN;
+      let runCount = 0;
+      for (let k = 0; k < n; k++) {
+        const t = at[k]!;
+        if (t === lastAt) {
+          runCount++;
+          continue;
+        }
+        lastAt = t;
+        const v = Math.round((now - t) * LATENCY_STEPS_PER_MS) / LATENCY_STEPS_PER_MS;
         if (v === runValue) runCount++;
         else {
           if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
           runValue = v;
           runCount = 1;
         }
-        const eventTime = e.meta?.eventTime;
-        if (eventTime !== undefined) {
-          // Source timestamps are in whole milliseconds: neighbours mostly share one.
-          const ev = wall - eventTime;
-          if (ev === eventValue) eventCount++;
-          else {
-            if (eventCount > 0) h.eventToDurableMs.recordMany(eventValue, eventCount);
-            eventValue = ev;
-            eventCount = 1;
-          }
-        }
       }
-      if (e.meta?.offset !== undefined && e.meta.externalProgress !== true)
-        this.progress.complete(partitionKey(e.meta.topic, e.meta.partition), e.meta.offset);
-      if (e.barriers) {
-        for (const b of e.barriers) {
+      if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
+    }
+    if (metas !== undefined) this.settleMetas(metas, part, n, durable);
+    if (barriers !== undefined) {
+      for (let k = 0; k < n; k++) {
+        const i = part === undefined ? k : part[k]!;
+        const held = barriers[i];
+        if (held === undefined) continue;
+        barriers[i] = undefined;
+        for (const b of held) {
           b.onOutcome?.(outcome);
           if (--b.remaining === 0) {
             this.barriers.delete(b);
             b.resolve();
           }
         }
-        e.barriers = undefined;
       }
     }
-    if (runCount > 0) h.acceptToDurableMs.recordMany(runValue, runCount);
-    if (eventCount > 0) h.eventToDurableMs.recordMany(eventValue, eventCount);
-    if (durable) h.written += entries.length;
-    else h.deadLettered += entries.length;
-    batch.open -= entries.length;
-    this.hooks.retire(entries.length, bytes);
+    if (durable) h.written += n;
+    else h.deadLettered += n;
+    batch.open -= n;
+    this.hooks.retire(n, partBytes(batch, part));
     if (this.hooks.pendingRecords() === 0) this.hooks.idle();
     if (wantEvent) {
       this.events.emit('settled', {
         sink: this.name,
         outcome,
-        metas: entries.map((e) => e.meta),
+        metas: metas === undefined ? new Array(n).fill(undefined) : pick(metas, part),
         latenciesMs: latencies,
       });
     }
+    if (part !== undefined) this.release(batch, part);
     // The last records of a batch: the scheduler lets writers in once the next batch has started.
     if (batch.open > 0) this.hooks.roomFreed();
+  }
+
+  /**
+   * Part of a batch ended before the rest (a partial write, a split): marks those records done and
+   * lets go of them while the rest is still being written. (A whole batch is let go of with the
+   * batch itself.)
+   */
+  private release(batch: InFlight<T>, part: readonly number[]): void {
+    const done = (batch.done ??= new Uint8Array(batch.records.length));
+    const records = batch.records as (T | undefined)[];
+    const metas = batch.metas as (RecordMeta | undefined)[] | undefined;
+    const prepared = batch.prepared as unknown[] | undefined;
+    for (const i of part) {
+      done[i] = 1;
+      records[i] = undefined;
+      if (metas !== undefined) metas[i] = undefined;
+      if (prepared !== undefined) prepared[i] = undefined;
+    }
+  }
+
+  /** Event-time latency and source progress of settled records that carry metadata. */
+  private settleMetas(
+    metas: readonly (RecordMeta | undefined)[],
+    part: Part,
+    n: number,
+    durable: boolean,
+  ): void {
+    const wall = this.clock.wallNow();
+    const h = this.stats;
+    let eventValue = Number.NaN;
+    let eventCount = 0;
+    for (let k = 0; k < n; k++) {
+      const meta = metas[part === undefined ? k : part[k]!];
+      if (meta === undefined) continue;
+      const eventTime = meta.eventTime;
+      if (durable && eventTime !== undefined) {
+        // Source timestamps are in whole milliseconds: neighbours mostly share one.
+        const ev = wall - eventTime;
+        if (ev === eventValue) eventCount++;
+        else {
+          if (eventCount > 0) h.eventToDurableMs.recordMany(eventValue, eventCount);
+          eventValue = ev;
+          eventCount = 1;
+        }
+      }
+      if (meta.offset !== undefined && meta.externalProgress !== true)
+        this.progress.complete(partitionKey(meta.topic, meta.partition), meta.offset);
+    }
+    if (eventCount > 0) h.eventToDurableMs.recordMany(eventValue, eventCount);
   }
 
   /** A promise that resolves when every pending record matching `match` is terminal. */
   barrierOver(match: (meta: RecordMeta | undefined) => boolean): Promise<void> {
     return new Promise<void>((resolve, reject) => {
       const barrier: Barrier = { remaining: 0, resolve, reject };
-      this.hooks.forEachPending((e) => {
-        if (!match(e.meta)) return;
-        barrier.remaining++;
-        (e.barriers ??= []).push(barrier);
-      });
+      barrier.remaining = this.hooks.holdPending(match, barrier);
       if (barrier.remaining === 0) resolve();
       else this.barriers.add(barrier);
     });
