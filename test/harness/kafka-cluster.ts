@@ -53,6 +53,29 @@ export interface KafkaClusterNode {
   residentBytes(): number | undefined;
 }
 
+/** Whether the node at `address` itself answers metadata for `topics` with a leader everywhere. */
+async function knowsTopics(address: string, topics: readonly string[]): Promise<boolean> {
+  // A fresh client with this node alone as its seed sends its metadata requests to this node.
+  const admin = new Kafka({
+    clientId: 'spillway-harness-metadata',
+    brokers: [address],
+    logLevel: logLevel.NOTHING,
+    retry: { retries: 0 },
+  }).admin();
+  try {
+    await admin.connect();
+    const { topics: found } = await admin.fetchTopicMetadata({ topics: [...topics] });
+    return (
+      found.length === topics.length &&
+      found.every((t) => t.partitions.length > 0 && t.partitions.every((p) => p.leader >= 0))
+    );
+  } catch {
+    return false;
+  } finally {
+    await admin.disconnect().catch(() => undefined);
+  }
+}
+
 export interface KafkaCluster {
   /** Bootstrap addresses of every node. */
   readonly brokers: string[];
@@ -335,7 +358,13 @@ class Cluster implements KafkaCluster {
               t.partitions.length > 0 &&
               t.partitions.every((p) => p.leader >= 0 && p.isr.length === p.replicas.length),
           );
-        return whole ? true : undefined;
+        if (!whole) return undefined;
+        // Each node learns of topics and leaders from the metadata log on its own: one that has
+        // not yet (a node just restarted, or a loaded machine) answers a client's metadata
+        // request with UNKNOWN_TOPIC_OR_PARTITION. Wait until every running node knows them.
+        for (const node of this.nodes.filter((n) => n.running))
+          if (!(await knowsTopics(node.address, topics))) return undefined;
+        return true;
       },
       { timeoutMs, intervalMs: 200 },
     ).then(() => undefined);
