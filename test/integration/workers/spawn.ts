@@ -29,8 +29,9 @@ export interface Worker {
   stderr(): string;
 }
 
-export function startWorker(config: WorkerConfig): Worker {
-  const child = spawn(process.execPath, ['--import', 'tsx', script], {
+/** Spawns `program` (default: bridge-worker.ts) with `config` in BRIDGE_WORKER. */
+export function startWorker(config: WorkerConfig | { label: string }, program = script): Worker {
+  const child = spawn(process.execPath, ['--import', 'tsx', program], {
     env: { ...process.env, TSX_TSCONFIG_PATH: tsconfig, BRIDGE_WORKER: JSON.stringify(config) },
     stdio: ['ignore', 'pipe', 'pipe'],
   });
