@@ -4,7 +4,8 @@
 // in transactions but not yet in the bridge's own group, restarts them, and reads the output topic
 // with a read_committed consumer: it must hold every input message exactly once.
 //
-// SPILLWAY_KAFKA_EOS_RUNS (default 2) runs of SPILLWAY_KAFKA_EOS_MESSAGES (default 30,000) messages.
+// SPILLWAY_KAFKA_EOS_RUNS (default 2) runs of SPILLWAY_KAFKA_EOS_MESSAGES (default 20,000) messages;
+// the test of a member stopped past its session (a zombie) streams at most 20,000.
 import { mkdtempSync, rmSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
@@ -17,7 +18,7 @@ import type { EnrichedDockEvent, KafkaEosWorkerConfig } from './workers/kafka-eo
 import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
 const RUNS = Number(process.env.SPILLWAY_KAFKA_EOS_RUNS ?? 2);
-const TOTAL = Number(process.env.SPILLWAY_KAFKA_EOS_MESSAGES ?? 30_000);
+const TOTAL = Number(process.env.SPILLWAY_KAFKA_EOS_MESSAGES ?? 20_000);
 const PARTITIONS = 3;
 const program = fileURLToPath(new URL('./workers/kafka-eos-worker.ts', import.meta.url));
 
@@ -191,5 +192,83 @@ describe('exactly-once from Kafka into Kafka', () => {
     // The kills left transactions committed past the bridge's own commits: a replay from the
     // bridge group's offsets alone would have written those again.
     expect(replayed).toBeGreaterThan(0);
+  });
+
+  it('a member stopped past its session is fenced: its late transactions fail, it writes only past what the new owner stored, and the output holds every message once', async () => {
+    const total = Math.min(TOTAL, 20_000);
+    const input = await k.topic(PARTITIONS, 'zombie_in');
+    const output = await k.topic(PARTITIONS, 'zombie_out');
+    const groupId = uniqueName('zombie_k2k');
+    const prefix = uniqueName('txn');
+    const offsetsGroup = `${prefix}-${groupId}`;
+    const cfg: KafkaEosWorkerConfig = {
+      label: 'zombie_a',
+      brokers: services().kafkaBrokers,
+      inputTopic: input,
+      outputTopic: output,
+      groupId,
+      transactionalIdPrefix: prefix,
+      deadLetterPath: join(dir, 'zombie.dead-letter.ndjson'),
+      // The broker's smallest session by default (group.min.session.timeout.ms): a quick eviction.
+      sessionTimeoutMs: 6000,
+      // Small batches, many transactions: the stop finds one open or buffered records waiting.
+      maxRecords: 200,
+    };
+    const producing = produce(input, 0, total);
+    const a = startWorker(cfg, program);
+    await a.waitFor('ready', (l) => l.event === 'ready');
+    await waitFor('worker a to be mid-stream', () => (messagesTaken(a) >= total / 4 ? true : undefined), {
+      timeoutMs: 120_000,
+      intervalMs: 20,
+    });
+    // Frozen, not dead: its producers and buffered records come back after the group moved on.
+    a.child.kill('SIGSTOP');
+    const storedAtStop = sum(await committed(offsetsGroup, input));
+    const b = startWorker({ ...cfg, label: 'zombie_b' }, program);
+    try {
+      await b.waitFor('ready', (l) => l.event === 'ready');
+      await waitFor(
+        'worker b to own every partition and store past worker a',
+        async () =>
+          b.assigned().length === PARTITIONS && sum(await committed(offsetsGroup, input)) > storedAtStop
+            ? true
+            : undefined,
+        { timeoutMs: 60_000, intervalMs: 100 },
+      );
+      a.child.kill('SIGCONT');
+      await producing;
+      const ends = await endOffsets(input);
+      await waitFor(
+        'the stored offsets at the end of every input partition',
+        async () => {
+          const stored = await committed(offsetsGroup, input);
+          return [...ends].every(([p, end]) => stored.get(p) === end) ? true : undefined;
+        },
+        { timeoutMs: 120_000, intervalMs: 250 },
+      );
+    } finally {
+      a.child.kill('SIGCONT');
+      a.child.kill('SIGTERM');
+      b.child.kill('SIGTERM');
+    }
+    const [exitA, exitB] = await Promise.all([a.exited, b.exited]);
+    const got = await readAll(output);
+    const seqs = new Set(got.map((e) => e.seq));
+    const statsA = lastStats(a).sink as Record<string, number>;
+    const statsB = lastStats(b).sink as Record<string, number>;
+    console.log(
+      `[kafka exactly-once] zombie: stopped worker a at ${storedAtStop} stored offsets; a ${JSON.stringify(statsA)}; b ${JSON.stringify(statsB)}; ` +
+        `${got.length} messages read committed / ${seqs.size} distinct`,
+    );
+    expect(exitA.code).toBe(143);
+    expect(exitB.code).toBe(143);
+    // Worker b took the partitions over: it fenced worker a's transactional ids, and worker a's
+    // transactions after the stop were refused (INVALID_PRODUCER_EPOCH) instead of committed.
+    expect(statsB.fences).toBeGreaterThanOrEqual(PARTITIONS);
+    expect(statsA.fencedOut).toBeGreaterThan(0);
+    // Source: Apache Kafka documentation, transactional producer: a producer fenced by a newer
+    // epoch of its transactional id cannot commit; read_committed consumers see committed data only.
+    expect(got.length).toBe(total);
+    expect(seqs.size).toBe(total);
   });
 });

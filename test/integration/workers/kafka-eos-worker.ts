@@ -24,6 +24,8 @@ export interface KafkaEosWorkerConfig {
   commitIntervalMs?: number;
   /** The sink's maxRecords. @default 1000 */
   maxRecords?: number;
+  /** The consumer's sessionTimeout: how long a stopped member keeps its partitions. @default 10000 */
+  sessionTimeoutMs?: number;
 }
 
 /** What the worker writes to the output topic for each dock event. */
@@ -73,7 +75,7 @@ const bridge = new KafkaBridge<DockRow>({
   kafka,
   groupId: config.groupId,
   consumerConfig: {
-    sessionTimeout: 10_000,
+    sessionTimeout: config.sessionTimeoutMs ?? 10_000,
     rebalanceTimeout: 20_000,
     heartbeatInterval: 500,
     maxWaitTimeInMs: 200,
