@@ -31,6 +31,7 @@ import {
   encodeEvent,
   pgRowsAdapter,
 } from './workers/dock-rows.js';
+import { readTopic } from './workers/read-topic.js';
 
 const TOTAL = Number(process.env.SPILLWAY_FAILOVER_EOS_MESSAGES ?? 20_000);
 const PARTITIONS = 3;
@@ -317,30 +318,7 @@ describe('exactly-once on a three-broker cluster when a leader is killed with -9
       // Source: Apache Kafka documentation, Message Delivery Semantics and isolation.level: a
       // read_committed consumer (kafkajs' default) sees each message of a committed transaction
       // once and none of an aborted one.
-      const ends = new Map(
-        (await cluster.admin.fetchTopicOffsets(output)).map((o) => [o.partition, Number(o.high)]),
-      );
-      const reached = new Map<number, number>();
-      const seqs: number[] = [];
-      const reader = kafka.consumer({ groupId: uniqueName('reader'), maxWaitTimeInMs: 200 });
-      reader.on(reader.events.END_BATCH_PROCESS, (e) =>
-        reached.set(
-          e.payload.partition,
-          Math.max(reached.get(e.payload.partition) ?? 0, Number(e.payload.lastOffset) + 1),
-        ),
-      );
-      await reader.connect();
-      await reader.subscribe({ topic: output, fromBeginning: true });
-      await reader.run({
-        eachBatch: async ({ batch }) => {
-          for (const m of batch.messages) seqs.push((JSON.parse(m.value!.toString()) as DockRow).seq);
-        },
-      });
-      await waitFor(
-        'the end of every output partition',
-        () => ([...ends].every(([p, end]) => end === 0 || (reached.get(p) ?? 0) >= end) ? true : undefined),
-        { timeoutMs: 120_000, intervalMs: 100 },
-      ).finally(() => reader.disconnect());
+      const seqs = (await readTopic(kafka, output)).map((v) => (JSON.parse(v) as DockRow).seq);
       const distinct = new Set(seqs);
       const s = adapter.stats();
       console.log(

@@ -15,6 +15,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { services, type TestKafka, uniqueName, waitFor, withKafka } from '../harness/index.js';
 import { dockEvent, encodeEvent } from './workers/dock-rows.js';
 import type { EnrichedDockEvent, KafkaEosWorkerConfig } from './workers/kafka-eos-worker.js';
+import { readTopic } from './workers/read-topic.js';
 import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
 const RUNS = Number(process.env.SPILLWAY_KAFKA_EOS_RUNS ?? 2);
@@ -64,38 +65,9 @@ async function endOffsets(topic: string): Promise<Map<number, number>> {
   return new Map((await k.admin.fetchTopicOffsets(topic)).map((o) => [o.partition, Number(o.high)]));
 }
 
-/**
- * Every message a read_committed consumer (kafkajs' default isolation; read_uncommitted with the
- * flag) gets from `topic`, read up to the high watermarks: batches count up to their last offset,
- * control records and aborted messages included, so the read ends at the end of each partition.
- */
+/** The dock events a consumer of `topic` gets (read_committed unless `readUncommitted`). */
 async function readAll(topic: string, readUncommitted = false): Promise<EnrichedDockEvent[]> {
-  const ends = await endOffsets(topic);
-  const reached = new Map<number, number>();
-  const got: EnrichedDockEvent[] = [];
-  const consumer = k.kafka.consumer({ groupId: uniqueName('reader'), maxWaitTimeInMs: 200, readUncommitted });
-  const off = consumer.on(consumer.events.END_BATCH_PROCESS, (e) => {
-    const { partition, lastOffset } = e.payload;
-    reached.set(partition, Math.max(reached.get(partition) ?? 0, Number(lastOffset) + 1));
-  });
-  await consumer.connect();
-  await consumer.subscribe({ topic, fromBeginning: true });
-  await consumer.run({
-    eachBatch: async ({ batch }) => {
-      for (const m of batch.messages) got.push(JSON.parse(m.value!.toString()) as EnrichedDockEvent);
-    },
-  });
-  try {
-    await waitFor(
-      `the end of every partition of ${topic}`,
-      () => ([...ends].every(([p, end]) => end === 0 || (reached.get(p) ?? 0) >= end) ? true : undefined),
-      { timeoutMs: 120_000, intervalMs: 100 },
-    );
-  } finally {
-    off();
-    await consumer.disconnect();
-  }
-  return got;
+  return (await readTopic(k.kafka, topic, readUncommitted)).map((v) => JSON.parse(v) as EnrichedDockEvent);
 }
 
 function lastStats(w: Worker): Record<string, unknown> {

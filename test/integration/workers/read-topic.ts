@@ -1,0 +1,46 @@
+// Reading a whole topic back as a downstream consumer would: a fresh group from the beginning, up
+// to the high watermarks as they are when the read starts.
+import type { Kafka } from 'kafkajs';
+import { uniqueName, waitFor } from '../../harness/index.js';
+
+/**
+ * The values a consumer gets from `topic`, read_committed (kafkajs' default isolation) unless
+ * `readUncommitted`. Each partition is read until a batch reaches its high watermark: a batch's
+ * last offset counts the control records and aborted messages it skipped, so the read ends even
+ * when a partition ends with a transaction marker.
+ */
+export async function readTopic(kafka: Kafka, topic: string, readUncommitted = false): Promise<string[]> {
+  const admin = kafka.admin();
+  await admin.connect();
+  const ends = new Map(
+    (await admin.fetchTopicOffsets(topic).finally(() => admin.disconnect())).map((o) => [
+      o.partition,
+      Number(o.high),
+    ]),
+  );
+  const reached = new Map<number, number>();
+  const values: string[] = [];
+  const consumer = kafka.consumer({ groupId: uniqueName('reader'), maxWaitTimeInMs: 200, readUncommitted });
+  const off = consumer.on(consumer.events.END_BATCH_PROCESS, (e) => {
+    const { partition, lastOffset } = e.payload;
+    reached.set(partition, Math.max(reached.get(partition) ?? 0, Number(lastOffset) + 1));
+  });
+  await consumer.connect();
+  await consumer.subscribe({ topic, fromBeginning: true });
+  await consumer.run({
+    eachBatch: async ({ batch }) => {
+      for (const m of batch.messages) values.push(m.value?.toString() ?? '');
+    },
+  });
+  try {
+    await waitFor(
+      `the end of every partition of ${topic}`,
+      () => ([...ends].every(([p, end]) => end === 0 || (reached.get(p) ?? 0) >= end) ? true : undefined),
+      { timeoutMs: 120_000, intervalMs: 100 },
+    );
+  } finally {
+    off();
+    await consumer.disconnect();
+  }
+  return values;
+}
