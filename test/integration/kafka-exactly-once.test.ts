@@ -148,6 +148,14 @@ describe('exactly-once from Kafka into Kafka', () => {
           `after the restart ${got.length} messages read committed / ${seqs.size} distinct, ${aborted} more read uncommitted (aborted), ` +
           `output end offsets ${sum(await endOffsets(output))} (control records included); restart: ${String(stats.skippedStored)} skipped as stored, sink ${JSON.stringify(stats.sink)}; ${((Date.now() - started) / 1000).toFixed(1)} s`,
       );
+      if (got.length !== seqs.size) {
+        // Which source partitions and offsets the copies came from: a whole transaction of one
+        // source partition written twice points at the offsets read after the fence.
+        const copies = new Map<number, number>();
+        for (const e of got) copies.set(e.seq, (copies.get(e.seq) ?? 0) + 1);
+        const twice = got.filter((e) => copies.get(e.seq)! > 1).map((e) => `${e.partition}:${e.offset}`);
+        console.log(`[kafka exactly-once] copies at source ${[...new Set(twice)].sort().join(' ')}`);
+      }
       replayed += storedAtKill - committedAtKill;
       expect(exit.signal).toBe('SIGKILL');
       // Source: shell convention, exit status 128 + signal number (SIGTERM = 15).
