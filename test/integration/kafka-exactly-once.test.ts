@@ -75,104 +75,110 @@ function lastStats(w: Worker): Record<string, unknown> {
 }
 
 describe('exactly-once from Kafka into Kafka', () => {
-  it(`kill -9 mid-stream, ${RUNS} runs of ${TOTAL} messages: after the restart a read_committed consumer of the output sees every input message exactly once`, async () => {
-    let replayed = 0;
-    for (let run = 1; run <= RUNS; run++) {
-      const started = Date.now();
-      const input = await k.topic(PARTITIONS, 'eos_in');
-      const output = await k.topic(PARTITIONS, 'eos_out');
-      const groupId = uniqueName('eos_k2k');
-      const prefix = uniqueName('txn');
-      // The adapter's default offsets group: `${transactionalIdPrefix}-${group}`.
-      const offsetsGroup = `${prefix}-${groupId}`;
-      const cfg: KafkaEosWorkerConfig = {
-        label: `eos_k2k_${run}`,
-        brokers: services().kafkaBrokers,
-        inputTopic: input,
-        outputTopic: output,
-        groupId,
-        transactionalIdPrefix: prefix,
-        deadLetterPath: join(dir, `run${run}.dead-letter.ndjson`),
-        // A long tick of the bridge's own commits: the kill finds transactions committed past them.
-        commitIntervalMs: 5000,
-      };
-      const producing = produce(input, 0, TOTAL);
-      const first = startWorker(cfg, program);
-      await first.waitFor('ready', (l) => l.event === 'ready');
-      await waitFor(
-        'the first worker to be mid-stream',
-        () => (messagesTaken(first) >= TOTAL / 3 ? true : undefined),
-        {
-          timeoutMs: 120_000,
-          intervalMs: 50,
-        },
-      );
-      await waitFor(
-        'offsets stored in transactions past the bridge group commits',
-        async () =>
-          sum(await committed(offsetsGroup, input)) > sum(await committed(groupId, input)) ? true : undefined,
-        { timeoutMs: 60_000, intervalMs: 20 },
-      );
-      first.child.kill('SIGKILL');
-      const exit = await first.exited;
-      const storedAtKill = sum(await committed(offsetsGroup, input));
-      const committedAtKill = sum(await committed(groupId, input));
-      await producing;
-
-      const second = startWorker({ ...cfg, label: `${cfg.label}b`, commitIntervalMs: 300 }, program);
-      await second.waitFor('ready', (l) => l.event === 'ready');
-      const ends = await endOffsets(input);
-      await waitFor(
-        'the stored offsets at the end of every input partition',
-        async () => {
-          const stored = await committed(offsetsGroup, input);
-          return [...ends].every(([p, end]) => stored.get(p) === end) ? true : undefined;
-        },
-        { timeoutMs: 120_000, intervalMs: 250 },
-      ).catch((error: unknown) => {
-        throw new Error(
-          `${(error as Error).message}\n${JSON.stringify(lastStats(second))}\n${second.stderr()}`,
+  it(
+    `kill -9 mid-stream, ${RUNS} runs of ${TOTAL} messages: after the restart a read_committed consumer of the output sees every input message exactly once`,
+    async () => {
+      let replayed = 0;
+      for (let run = 1; run <= RUNS; run++) {
+        const started = Date.now();
+        const input = await k.topic(PARTITIONS, 'eos_in');
+        const output = await k.topic(PARTITIONS, 'eos_out');
+        const groupId = uniqueName('eos_k2k');
+        const prefix = uniqueName('txn');
+        // The adapter's default offsets group: `${transactionalIdPrefix}-${group}`.
+        const offsetsGroup = `${prefix}-${groupId}`;
+        const cfg: KafkaEosWorkerConfig = {
+          label: `eos_k2k_${run}`,
+          brokers: services().kafkaBrokers,
+          inputTopic: input,
+          outputTopic: output,
+          groupId,
+          transactionalIdPrefix: prefix,
+          deadLetterPath: join(dir, `run${run}.dead-letter.ndjson`),
+          // A long tick of the bridge's own commits: the kill finds transactions committed past them.
+          commitIntervalMs: 5000,
+        };
+        const producing = produce(input, 0, TOTAL);
+        const first = startWorker(cfg, program);
+        await first.waitFor('ready', (l) => l.event === 'ready');
+        await waitFor(
+          'the first worker to be mid-stream',
+          () => (messagesTaken(first) >= TOTAL / 3 ? true : undefined),
+          {
+            timeoutMs: 120_000,
+            intervalMs: 50,
+          },
         );
-      });
-      second.child.kill('SIGTERM');
-      const stop = await second.exited;
+        await waitFor(
+          'offsets stored in transactions past the bridge group commits',
+          async () =>
+            sum(await committed(offsetsGroup, input)) > sum(await committed(groupId, input))
+              ? true
+              : undefined,
+          { timeoutMs: 60_000, intervalMs: 20 },
+        );
+        first.child.kill('SIGKILL');
+        const exit = await first.exited;
+        const storedAtKill = sum(await committed(offsetsGroup, input));
+        const committedAtKill = sum(await committed(groupId, input));
+        await producing;
 
-      const got = await readAll(output);
-      // What the aborted transactions (the one the kill cut short among them) left in the log.
-      const aborted = (await readAll(output, true)).length - got.length;
-      const seqs = new Set(got.map((e) => e.seq));
-      const sources = new Set(got.map((e) => `${e.partition}:${e.offset}`));
-      const stats = lastStats(second);
-      console.log(
-        `[kafka exactly-once] run ${run}/${RUNS}: at the kill ${storedAtKill} offsets stored in transactions, bridge group committed ${committedAtKill}; ` +
-          `after the restart ${got.length} messages read committed / ${seqs.size} distinct, ${aborted} more read uncommitted (aborted), ` +
-          `output end offsets ${sum(await endOffsets(output))} (control records included); restart: ${String(stats.skippedStored)} skipped as stored, sink ${JSON.stringify(stats.sink)}; ${((Date.now() - started) / 1000).toFixed(1)} s`,
-      );
-      if (got.length !== seqs.size) {
-        // Which source partitions and offsets the copies came from: a whole transaction of one
-        // source partition written twice points at the offsets read after the fence.
-        const copies = new Map<number, number>();
-        for (const e of got) copies.set(e.seq, (copies.get(e.seq) ?? 0) + 1);
-        const twice = got.filter((e) => copies.get(e.seq)! > 1).map((e) => `${e.partition}:${e.offset}`);
-        console.log(`[kafka exactly-once] copies at source ${[...new Set(twice)].sort().join(' ')}`);
+        const second = startWorker({ ...cfg, label: `${cfg.label}b`, commitIntervalMs: 300 }, program);
+        await second.waitFor('ready', (l) => l.event === 'ready');
+        const ends = await endOffsets(input);
+        await waitFor(
+          'the stored offsets at the end of every input partition',
+          async () => {
+            const stored = await committed(offsetsGroup, input);
+            return [...ends].every(([p, end]) => stored.get(p) === end) ? true : undefined;
+          },
+          { timeoutMs: 120_000, intervalMs: 250 },
+        ).catch((error: unknown) => {
+          throw new Error(
+            `${(error as Error).message}\n${JSON.stringify(lastStats(second))}\n${second.stderr()}`,
+          );
+        });
+        second.child.kill('SIGTERM');
+        const stop = await second.exited;
+
+        const got = await readAll(output);
+        // What the aborted transactions (the one the kill cut short among them) left in the log.
+        const aborted = (await readAll(output, true)).length - got.length;
+        const seqs = new Set(got.map((e) => e.seq));
+        const sources = new Set(got.map((e) => `${e.partition}:${e.offset}`));
+        const stats = lastStats(second);
+        console.log(
+          `[kafka exactly-once] run ${run}/${RUNS}: at the kill ${storedAtKill} offsets stored in transactions, bridge group committed ${committedAtKill}; ` +
+            `after the restart ${got.length} messages read committed / ${seqs.size} distinct, ${aborted} more read uncommitted (aborted), ` +
+            `output end offsets ${sum(await endOffsets(output))} (control records included); restart: ${String(stats.skippedStored)} skipped as stored, sink ${JSON.stringify(stats.sink)}; ${((Date.now() - started) / 1000).toFixed(1)} s`,
+        );
+        if (got.length !== seqs.size) {
+          // Which source partitions and offsets the copies came from: a whole transaction of one
+          // source partition written twice points at the offsets read after the fence.
+          const copies = new Map<number, number>();
+          for (const e of got) copies.set(e.seq, (copies.get(e.seq) ?? 0) + 1);
+          const twice = got.filter((e) => copies.get(e.seq)! > 1).map((e) => `${e.partition}:${e.offset}`);
+          console.log(`[kafka exactly-once] copies at source ${[...new Set(twice)].sort().join(' ')}`);
+        }
+        replayed += storedAtKill - committedAtKill;
+        expect(exit.signal).toBe('SIGKILL');
+        // Source: shell convention, exit status 128 + signal number (SIGTERM = 15).
+        expect(stop.code).toBe(143);
+        // Source: Apache Kafka documentation, Message Delivery Semantics and isolation.level: a
+        // read_committed consumer sees each message of a committed transaction once, none of an aborted one.
+        expect(got.length).toBe(TOTAL);
+        expect(seqs.size).toBe(TOTAL);
+        expect(sources.size).toBe(TOTAL);
+        expect(Math.min(...seqs)).toBe(0);
+        expect(Math.max(...seqs)).toBe(TOTAL - 1);
+        expect(got.every((e) => e.source === input && e.seq % PARTITIONS === e.partition)).toBe(true);
       }
-      replayed += storedAtKill - committedAtKill;
-      expect(exit.signal).toBe('SIGKILL');
-      // Source: shell convention, exit status 128 + signal number (SIGTERM = 15).
-      expect(stop.code).toBe(143);
-      // Source: Apache Kafka documentation, Message Delivery Semantics and isolation.level: a
-      // read_committed consumer sees each message of a committed transaction once, none of an aborted one.
-      expect(got.length).toBe(TOTAL);
-      expect(seqs.size).toBe(TOTAL);
-      expect(sources.size).toBe(TOTAL);
-      expect(Math.min(...seqs)).toBe(0);
-      expect(Math.max(...seqs)).toBe(TOTAL - 1);
-      expect(got.every((e) => e.source === input && e.seq % PARTITIONS === e.partition)).toBe(true);
-    }
-    // The kills left transactions committed past the bridge's own commits: a replay from the
-    // bridge group's offsets alone would have written those again.
-    expect(replayed).toBeGreaterThan(0);
-  });
+      // The kills left transactions committed past the bridge's own commits: a replay from the
+      // bridge group's offsets alone would have written those again.
+      expect(replayed).toBeGreaterThan(0);
+    },
+    Math.max(180_000, RUNS * 45_000),
+  );
 
   it('a member stopped past its session is fenced: its late transactions fail, it writes only past what the new owner stored, and the output holds every message once', async () => {
     const total = Math.min(TOTAL, 20_000);
