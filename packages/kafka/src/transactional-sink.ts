@@ -188,7 +188,7 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
       const again =
         cls === 'split'
           ? new StoreError(
-              `A transaction of a later source partition failed; sending it again: ${error.message}`,
+              `A source partition's transaction failed while others of the batch committed; sending it again: ${error.message}`,
               {
                 cause: error,
                 driverCode: error.driverCode,

@@ -14,12 +14,13 @@ import { uniqueName, waitFor } from '../../harness/index.js';
 export async function readTopic(kafka: Kafka, topic: string, readUncommitted = false): Promise<string[]> {
   const admin = kafka.admin();
   await admin.connect();
-  const ends = new Map(
-    (await admin.fetchTopicOffsets(topic).finally(() => admin.disconnect())).map((o) => [
-      o.partition,
-      Number(o.high),
-    ]),
-  );
+  // Asked again for up to 10 s: right after a topic is made, a broker may not lead it yet
+  // (NOT_LEADER_FOR_PARTITION, seen under load).
+  const offsets = await waitFor(`the end offsets of ${topic}`, () => admin.fetchTopicOffsets(topic), {
+    timeoutMs: 10_000,
+    intervalMs: 100,
+  }).finally(() => admin.disconnect());
+  const ends = new Map(offsets.map((o) => [o.partition, Number(o.high)]));
   const reached = new Map<number, number>();
   const values = new Map<string, string>();
   let again = 0;
