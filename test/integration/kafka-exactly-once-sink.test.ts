@@ -4,6 +4,7 @@
 import { type DeadLetter, type DeadLetterTarget, Sink } from '@spillway/core';
 import { kafkaTransactionalAdapter } from '@spillway/kafka';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { StableOffsetReader } from '../../packages/kafka/src/stable-offsets.js';
 import { type TestKafka, uniqueName, waitFor, withKafka } from '../harness/index.js';
 import { readTopic } from './workers/read-topic.js';
 
@@ -98,6 +99,12 @@ describe('the transactional Kafka sink', () => {
     const thousand = { '0': 1000, '1': 1000, '2': 1000 };
     expect(await storedOnceSettled(o.offsetsGroup, o.source, thousand)).toEqual(thousand);
     expect(first.adapter.stats()).toMatchObject({ fencedOut: 0, skippedStored: 0 });
+    // The adapter reads them with OffsetFetch v7 and require_stable (KIP-447), which kafkajs lacks.
+    const reader = StableOffsetReader.open(k.kafka);
+    expect(reader).toBeDefined();
+    expect(await reader!.read(o.offsetsGroup, o.source, 1)).toEqual({ offset: 1000n });
+    expect(await reader!.read(`${o.offsetsGroup}-none`, o.source, 1)).toEqual({ offset: undefined });
+    await reader!.close();
 
     // A restart that reads the source again from further back: the new producers fence, read the
     // stored offsets, and find every record stored.

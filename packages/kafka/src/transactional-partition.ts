@@ -39,18 +39,13 @@ export interface PartitionDeps {
   ackTimeoutMs: number;
   compression: CompressionTypes | undefined;
   offsetsGroup: string;
-  /** The stored next offset of a source partition, read from the offsets group; undefined: none. */
+  /**
+   * The stored next offset of a source partition in the offsets group, once every transaction
+   * that moved it is visible; undefined: none.
+   */
   readStored(topic: string, partition: number): Promise<bigint | undefined>;
   counters: TransactionCounters;
 }
-
-/**
- * Between two readings of the stored offset after a fence, ms, and the most readings taken
- * (common practice, no source: the coordinator's task runs within milliseconds on a healthy
- * broker; 250 ms leaves room for a loaded one).
- */
-const SETTLE_MS = 250;
-const MAX_SETTLE_READS = 8;
 
 /** Broker error types that mean another producer with this transactional id took over. */
 const FENCED = new Set(['INVALID_PRODUCER_EPOCH', 'PRODUCER_FENCED']);
@@ -108,7 +103,7 @@ export class SourcePartition {
       const fence = await producer.transaction();
       await fence.abort();
       this.deps.counters.fences++;
-      const floor = await this.settledStored();
+      const floor = await this.deps.readStored(this.topic, this.partition);
       this.producer = producer;
       this.floor = floor;
       return floor;
@@ -116,26 +111,6 @@ export class SourcePartition {
       await producer.disconnect().catch(() => undefined);
       throw error;
     }
-  }
-
-  /**
-   * The stored next offset once two reads `SETTLE_MS` apart agree. The broker reports a
-   * transaction complete (and lets a new producer of the id start) once its markers are written,
-   * but the group coordinator makes the transaction's offsets visible in a task of its own just
-   * after (from memory of the broker's code; not reproduced in this repository's tests); a client
-   * can wait for that only with OffsetFetch's require_stable (KIP-447, version 7),
-   * which kafkajs 2.2.4 does not send (it stops at version 4). Nothing else can move the offset
-   * after this producer's fence, so a second reading that differs is the late one, and is taken.
-   */
-  private async settledStored(): Promise<bigint | undefined> {
-    let floor = await this.deps.readStored(this.topic, this.partition);
-    for (let read = 1; read < MAX_SETTLE_READS; read++) {
-      await new Promise((resolve) => setTimeout(resolve, SETTLE_MS));
-      const again = await this.deps.readStored(this.topic, this.partition);
-      if (again === floor) break;
-      floor = again;
-    }
-    return floor;
   }
 
   /**

@@ -25,6 +25,7 @@ import {
 } from 'kafkajs';
 import { classifyKafkaError, kafkaErrorType } from './classify.js';
 import type { KafkaOutgoing } from './producer-options.js';
+import { StableOffsetReader } from './stable-offsets.js';
 import { reserveIds, transactionalIdOf } from './transactional-ids.js';
 import {
   type KafkaTransactionalAdapterOptions,
@@ -40,6 +41,8 @@ import {
 export interface KafkaTransactionalAdapterStats extends TransactionCounters {
   /** Records not sent because the stored offset showed them written already (a replay). */
   skippedStored: number;
+  /** Readings of a stored offset the broker called unstable (a transaction's offsets not yet applied). */
+  unstableReads: number;
 }
 
 /** Kafka errors of transactions that a new producer (a new fence) gets past. */
@@ -47,7 +50,19 @@ const TRANSACTION_RETRY: ReadonlySet<string> = new Set([
   'INVALID_TXN_STATE',
   'TRANSACTION_COORDINATOR_FENCED',
   'CONCURRENT_TRANSACTIONS',
+  'UNSTABLE_OFFSET_COMMIT',
 ]);
+
+/** Between readings of a stored offset the broker calls unstable, ms, and the most readings. */
+const UNSTABLE_WAIT_MS = 100;
+const MAX_UNSTABLE_READS = 300;
+
+/**
+ * Without require_stable: between two readings of a stored offset, ms, and the most readings
+ * (common practice, no source).
+ */
+const SETTLE_MS = 250;
+const MAX_SETTLE_READS = 8;
 
 /** How long the partition list of an output topic is used before it is read again, ms. */
 const DEFAULT_METADATA_MAX_AGE_MS = 300_000;
@@ -97,11 +112,14 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
     fences: 0,
     fencedOut: 0,
     skippedStored: 0,
+    unstableReads: 0,
   };
   private readonly partitioner: (args: PartitionerArgs) => number;
   private readonly metadata = new Map<string, { partitions: PartitionMetadata[]; at: number }>();
   private readonly metadataMaxAgeMs: number;
   private admin: Promise<Admin> | undefined;
+  /** Reads stored offsets with require_stable; undefined when this kafkajs cannot. */
+  private readonly stable: StableOffsetReader | undefined;
   private readonly releaseIds: () => void;
   private closed = false;
 
@@ -110,6 +128,7 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
     this.partitioner = (this.o.producer.createPartitioner ?? Partitioners.DefaultPartitioner)();
     this.metadataMaxAgeMs = this.o.producer.metadataMaxAge ?? DEFAULT_METADATA_MAX_AGE_MS;
     this.releaseIds = reserveIds(this.o.transactionalIdPrefix, this.o.group);
+    this.stable = StableOffsetReader.open(this.o.kafka);
   }
 
   /** Counters since the adapter was made. */
@@ -334,15 +353,46 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
     return this.admin;
   }
 
-  /** The stored next offset of a source partition in the offsets group; undefined when none. */
+  /**
+   * The stored next offset of a source partition in the offsets group; undefined when none. Asked
+   * with require_stable, so a transaction's offsets that are still being applied are waited for;
+   * without the private cluster factory (another kafkajs version), as kafkajs asks.
+   */
   private readonly readStored = async (topic: string, partition: number): Promise<bigint | undefined> => {
+    if (this.stable !== undefined) {
+      for (let attempt = 1; ; attempt++) {
+        const reading = await this.stable.read(this.o.offsetsGroup, topic, partition);
+        if (reading !== 'unstable') return reading.offset;
+        this.counters.unstableReads++;
+        if (attempt >= MAX_UNSTABLE_READS)
+          throw new StoreError(
+            `The stored offset of ${topic}/${partition} stayed unstable (a transaction's offsets not yet applied) over ${attempt} reads`,
+            { driverCode: 'UNSTABLE_OFFSET_COMMIT', details: { topic, partition } },
+          );
+        await new Promise((resolve) => setTimeout(resolve, UNSTABLE_WAIT_MS));
+      }
+    }
+    // Without require_stable a transaction's offsets can still be on their way: take the later of
+    // readings SETTLE_MS apart until two agree (narrows the window, does not close it).
+    let floor = await this.fetchOffset(topic, partition);
+    for (let read = 1; read < MAX_SETTLE_READS; read++) {
+      await new Promise((resolve) => setTimeout(resolve, SETTLE_MS));
+      const again = await this.fetchOffset(topic, partition);
+      if (again === floor) break;
+      floor = again;
+    }
+    return floor;
+  };
+
+  /** The stored next offset as kafkajs' admin reads it (OffsetFetch v1–v4, no require_stable). */
+  private async fetchOffset(topic: string, partition: number): Promise<bigint | undefined> {
     const admin = await this.connectedAdmin();
     const [t] = await admin.fetchOffsets({ groupId: this.o.offsetsGroup, topics: [topic] });
     const found = t?.partitions.find((p) => p.partition === partition);
     // kafkajs reports "nothing committed" as -1.
     if (found === undefined || Number(found.offset) < 0) return undefined;
     return BigInt(found.offset);
-  };
+  }
 
   private source(topic: string, partition: number): SourcePartition {
     const key = `${topic}\u0000${partition}`;
@@ -394,6 +444,7 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
     this.closed = true;
     this.releaseIds();
     await Promise.all([...this.sources.values()].map((s) => s.exclusive(() => s.drop())));
+    await this.stable?.close();
     const admin = await this.admin?.catch(() => undefined);
     this.admin = undefined;
     await admin?.disconnect();
