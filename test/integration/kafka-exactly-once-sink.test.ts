@@ -5,8 +5,8 @@ import { type DeadLetter, type DeadLetterTarget, Sink } from '@spillway/core';
 import { kafkaTransactionalAdapter } from '@spillway/kafka';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { StableOffsetReader } from '../../packages/kafka/src/stable-offsets.js';
-import { type TestKafka, uniqueName, waitFor, withKafka } from '../harness/index.js';
-import { readTopic } from './workers/read-topic.js';
+import { services, type TestKafka, uniqueName, waitFor, withKafka } from '../harness/index.js';
+import { readTopicJava } from './workers/read-topic.js';
 
 interface DockReport {
   seq: number;
@@ -113,7 +113,9 @@ describe('the transactional Kafka sink', () => {
     await again.sink.close();
     expect(again.adapter.stats()).toMatchObject({ skippedStored: 3000, transactions: 0, fences: 3 });
 
-    const values = (await readTopic(k.kafka, o.output)).map((v) => (JSON.parse(v) as DockReport).seq);
+    const values = (await readTopicJava(services().kafkaBrokers, o.output)).map(
+      (v) => (JSON.parse(v) as DockReport).seq,
+    );
     expect(values.length).toBe(3000);
     expect(new Set(values).size).toBe(3000);
   });
@@ -133,7 +135,9 @@ describe('the transactional Kafka sink', () => {
     );
     const hundred = { '0': 100, '1': 100, '2': 100 };
     expect(await storedOnceSettled(o.offsetsGroup, o.source, hundred)).toEqual(hundred);
-    const values = (await readTopic(k.kafka, o.output)).map((v) => (JSON.parse(v) as DockReport).seq);
+    const values = (await readTopicJava(services().kafkaBrokers, o.output)).map(
+      (v) => (JSON.parse(v) as DockReport).seq,
+    );
     expect(values.length).toBe(299);
     expect(new Set(values).size).toBe(299);
     expect(values).not.toContain(150);
@@ -149,6 +153,6 @@ describe('the transactional Kafka sink', () => {
     expect(String(await failed)).toMatch(/takes records from a KafkaBridge only/);
     expect(sink.state).toBe('failed');
     await sink.close().catch(() => undefined);
-    expect(await readTopic(k.kafka, o.output)).toEqual([]);
+    expect(await readTopicJava(services().kafkaBrokers, o.output)).toEqual([]);
   });
 });

@@ -15,7 +15,7 @@ import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { services, type TestKafka, uniqueName, waitFor, withKafka } from '../harness/index.js';
 import { dockEvent, encodeEvent } from './workers/dock-rows.js';
 import type { EnrichedDockEvent, KafkaEosWorkerConfig } from './workers/kafka-eos-worker.js';
-import { readTopic } from './workers/read-topic.js';
+import { readTopic, readTopicJava } from './workers/read-topic.js';
 import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
 
 const RUNS = Number(process.env.SPILLWAY_KAFKA_EOS_RUNS ?? 2);
@@ -65,9 +65,13 @@ async function endOffsets(topic: string): Promise<Map<number, number>> {
   return new Map((await k.admin.fetchTopicOffsets(topic)).map((o) => [o.partition, Number(o.high)]));
 }
 
-/** The dock events a consumer of `topic` gets (read_committed unless `readUncommitted`). */
+/**
+ * The dock events the Apache Kafka Java client reads from `topic` (read_committed unless
+ * `readUncommitted`), and how many kafkajs' read_committed reader gets, for the log.
+ */
 async function readAll(topic: string, readUncommitted = false): Promise<EnrichedDockEvent[]> {
-  return (await readTopic(k.kafka, topic, readUncommitted)).map((v) => JSON.parse(v) as EnrichedDockEvent);
+  const values = await readTopicJava(services().kafkaBrokers, topic, readUncommitted);
+  return values.map((v) => JSON.parse(v) as EnrichedDockEvent);
 }
 
 function lastStats(w: Worker): Record<string, unknown> {
@@ -142,6 +146,7 @@ describe('exactly-once from Kafka into Kafka', () => {
         const stop = await second.exited;
 
         const got = await readAll(output);
+        const byKafkajs = (await readTopic(k.kafka, output)).length;
         // What the aborted transactions (the one the kill cut short among them) left in the log.
         const aborted = (await readAll(output, true)).length - got.length;
         const seqs = new Set(got.map((e) => e.seq));
@@ -149,7 +154,7 @@ describe('exactly-once from Kafka into Kafka', () => {
         const stats = lastStats(second);
         console.log(
           `[kafka exactly-once] run ${run}/${RUNS}: at the kill ${storedAtKill} offsets stored in transactions, bridge group committed ${committedAtKill}; ` +
-            `after the restart ${got.length} messages read committed / ${seqs.size} distinct, ${aborted} more read uncommitted (aborted), ` +
+            `after the restart ${got.length} messages read committed / ${seqs.size} distinct (kafkajs' reader: ${byKafkajs}), ${aborted} more read uncommitted (aborted), ` +
             `output end offsets ${sum(await endOffsets(output))} (control records included); restart: ${String(stats.skippedStored)} skipped as stored, sink ${JSON.stringify(stats.sink)}; ${((Date.now() - started) / 1000).toFixed(1)} s`,
         );
         if (got.length !== seqs.size) {

@@ -1,7 +1,15 @@
 // Reading a whole topic back as a downstream consumer would: a fresh group from the beginning, up
 // to the high watermarks as they are when the read starts.
+import { execFile } from 'node:child_process';
+import { mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { promisify } from 'node:util';
 import type { Kafka } from 'kafkajs';
 import { uniqueName, waitFor } from '../../harness/index.js';
+import { ensureKafkaJars, javaBin } from '../../harness/kafka.js';
+import { onProcessExit, run } from '../../harness/process.js';
 
 /**
  * The values a consumer gets from `topic`, read_committed (kafkajs' default isolation) unless
@@ -52,4 +60,47 @@ export async function readTopic(kafka: Kafka, topic: string, readUncommitted = f
   }
   if (again > 0) console.log(`[read ${topic}] the reader's group handed out ${again} message(s) again`);
   return [...values.values()];
+}
+
+let compiled: Promise<string> | undefined;
+
+/** Compiles ReadTopic.java once per process; resolves with the class path to run it. */
+function readerClassPath(): Promise<string> {
+  compiled ??= (async () => {
+    const { dir: jars } = await ensureKafkaJars();
+    const out = mkdtempSync(join(tmpdir(), 'spillway-read-topic-'));
+    onProcessExit(() => rmSync(out, { recursive: true, force: true }));
+    const source = fileURLToPath(new URL('./ReadTopic.java', import.meta.url));
+    await run('javac', ['-cp', `${jars}/*`, '-d', out, source], { timeoutMs: 120_000 });
+    return `${out}:${jars}/*`;
+  })();
+  return compiled;
+}
+
+/**
+ * The values the Apache Kafka Java client reads from `topic` (from the beginning to the end
+ * offsets as they are when it starts), with `isolation.level` read_committed unless
+ * `readUncommitted`. The broker project's own consumer is the reference for what a read_committed
+ * reader must see; kafkajs 2.2.4's reader let messages of aborted transactions through in some of
+ * our runs.
+ */
+export async function readTopicJava(
+  brokers: readonly string[],
+  topic: string,
+  readUncommitted = false,
+): Promise<string[]> {
+  const classPath = await readerClassPath();
+  const { stdout } = await promisify(execFile)(
+    javaBin(),
+    [
+      '-cp',
+      classPath,
+      'ReadTopic',
+      brokers.join(','),
+      topic,
+      readUncommitted ? 'read_uncommitted' : 'read_committed',
+    ],
+    { maxBuffer: 256 * 1024 * 1024, timeout: 120_000 },
+  );
+  return stdout.split('\n').filter((line) => line.length > 0);
 }
