@@ -15,3 +15,6 @@ export type { KafkaSource, UndecodableMessage } from './decode.js';
 export { DecodeError } from './decode.js';
 export { KafkaProducerAdapter, kafkaProducerAdapter } from './producer.js';
 export type { KafkaOutgoing, KafkaProducerAdapterOptions } from './producer-options.js';
+export type { KafkaTransactionalAdapterOptions } from './transactional-options.js';
+export type { KafkaTransactionalAdapterStats } from './transactional-sink.js';
+export { KafkaTransactionalAdapter, kafkaTransactionalAdapter } from './transactional-sink.js';
