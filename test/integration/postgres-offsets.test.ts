@@ -132,6 +132,24 @@ describe('PostgreSQL offsets stored with the data', () => {
       expect(await stored(name)).toEqual({ '0': '10', '1': '10' });
     });
 
+    it(`${label}: a record map() refuses stops its partition's stored offset at it, so a crash before its dead letter replays it instead of skipping it`, async () => {
+      const name = await table(mode === 'upsert');
+      const a = adapter(name, mode, {
+        ...extra,
+        map: (e) => {
+          if (e.seq === 25) throw new Error('no bikes count for this dock');
+          return [e.seq, e.bikes];
+        },
+      });
+      await a.write(batch(0, 20));
+      const result = await a.write(batch(20, 40));
+      expect(result?.rejected.map((r) => r.index)).toEqual([5]); // seq 25
+      expect(await rows(name)).toEqual({ rows: 39, distinct: 39 });
+      // seq 25 is offset 12 of partition 1: that partition's stored offset stops there, while
+      // partition 0 moves to the end of the batch.
+      expect(await stored(name)).toEqual({ '0': '20', '1': '12' });
+    });
+
     it(`${label}: a writer whose records are stored already writes none of them again, and writes the rest`, async () => {
       const name = await table(mode === 'upsert');
       const owner = adapter(name, mode, extra);

@@ -23,6 +23,7 @@ import {
   rangeKey,
   rangesOf,
   type StoredOffsets,
+  stopAtRefused,
 } from './offsets.js';
 import {
   ADAPTER_OPTION_NAMES,
@@ -256,7 +257,11 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       this.ledger === undefined
         ? undefined
         : () => {
-            sentRanges = rangesOf(metas, sent);
+            sentRanges = stopAtRefused(
+              rangesOf(metas, sent),
+              metas,
+              rejected.map((r) => r.index),
+            );
             return sentRanges;
           };
     let steps: Step[];

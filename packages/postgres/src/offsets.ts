@@ -58,6 +58,26 @@ export function rangesOf(metas: ReadonlyArray<RecordMeta | undefined>, indexes: 
   return ranges;
 }
 
+/**
+ * Stops each range's next offset at the first record of its partition refused before sending (a
+ * record `map()` could not map, dead-lettered only after this transaction): a crash before its
+ * dead letter is written replays it instead of skipping it. The records after it in the batch and
+ * partition are then written again on such a replay (at-least-once).
+ */
+export function stopAtRefused(
+  ranges: Ranges,
+  metas: ReadonlyArray<RecordMeta | undefined>,
+  refused: Iterable<number>,
+): Ranges {
+  for (const i of refused) {
+    const c = kafkaCoordinates(metas[i]);
+    if (c === undefined) continue;
+    const r = ranges.get(rangeKey(c.topic, c.partition));
+    if (r !== undefined && c.offset < r.next) r.next = c.offset;
+  }
+  return ranges;
+}
+
 /** Every range is at or below what is stored: the batch is in the table already. */
 export function allStored(ranges: Ranges, stored: StoredOffsets): boolean {
   for (const [key, r] of ranges) {
