@@ -4,11 +4,11 @@
 // stopped with SIGTERM; the partitions move twice, and the table must end with every message once.
 import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
-import { services, sleep, uniqueName, waitFor } from '../harness/index.js';
+import { services, uniqueName, waitFor } from '../harness/index.js';
 import type { WorkerConfig } from './workers/bridge-worker.js';
 import { createDockTable } from './workers/dock-rows.js';
 import { groupFixture } from './workers/group-checks.js';
-import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
+import { messagesTaken, ownsSplit, startWorker, type Worker } from './workers/spawn.js';
 
 const PARTITIONS = 6;
 
@@ -41,23 +41,8 @@ describe('exactly-once in a consumer group', () => {
     await createDockTable(f.schema.pool, table, 'insert');
 
     // A steady producer: 300 messages every 100 ms until told to stop.
-    let produced = 0;
-    let producing = true;
-    const producerLoop = (async () => {
-      while (producing) {
-        await f.checks.produce(topic, PARTITIONS, produced, produced + 300);
-        produced += 300;
-        await sleep(100);
-      }
-    })();
-    const owns = (ws: Worker[], sizes: number[]) => {
-      const all = ws.flatMap((w) => w.assigned()).sort();
-      return all.length === PARTITIONS &&
-        new Set(all).size === PARTITIONS &&
-        ws.every((w, i) => w.assigned().length === sizes[i])
-        ? true
-        : undefined;
-    };
+    const producer = f.checks.steadyProducer(topic, PARTITIONS, 300);
+    const owns = (ws: Worker[], sizes: number[]) => ownsSplit(ws, PARTITIONS, sizes);
     const workers: Worker[] = [];
     try {
       const [a, b, c] = ['eosg_a', 'eosg_b', 'eosg_c'].map((label) =>
@@ -101,8 +86,7 @@ describe('exactly-once in a consumer group', () => {
         timeoutMs: 60_000,
       });
 
-      producing = false;
-      await producerLoop;
+      const produced = await producer.stop();
       await f.checks.waitCommittedToEnd(groupId, topic);
       a.child.kill('SIGTERM');
       const aExit = await a.exited;
@@ -118,8 +102,7 @@ describe('exactly-once in a consumer group', () => {
       expect(await f.checks.topicSize(topic)).toBe(produced); // each event is in the topic once
       expect(final).toEqual({ rows: produced, distinct: produced, min: 0, max: produced - 1 });
     } finally {
-      producing = false;
-      await producerLoop.catch(() => undefined);
+      await producer.abandon();
       for (const w of workers)
         if (w.child.exitCode === null && w.child.signalCode === null) w.child.kill('SIGKILL');
     }

@@ -6,7 +6,7 @@ import { describe, expect, it } from 'vitest';
 import { services, sleep, uniqueName, waitFor } from '../harness/index.js';
 import { createDockTable } from './workers/dock-rows.js';
 import { groupFixture } from './workers/group-checks.js';
-import { messagesTaken, startWorker, type Worker } from './workers/spawn.js';
+import { messagesTaken, ownsSplit, startWorker, type Worker } from './workers/spawn.js';
 
 const f = groupFixture('bridge_proc');
 
@@ -226,24 +226,9 @@ describe('consumer processes of the bridge', () => {
     await createDockTable(f.schema.pool, table, 'insert');
     const config = (label: string) => workerConfig(label, topic, groupId, [{ table, mode: 'insert' }]);
 
-    // A steady producer: 400 messages every 100 ms (about 4000/s) until told to stop.
-    let produced = 0;
-    let producing = true;
-    const producerLoop = (async () => {
-      while (producing) {
-        await f.checks.produce(topic, PARTITIONS, produced, produced + 400);
-        produced += 400;
-        await sleep(100);
-      }
-    })();
-    const owns = (ws: Worker[], sizes: number[]) => {
-      const all = ws.flatMap((w) => w.assigned()).sort();
-      return all.length === PARTITIONS &&
-        new Set(all).size === PARTITIONS &&
-        ws.every((w, i) => w.assigned().length === sizes[i])
-        ? true
-        : undefined;
-    };
+    // A steady producer: 400 messages every 100 ms until told to stop.
+    const producer = f.checks.steadyProducer(topic, PARTITIONS, 400);
+    const owns = (ws: Worker[], sizes: number[]) => ownsSplit(ws, PARTITIONS, sizes);
     const workers: Worker[] = [];
     try {
       const a = startWorker(config('scale_a'));
@@ -279,8 +264,7 @@ describe('consumer processes of the bridge', () => {
         { timeoutMs: 60_000 },
       );
 
-      producing = false;
-      await producerLoop;
+      const produced = await producer.stop();
       await f.checks.waitCommittedToEnd(groupId, topic);
       const exits = await Promise.all([stopWorker(a, 'SIGTERM'), stopWorker(b, 'SIGTERM')]);
       const final = await f.checks.counts(table);
@@ -305,8 +289,7 @@ describe('consumer processes of the bridge', () => {
       // then lost can be read twice, and each member counts them.
       expect(final.rows - final.distinct).toBeLessThanOrEqual(uncommittedAtRevoke);
     } finally {
-      producing = false;
-      await producerLoop.catch(() => undefined);
+      await producer.abandon();
       for (const w of workers)
         if (w.child.exitCode === null && w.child.signalCode === null) w.child.kill('SIGKILL');
     }

@@ -5,7 +5,14 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import type { Producer } from 'kafkajs';
 import { afterAll, beforeAll } from 'vitest';
-import { type TestKafka, type TestSchema, waitFor, withKafka, withSchema } from '../../harness/index.js';
+import {
+  sleep,
+  type TestKafka,
+  type TestSchema,
+  waitFor,
+  withKafka,
+  withSchema,
+} from '../../harness/index.js';
 import { dockEvent, encodeEvent } from './dock-rows.js';
 
 export interface RowCounts {
@@ -40,6 +47,34 @@ export function groupChecks(kafka: TestKafka, schema: TestSchema, producer: Prod
           messages.push({ partition: seq % partitions, value: encodeEvent(dockEvent(seq)) });
         await producer.send({ topic, acks: -1, messages });
       }
+    },
+
+    /**
+     * A steady producer: `perTick` dock events every 100 ms, numbered from 0, until `stop()`, which
+     * resolves with how many were produced once the last send is done.
+     */
+    steadyProducer(topic: string, partitions: number, perTick: number) {
+      let produced = 0;
+      let producing = true;
+      const loop = (async () => {
+        while (producing) {
+          await this.produce(topic, partitions, produced, produced + perTick);
+          produced += perTick;
+          await sleep(100);
+        }
+      })();
+      return {
+        async stop(): Promise<number> {
+          producing = false;
+          await loop;
+          return produced;
+        },
+        /** Stops without waiting, for a test's `finally`. */
+        abandon(): Promise<void> {
+          producing = false;
+          return loop.catch(() => undefined);
+        },
+      };
     },
 
     /** Messages in the topic: the sum of its partitions' end offsets (nothing is deleted here). */

@@ -105,3 +105,16 @@ export function messagesTaken(w: Worker): number {
   const last = w.lines.filter((l) => l.event === 'stats').at(-1);
   return (last?.messages as number | undefined) ?? 0;
 }
+
+/**
+ * Whether `workers` own every one of `partitions` partitions once, worker i owning `sizes[i]` of
+ * them (by their latest `assign` events); undefined otherwise, for `waitFor`.
+ */
+export function ownsSplit(workers: Worker[], partitions: number, sizes: number[]): true | undefined {
+  const all = workers.flatMap((w) => w.assigned()).sort();
+  return all.length === partitions &&
+    new Set(all).size === partitions &&
+    workers.every((w, i) => w.assigned().length === sizes[i])
+    ? true
+    : undefined;
+}
