@@ -9,9 +9,9 @@ import { cannotConnect } from './cannot-connect.js';
 import { interruption } from './interrupt.js';
 import type { ScratchTopic, TopicShape } from './kafka-topic.js';
 import { keepOpen } from './keep-open.js';
-import { round } from './numbers.js';
-import { type SearchOutcome, searchSettings } from './search.js';
+import type { SearchOutcome } from './search.js';
 import { checkSearchOptions, type SearchOptions } from './search-options.js';
+import { searchStore } from './store-search.js';
 import { planLoad, type TableShape } from './table-load.js';
 
 export type KafkaCompression = 'none' | 'gzip';
@@ -75,14 +75,12 @@ export async function tuneKafka(o: KafkaTuneOptions): Promise<KafkaTuneOutcome> 
   const search = check(o);
   const started = performance.now();
   const note = (text: string) => o.onProgress?.({ kind: 'note', text });
-  const [kafkajs, { kafkaProducerAdapter }, topics, { loadRecords, SampleCycle }, { runTableTrial }] =
-    await Promise.all([
-      import('kafkajs'),
-      import('@spillway/kafka'),
-      import('./kafka-topic.js'),
-      import('./record-sample.js'),
-      import('./table-trial.js'),
-    ]);
+  const [kafkajs, { kafkaProducerAdapter }, topics, { loadRecords, SampleCycle }] = await Promise.all([
+    import('kafkajs'),
+    import('@spillway/kafka'),
+    import('./kafka-topic.js'),
+    import('./record-sample.js'),
+  ]);
   const keyField = o.key;
   const messageKey = (r: Row) => String(r[keyField!] ?? '');
   const sample = await loadRecords(
@@ -132,30 +130,20 @@ export async function tuneKafka(o: KafkaTuneOptions): Promise<KafkaTuneOutcome> 
     // charge its connection to that trial.
     const adapter = keepOpen(producer);
     const cycle = new SampleCycle(sample.rows);
-    const found = await searchSettings({
-      ...search,
-      p99Ms: o.p99Ms,
-      rate: load.rate,
+    const outcome = await searchStore({
+      options: o,
+      search,
+      load,
       started,
-      halt: stop.halt,
-      onProgress: o.onProgress,
+      stop,
+      adapter,
+      cycle,
       // A topic is a log: what earlier trials appended does not change the cost of the next append.
       reset: async () => undefined,
-      trial: async (settings, durationMs, seed) => {
-        const schedule = load.schedule(durationMs, seed, cycle.offset);
-        const t = await runTableTrial({
-          adapter,
-          cycle,
-          settings,
-          schedule,
-          durationMs,
-          signal: stop.signal,
-          // With batches of one key in flight together, a retried one could overtake a later one:
-          // the sink keeps a key's batches in order, as the options printed tell the user to.
-          ...(keyField !== undefined && settings.concurrency > 1 ? { orderingKey: messageKey } : {}),
-        });
-        return { ...t, scheduled: schedule.length };
-      },
+      // With batches of one key in flight together, a retried one could overtake a later one:
+      // the sink keeps a key's batches in order, as the options printed tell the user to.
+      orderingKey: (settings) =>
+        keyField !== undefined && settings.concurrency > 1 ? messageKey : undefined,
     });
     const valueBytes = sample.rows.reduce((a, r) => a + Buffer.byteLength(JSON.stringify(r)), 0);
     return {
@@ -177,10 +165,7 @@ export async function tuneKafka(o: KafkaTuneOptions): Promise<KafkaTuneOutcome> 
         "your topic's consumers and the other producers writing to it (their load on the brokers)",
         'your value format: each record is sent as its JSON',
       ],
-      load: { shape: load.shape, rate: round(load.rate, 1), trialMs: search.trialMs },
-      target: { p99Ms: o.p99Ms, headroom: search.headroom, aimMs: round(o.p99Ms * (1 - search.headroom), 1) },
-      ...found,
-      elapsedMs: Math.round(performance.now() - started),
+      ...outcome,
     };
   } finally {
     try {

@@ -6,7 +6,6 @@ import type { Row } from '@spillway/ingest';
 import type { Redis } from 'ioredis';
 import { cannotConnect, redactUrl } from './cannot-connect.js';
 import { interruption } from './interrupt.js';
-import { round } from './numbers.js';
 import type { RecordSample } from './record-sample.js';
 import {
   checkMapping,
@@ -19,8 +18,9 @@ import {
   scratchPrefix,
   writtenFields,
 } from './redis-keys.js';
-import { type SearchOutcome, searchSettings } from './search.js';
+import type { SearchOutcome } from './search.js';
 import { checkSearchOptions, type SearchOptions } from './search-options.js';
+import { searchStore } from './store-search.js';
 import { planLoad, type TableShape } from './table-load.js';
 
 export type { RedisMappingKind, RedisMappingSpec } from './redis-keys.js';
@@ -85,13 +85,11 @@ export async function tuneRedis(o: RedisTuneOptions): Promise<RedisTuneOutcome> 
   const { key, spec, search } = check(o);
   const started = performance.now();
   const note = (text: string) => o.onProgress?.({ kind: 'note', text });
-  const [{ Redis: RedisClient }, { redisAdapter }, { loadRecords, SampleCycle }, { runTableTrial }] =
-    await Promise.all([
-      import('ioredis'),
-      import('@spillway/redis'),
-      import('./record-sample.js'),
-      import('./table-trial.js'),
-    ]);
+  const [{ Redis: RedisClient }, { redisAdapter }, { loadRecords, SampleCycle }] = await Promise.all([
+    import('ioredis'),
+    import('@spillway/redis'),
+    import('./record-sample.js'),
+  ]);
   const sample: RecordSample = await loadRecords(o.sample, mappingNeeds(spec, key), o.timestampColumn);
   const load = planLoad(o, sample.timesMs);
   const fields = writtenFields(spec, key, sample.fields);
@@ -128,26 +126,15 @@ export async function tuneRedis(o: RedisTuneOptions): Promise<RedisTuneOutcome> 
       ...(o.atomic !== undefined ? { atomic: o.atomic } : {}),
     });
     const cycle = new SampleCycle(sample.rows);
-    const found = await searchSettings({
-      ...search,
-      p99Ms: o.p99Ms,
-      rate: load.rate,
+    const outcome = await searchStore({
+      options: o,
+      search,
+      load,
       started,
-      halt: stop.halt,
-      onProgress: o.onProgress,
+      stop,
+      adapter,
+      cycle,
       reset: async () => void (await deletePrefix(client, prefix)),
-      trial: async (settings, durationMs, seed) => {
-        const schedule = load.schedule(durationMs, seed, cycle.offset);
-        const t = await runTableTrial({
-          adapter,
-          cycle,
-          settings,
-          schedule,
-          durationMs,
-          signal: stop.signal,
-        });
-        return { ...t, scheduled: schedule.length };
-      },
     });
     return {
       store: 'redis',
@@ -161,10 +148,7 @@ export async function tuneRedis(o: RedisTuneOptions): Promise<RedisTuneOutcome> 
         'the values your keys already hold (the scratch keys start empty at each trial)',
         'the other traffic your server serves',
       ],
-      load: { shape: load.shape, rate: round(load.rate, 1), trialMs: search.trialMs },
-      target: { p99Ms: o.p99Ms, headroom: search.headroom, aimMs: round(o.p99Ms * (1 - search.headroom), 1) },
-      ...found,
-      elapsedMs: Math.round(performance.now() - started),
+      ...outcome,
     };
   } finally {
     try {

@@ -4,11 +4,11 @@ import { invalidOption } from '@spillway/core/kit';
 import type pg from 'pg';
 import { cannotConnect, redactUrl } from './cannot-connect.js';
 import { interruption } from './interrupt.js';
-import { round } from './numbers.js';
 import { prefillScratch } from './prefill.js';
 import type { ScratchTable } from './scratch.js';
-import { type SearchOutcome, searchSettings } from './search.js';
+import type { SearchOutcome } from './search.js';
 import { checkSearchOptions, type SearchOptions } from './search-options.js';
+import { searchStore } from './store-search.js';
 import { copyLacks, resolveKey, type TableInfo } from './table-info.js';
 import { planLoad, type TableShape } from './table-load.js';
 import type { RecordCycle, RecordSet, TableRow, VariedColumn } from './table-records.js';
@@ -86,21 +86,14 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
   const prefill = Math.floor(o.prefill ?? 0);
   const note = (text: string) => o.onProgress?.({ kind: 'note', text });
 
-  const [
-    { default: pgModule },
-    { postgresAdapter },
-    { inspectTable },
-    { createScratch },
-    records,
-    { runTableTrial },
-  ] = await Promise.all([
-    import('pg'),
-    import('@spillway/postgres'),
-    import('./table-info.js'),
-    import('./scratch.js'),
-    import('./table-records.js'),
-    import('./table-trial.js'),
-  ]);
+  const [{ default: pgModule }, { postgresAdapter }, { inspectTable }, { createScratch }, records] =
+    await Promise.all([
+      import('pg'),
+      import('@spillway/postgres'),
+      import('./table-info.js'),
+      import('./scratch.js'),
+      import('./table-records.js'),
+    ]);
 
   const stop = interruption(o, 'the scratch copy was dropped');
   const halt = stop.halt;
@@ -172,27 +165,16 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
         );
     }
 
-    const found = await searchSettings({
-      ...search,
-      p99Ms: o.p99Ms,
-      rate: load.rate,
+    const outcome = await searchStore({
+      options: o,
+      search,
+      load,
       started,
-      halt,
-      onProgress: o.onProgress,
+      stop,
+      adapter,
+      cycle,
       reset: async () => {
         if (prefill === 0) await scratch!.truncate();
-      },
-      trial: async (settings, durationMs, seed) => {
-        const schedule = load.schedule(durationMs, seed, cycle.offset);
-        const t = await runTableTrial({
-          adapter,
-          cycle,
-          settings,
-          schedule,
-          durationMs,
-          signal: stop.signal,
-        });
-        return { ...t, scheduled: schedule.length };
       },
     });
     return {
@@ -214,10 +196,7 @@ export async function tuneTable(o: TableTuneOptions): Promise<TableTuneOutcome> 
       lacks,
       reseeded: scratch.reseeded,
       prefilled,
-      load: { shape: load.shape, rate: round(load.rate, 1), trialMs: search.trialMs },
-      target: { p99Ms: o.p99Ms, headroom: search.headroom, aimMs: round(o.p99Ms * (1 - search.headroom), 1) },
-      ...found,
-      elapsedMs: Math.round(performance.now() - started),
+      ...outcome,
     };
   } finally {
     try {
