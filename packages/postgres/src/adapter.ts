@@ -10,21 +10,12 @@ import {
   SpillwayError,
   StoreError,
 } from '@spillway/core';
-import { invalidOption } from '@spillway/core/kit';
+import { invalidOption, kafkaCoordinates, partitionKey, type StoredOffsets } from '@spillway/core/kit';
 import type { PoolClient } from 'pg';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
 import { CopyChunks } from './copy-format.js';
 import { CopyIn } from './copy-in.js';
-import {
-  allStored,
-  kafkaCoordinates,
-  OffsetLedger,
-  type Ranges,
-  rangeKey,
-  rangesOf,
-  type StoredOffsets,
-  stopAtRefused,
-} from './offsets.js';
+import { allStored, OffsetLedger, type Ranges, rangesOf, stopAtRefused } from './offsets.js';
 import {
   ADAPTER_OPTION_NAMES,
   type PostgresAdapterOptions,
@@ -229,7 +220,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     });
     const out: Array<{ topic: string; partition: number; offset: string }> = [];
     for (const p of partitions) {
-      const next = stored.get(rangeKey(p.topic, p.partition));
+      const next = stored.get(partitionKey(p.topic, p.partition));
       if (next !== undefined) out.push({ topic: p.topic, partition: p.partition, offset: next.toString() });
     }
     return out;
@@ -247,7 +238,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       if (stored === undefined) return false;
       const c = kafkaCoordinates(metas[i]);
       if (c === undefined) return false;
-      const s = stored.get(rangeKey(c.topic, c.partition));
+      const s = stored.get(partitionKey(c.topic, c.partition));
       return s !== undefined && c.offset < s;
     };
     // The records sent, for the offsets that go with them.

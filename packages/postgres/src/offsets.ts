@@ -7,38 +7,12 @@
  * retry of a batch that did commit) changes nothing, and learns what is stored.
  */
 import type { RecordMeta } from '@spillway/core';
+import { kafkaCoordinates, type PartitionRange, partitionKey, type StoredOffsets } from '@spillway/core/kit';
 import type { Pool, PoolClient } from 'pg';
 import { qualifiedName } from './identifiers.js';
 
-/** The offsets of one source partition in a batch: `first` written, `next` to read after it. */
-export interface PartitionRange {
-  readonly topic: string;
-  readonly partition: number;
-  first: bigint;
-  next: bigint;
-}
-
 /** Ranges by `topic:partition`. */
 export type Ranges = Map<string, PartitionRange>;
-
-/** Stored next offsets by `topic:partition`. */
-export type StoredOffsets = Map<string, bigint>;
-
-export function rangeKey(topic: string, partition: number): string {
-  return `${topic}:${partition}`;
-}
-
-/** The coordinates of a record from a Kafka source, or undefined for any other record. */
-export function kafkaCoordinates(
-  meta: RecordMeta | undefined,
-): { topic: string; partition: number; offset: bigint } | undefined {
-  if (meta === undefined || typeof meta.topic !== 'string' || meta.partition === undefined) return undefined;
-  const { offset } = meta;
-  if (offset === undefined) return undefined;
-  const partition = Number(meta.partition);
-  if (!Number.isInteger(partition)) return undefined;
-  return { topic: meta.topic, partition, offset: typeof offset === 'bigint' ? offset : BigInt(offset) };
-}
 
 /** The partitions of the records at `indexes`, each with its first offset and the next to read. */
 export function rangesOf(metas: ReadonlyArray<RecordMeta | undefined>, indexes: Iterable<number>): Ranges {
@@ -46,7 +20,7 @@ export function rangesOf(metas: ReadonlyArray<RecordMeta | undefined>, indexes: 
   for (const i of indexes) {
     const c = kafkaCoordinates(metas[i]);
     if (c === undefined) continue;
-    const key = rangeKey(c.topic, c.partition);
+    const key = partitionKey(c.topic, c.partition);
     const r = ranges.get(key);
     if (r === undefined)
       ranges.set(key, { topic: c.topic, partition: c.partition, first: c.offset, next: c.offset + 1n });
@@ -72,7 +46,7 @@ export function stopAtRefused(
   for (const i of refused) {
     const c = kafkaCoordinates(metas[i]);
     if (c === undefined) continue;
-    const r = ranges.get(rangeKey(c.topic, c.partition));
+    const r = ranges.get(partitionKey(c.topic, c.partition));
     if (r !== undefined && c.offset < r.next) r.next = c.offset;
   }
   return ranges;
@@ -190,6 +164,6 @@ export class OffsetLedger {
           AND (topic, kpartition) IN (SELECT * FROM unnest($3::text[], $4::int[]))${settled ? ' FOR SHARE' : ''}`,
       [this.group, this.target, partitions.map((p) => p.topic), partitions.map((p) => p.partition)],
     );
-    return new Map(rows.map((r) => [rangeKey(r.topic, r.kpartition), BigInt(r.next_offset)]));
+    return new Map(rows.map((r) => [partitionKey(r.topic, r.kpartition), BigInt(r.next_offset)]));
   }
 }

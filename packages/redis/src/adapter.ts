@@ -11,12 +11,13 @@ import {
   type SinkAdapter,
   StoreError,
 } from '@spillway/core';
-import { invalidOption } from '@spillway/core/kit';
+import { invalidOption, partitionKey, type StoredOffsets } from '@spillway/core/kit';
 import type { ChainableCommander, Cluster } from 'ioredis';
 import { classifyRedisError, isUnknownOutcome, redisErrorPrefix } from './classify.js';
-import { commandList, type RedisArg, type RedisCommand, type RedisMapping } from './commands.js';
-import { OffsetHash, rangeKey, type ScriptCall, type ScriptReply, type StoredOffsets } from './offsets.js';
+import { commandList, type RedisCommand, type RedisMapping } from './commands.js';
+import { OffsetHash, type ScriptReply } from './offsets.js';
 import { type RedisAdapterOptions, type ResolvedRedisOptions, resolveRedisOptions } from './options.js';
+import { commandKey, refuseInScript, scriptKeys } from './script-checks.js';
 import { keySlot } from './slot.js';
 
 /** Counters of the offsets script (`storeOffsets`). They only grow. */
@@ -36,19 +37,6 @@ export interface RedisAdapterStats {
 /** Rounds of "someone stored these already, send the rest" before a batch gives up (and is retried). */
 const MAX_OFFSET_ROUNDS = 5;
 
-/** Commands that run a script, which a script cannot call. */
-const SCRIPT_COMMANDS: ReadonlySet<string> = new Set([
-  'EVAL',
-  'EVALSHA',
-  'EVAL_RO',
-  'EVALSHA_RO',
-  'FCALL',
-  'FCALL_RO',
-]);
-
-/** Arguments one command may have inside the offsets script (Lua's `unpack` stops near 8,000). */
-const MAX_SCRIPT_COMMAND_ARGS = 7000;
-
 /** A Lua error of the offsets script itself (not of a command it ran): Redis 6 and 7 wordings. */
 const SCRIPT_FAILURE = /user_script:|Error running script/;
 
@@ -56,22 +44,6 @@ type Reply = [error: Error | null, result: unknown];
 
 /** Severity when one record's commands fail differently: the worst reading wins. */
 const RANK: Record<ErrorClass, number> = { retry: 0, split: 1, fatal: 2 };
-
-/** Where a command's key is: after the script and key count for scripts, else the first argument. */
-function commandKey(command: RedisCommand): RedisCommand[1] | undefined {
-  const name = command[0].toUpperCase();
-  if (
-    name === 'EVAL' ||
-    name === 'EVALSHA' ||
-    name === 'FCALL' ||
-    name === 'EVAL_RO' ||
-    name === 'EVALSHA_RO' ||
-    name === 'FCALL_RO'
-  ) {
-    return Number(command[2]) > 0 ? command[3] : undefined;
-  }
-  return command[1];
-}
 
 /** A server message without the arguments Redis may echo (they can hold record data). */
 function safeMessage(error: unknown): string {
@@ -170,13 +142,13 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
   ): Promise<void> {
     const hash = this.offsets!;
     const { mapping } = this.o;
-    this.refuseInScript(lists, failed);
+    refuseInScript(mapping.name, lists, failed);
     let stored: StoredOffsets | undefined;
     for (let round = 1; ; round++) {
       const call = hash.call(batch.metas, lists, stored);
       this.counters.alreadyStored += call.skipped;
       if (call.records === 0) return;
-      const keys = this.scriptKeys(call);
+      const keys = scriptKeys(this.o.client as { isCluster?: boolean }, hash.key, mapping.name, call);
       let reply: ScriptReply;
       try {
         reply = await hash.run(this.o.client, call, keys);
@@ -204,73 +176,6 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
   }
 
   /**
-   * Records whose commands cannot run inside the offsets script are refused before it is sent:
-   * a script command (Redis does not let a script call another) stops the sink; a command with
-   * more arguments than Lua can pass on fails its record alone.
-   */
-  private refuseInScript(
-    lists: Array<readonly RedisCommand[] | undefined>,
-    failed: Map<number, StoreError>,
-  ): void {
-    const { mapping } = this.o;
-    for (let i = 0; i < lists.length; i++) {
-      const list = lists[i];
-      if (list === undefined) continue;
-      for (const c of list) {
-        const name = String(c[0]).toUpperCase();
-        if (SCRIPT_COMMANDS.has(name)) {
-          throw new StoreError(
-            `Mapping "${mapping.name}" sends ${name}, which cannot run inside the script that stores offsets (\`storeOffsets\`); use a mapping without a script of its own`,
-            {
-              details: { command: name, mapping: mapping.name, step: 'offsets' },
-            },
-          );
-        }
-        if (c.length > MAX_SCRIPT_COMMAND_ARGS) {
-          failed.set(
-            i,
-            new StoreError(
-              `Mapping "${mapping.name}" made a ${name} with ${c.length} arguments; with \`storeOffsets\` a command may have at most ${MAX_SCRIPT_COMMAND_ARGS}`,
-              { details: { mapping: mapping.name, stage: 'mapping', command: name } },
-            ),
-          );
-          lists[i] = undefined;
-          break;
-        }
-      }
-    }
-  }
-
-  /**
-   * The data keys to declare with the script. None on a standalone server. On a cluster the
-   * script runs on the node of the offsets hash, so every key must be in its slot: a batch split
-   * across nodes cannot be atomic, and is refused (fatal) rather than stored half.
-   */
-  private scriptKeys(call: ScriptCall): RedisArg[] {
-    const client = this.o.client as { isCluster?: boolean };
-    if (client.isCluster !== true) return [];
-    const hash = this.offsets!;
-    const slot = keySlot(hash.key);
-    const keys: RedisArg[] = [];
-    for (const c of call.commands) {
-      const key = commandKey(c);
-      if (key === undefined) continue;
-      const s = keySlot(key);
-      if (s !== slot) {
-        throw new StoreError(
-          `storeOffsets with a Redis Cluster needs every key of a batch in the slot of the offsets hash "${hash.key}" (slot ${slot}); a ${String(c[0]).toUpperCase()} of mapping "${this.o.mapping.name}" has its key in slot ${s}. A batch split across cluster nodes cannot be atomic: put the sink's keys and \`storeOffsets.key\` under one {hash tag}`,
-          {
-            driverCode: 'CROSSSLOT',
-            details: { mapping: this.o.mapping.name, step: 'offsets', slot: s, offsetsSlot: slot },
-          },
-        );
-      }
-      keys.push(key);
-    }
-    return keys;
-  }
-
-  /**
    * The offsets stored with this sink's data for a Kafka bridge's consumer group: the next offset
    * to read per partition (absent where nothing is stored). Used by the bridge on assignment.
    */
@@ -291,7 +196,7 @@ export class RedisAdapter<T> implements SinkAdapter<T> {
     }
     const out: Array<{ topic: string; partition: number; offset: string }> = [];
     for (const p of partitions) {
-      const next = stored.get(rangeKey(p.topic, p.partition));
+      const next = stored.get(partitionKey(p.topic, p.partition));
       if (next !== undefined) out.push({ topic: p.topic, partition: p.partition, offset: next.toString() });
     }
     return out;

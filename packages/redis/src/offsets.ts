@@ -11,35 +11,9 @@
  * is stored instead.
  */
 import type { RecordMeta } from '@spillway/core';
+import { kafkaCoordinates, type PartitionRange, partitionKey, type StoredOffsets } from '@spillway/core/kit';
 import type { Cluster, Redis } from 'ioredis';
 import type { RedisArg, RedisCommand } from './commands.js';
-
-/** The offsets of one source partition in a batch: `first` written, `next` to read after it. */
-export interface PartitionRange {
-  readonly topic: string;
-  readonly partition: number;
-  first: bigint;
-  next: bigint;
-}
-
-/** Stored next offsets by `topic:partition`. */
-export type StoredOffsets = Map<string, bigint>;
-
-export function rangeKey(topic: string, partition: number): string {
-  return `${topic}:${partition}`;
-}
-
-/** The coordinates of a record from a Kafka source, or undefined for any other record. */
-export function kafkaCoordinates(
-  meta: RecordMeta | undefined,
-): { topic: string; partition: number; offset: bigint } | undefined {
-  if (meta === undefined || typeof meta.topic !== 'string' || meta.partition === undefined) return undefined;
-  const { offset } = meta;
-  if (offset === undefined) return undefined;
-  const partition = Number(meta.partition);
-  if (!Number.isInteger(partition)) return undefined;
-  return { topic: meta.topic, partition, offset: typeof offset === 'bigint' ? offset : BigInt(offset) };
-}
 
 /*
  * KEYS[1]   the offsets hash (KEYS[2…] the data keys, declared for a cluster node's checks)
@@ -172,7 +146,7 @@ export class OffsetHash {
       let number = 0;
       if (c === undefined) guarded = false;
       else {
-        const key = rangeKey(c.topic, c.partition);
+        const key = partitionKey(c.topic, c.partition);
         const s = stored?.get(key);
         if (s !== undefined && c.offset < s) {
           skipped++;
@@ -222,7 +196,7 @@ export class OffsetHash {
       const stored: StoredOffsets = new Map();
       call.partitions.forEach((r, k) => {
         const v = reply[k + 1];
-        if (typeof v === 'string' && v !== '') stored.set(rangeKey(r.topic, r.partition), BigInt(v));
+        if (typeof v === 'string' && v !== '') stored.set(partitionKey(r.topic, r.partition), BigInt(v));
       });
       return { kind: 'ahead', stored };
     }
@@ -242,7 +216,7 @@ export class OffsetHash {
     const values = await client.hmget(this.key, ...partitions.map((p) => this.field(p.topic, p.partition)));
     partitions.forEach((p, k) => {
       const v = values[k];
-      if (typeof v === 'string' && v !== '') out.set(rangeKey(p.topic, p.partition), BigInt(v));
+      if (typeof v === 'string' && v !== '') out.set(partitionKey(p.topic, p.partition), BigInt(v));
     });
     return out;
   }
