@@ -6,11 +6,11 @@ import { mkdtemp, rm, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { byCost, type RedisTuneOutcome, tuneRedis } from '@spillway/tuner';
-import { Command, CommanderError } from 'commander';
 import type { Redis } from 'ioredis';
-import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { registerTune } from '../../packages/cli/src/commands/tune.js';
 import { services, sleep, type TestRedis, withRedis } from '../harness/index.js';
+import { runSubcommand } from './cli-in-process.js';
 
 let r: TestRedis;
 let dir: string;
@@ -307,32 +307,4 @@ describe('tuning with the user’s Redis key template and mapping', () => {
 });
 
 /** Runs `spillway tune …args` in this process; returns its exit code, stdout and stderr. */
-async function spillway(...args: string[]): Promise<{ code: number; out: string; err: string }> {
-  const program = new Command().name('spillway').exitOverride();
-  registerTune(program);
-  let out = '';
-  let err = '';
-  const o = vi.spyOn(process.stdout, 'write').mockImplementation((c: string | Uint8Array) => {
-    out += String(c);
-    return true;
-  });
-  const e = vi.spyOn(process.stderr, 'write').mockImplementation((c: string | Uint8Array) => {
-    err += String(c);
-    return true;
-  });
-  process.exitCode = undefined;
-  let code: number;
-  try {
-    await program.parseAsync(['node', 'spillway', 'tune', ...args]);
-    code = Number(process.exitCode ?? 0);
-  } catch (error) {
-    if (!(error instanceof CommanderError)) throw error;
-    code = error.exitCode;
-    err += error.message;
-  } finally {
-    o.mockRestore();
-    e.mockRestore();
-    process.exitCode = undefined;
-  }
-  return { code, out, err };
-}
+const spillway = (...args: string[]) => runSubcommand(registerTune, 'tune', args);

@@ -5,10 +5,10 @@ import { mkdtemp, readFile, rm, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { Command, CommanderError } from 'commander';
-import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { registerTune } from '../../packages/cli/src/commands/tune.js';
 import { services, type TestSchema, waitFor, withSchema } from '../harness/index.js';
+import { runSubcommand } from './cli-in-process.js';
 
 const BIN = fileURLToPath(new URL('../../packages/cli/src/bin.ts', import.meta.url));
 // The same source-resolving tsconfig the ingest command's process tests use.
@@ -49,35 +49,7 @@ afterAll(async () => {
 });
 
 /** Runs `spillway tune …args` in this process; returns its exit code, stdout and stderr. */
-async function spillway(...args: string[]): Promise<{ code: number; out: string; err: string }> {
-  const program = new Command().name('spillway').exitOverride();
-  registerTune(program);
-  let out = '';
-  let err = '';
-  const o = vi.spyOn(process.stdout, 'write').mockImplementation((c: string | Uint8Array) => {
-    out += String(c);
-    return true;
-  });
-  const e = vi.spyOn(process.stderr, 'write').mockImplementation((c: string | Uint8Array) => {
-    err += String(c);
-    return true;
-  });
-  process.exitCode = undefined;
-  let code: number;
-  try {
-    await program.parseAsync(['node', 'spillway', 'tune', ...args]);
-    code = Number(process.exitCode ?? 0);
-  } catch (error) {
-    if (!(error instanceof CommanderError)) throw error;
-    code = error.exitCode;
-    err += error.message;
-  } finally {
-    o.mockRestore();
-    e.mockRestore();
-    process.exitCode = undefined;
-  }
-  return { code, out, err };
-}
+const spillway = (...args: string[]) => runSubcommand(registerTune, 'tune', args);
 
 /** `spillway tune --to <url> --table <schema>.docks` and the flags; each `%s` takes the next path. */
 function docks(flags: string, ...paths: string[]) {

@@ -5,11 +5,12 @@
 // Run: TSX_TSCONFIG_PATH=test/integration/workers/tsconfig.json node --import tsx \
 //        test/integration/workers/bridge-worker.ts   with BRIDGE_WORKER='{"brokers":[…],…}'
 // Prints one JSON object per line on stdout: {"event":"ready"|"assign"|"stats"|"commit", …}.
-import { fileDeadLetter, installShutdown, Sink } from '@spillway/core';
+import { fileDeadLetter, Sink } from '@spillway/core';
 import { KafkaBridge } from '@spillway/kafka';
 import { Kafka, logLevel } from 'kafkajs';
 import pg from 'pg';
 import { type DockRow, decodeDockEvent, pgRowsAdapter, type WriteMode } from './dock-rows.js';
+import { groupTimers, reportBridge, workerProcess } from './worker-process.js';
 
 export interface WorkerConfig {
   label: string;
@@ -33,16 +34,7 @@ export interface WorkerConfig {
   logCommits?: boolean;
 }
 
-const config = JSON.parse(process.env.BRIDGE_WORKER ?? '{}') as WorkerConfig;
-const out = (event: string, data: Record<string, unknown> = {}) =>
-  process.stdout.write(
-    `${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`,
-  );
-
-const shutdown = installShutdown({
-  timeoutMs: 20_000,
-  log: (line) => process.stderr.write(`[${config.label}] ${line}\n`),
-});
+const { config, out, shutdown } = workerProcess<WorkerConfig>();
 // Named after the worker, so that a test can see when the server has ended its sessions.
 const pool = new pg.Pool({
   connectionString: config.pgUrl,
@@ -70,13 +62,7 @@ const kafka = new Kafka({ clientId: config.label, brokers: config.brokers, logLe
 const bridge = new KafkaBridge<DockRow>({
   kafka,
   groupId: config.groupId,
-  // Short group timers so a rebalance takes about a second; the flush deadline stays well under them.
-  consumerConfig: {
-    sessionTimeout: 10_000,
-    rebalanceTimeout: 20_000,
-    heartbeatInterval: 500,
-    maxWaitTimeInMs: 200,
-  },
+  consumerConfig: groupTimers(),
   topics: [config.topic],
   fromBeginning: true,
   decode: decodeDockEvent,
@@ -99,13 +85,11 @@ const bridge = new KafkaBridge<DockRow>({
 });
 shutdown.add('clients', 'pg pool', () => pool.end());
 
-bridge.on('assign', (e) => out('assign', { assigned: e.assigned, revoked: e.revoked, kept: e.kept }));
 if (config.logCommits) bridge.on('commit', (e) => out('commit', { offsets: e.offsets }));
-bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Error)?.message }));
 
-const printStats = () => {
+reportBridge(bridge, { out, shutdown }, () => {
   const s = bridge.snapshot();
-  out('stats', {
+  return {
     messages: s.messages,
     commits: s.commits,
     skipped: s.skippedRedeliveries,
@@ -118,12 +102,8 @@ const printStats = () => {
     held: s.partitions.reduce((n, p) => n + p.heldMessages, 0),
     // The PostgreSQL adapters' own counters (failed writes, offset conflicts, resolved commits).
     adapters: adapters.map((a) => (a as { stats?: () => unknown }).stats?.()),
-  });
-};
-const stats = setInterval(printStats, 500);
-stats.unref();
-shutdown.add('sources', 'stats', () => clearInterval(stats));
-shutdown.add('clients', 'final stats', printStats);
+  };
+});
 
 await bridge.start();
 out('ready');

@@ -7,10 +7,11 @@
 // Run: TSX_TSCONFIG_PATH=test/integration/workers/tsconfig.json node --import tsx \
 //        test/integration/workers/kafka-eos-worker.ts   with BRIDGE_WORKER='{"brokers":[…],…}'
 // Prints one JSON object per line on stdout: {"event":"ready"|"assign"|"stats"|"error", …}.
-import { fileDeadLetter, installShutdown, Sink } from '@spillway/core';
+import { fileDeadLetter, Sink } from '@spillway/core';
 import { KafkaBridge, kafkaTransactionalAdapter } from '@spillway/kafka';
 import { Kafka, logLevel } from 'kafkajs';
 import { type DockRow, decodeDockEvent } from './dock-rows.js';
+import { groupTimers, reportBridge, workerProcess } from './worker-process.js';
 
 export interface KafkaEosWorkerConfig {
   label: string;
@@ -34,16 +35,7 @@ export interface EnrichedDockEvent extends DockRow {
   source: string;
 }
 
-const config = JSON.parse(process.env.BRIDGE_WORKER ?? '{}') as KafkaEosWorkerConfig;
-const out = (event: string, data: Record<string, unknown> = {}) =>
-  process.stdout.write(
-    `${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`,
-  );
-
-const shutdown = installShutdown({
-  timeoutMs: 20_000,
-  log: (line) => process.stderr.write(`[${config.label}] ${line}\n`),
-});
+const { config, out, shutdown } = workerProcess<KafkaEosWorkerConfig>();
 const kafka = new Kafka({
   clientId: config.label,
   brokers: config.brokers,
@@ -74,12 +66,7 @@ shutdown.addSink(sink);
 const bridge = new KafkaBridge<DockRow>({
   kafka,
   groupId: config.groupId,
-  consumerConfig: {
-    sessionTimeout: config.sessionTimeoutMs ?? 10_000,
-    rebalanceTimeout: 20_000,
-    heartbeatInterval: 500,
-    maxWaitTimeInMs: 200,
-  },
+  consumerConfig: groupTimers(config.sessionTimeoutMs),
   topics: [config.inputTopic],
   fromBeginning: true,
   decode: decodeDockEvent,
@@ -92,24 +79,18 @@ const bridge = new KafkaBridge<DockRow>({
   name: config.label,
 });
 
-bridge.on('assign', (e) => out('assign', { assigned: e.assigned, revoked: e.revoked, kept: e.kept }));
-bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Error)?.message }));
 sink.on('retry', (e) => out('retry', { attempt: e.attempt, message: (e.error as Error)?.message }));
 
-const printStats = () => {
+reportBridge(bridge, { out, shutdown }, () => {
   const s = bridge.snapshot();
-  out('stats', {
+  return {
     messages: s.messages,
     commits: s.commits,
     skippedStored: s.skippedStored,
     written: sink.snapshot().written,
     sink: adapter.stats(),
-  });
-};
-const stats = setInterval(printStats, 500);
-stats.unref();
-shutdown.add('sources', 'stats', () => clearInterval(stats));
-shutdown.add('clients', 'final stats', printStats);
+  };
+});
 
 await bridge.start();
 out('ready');

@@ -6,12 +6,13 @@
 // Run: TSX_TSCONFIG_PATH=test/integration/workers/tsconfig.json node --import tsx \
 //        test/integration/workers/redis-bridge-worker.ts   with BRIDGE_WORKER='{"brokers":[…],…}'
 // Prints one JSON object per line on stdout, as bridge-worker.ts does.
-import { fileDeadLetter, installShutdown, Sink } from '@spillway/core';
+import { fileDeadLetter, Sink } from '@spillway/core';
 import { KafkaBridge } from '@spillway/kafka';
 import { commandMapping, redisAdapter, streamEntry } from '@spillway/redis';
 import { Redis } from 'ioredis';
 import { Kafka, logLevel } from 'kafkajs';
 import { type DockRow, decodeDockEvent } from './dock-rows.js';
+import { groupTimers, reportBridge, workerProcess } from './worker-process.js';
 
 export interface RedisWorkerConfig {
   label: string;
@@ -32,16 +33,7 @@ export interface RedisWorkerConfig {
   maxAgeMs?: number;
 }
 
-const config = JSON.parse(process.env.BRIDGE_WORKER ?? '{}') as RedisWorkerConfig;
-const out = (event: string, data: Record<string, unknown> = {}) =>
-  process.stdout.write(
-    `${JSON.stringify({ event, label: config.label, pid: process.pid, t: Date.now(), ...data })}\n`,
-  );
-
-const shutdown = installShutdown({
-  timeoutMs: 20_000,
-  log: (line) => process.stderr.write(`[${config.label}] ${line}\n`),
-});
+const { config, out, shutdown } = workerProcess<RedisWorkerConfig>();
 // Named after the worker, so that a test can see when the server has dropped its connection.
 const redis = new Redis(config.redisUrl, { connectionName: config.label });
 redis.on('error', () => undefined);
@@ -78,13 +70,7 @@ const kafka = new Kafka({ clientId: config.label, brokers: config.brokers, logLe
 const bridge = new KafkaBridge<DockRow>({
   kafka,
   groupId: config.groupId,
-  // Short group timers so a rebalance takes about a second; the flush deadline stays well under them.
-  consumerConfig: {
-    sessionTimeout: 10_000,
-    rebalanceTimeout: 20_000,
-    heartbeatInterval: 500,
-    maxWaitTimeInMs: 200,
-  },
+  consumerConfig: groupTimers(),
   topics: [config.topic],
   fromBeginning: true,
   decode: decodeDockEvent,
@@ -100,25 +86,18 @@ shutdown.add('clients', 'redis', async () => {
   await redis.quit().catch(() => redis.disconnect());
 });
 
-bridge.on('assign', (e) => out('assign', { assigned: e.assigned, revoked: e.revoked, kept: e.kept }));
-bridge.on('error', (e) => out('error', { fatal: e.fatal, message: (e.error as Error)?.message }));
-
-const printStats = () => {
+reportBridge(bridge, { out, shutdown }, () => {
   const s = bridge.snapshot();
   const a = adapter.stats();
-  out('stats', {
+  return {
     messages: s.messages,
     commits: s.commits,
     skippedStored: s.skippedStored,
     offsetConflicts: a.offsetConflicts,
     alreadyStored: a.alreadyStored,
     deadLettered: sink.snapshot().deadLettered,
-  });
-};
-const stats = setInterval(printStats, 500);
-stats.unref();
-shutdown.add('sources', 'stats', () => clearInterval(stats));
-shutdown.add('clients', 'final stats', printStats);
+  };
+});
 
 await bridge.start();
 out('ready');
