@@ -161,10 +161,11 @@ export class Intake<R> {
         runFrom = metas.length;
       }
       metas.push(meta);
-      st.queue.push(meta);
     }
     if (runSinks === undefined) return undefined;
     runs.push(newRun(runFrom, metas.length, runSinks));
+    // The chunk's metas are the partition's progress slots: queued as one array, not one by one.
+    st.enqueue(metas);
     st.firstTaken ??= BigInt(metas[0]!.offset);
     const last = BigInt(metas[metas.length - 1]!.offset);
     st.next = last + 1n;
