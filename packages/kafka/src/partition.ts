@@ -57,14 +57,14 @@ export class MessageMeta implements RecordMeta {
 
   /**
    * One sink made this message's record terminal. Returns the partition whose commit point may
-   * have moved (the message was the oldest pending one), if it is still owned.
+   * have moved (the message is now done everywhere), if it is still owned; the caller advances it.
    */
   static settle(meta: RecordMeta): PartitionState | undefined {
     if (!(#owner in meta)) return undefined;
     const m = meta as MessageMeta;
     if (--m.#open > 0) return undefined;
     const st = m.#owner;
-    return st.live && st.oldest === m ? st : undefined;
+    return st.live ? st : undefined;
   }
 
   static done(meta: MessageMeta): boolean {
