@@ -29,20 +29,17 @@ export class MessageMeta implements RecordMeta {
   /** `topic:partition`, the sinks' default ordering key, computed once per partition. */
   readonly key: string;
   readonly #owner: PartitionState;
-  /** When it was taken, kept only for a message without a timestamp (else the same as eventTime). */
-  readonly #takenAt: number | undefined;
   /** Sinks the record was routed to that have not yet made it durable or dead-lettered it. */
   #open: number;
 
-  constructor(owner: PartitionState, offset: string, ts: number, now: number, sinks: number) {
+  /** `eventTime` is the message's Kafka timestamp, undefined when it has none. */
+  constructor(owner: PartitionState, offset: string, eventTime: number | undefined, sinks: number) {
     this.topic = owner.topic;
     this.partition = owner.partition;
     this.offset = offset;
-    const known = Number.isFinite(ts);
-    this.eventTime = known ? ts : undefined;
+    this.eventTime = eventTime;
     this.key = owner.key;
     this.#owner = owner;
-    this.#takenAt = known ? undefined : now;
     this.#open = sinks;
   }
 
@@ -69,11 +66,6 @@ export class MessageMeta implements RecordMeta {
 
   static done(meta: MessageMeta): boolean {
     return meta.#open <= 0;
-  }
-
-  /** Kafka timestamp, or the time it was taken when the message has none. */
-  get ts(): number {
-    return this.eventTime ?? this.#takenAt!;
   }
 }
 
@@ -127,6 +119,8 @@ export class PartitionState {
    * The oldest pending message is `chunks[first][at]`.
    */
   private chunks: MessageMeta[][] = [];
+  /** When each chunk was taken (for messages without a timestamp): one reading per chunk. */
+  private takenAt: number[] = [];
   private first = 0;
   private at = 0;
   private pendingCount = 0;
@@ -140,10 +134,11 @@ export class PartitionState {
     this.lastMessageAt = now;
   }
 
-  /** Queues a chunk of taken messages, in offset order, after every chunk queued before. */
-  enqueue(metas: MessageMeta[]): void {
+  /** Queues a chunk of messages taken at `now`, in offset order, after every chunk queued before. */
+  enqueue(metas: MessageMeta[], now: number): void {
     if (metas.length === 0) return;
     this.chunks.push(metas);
+    this.takenAt.push(now);
     this.pendingCount += metas.length;
   }
 
@@ -168,6 +163,7 @@ export class PartitionState {
     }
     if (f > 64 && f * 2 > chunks.length) {
       this.chunks = chunks.slice(f);
+      this.takenAt = this.takenAt.slice(f);
       f = 0;
     }
     this.first = f;
@@ -187,6 +183,12 @@ export class PartitionState {
   /** The oldest taken message not yet durable everywhere. */
   get oldest(): MessageMeta | undefined {
     return this.chunks[this.first]?.[this.at];
+  }
+
+  /** The oldest pending message's Kafka timestamp, or when it was taken if it has none. */
+  get oldestTime(): number | undefined {
+    const oldest = this.oldest;
+    return oldest === undefined ? undefined : (oldest.eventTime ?? this.takenAt[this.first]!);
   }
 
   /** Messages taken from a batch but not yet accepted by every sink. */

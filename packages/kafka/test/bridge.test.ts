@@ -308,6 +308,42 @@ describe('KafkaBridge', () => {
     expect(bridge.snapshot().partitions[0]).toMatchObject({ durable: String(total), pendingMessages: 0 });
   });
 
+  it('reports the lag in seconds of the oldest pending message from its timestamp, or from when it was taken when it has none', async () => {
+    const { consumer, bridge } = setup();
+    await bridge.start();
+    consumer.join([0, 1]);
+    const batch = (partition: number, timestamp: string | undefined) =>
+      consumer.eachBatch!({
+        batch: {
+          topic: TOPIC,
+          partition,
+          highWatermark: '2',
+          messages: ['1', '2'].map((value, i) => ({
+            offset: String(i),
+            key: null,
+            value: Buffer.from(value),
+            timestamp,
+            attributes: 0,
+            headers: {},
+          })),
+        } as never,
+        resolveOffset: () => undefined,
+        heartbeat: async () => undefined,
+        isRunning: () => true,
+        isStale: () => false,
+      } as unknown as EachBatchPayload);
+    const before = Date.now();
+    await batch(0, String(before - 60_000)); // produced a minute ago
+    await batch(1, undefined); // no timestamp: taken now
+    const [p0, p1] = bridge.snapshot().partitions;
+    expect(p0).toMatchObject({ partition: 0, pendingMessages: 2 });
+    expect(p0!.lagSeconds).toBeGreaterThanOrEqual(60);
+    expect(p0!.lagSeconds).toBeLessThan(60 + (Date.now() - before) / 1000 + 1);
+    expect(p1).toMatchObject({ partition: 1, pendingMessages: 2 });
+    expect(p1!.lagSeconds).toBeGreaterThanOrEqual(0);
+    expect(p1!.lagSeconds).toBeLessThanOrEqual((Date.now() - before) / 1000);
+  });
+
   it('dead-letters an undecodable message with its coordinates and raw bytes, and commits past it once stored', async () => {
     const { consumer, adapters, sinks, bridge, letters } = setup();
     await bridge.start();
