@@ -3,14 +3,15 @@
 // - source: kafkajs consuming the same topic in a fresh group and discarding every message;
 // - store:  Sink + postgresAdapter (copy) writing the same rows, already decoded, from memory;
 // - bridge: KafkaBridge in a fresh group decoding each message and writing it through the same
-//           sink configuration, until every row is durable.
+//           sink configuration, until every row is durable;
+// - source-decode: the source phase, each message also decoded with the bridge's decoder.
 // Each is timed from its first message (or row) to its last one seen (source) or durable (store,
-// bridge), so group-join time is left out of all three alike. The order of the three rotates per
-// repeat. Target: bridge ≥ 0.8 × min(source, store).
+// bridge), so group-join time is left out of all of them alike. The order of the phases rotates
+// per repeat. Target: bridge ≥ 0.8 × min(source, store).
 // Run: npx tsc --build && node benchmarks/dist/adapters/kafka-bridge.js
 //      [--messages 200000] [--repeats 3] [--warmup 1] [--partitions 6] [--batch 5000] [--fetch-bytes 0]
-//      [--phases source,store,bridge] [--profile DIR]
-//      SPILLWAY_KAFKA_BROKERS (default: a private broker started through the test harness),
+//      [--phases source,source-decode,store,bridge] [--profile DIR]
+//      SPILLWAY_KAFKA_BROKERS (required: the benchmarks start no broker; see ../kafka-broker.ts),
 //      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test).
 // Nothing here asserts a time: it prints samples, medians, spreads and ratios.
 // CPU budget: each phase also reports the CPU time per message of this Node process, of this run's
