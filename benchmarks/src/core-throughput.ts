@@ -2,14 +2,15 @@
  * Core engine throughput: records/s through a no-op adapter with `write()` and with the
  * `tryWrite()` fast path, against a minimal hand-written array batcher of the same batch size
  * (the limit: what the engine costs over doing nothing but batching). Also heap bytes per
- * buffered record. Every sample runs in a fresh process; results are medians with spread.
+ * buffered record, and what a Kafka-like meta per record costs the engine (`tryWriteMany()` with
+ * and without metas). Every sample runs in a fresh process; results are medians with spread.
  *
  *   node benchmarks/dist/core-throughput.js [--records 2000000] [--batch 1000] [--repeats 5]
  */
 import { execFileSync } from 'node:child_process';
 import { cpus, totalmem } from 'node:os';
 import { fileURLToPath } from 'node:url';
-import { Sink, type SinkAdapter } from '@spillway/core';
+import { type RecordMeta, Sink, type SinkAdapter } from '@spillway/core';
 
 interface Dock {
   dockId: number;
@@ -101,6 +102,50 @@ async function sinkTryWriteMany(n: number, batch: number): Promise<void> {
   await sink.close();
 }
 
+/**
+ * Metas as a Kafka consumer hands them over (topic, partition, decimal offset string, event time,
+ * the partition's ordering key, progress kept by the source): chunks of 100 records, one partition
+ * per chunk over six partitions. The metas come from a pool built before the run, so that only the
+ * engine's work on them is measured, not making them (a meta is opaque to a no-op adapter).
+ */
+const META_PARTITIONS = 6;
+const META_CHUNK = 100;
+function metaPool(): RecordMeta[][] {
+  const now = Date.now();
+  return Array.from({ length: META_PARTITIONS }, (_, partition) =>
+    Array.from({ length: META_CHUNK }, (_, i) => ({
+      topic: 'tandem.dock-status',
+      partition,
+      offset: String(i),
+      eventTime: now,
+      key: `tandem.dock-status:${partition}`,
+      externalProgress: true,
+    })),
+  );
+}
+
+/** `tryWriteMany()` as in sinkTryWriteMany, each record with its meta. */
+async function sinkTryWriteManyMetas(n: number, batch: number): Promise<void> {
+  const sink = new Sink(noop, { maxRecords: batch, maxAgeMs: 500, idleMs: 0 });
+  const pool = metaPool();
+  const chunk: Dock[] = [];
+  let chunks = 0;
+  for (let i = 0; i < n; i++) {
+    chunk.push(record(i));
+    if (chunk.length === META_CHUNK || i === n - 1) {
+      const metas = pool[chunks++ % META_PARTITIONS]!;
+      let taken = sink.tryWriteMany(chunk, metas);
+      while (taken < chunk.length) {
+        await sink.write(chunk[taken]!, metas[taken]);
+        taken++;
+        taken += sink.tryWriteMany(chunk.slice(taken), metas.slice(taken));
+      }
+      chunk.length = 0;
+    }
+  }
+  await sink.close();
+}
+
 async function sinkTryWrite(n: number, batch: number): Promise<void> {
   const sink = new Sink(noop, { maxRecords: batch, maxAgeMs: 500, idleMs: 0 });
   for (let i = 0; i < n; i++) {
@@ -160,6 +205,7 @@ async function child(variant: string): Promise<void> {
     write: sinkWrite,
     tryWrite: sinkTryWrite,
     tryWriteMany: sinkTryWriteMany,
+    tryWriteManyMetas: sinkTryWriteManyMetas,
   }[variant as 'array'];
   await run(20_000, batch); // warm-up
   const c0 = process.cpuUsage();
@@ -190,16 +236,13 @@ async function main(): Promise<void> {
         encoding: 'utf8',
       }),
     );
-  const rps: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
-  const cpuNs: Record<string, number[]> = { array: [], push: [], write: [], tryWrite: [], tryWriteMany: [] };
+  const variants = ['array', 'push', 'write', 'tryWrite', 'tryWriteMany', 'tryWriteManyMetas'];
+  const rps: Record<string, number[]> = Object.fromEntries(variants.map((k) => [k, []]));
+  const cpuNs: Record<string, number[]> = Object.fromEntries(variants.map((k) => [k, []]));
   // Ratios of CPU time to the limit, per round: each round runs every variant back to back.
-  const cpuRatio: Record<string, number[]> = {
-    array: [],
-    push: [],
-    write: [],
-    tryWrite: [],
-    tryWriteMany: [],
-  };
+  const cpuRatio: Record<string, number[]> = Object.fromEntries(variants.map((k) => [k, []]));
+  // What a meta costs the engine per record, per round: tryWriteMany with metas less without.
+  const metaNs: number[] = [];
   // Interleave variants so machine noise hits them alike.
   for (let r = 0; r < repeats; r++) {
     for (const k of Object.keys(rps)) {
@@ -208,6 +251,7 @@ async function main(): Promise<void> {
       cpuNs[k]!.push(x.nsPerRecord);
     }
     for (const k of Object.keys(rps)) cpuRatio[k]!.push(cpuNs.array![r]! / cpuNs[k]![r]!);
+    metaNs.push(cpuNs.tryWriteManyMetas![r]! - cpuNs.tryWriteMany![r]!);
   }
   const heapSink = sample('heap-sink').bytes as number;
   const heapArray = sample('heap-array').bytes as number;
@@ -220,26 +264,29 @@ async function main(): Promise<void> {
     `records per sample: ${arg('records', 2_000_000)}, batch: ${arg('batch', 1000)}, samples: ${repeats} per variant (fresh process each)`,
   );
   const limit = median(rps.array!);
-  console.log('variant        median rec/s   min–max rec/s            ratio to limit');
+  console.log('variant            median rec/s   min–max rec/s            ratio to limit');
   for (const [k, xs] of Object.entries(rps)) {
     const m = median(xs);
     console.log(
-      `${k.padEnd(14)} ${Math.round(m).toLocaleString('en').padStart(12)}   ${Math.round(Math.min(...xs)).toLocaleString('en')}–${Math.round(Math.max(...xs)).toLocaleString('en')}`.padEnd(
-        58,
+      `${k.padEnd(18)} ${Math.round(m).toLocaleString('en').padStart(12)}   ${Math.round(Math.min(...xs)).toLocaleString('en')}–${Math.round(Math.max(...xs)).toLocaleString('en')}`.padEnd(
+        62,
       ) + (m / limit).toFixed(2),
     );
   }
   const range = (xs: number[]) => `${Math.min(...xs).toFixed(2)}–${Math.max(...xs).toFixed(2)}`;
   console.log(
-    'variant        median CPU ns/record   min–max        CPU ratio to limit: median (min–max of rounds)',
+    'variant            median CPU ns/record   min–max        CPU ratio to limit: median (min–max of rounds)',
   );
   for (const [k, xs] of Object.entries(cpuNs)) {
     console.log(
-      `${k.padEnd(14)} ${median(xs).toFixed(0).padStart(10)}            ${Math.min(...xs).toFixed(0)}–${Math.max(...xs).toFixed(0)}`.padEnd(
-        53,
+      `${k.padEnd(18)} ${median(xs).toFixed(0).padStart(10)}            ${Math.min(...xs).toFixed(0)}–${Math.max(...xs).toFixed(0)}`.padEnd(
+        57,
       ) + `${median(cpuRatio[k]!).toFixed(2)} (${range(cpuRatio[k]!)})`,
     );
   }
+  console.log(
+    `a Kafka-like meta per record costs the engine ${median(metaNs).toFixed(0)} ns CPU (median of rounds; range ${Math.min(...metaNs).toFixed(0)}–${Math.max(...metaNs).toFixed(0)}): tryWriteManyMetas less tryWriteMany`,
+  );
   console.log(
     `heap per buffered record: sink ${heapSink.toFixed(0)} B, plain array ${heapArray.toFixed(0)} B (engine overhead ${(heapSink - heapArray).toFixed(0)} B)`,
   );

@@ -3,14 +3,15 @@
 // - source: kafkajs consuming the same topic in a fresh group and discarding every message;
 // - store:  Sink + postgresAdapter (copy) writing the same rows, already decoded, from memory;
 // - bridge: KafkaBridge in a fresh group decoding each message and writing it through the same
-//           sink configuration, until every row is durable.
+//           sink configuration, until every row is durable;
+// - source-decode: the source phase, each message also decoded with the bridge's decoder.
 // Each is timed from its first message (or row) to its last one seen (source) or durable (store,
-// bridge), so group-join time is left out of all three alike. The order of the three rotates per
-// repeat. Target: bridge ≥ 0.8 × min(source, store).
+// bridge), so group-join time is left out of all of them alike. The order of the phases rotates
+// per repeat. Target: bridge ≥ 0.8 × min(source, store).
 // Run: npx tsc --build && node benchmarks/dist/adapters/kafka-bridge.js
 //      [--messages 200000] [--repeats 3] [--warmup 1] [--partitions 6] [--batch 5000] [--fetch-bytes 0]
-//      [--phases source,store,bridge] [--profile DIR]
-//      SPILLWAY_KAFKA_BROKERS (default: a private broker started through the test harness),
+//      [--phases source,source-decode,store,bridge] [--profile DIR]
+//      SPILLWAY_KAFKA_BROKERS (required: the benchmarks start no broker; see ../kafka-broker.ts),
 //      SPILLWAY_PG_URL (default postgres://postgres@127.0.0.1:5432/test).
 // Nothing here asserts a time: it prints samples, medians, spreads and ratios.
 // CPU budget: each phase also reports the CPU time per message of this Node process, of this run's
@@ -20,7 +21,11 @@
 // CPU efficiency (printed per repeat, then as median, range and spread): (source + store CPU µs per
 // message) / (bridge CPU µs per message), all processes of the budget counted. The bridge does the
 // source's and the store's work plus decoding and its own bookkeeping, so 1.0 would be a bridge
-// that costs nothing beyond its two parts; issue 19 asks for ≥ 0.9.
+// that costs nothing beyond its two parts; issue 19 asks for ≥ 0.9. That is the headline figure.
+// source-decode (in the default run): the source phase decoding every message with the bridge
+// phase's decoder (JSON.parse) and discarding it. With it the run also prints a second figure,
+// labelled as such: (source-decode + store CPU) / (bridge CPU), which counts the application's
+// decoding on both sides instead of against the bridge alone.
 // --profile DIR writes a CPU profile (.cpuprofile) of each phase into DIR (the phase's set-up included).
 // bridge-eos (not in the default run; `--phases bridge,bridge-eos`): the bridge phase with
 // exactly-once on (the adapter's storeOffsets, the bridge's offsetStores); with both phases the run
@@ -57,7 +62,7 @@ const { values: flags } = parseArgs({
     // kafkajs' maxBytesPerPartition for both consumers; 0 keeps kafkajs' default (1 MiB).
     'fetch-bytes': { type: 'string', default: '0' },
     // A subset of the phases (e.g. `bridge` to profile it); the ratio needs all three.
-    phases: { type: 'string', default: 'source,store,bridge' },
+    phases: { type: 'string', default: 'source,source-decode,store,bridge' },
     profile: { type: 'string' },
   },
 });
@@ -65,8 +70,15 @@ const PHASES = flags.phases.split(',').map((p) => p.trim()) as Phase[];
 // store-meta (not in the default run): the store phase with a Kafka-like meta per row (topic,
 // partition, bigint offset, ordering key, event time), which the sink tracks as it does the
 // bridge's: what the sink's own per-record bookkeeping of metas costs.
-type Phase = 'source' | 'store' | 'store-meta' | 'bridge' | 'bridge-eos';
-const ALL_PHASES: readonly Phase[] = ['source', 'store', 'store-meta', 'bridge', 'bridge-eos'];
+type Phase = 'source' | 'source-decode' | 'store' | 'store-meta' | 'bridge' | 'bridge-eos';
+const ALL_PHASES: readonly Phase[] = [
+  'source',
+  'source-decode',
+  'store',
+  'store-meta',
+  'bridge',
+  'bridge-eos',
+];
 for (const p of PHASES)
   if (!ALL_PHASES.includes(p))
     throw new TypeError(`Expected \`--phases\` to list ${ALL_PHASES.join(', ')}, got \`${flags.phases}\``);
@@ -362,13 +374,14 @@ class Profiler {
   }
 }
 
-/** kafkajs alone: the source limit. */
-async function runSource(meter: CpuMeter): Promise<Run> {
+/** kafkajs alone: the source limit; with `decoding`, each message also decoded as the bridge does. */
+async function runSource(meter: CpuMeter, decoding = false): Promise<Run> {
   const consumer = kafka.consumer({
     groupId: `bench-source-${tag}-${randomBytes(3).toString('hex')}`,
     ...consumerConfig,
   });
   let seen = 0;
+  let decoded = 0;
   let t0 = 0;
   let t1 = 0;
   const last = phaseEnd();
@@ -380,6 +393,10 @@ async function runSource(meter: CpuMeter): Promise<Run> {
         meter.start();
         t0 = performance.now();
       }
+      if (decoding) {
+        // Decoded and dropped; the count keeps the work from being optimised away.
+        for (const m of batch.messages) if (!(decode(m) instanceof DecodeError)) decoded++;
+      }
       seen += batch.messages.length;
       if (seen >= MESSAGES && t1 === 0) {
         t1 = performance.now();
@@ -390,6 +407,8 @@ async function runSource(meter: CpuMeter): Promise<Run> {
   });
   await last.done;
   await consumer.disconnect();
+  if (decoding && decoded < MESSAGES)
+    throw new Error(`source-decode decoded ${decoded} messages, expected ${MESSAGES}`);
   return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
@@ -509,6 +528,7 @@ async function main(): Promise<void> {
       );
     const samples: Record<Phase | 'ratio', number[]> = {
       source: [],
+      'source-decode': [],
       store: [],
       'store-meta': [],
       bridge: [],
@@ -517,6 +537,7 @@ async function main(): Promise<void> {
     };
     const budgets: Record<Phase, CpuBudget[]> = {
       source: [],
+      'source-decode': [],
       store: [],
       'store-meta': [],
       bridge: [],
@@ -525,6 +546,8 @@ async function main(): Promise<void> {
     const eosRatios: number[] = [];
     // (source + store CPU per message) / (bridge CPU per message), all processes, per repeat.
     const efficiency: number[] = [];
+    // The second figure: (source-decode + store CPU per message) / (bridge CPU per message).
+    const efficiencyDecoded: number[] = [];
     // Metas as the bridge makes them, built before the phase like the rows (offsets per partition).
     const metas: RecordMeta[] = PHASES.includes('store-meta')
       ? rows.map((r) => {
@@ -539,8 +562,8 @@ async function main(): Promise<void> {
         })
       : [];
     const runPhase = (which: Phase): Promise<Run> =>
-      which === 'source'
-        ? runSource(meter)
+      which === 'source' || which === 'source-decode'
+        ? runSource(meter, which === 'source-decode')
         : which === 'store'
           ? runStore(rows, meter)
           : which === 'store-meta'
@@ -597,6 +620,14 @@ async function main(): Promise<void> {
         const e = (bs! + bt!) / bb!;
         efficiency.push(e);
         ratio += `; CPU efficiency = ${e.toFixed(2)}`;
+      }
+      if (round['source-decode'] && store && bridge) {
+        const [bd, bt, bb] = [budgets['source-decode'], budgets.store, budgets.bridge].map((b) =>
+          totalCpu(b.at(-1)!),
+        );
+        const e = (bd! + bt!) / bb!;
+        efficiencyDecoded.push(e);
+        ratio += ` (decoding counted in the source phase: ${e.toFixed(2)})`;
       }
       console.log(`repeat ${rep + 1}: ${parts.join(', ')}${ratio}`);
     }
@@ -666,7 +697,23 @@ async function main(): Promise<void> {
           `median ${e.median.toFixed(2)} (range ${e.min.toFixed(2)}–${e.max.toFixed(2)}, spread ${e.spreadPct.toFixed(0)}%, ${efficiency.length} repeats); target ≥ 0.90`,
       );
     }
-    console.log(JSON.stringify({ samples, cpuEfficiency: efficiency, cpuBudgetUsPerMessage: budgets }));
+    if (efficiencyDecoded.length > 0) {
+      const e = summary(efficiencyDecoded);
+      const decodeUs =
+        med(budgets['source-decode'].map((b) => b.node)) - med(budgets.source.map((b) => b.node));
+      console.log(
+        `second figure, not the issue's metric — decoding counted in the source phase: (source-decode + store CPU µs/msg) / (bridge CPU µs/msg), all processes, per repeat: ` +
+          `median ${e.median.toFixed(2)} (range ${e.min.toFixed(2)}–${e.max.toFixed(2)}, ${efficiencyDecoded.length} repeats); the decoder alone: ${decodeUs.toFixed(2)} µs/msg (source-decode less source, this process, medians)`,
+      );
+    }
+    console.log(
+      JSON.stringify({
+        samples,
+        cpuEfficiency: efficiency,
+        cpuEfficiencyDecodingInSource: efficiencyDecoded,
+        cpuBudgetUsPerMessage: budgets,
+      }),
+    );
   } finally {
     await admin.deleteTopics({ topics: [TOPIC] }).catch(() => undefined);
     await admin.disconnect();

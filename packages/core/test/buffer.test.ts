@@ -131,3 +131,30 @@ describe('the buffer', () => {
     await sink.close();
   });
 });
+
+describe('the metas column of records written without metas', () => {
+  it('is one undefined per record of each batch and settlement, whatever their sizes, and cannot be written to', async () => {
+    const seen: Array<{ records: number; metas: readonly unknown[] }> = [];
+    const adapter: SinkAdapter<number> = {
+      kind: 'records-metas',
+      write: async (batch) => {
+        seen.push({ records: batch.records.length, metas: batch.metas });
+      },
+      classify: () => 'fatal',
+    };
+    const sink = new Sink(adapter, { maxRecords: 4, maxAgeMs: 60_000, idleMs: 0 });
+    const settled: Array<readonly unknown[]> = [];
+    sink.on('settled', (e) => settled.push(e.metas));
+    for (let i = 0; i < 10; i++) await sink.write(i); // batches of 4, 4, then 2 at close
+    await sink.close();
+    expect(seen.map((b) => b.records)).toEqual([4, 4, 2]);
+    for (const b of seen) {
+      expect(b.metas).toHaveLength(b.records);
+      expect(b.metas.every((m) => m === undefined)).toBe(true);
+      expect(Object.isFrozen(b.metas)).toBe(true);
+    }
+    expect(settled.map((m) => m.length)).toEqual([4, 4, 2]);
+    expect(settled.every((m) => m.every((x) => x === undefined))).toBe(true);
+    expect(() => (seen[0]!.metas as unknown[]).push({})).toThrow(TypeError);
+  });
+});

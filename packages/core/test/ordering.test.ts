@@ -87,6 +87,59 @@ describe('ordering and concurrency', () => {
   });
 });
 
+describe('key locks of a batch whose keys come in runs', () => {
+  it('holds every key of a batch, in however many runs it appears, until that whole batch ends', async () => {
+    const clock = new ManualClock();
+    const adapter = new FakeAdapter<{ key: string | undefined; seq: number }>();
+    const gates: Array<() => void> = [];
+    adapter.behave = () => new Promise<void>((r) => gates.push(r));
+    const sink = new Sink(adapter, {
+      maxRecords: 6,
+      concurrency: 3,
+      maxPendingRecords: 100,
+      maxAgeMs: 500,
+      idleMs: 0,
+      clock,
+      orderingKey: (r) => r.key,
+    });
+    // Batch 1: key a in two runs, key b in one, and a record without a key between them.
+    for (const key of ['a', 'a', 'b', undefined, 'a', 'b']) await sink.write({ key, seq: 1 });
+    await settle();
+    expect(adapter.calls).toHaveLength(1);
+    // One more record of a and b each, then a full batch's worth of c: only the c records may go.
+    await sink.write({ key: 'a', seq: 2 });
+    await sink.write({ key: 'b', seq: 2 });
+    for (let i = 0; i < 6; i++) await sink.write({ key: 'c', seq: 2 });
+    await settle();
+    expect(adapter.calls).toHaveLength(2);
+    expect(adapter.calls[1]!.records.map((r) => r.key)).toEqual(['c', 'c', 'c', 'c', 'c', 'c']);
+    // The c batch ends first: a and b stay locked by batch 1 (a's second run counted too).
+    gates[1]!();
+    await settle();
+    const flushed = sink.flush();
+    await settle();
+    expect(adapter.calls).toHaveLength(2);
+    // Batch 1 ends: both keys are free again and their records leave.
+    gates[0]!();
+    await settle();
+    expect(adapter.calls).toHaveLength(3);
+    expect(adapter.calls[2]!.records).toEqual([
+      { key: 'a', seq: 2 },
+      { key: 'b', seq: 2 },
+    ]);
+    gates[2]!();
+    await flushed;
+    // Batch 3's keys are unlocked in turn: a later record of a goes out on its own.
+    await sink.write({ key: 'a', seq: 3 });
+    const last = sink.flush();
+    await settle();
+    expect(adapter.calls).toHaveLength(4);
+    gates[3]!();
+    await last;
+    expect(adapter.stored.filter((r) => r.key === 'a').map((r) => r.seq)).toEqual([1, 1, 1, 2, 3]);
+  });
+});
+
 describe('batching while keys are busy', () => {
   it('does not leak small batches of free keys while a busy key holds the size trigger', async () => {
     const clock = new ManualClock();

@@ -6,7 +6,7 @@
 import type { SinkEvents } from '@spillway/core';
 import type { Assignment } from './assignment.js';
 import type { BridgeControl } from './bridge-types.js';
-import { type AnySink, type Hold, MessageMeta } from './partition.js';
+import { type AnySink, type Hold, MessageMeta, type PartitionState } from './partition.js';
 
 /** Records per bulk hand-off to a sink once it has refused some (bounds the copy per retry). */
 const FEED_CHUNK = 1024;
@@ -121,12 +121,21 @@ export class Handoff {
 
   private settled(e: SinkEvents['settled']): void {
     const metas = e.metas;
+    // The partitions whose messages became done: each is advanced once, after the loop (a
+    // settlement's metas mostly come from one partition, in offset order).
+    let last: PartitionState | undefined;
+    let others: Set<PartitionState> | undefined;
     for (let i = 0; i < metas.length; i++) {
       const meta = metas[i];
       if (meta === undefined) continue;
       // Not ours, or from a partition this member no longer owns (or owns anew): undefined.
-      MessageMeta.settle(meta)?.advance();
+      const st = MessageMeta.settle(meta);
+      if (st === undefined || st === last) continue;
+      if (last !== undefined) (others ??= new Set()).add(last);
+      last = st;
     }
+    last?.advance();
+    if (others !== undefined) for (const st of others) if (st !== last) st.advance();
     if (this.assignment.holding) this.scheduleRetry();
   }
 

@@ -141,7 +141,7 @@ export class Intake<R> {
     let runFrom = 0;
     // Messages produced together share their timestamp: each distinct one is parsed once.
     let tsText: string | undefined;
-    let ts = Number.NaN;
+    let ts: number | undefined;
     for (let i = from; i < to; i++) {
       const m = messages[i]!;
       if (redelivered && BigInt(m.offset) < since) {
@@ -152,19 +152,21 @@ export class Intake<R> {
       if (st.floors !== undefined) sinks = this.aboveFloors(st, sinks, BigInt(m.offset));
       if (m.timestamp !== tsText) {
         tsText = m.timestamp;
-        ts = Number(tsText);
+        const parsed = Number(tsText);
+        ts = Number.isFinite(parsed) ? parsed : undefined;
       }
-      const meta = new MessageMeta(st, m.offset, ts, now, sinks.length);
+      const meta = new MessageMeta(st, m.offset, ts, sinks.length);
       if (runSinks === undefined || (sinks !== runSinks && !sameSinks(sinks, runSinks))) {
         if (runSinks !== undefined) runs.push(newRun(runFrom, metas.length, runSinks));
         runSinks = sinks;
         runFrom = metas.length;
       }
       metas.push(meta);
-      st.queue.push(meta);
     }
     if (runSinks === undefined) return undefined;
     runs.push(newRun(runFrom, metas.length, runSinks));
+    // The chunk's metas are the partition's progress slots: queued as one array, not one by one.
+    st.enqueue(metas, now);
     st.firstTaken ??= BigInt(metas[0]!.offset);
     const last = BigInt(metas[metas.length - 1]!.offset);
     st.next = last + 1n;

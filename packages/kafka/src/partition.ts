@@ -29,20 +29,17 @@ export class MessageMeta implements RecordMeta {
   /** `topic:partition`, the sinks' default ordering key, computed once per partition. */
   readonly key: string;
   readonly #owner: PartitionState;
-  /** When it was taken, kept only for a message without a timestamp (else the same as eventTime). */
-  readonly #takenAt: number | undefined;
   /** Sinks the record was routed to that have not yet made it durable or dead-lettered it. */
   #open: number;
 
-  constructor(owner: PartitionState, offset: string, ts: number, now: number, sinks: number) {
+  /** `eventTime` is the message's Kafka timestamp, undefined when it has none. */
+  constructor(owner: PartitionState, offset: string, eventTime: number | undefined, sinks: number) {
     this.topic = owner.topic;
     this.partition = owner.partition;
     this.offset = offset;
-    const known = Number.isFinite(ts);
-    this.eventTime = known ? ts : undefined;
+    this.eventTime = eventTime;
     this.key = owner.key;
     this.#owner = owner;
-    this.#takenAt = known ? undefined : now;
     this.#open = sinks;
   }
 
@@ -57,23 +54,18 @@ export class MessageMeta implements RecordMeta {
 
   /**
    * One sink made this message's record terminal. Returns the partition whose commit point may
-   * have moved (the message was the oldest pending one), if it is still owned.
+   * have moved (the message is now done everywhere), if it is still owned; the caller advances it.
    */
   static settle(meta: RecordMeta): PartitionState | undefined {
     if (!(#owner in meta)) return undefined;
     const m = meta as MessageMeta;
     if (--m.#open > 0) return undefined;
     const st = m.#owner;
-    return st.live && st.queue[st.head] === m ? st : undefined;
+    return st.live ? st : undefined;
   }
 
   static done(meta: MessageMeta): boolean {
     return meta.#open <= 0;
-  }
-
-  /** Kafka timestamp, or the time it was taken when the message has none. */
-  get ts(): number {
-    return this.eventTime ?? this.#takenAt!;
   }
 }
 
@@ -99,6 +91,8 @@ export interface Hold {
   run: number;
 }
 
+const EMPTY: MessageMeta[] = [];
+
 export class PartitionState {
   readonly topic: string;
   readonly partition: number;
@@ -119,11 +113,19 @@ export class PartitionState {
   lastMessageAt: number;
   lastSeen: bigint | undefined;
   highWatermark: bigint | undefined;
-  /** Taken messages not yet durable everywhere start at `head`, in offset order. */
-  queue: MessageMeta[] = [];
-  head = 0;
-  /** The commit point when `head` is 0 (kept when the queue is compacted). */
-  private doneBefore: bigint | undefined;
+  /**
+   * Taken messages not yet durable everywhere, in offset order, as the chunks they were taken in:
+   * a chunk is the very array of metas handed to the sinks, so queueing costs nothing per message.
+   * The oldest pending message is `chunks[first][at]`.
+   */
+  private chunks: MessageMeta[][] = [];
+  /** When each chunk was taken (for messages without a timestamp): one reading per chunk. */
+  private takenAt: number[] = [];
+  private first = 0;
+  private at = 0;
+  private pendingCount = 0;
+  /** The last message finished in offset order: the commit point is the offset after it. */
+  private lastDone: MessageMeta | undefined;
 
   constructor(topic: string, partition: number, now: number) {
     this.topic = topic;
@@ -132,32 +134,61 @@ export class PartitionState {
     this.lastMessageAt = now;
   }
 
+  /** Queues a chunk of messages taken at `now`, in offset order, after every chunk queued before. */
+  enqueue(metas: MessageMeta[], now: number): void {
+    if (metas.length === 0) return;
+    this.chunks.push(metas);
+    this.takenAt.push(now);
+    this.pendingCount += metas.length;
+  }
+
   /** Moves the commit point over the finished messages at the front. O(1) amortised per message. */
   advance(): void {
-    const q = this.queue;
-    let h = this.head;
-    while (h < q.length && MessageMeta.done(q[h]!)) h++;
-    this.head = h;
-    if (h > 1024 && h * 2 > q.length) {
-      this.doneBefore = BigInt(q[h - 1]!.offset) + 1n;
-      this.queue = q.slice(h);
-      this.head = 0;
+    const chunks = this.chunks;
+    let f = this.first;
+    let i = this.at;
+    let chunk = chunks[f];
+    while (chunk !== undefined) {
+      const from = i;
+      while (i < chunk.length && MessageMeta.done(chunk[i]!)) i++;
+      if (i > from) {
+        this.lastDone = chunk[i - 1];
+        this.pendingCount -= i - from;
+      }
+      if (i < chunk.length) break;
+      // A finished chunk is let go of at once.
+      chunks[f] = EMPTY;
+      chunk = chunks[++f];
+      i = 0;
     }
+    if (f > 64 && f * 2 > chunks.length) {
+      this.chunks = chunks.slice(f);
+      this.takenAt = this.takenAt.slice(f);
+      f = 0;
+    }
+    this.first = f;
+    this.at = i;
   }
 
   /** The next offset to read: every message before it is durable or dead-lettered everywhere. */
   committable(): bigint | undefined {
-    return this.head > 0 ? BigInt(this.queue[this.head - 1]!.offset) + 1n : this.doneBefore;
+    return this.lastDone === undefined ? undefined : BigInt(this.lastDone.offset) + 1n;
   }
 
   /** Taken messages not yet durable everywhere. */
   get pending(): number {
-    return this.queue.length - this.head;
+    return this.pendingCount;
   }
 
   /** The oldest taken message not yet durable everywhere. */
   get oldest(): MessageMeta | undefined {
-    return this.head < this.queue.length ? this.queue[this.head] : undefined;
+    return this.chunks[this.first]?.[this.at];
+  }
+
+  /** The oldest pending message's Kafka timestamp, or when it was taken if it has none. */
+  get oldestTime(): number | undefined {
+    const oldest = this.oldest;
+    return oldest === undefined ? undefined : (oldest.eventTime ?? this.takenAt[this.first]!);
   }
 
   /** Messages taken from a batch but not yet accepted by every sink. */

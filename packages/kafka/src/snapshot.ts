@@ -40,7 +40,7 @@ function partitionSnapshot(st: PartitionState, fence: CommitFence, now: number):
     lastSeen: st.lastSeen?.toString(),
     highWatermark: st.highWatermark?.toString(),
     lagMessages: lag,
-    lagSeconds: oldest === undefined ? 0 : Math.max(0, (now - oldest.ts) / 1000),
+    lagSeconds: oldest === undefined ? 0 : Math.max(0, (now - st.oldestTime!) / 1000),
     idleMs: now - st.lastMessageAt,
     paused: st.paused,
     pendingMessages: st.pending,

@@ -258,6 +258,92 @@ describe('KafkaBridge', () => {
     expect(consumer.lastCommit(0)).toBe('4');
   });
 
+  it('moves the commit point over many taken chunks finished out of order, never past a message not yet durable', async () => {
+    const consumer = new FakeConsumer();
+    const adapter = new GatedAdapter();
+    const sink = new Sink(adapter, {
+      maxRecords: 4,
+      maxPendingRecords: 10_000,
+      maxAgeMs: 60_000,
+      idleMs: 0,
+      concurrency: 3,
+      orderingKey: () => undefined,
+    });
+    const bridge = new KafkaBridge<{ n: number }>({
+      consumer: consumer as unknown as Consumer,
+      topics: [TOPIC],
+      decode: (m) => ({ n: Number(m.value) }),
+      route: () => sink,
+      deadLetter: { write: async () => undefined },
+    });
+    await bridge.start();
+    consumer.join([0]);
+    // 150 fetched batches of 3 messages: each one is taken as a chunk of its own.
+    const total = 450;
+    for (let b = 0; b < total / 3; b++) {
+      const first = b * 3;
+      await consumer.deliver(0, first, [String(first), String(first + 1), String(first + 2)]);
+    }
+    expect(bridge.snapshot().partitions[0]!.pendingMessages).toBe(total);
+    const flushing = sink.flush();
+    const durable = new Set<number>();
+    for (let round = 0; adapter.batches.length > 0 && round < 1000; round++) {
+      // The newest batch in flight lands first, the oldest last.
+      const open = adapter.batches.splice(0);
+      for (const b of open.reverse()) {
+        b.release();
+        for (const r of b.batch.records) durable.add(r.n);
+        await tick();
+        let next = 0;
+        while (durable.has(next)) next++;
+        const p = bridge.snapshot().partitions[0]!;
+        expect(p.durable).toBe(next === 0 ? undefined : String(next));
+        // Pending: every message from the commit point on (some of them already durable).
+        expect(p.pendingMessages).toBe(total - next);
+      }
+    }
+    await flushing;
+    await bridge.commit();
+    expect(consumer.lastCommit(0)).toBe(String(total));
+    expect(bridge.snapshot().partitions[0]).toMatchObject({ durable: String(total), pendingMessages: 0 });
+  });
+
+  it('reports the lag in seconds of the oldest pending message from its timestamp, or from when it was taken when it has none', async () => {
+    const { consumer, bridge } = setup();
+    await bridge.start();
+    consumer.join([0, 1]);
+    const batch = (partition: number, timestamp: string | undefined) =>
+      consumer.eachBatch!({
+        batch: {
+          topic: TOPIC,
+          partition,
+          highWatermark: '2',
+          messages: ['1', '2'].map((value, i) => ({
+            offset: String(i),
+            key: null,
+            value: Buffer.from(value),
+            timestamp,
+            attributes: 0,
+            headers: {},
+          })),
+        } as never,
+        resolveOffset: () => undefined,
+        heartbeat: async () => undefined,
+        isRunning: () => true,
+        isStale: () => false,
+      } as unknown as EachBatchPayload);
+    const before = Date.now();
+    await batch(0, String(before - 60_000)); // produced a minute ago
+    await batch(1, undefined); // no timestamp: taken now
+    const [p0, p1] = bridge.snapshot().partitions;
+    expect(p0).toMatchObject({ partition: 0, pendingMessages: 2 });
+    expect(p0!.lagSeconds).toBeGreaterThanOrEqual(60);
+    expect(p0!.lagSeconds).toBeLessThan(60 + (Date.now() - before) / 1000 + 1);
+    expect(p1).toMatchObject({ partition: 1, pendingMessages: 2 });
+    expect(p1!.lagSeconds).toBeGreaterThanOrEqual(0);
+    expect(p1!.lagSeconds).toBeLessThanOrEqual((Date.now() - before) / 1000);
+  });
+
   it('dead-letters an undecodable message with its coordinates and raw bytes, and commits past it once stored', async () => {
     const { consumer, adapters, sinks, bridge, letters } = setup();
     await bridge.start();

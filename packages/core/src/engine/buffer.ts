@@ -10,7 +10,7 @@
  * settlement work on those, with no object per record either.
  */
 import type { FlushReason, RecordMeta } from '../types.js';
-import type { Barrier, Columns } from './records.js';
+import { addKey, type Barrier, type Columns, type KeyRuns } from './records.js';
 
 /** What `take()` found. */
 export type Taken<T> =
@@ -218,7 +218,7 @@ export class RecordBuffer<T> {
       prepared: this.prepared && this.slice(this.prepared, start, count),
       sizes: this.slice(this.sizes, start, count),
       times: this.slice(this.times, start, count),
-      keys: this.keys && this.slice(this.keys, start, count),
+      keys: this.keys && this.keyRuns(start, count),
       barriers: this.barriers && this.slice(this.barriers, start, count),
       bytes,
     };
@@ -258,7 +258,7 @@ export class RecordBuffer<T> {
       prepared: column(this.prepared),
       sizes: column(this.sizes)!,
       times: column(this.times)!,
-      keys: column(this.keys),
+      keys: this.keys && this.chosenKeyRuns(chosen),
       barriers: column(this.barriers),
       bytes,
     };
@@ -277,6 +277,22 @@ export class RecordBuffer<T> {
     this.n = w;
     this.bytes -= bytes;
     return taken;
+  }
+
+  /** The ordering keys of `count` slots from ring position `start` on, as runs. */
+  private keyRuns(start: number, count: number): KeyRuns {
+    const keys = this.keys!;
+    const runs = { keys: [] as string[], counts: [] as number[] };
+    for (let k = 0; k < count; k++) addKey(runs, keys[(start + k) & this.mask]);
+    return runs;
+  }
+
+  /** The ordering keys of the records at the `chosen` ring offsets, as runs. */
+  private chosenKeyRuns(chosen: readonly number[]): KeyRuns {
+    const keys = this.keys!;
+    const runs = { keys: [] as string[], counts: [] as number[] };
+    for (const k of chosen) addKey(runs, keys[(this.head + k) & this.mask]);
+    return runs;
   }
 
   /** `count` slots of `column` from ring position `start` on, as a new array. */

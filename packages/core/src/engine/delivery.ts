@@ -9,7 +9,16 @@ import type { ResolvedOptions } from '../options.js';
 import type { TypedEmitter } from '../typed-emitter.js';
 import type { Batch, FlushReason, PartialWrite, SinkAdapter, SinkEvents } from '../types.js';
 import type { DeadLetterRouter } from './dead-letter-routing.js';
-import { type InFlight, type Outcome, type Part, partBytes, partLength, pick, positions } from './records.js';
+import {
+  type InFlight,
+  noMetasColumn,
+  type Outcome,
+  type Part,
+  partBytes,
+  partLength,
+  pick,
+  positions,
+} from './records.js';
 import type { SinkStats } from './stats.js';
 
 /**
@@ -186,7 +195,7 @@ export class Delivery<T> {
   private toBatch(batch: InFlight<T>, part: Part, reason: FlushReason, attempt: number): Batch<T> {
     const n = partLength(batch, part);
     const records = pick(batch.records, part);
-    const metas = batch.metas === undefined ? new Array(n).fill(undefined) : pick(batch.metas, part);
+    const metas = batch.metas === undefined ? noMetasColumn(n) : pick(batch.metas, part);
     const bytes = partBytes(batch, part);
     const { id } = batch;
     if (!this.withPrepared) return { id, reason, attempt, records, metas, bytes };

@@ -19,11 +19,33 @@ export interface Columns<T> {
   readonly sizes: readonly number[];
   /** Accept time of each record. */
   readonly times: readonly number[];
-  readonly keys: readonly (string | undefined)[] | undefined;
+  /**
+   * The ordering keys of the records, as runs: each distinct key of consecutive records once,
+   * with how many records in a row have it (records without a key are left out). The scheduler
+   * locks and unlocks a key once per run, not once per record.
+   */
+  readonly keys: KeyRuns | undefined;
   /** Waits (flush(), revoke(), writeDurable()) that each record holds open. */
   barriers: (Barrier[] | undefined)[] | undefined;
   /** Sum of `sizes`. */
   readonly bytes: number;
+}
+
+/** Ordering keys of consecutive records, run-length encoded: `counts[r]` records have `keys[r]`. */
+export interface KeyRuns {
+  readonly keys: readonly string[];
+  readonly counts: readonly number[];
+}
+
+/** Appends one record's key to `runs` (a record without a key adds nothing). */
+export function addKey(runs: { keys: string[]; counts: number[] }, key: string | undefined): void {
+  if (key === undefined) return;
+  const last = runs.keys.length - 1;
+  if (last >= 0 && runs.keys[last] === key) runs.counts[last]!++;
+  else {
+    runs.keys.push(key);
+    runs.counts.push(1);
+  }
 }
 
 /** A batch handed to the adapter, until every record of it is terminal. */
@@ -53,6 +75,17 @@ export interface Barrier {
 
 /** How a record ended. */
 export type Outcome = 'durable' | 'dead-lettered';
+
+let noMetas: readonly undefined[] = Object.freeze([]);
+
+/**
+ * A metas column of `n` records that carry none: one frozen array of `undefined`, shared while
+ * batches keep the same length (most do), instead of a new one per batch and per settlement.
+ */
+export function noMetasColumn(n: number): readonly undefined[] {
+  if (noMetas.length !== n) noMetas = Object.freeze(new Array<undefined>(n).fill(undefined));
+  return noMetas;
+}
 
 /** How many records `part` names. */
 export function partLength<T>(batch: Columns<T>, part: Part): number {

@@ -113,8 +113,12 @@ export class Scheduler<T> {
       retrying: 0,
     };
     if (keys !== undefined) {
-      for (const key of keys)
-        if (key !== undefined) this.lockedKeys.set(key, (this.lockedKeys.get(key) ?? 0) + 1);
+      // One lock per run of records with the same key: a Map update per run, not per record.
+      const locked = this.lockedKeys;
+      for (let r = 0; r < keys.keys.length; r++) {
+        const key = keys.keys[r]!;
+        locked.set(key, (locked.get(key) ?? 0) + keys.counts[r]!);
+      }
     }
     this.inflight.add(batch);
     this.inflightRecords += count;
@@ -146,12 +150,14 @@ export class Scheduler<T> {
       this.hooks.fail(error);
     } finally {
       this.inflight.delete(batch);
-      if (batch.keys !== undefined) {
-        for (const key of batch.keys) {
-          if (key === undefined) continue;
-          const n = (this.lockedKeys.get(key) ?? 1) - 1;
-          if (n <= 0) this.lockedKeys.delete(key);
-          else this.lockedKeys.set(key, n);
+      const keys = batch.keys;
+      if (keys !== undefined) {
+        const locked = this.lockedKeys;
+        for (let r = 0; r < keys.keys.length; r++) {
+          const key = keys.keys[r]!;
+          const n = (locked.get(key) ?? keys.counts[r]!) - keys.counts[r]!;
+          if (n <= 0) locked.delete(key);
+          else locked.set(key, n);
         }
       }
       // The next batch goes first: its write starts (and, where the adapter sends right away,

@@ -10,6 +10,7 @@ import type { RecordMeta, SinkEvents } from '../types.js';
 import {
   type Barrier,
   type InFlight,
+  noMetasColumn,
   type Outcome,
   type Part,
   partBytes,
@@ -119,7 +120,7 @@ export class Settlement<T> {
       this.events.emit('settled', {
         sink: this.name,
         outcome,
-        metas: metas === undefined ? new Array(n).fill(undefined) : pick(metas, part),
+        metas: metas === undefined ? noMetasColumn(n) : pick(metas, part),
         latenciesMs: latencies,
       });
     }
