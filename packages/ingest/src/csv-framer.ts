@@ -62,17 +62,27 @@ export class CsvFramer {
   /** The record is longer than what is kept. */
   private over = false;
   private field = 0;
-  private line = 1;
-  private startLine = 1;
+  private line: number;
+  private startLine: number;
   private error: SyntaxError | undefined;
-  private atStart = true;
+  private atStart: boolean;
   /** Blank lines seen (skipped; RFC 4180 has none, spreadsheets write them). */
   blankLines = 0;
 
+  /**
+   * `firstLine` and `input` serve framing part of an input again (`CsvRun.lines()`): the line the
+   * bytes start on, and whether they start the input (a byte order mark is skipped only there).
+   */
   constructor(
     private readonly delimiter: number,
     private readonly maxRecordBytes: number,
-  ) {}
+    firstLine = 1,
+    input = true,
+  ) {
+    this.line = firstLine;
+    this.startLine = firstLine;
+    this.atStart = input;
+  }
 
   /** The physical line the reader is on (1-based). */
   get currentLine(): number {

@@ -2,7 +2,7 @@ import { createReadStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
-import { messageOf, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
+import { messageOf, type Sink, SpillwayError } from '@spillway/core';
 import { invalidOption } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { splitRecords } from './csv-fields.js';
@@ -15,6 +15,7 @@ import {
   quoteEmptyFields,
   scanLine,
 } from './csv-line.js';
+import { CsvRun } from './csv-run.js';
 import { IngestError, type IngestStopReason } from './errors.js';
 import {
   type IngestFormat,
@@ -25,7 +26,7 @@ import {
 } from './options.js';
 import type { Reject, RejectReason } from './reject.js';
 import { csvReader, type Item, type ItemReader, ndjsonReader } from './rows.js';
-import { trackRun } from './run-counts.js';
+import { type IngestMeta, trackRun } from './run-counts.js';
 import { issuePath, type StandardResult } from './standard-schema.js';
 import { FIRST_REJECTS, type IngestSummary, type RejectNote } from './summary.js';
 
@@ -35,6 +36,8 @@ export type IngestInput = Readable | AsyncIterable<Uint8Array | string>;
 let runs = 0;
 
 const COMMA = 0x2c;
+const LF = 0x0a;
+const CR = 0x0d;
 /** Bytes of input parsed at a time (see the read loop). */
 const READ_SLICE = 16 * 1024;
 
@@ -122,6 +125,7 @@ async function run<T>(
   const started = performance.now();
   // Valid rows go on as their CSV text only where COPY reads the same text: comma-delimited.
   const asLine = format === 'csv' && o.delimiter === COMMA ? o.asCsvLine : undefined;
+  const asRun = asLine ? o.asCsvRun : undefined;
   // Text columns need no field values at all: records stay bytes after the header.
   const reader: ItemReader =
     format === 'csv'
@@ -189,6 +193,8 @@ async function run<T>(
     column: string | undefined,
     truncated = false,
   ) => {
+    const wait = endRun();
+    if (wait) await wait;
     s.rejected++;
     s.byReason[reason] = (s.byReason[reason] ?? 0) + 1;
     if (s.first.length < FIRST_REJECTS) s.first.push({ line, column, reason, message });
@@ -209,10 +215,17 @@ async function run<T>(
     o.signal?.aborted
       ? new Stop('read', 'The ingest was aborted', o.signal.reason)
       : new Stop('sink', `The sink refused a row: ${messageOf(error)}`, error);
-  // Synchronous while the sink has room: a promise per row would cost more than the row.
-  const accept = (record: T, line: number): Promise<void> | undefined => {
-    // The summary counts settlements itself: the sink's progress tracker need not follow them.
-    const meta: RecordMeta = { topic: source, partition: runId, offset: line, externalProgress: true };
+  // The summary counts settlements itself: the sink's progress tracker need not follow them.
+  const metaOf = (line: number, rows = 1): IngestMeta => ({
+    topic: source,
+    partition: runId,
+    offset: line,
+    externalProgress: true,
+    ...(rows !== 1 && { rows }),
+  });
+  // Synchronous while the sink has room: a promise per record would cost more than the record.
+  const accept = (record: T, meta: IngestMeta): Promise<void> | undefined => {
+    const rows = meta.rows ?? 1;
     let taken: boolean;
     try {
       taken = sink.tryWrite(record, meta);
@@ -220,17 +233,96 @@ async function run<T>(
       throw sinkFailed(error);
     }
     if (taken) {
-      s.accepted++;
+      s.accepted += rows;
       return undefined;
     }
     return sink.write(record, meta, writeOptions).then(
       () => {
-        s.accepted++;
+        s.accepted += rows;
       },
       (error: unknown) => {
         throw sinkFailed(error);
       },
     );
+  };
+
+  // The run of rows being gathered (`asCsvRun`): their bytes are `area[0, areaEnd)` less the CR
+  // of each CRLF between two of them, at `crs` (COPY takes one kind of line break per statement).
+  let area: Buffer | undefined;
+  let areaEnd = 0;
+  const crs: number[] = [];
+  let areaLine = 0;
+  let areaRows = 0;
+  const runMetas = new WeakMap<CsvRun, IngestMeta>();
+  /** Runs a store refused, whose rows are to be written again one by one. */
+  const handedBack: CsvRun[] = [];
+  let ended = false;
+  const owner = {
+    resubmit(r: CsvRun): boolean {
+      const meta = runMetas.get(r);
+      if (ended || meta === undefined || meta.isolated) return false;
+      // Its settlement is not counted; its rows are, when they settle one by one.
+      meta.isolated = true;
+      s.accepted -= r.count;
+      handedBack.push(r);
+      return true;
+    },
+  };
+
+  /** Hands the run gathered so far to the sink. */
+  const endRun = (): Promise<void> | undefined => {
+    if (area === undefined) return undefined;
+    const bytes = crs.length === 0 ? area.subarray(0, areaEnd) : withoutCrs(area, areaEnd, crs);
+    const rows = areaRows;
+    area = undefined;
+    crs.length = 0;
+    if (rows === 1) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(areaLine));
+    const r = new CsvRun(bytes, areaLine, rows, layout!, owner);
+    const meta = metaOf(areaLine, rows);
+    runMetas.set(r, meta);
+    return accept(asRun!(r), meta);
+  };
+
+  /** A row that goes as its line: into the current run when its bytes follow the run's after an LF. */
+  const sendLine = (bytes: Buffer, line: number): Promise<void> | undefined => {
+    if (!asRun) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(line));
+    if (area !== undefined && bytes.buffer === area.buffer) {
+      const gap = bytes.byteOffset - area.byteOffset - areaEnd;
+      if (gap === 1 && area[areaEnd] === LF) {
+        areaEnd += 1 + bytes.length;
+        areaRows++;
+        return undefined;
+      }
+      if (gap === 2 && area[areaEnd] === CR && area[areaEnd + 1] === LF) {
+        crs.push(areaEnd);
+        areaEnd += 2 + bytes.length;
+        areaRows++;
+        return undefined;
+      }
+    }
+    const wait = endRun();
+    area = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.buffer.byteLength - bytes.byteOffset);
+    areaEnd = bytes.length;
+    areaLine = line;
+    areaRows = 1;
+    return wait;
+  };
+
+  /** A row object, or a row refused: after the run gathered so far, which holds earlier rows. */
+  const acceptRow = (record: T, line: number): Promise<void> | undefined => {
+    const wait = endRun();
+    if (wait) return wait.then(() => accept(record, metaOf(line)));
+    return accept(record, metaOf(line));
+  };
+
+  /** Writes the rows of refused runs again, one row per record. */
+  const rewrite = async (): Promise<void> => {
+    for (let r = handedBack.shift(); r !== undefined; r = handedBack.shift()) {
+      for (const { line, csv } of r.lines()) {
+        const wait = accept(asLine!(csv), metaOf(line));
+        if (wait) await wait;
+      }
+    }
   };
 
   let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
@@ -279,7 +371,7 @@ async function run<T>(
         );
       if ((scan & NOT_A_LINE) === 0) {
         const bytes = scan & EMPTY_FIELD ? quoteEmptyFields(item.raw, o.delimiter, width) : item.raw;
-        return accept(asLine!(new CsvLine(bytes, layout!)), item.line);
+        return sendLine(bytes, item.line);
       }
       row = fromHeader(h.names, splitOne(item.raw, o.delimiter)).row;
     } else if (item.kind === 'fields') {
@@ -295,7 +387,7 @@ async function run<T>(
       }
       if (asLine && h.inOrder) {
         const verdict = checkInOrder(h.columns!, item.fields, item.raw, o.delimiter);
-        if (verdict === undefined) return accept(asLine(new CsvLine(item.raw, layout!)), item.line);
+        if (verdict === undefined) return sendLine(item.raw, item.line);
         if (verdict !== 'convert')
           return reject(item.line, item.raw, verdict.reason, verdict.message, verdict.column);
       }
@@ -360,7 +452,7 @@ async function run<T>(
         return reject(item.line, item.raw, 'map', messageOf(error), undefined);
       }
     } else record = row as T;
-    return accept(record, item.line);
+    return acceptRow(record, item.line);
   };
 
   let stop: Stop | undefined;
@@ -378,6 +470,9 @@ async function run<T>(
           const wait = handle(item);
           if (wait) await wait;
         }
+        const wait = endRun();
+        if (wait) await wait;
+        if (handedBack.length > 0) await rewrite();
       }
       progress(false);
     }
@@ -385,6 +480,8 @@ async function run<T>(
       const wait = handle(item);
       if (wait) await wait;
     }
+    const wait = endRun();
+    if (wait) await wait;
   } catch (error) {
     stop =
       error instanceof Stop
@@ -394,14 +491,21 @@ async function run<T>(
 
   // The last partial batch leaves now, not when more data would have come; and the summary
   // waits until every row handed over is terminal.
+  // The rows of a run the store refused come back while it settles: written again, and waited for.
   let sinkError: unknown;
   if (!(stop?.reason === 'sink')) {
     try {
       await sink.flush();
+      while (handedBack.length > 0) {
+        await rewrite();
+        await sink.flush();
+      }
     } catch (error) {
-      sinkError = error;
+      if (error instanceof Stop) stop ??= error;
+      else sinkError = error;
     }
   }
+  ended = true;
   run.release();
   if (o.ownsRejects) {
     try {
@@ -418,6 +522,19 @@ async function run<T>(
     throw new IngestError(stop.reason, stop.message, done, stop.origin);
   }
   return summary(undefined);
+}
+
+/** `area[0, end)` without the bytes at `crs` (ascending). */
+function withoutCrs(area: Buffer, end: number, crs: number[]): Buffer {
+  const out = Buffer.allocUnsafe(end - crs.length);
+  let o = 0;
+  let from = 0;
+  for (const cr of crs) {
+    o += area.copy(out, o, from, cr);
+    from = cr + 1;
+  }
+  area.copy(out, o, from, end);
+  return out;
 }
 
 /** Column positions of a CSV. */

@@ -3,6 +3,7 @@ import { messageOf } from '@spillway/core';
 import {
   type ColumnSpec,
   type CsvLine,
+  type CsvRun,
   formatFromPath,
   IngestError,
   type IngestFormat,
@@ -261,7 +262,8 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
       ...(delimiter !== undefined && { delimiter }),
       ...(columns && { columns }),
       // Valid CSV rows go to a COPY as their own text.
-      ...(target.takesCsvLines && { asCsvLine: (line: CsvLine) => line }),
+      // Valid rows go to a COPY as their own text, consecutive ones as one record.
+      ...(target.takesCsvLines && { asCsvLine: (line: CsvLine) => line, asCsvRun: (run: CsvRun) => run }),
       rejects,
       ...(flags.maxRejects !== undefined && { maxRejects: flags.maxRejects }),
       ...(flags.maxRowBytes !== undefined && { maxRowBytes: flags.maxRowBytes }),
