@@ -205,6 +205,9 @@ const TIMESTAMP_ERRORS = {
   precision: 'more than 6 fractional digits (microseconds) cannot be stored exactly',
 } as const;
 
+/** What `readTimestamp` found, kept here so that checking a timestamp allocates nothing. */
+const stamp = { utcMin: 0, sec: 0, fracStart: 0, fracEnd: 0, dateOnly: false };
+
 /**
  * Validates an RFC 3339 timestamp without a JS `Date` (which keeps only milliseconds), and returns
  * the text to store: the text as sent (every digit kept), or for a date alone its UTC midnight
@@ -214,6 +217,25 @@ const TIMESTAMP_ERRORS = {
 export function timestamp(
   text: string,
 ): { text: string; ms: number; subMs: boolean } | keyof typeof TIMESTAMP_ERRORS {
+  const error = readTimestamp(text);
+  if (error !== undefined) return error;
+  const { utcMin, sec, fracStart, fracEnd, dateOnly } = stamp;
+  const digits = fracEnd - fracStart;
+  const ms =
+    utcMin * 60_000 +
+    sec * 1000 +
+    (digits === 0 ? 0 : Number(text.slice(fracStart, fracStart + 3).padEnd(3, '0')));
+  const subMs = digits > 3 && /[1-9]/.test(text.slice(fracStart + 3, fracEnd));
+  return { text: dateOnly ? `${text}T00:00:00Z` : text, ms, subMs };
+}
+
+/** True when `text` is a timestamp `timestamp()` accepts (without computing its instant). */
+export function isTimestamp(text: string): boolean {
+  return readTimestamp(text) === undefined;
+}
+
+/** Checks `text` against RFC 3339 and what PostgreSQL can hold; fills `stamp` when it passes. */
+function readTimestamp(text: string): keyof typeof TIMESTAMP_ERRORS | undefined {
   // The grammar of RFC 3339 above, read by hand: a regular expression's match array costs more
   // than the rest of the check.
   const n = text.length;
@@ -226,7 +248,8 @@ export function timestamp(
   let h = 0;
   let mi = 0;
   let sec = 0;
-  let fraction = '';
+  let fracStart = 0;
+  let fracEnd = 0;
   let sign = 1;
   let oh = 0;
   let om = 0;
@@ -244,7 +267,8 @@ export function timestamp(
       let j = i + 1;
       while (j < n && isDigit(text.charCodeAt(j))) j++;
       if (j === i + 1) return 'form';
-      fraction = text.slice(i + 1, j);
+      fracStart = i + 1;
+      fracEnd = j;
       i = j;
     }
     const z = text.charCodeAt(i);
@@ -267,7 +291,7 @@ export function timestamp(
   // on PostgreSQL 15).
   if (oh > 15) return 'offset';
   // PostgreSQL keeps microseconds and rounds the rest: refuse what would not land exactly.
-  if (fraction.length > 6 && !/^0+$/.test(fraction.slice(6))) return 'precision';
+  for (let k = fracStart + 6; k < fracEnd; k++) if (text.charCodeAt(k) !== 0x30) return 'precision';
   const offsetMin = sign * (oh * 60 + om);
   // Minutes since the epoch of the instant, by calendar arithmetic (a Date costs more per row).
   const utcMin = (daysFromCivil(y, mo, d) * 24 + h) * 60 + mi - offsetMin;
@@ -276,10 +300,12 @@ export function timestamp(
     const at = new Date((utcMin + 1) * 60_000);
     if (at.getUTCDate() !== 1 || at.getUTCHours() !== 0 || at.getUTCMinutes() !== 0) return 'leap';
   }
-  const ms =
-    utcMin * 60_000 + sec * 1000 + (fraction.length === 0 ? 0 : Number(fraction.slice(0, 3).padEnd(3, '0')));
-  const subMs = fraction.length > 3 && /[1-9]/.test(fraction.slice(3));
-  return { text: dateOnly ? `${text}T00:00:00Z` : text, ms, subMs };
+  stamp.utcMin = utcMin;
+  stamp.sec = sec;
+  stamp.fracStart = fracStart;
+  stamp.fracEnd = fracEnd;
+  stamp.dateOnly = dateOnly;
+  return undefined;
 }
 
 /**

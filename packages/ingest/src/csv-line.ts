@@ -12,7 +12,7 @@
  * With declared columns, a row goes as its line only when each value is written as it is spelled
  * (`checkInOrder`); the rules are in the package README.
  */
-import { convert, type ResolvedColumn } from './columns.js';
+import { convert, isTimestamp, type ResolvedColumn } from './columns.js';
 import type { Row } from './options.js';
 import type { RejectReason } from './reject.js';
 
@@ -132,6 +132,8 @@ export function checkInOrder(
     if (c.bare && (c.type === 'string' || (c.type === 'boolean' && (text === 'true' || text === 'false'))))
       continue;
     if (c.bare && c.type === 'integer' && isPlainInteger(text)) continue;
+    if (c.bare && c.type === 'number' && isPlainDecimal(text)) continue;
+    if (c.bare && c.type === 'timestamp' && text.length > 10 && isTimestamp(text)) continue;
     const v = convert(c, text);
     if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
     if (asWritten && !writtenAsSpelled(c, text, v.value)) asWritten = false;
@@ -157,6 +159,37 @@ function isPlainInteger(text: string): boolean {
     if (c < 0x30 || c > 0x39) return false;
   }
   return true;
+}
+
+/**
+ * True for a decimal that JavaScript writes back as the same text, so valid and written as
+ * spelled without converting it: an optional minus, an integer part without leading zeros, an
+ * optional fraction without trailing zeros, at most 15 significant digits (a double keeps 15
+ * decimal digits exactly, so the shortest text of the number is these digits), no exponent, and
+ * not below 10^-6 (JavaScript writes smaller numbers with an exponent). Not "-0".
+ */
+export function isPlainDecimal(text: string): boolean {
+  const n = text.length;
+  let i = text.charCodeAt(0) === 0x2d ? 1 : 0;
+  const intStart = i;
+  while (i < n && isDigitCode(text.charCodeAt(i))) i++;
+  const intDigits = i - intStart;
+  if (intDigits === 0 || (intDigits > 1 && text.charCodeAt(intStart) === 0x30)) return false;
+  if (i === n) return intDigits <= 15 && text !== '-0';
+  if (text.charCodeAt(i) !== 0x2e) return false;
+  const fracStart = ++i;
+  while (i < n && isDigitCode(text.charCodeAt(i))) i++;
+  if (i !== n || i === fracStart || text.charCodeAt(n - 1) === 0x30) return false;
+  const zeroInt = intDigits === 1 && text.charCodeAt(intStart) === 0x30;
+  if (!zeroInt) return intDigits + (n - fracStart) <= 15;
+  // 0.000…: the significant digits start after the zeros; at most 5 zeros (10^-6 and above).
+  let z = fracStart;
+  while (text.charCodeAt(z) === 0x30) z++;
+  return z - fracStart <= 5 && n - z <= 15;
+}
+
+function isDigitCode(c: number): boolean {
+  return c >= 0x30 && c <= 0x39;
 }
 
 /** True when a converted value goes to the store as the same text it came as. */
