@@ -1,0 +1,178 @@
+// Runs of valid CSV rows as one record (`asCsvRun`): how runs form, what the summary counts, and
+// what becomes of a run the store refuses. The store here is core's in-memory adapter; the same
+// against PostgreSQL's COPY is in test/integration/ingest-csv-runs.test.ts.
+import { mkdtemp, readFile, rm } from 'node:fs/promises';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { Readable } from 'node:stream';
+import { type DeadLetter, Sink } from '@spillway/core';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { CsvLine, CsvRun, ingest, type Reject, RejectFile, type Row } from '../src/index.js';
+import { MemoryAdapter } from './memory-adapter.js';
+
+let dir: string;
+beforeAll(async () => {
+  dir = await mkdtemp(join(tmpdir(), 'spillway-runs-'));
+});
+afterAll(async () => {
+  await rm(dir, { recursive: true, force: true });
+});
+
+type Record = Row | CsvLine | CsvRun;
+
+/** Rows `id,dock,note` (every 4th note quoted over two lines); `odd` maps ids to a replacement record. */
+function csv(rows: number, eol: string, odd = new Map<number, string>()): { text: string; lineOf: number[] } {
+  let text = `id,dock,note${eol}`;
+  const lineOf: number[] = [];
+  let line = 2;
+  for (let i = 1; i <= rows; i++) {
+    lineOf[i] = line;
+    text += `${odd.get(i) ?? `${i},DK-${i % 10},${i % 4 === 0 ? `"tyre${eol}pumped"` : 'ok'}`}${eol}`;
+    line += i % 4 === 0 ? 2 : 1;
+  }
+  return { text, lineOf };
+}
+
+function linesOf(records: readonly Record[]): string[] {
+  const out: string[] = [];
+  for (const r of records) {
+    if (r instanceof CsvRun) for (const { csv } of r.lines()) out.push(csv.bytes.toString());
+    else if (r instanceof CsvLine) out.push(r.bytes.toString());
+    else out.push(JSON.stringify(r));
+  }
+  return out;
+}
+
+describe('runs of valid CSV rows', () => {
+  it('hands consecutive valid rows on as runs and counts rows, not records, in the summary', async () => {
+    const { text, lineOf } = csv(5000, '\r\n', new Map([[2000, '2000,DK-0']])); // a ragged row ends a run
+    const adapter = new MemoryAdapter<Record>();
+    const sink = new Sink(adapter);
+    const rejects: Reject[] = [];
+    const summary = await ingest(Readable.from([text]), sink, {
+      format: 'csv',
+      rejects: { write: (r) => void rejects.push(r) },
+      asCsvLine: (line) => line,
+      asCsvRun: (run) => run,
+    });
+    await sink.close();
+    const runs = adapter.stored.filter((r) => r instanceof CsvRun);
+    expect(runs.length).toBeGreaterThan(0);
+    expect(adapter.stored.length).toBeLessThan(5000 / 20);
+    expect(summary).toMatchObject({ rowsRead: 5000, rowsWritten: 4999, rowsRejected: 1, durable: true });
+    expect(rejects.map((r) => [r.line, r.reason])).toEqual([[lineOf[2000], 'column-count']]);
+    // The rows, in file order, each as its line with LF for CRLF between rows (COPY takes one kind
+    // of line break per statement), the CRLF inside quotes kept as data.
+    const expected = text
+      .split(/\r\n(?=\d+,)/)
+      .slice(1)
+      .map((l) => l.replace(/\r\n$/, ''))
+      .filter((l) => l !== '2000,DK-0');
+    expect(linesOf(adapter.stored)).toEqual(expected);
+    // Each record's offset is the physical line its first row starts on.
+    const first = adapter.stored.map((r) => (r instanceof CsvRun ? r.firstLine : undefined));
+    expect(adapter.lines.filter((_, i) => first[i] !== undefined)).toEqual(
+      first.filter((x) => x !== undefined),
+    );
+  });
+
+  it('writes the rows of a run the store refused again one by one: only the bad row is dead-lettered, with its line', async () => {
+    const { text, lineOf } = csv(3000, '\n', new Map([[1777, '1777,BAD,ok']]));
+    const adapter = new MemoryAdapter<Record>();
+    // The store refuses whatever holds the bad row: the run first, then the row alone.
+    adapter.refuse = (r) => (r instanceof CsvRun || r instanceof CsvLine) && r.bytes.includes('BAD');
+    const letters: DeadLetter<Record>[] = [];
+    const path = join(dir, 'refused.ndjson');
+    const file = new RejectFile(path);
+    const target = file.deadLetterTarget<Record>((r) => (r instanceof CsvLine ? r.row() : r));
+    const sink = new Sink<Record>(adapter, {
+      deadLetter: {
+        write: async (ls) => {
+          letters.push(...ls);
+          await target.write(ls);
+        },
+      },
+    });
+    const summary = await ingest(Readable.from([text]), sink, {
+      format: 'csv',
+      asCsvLine: (line) => line,
+      asCsvRun: (run) => run,
+    });
+    await sink.close();
+    await file.close();
+    // The run went back whole, then its row alone came to the dead letters.
+    expect(letters.map((l) => l.record.constructor.name)).toEqual(['CsvRun', 'CsvLine']);
+    const rejected = (await readFile(path, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l));
+    expect(rejected).toEqual([
+      {
+        line: lineOf[1777],
+        column: null,
+        reason: 'store',
+        message: 'refused by the memory store',
+        truncated: false,
+        raw: JSON.stringify({ id: '1777', dock: 'BAD', note: 'ok' }),
+      },
+    ]);
+    expect(summary).toMatchObject({ rowsRead: 3000, rowsWritten: 2999, rowsDeadLettered: 1, durable: true });
+    const stored = linesOf(adapter.stored);
+    expect(stored).toHaveLength(2999);
+    expect(new Set(stored).size).toBe(2999);
+    expect(stored.some((l) => l.includes('BAD'))).toBe(false);
+  });
+
+  it('puts every row of a run that cannot go back to its ingest in the reject file, each with its own line', async () => {
+    // Lines 10–14: a record over lines 11–12, a CRLF inside quotes on 13–14.
+    const bytes = Buffer.from('a,1\n"b\nb",2\n"c\r\nc",3');
+    const ended = new CsvRun(bytes, 10, 3, { row: () => ({}) }, { resubmit: () => false });
+    expect(ended.lines().map(({ line, csv }) => [line, csv.bytes.toString()])).toEqual([
+      [10, 'a,1'],
+      [11, '"b\nb",2'],
+      [13, '"c\r\nc",3'],
+    ]);
+    let asked = 0;
+    const running = new CsvRun(
+      bytes,
+      10,
+      3,
+      { row: () => ({}) },
+      {
+        resubmit: () => {
+          asked++;
+          return true;
+        },
+      },
+    );
+    const path = join(dir, 'ended.ndjson');
+    const file = new RejectFile(path);
+    const target = file.deadLetterTarget<CsvRun>();
+    const letter = (record: CsvRun, reason: DeadLetter['reason']): DeadLetter<CsvRun> => ({
+      sink: 's',
+      record,
+      meta: { offset: 10 },
+      reason,
+      error: new Error('refused'),
+      time: 0,
+    });
+    await target.write([letter(ended, 'rejected')]);
+    // Out of retries the rows are not written again: the store is not reached.
+    await target.write([letter(running, 'retries-exhausted')]);
+    await target.write([letter(running, 'rejected')]);
+    await file.close();
+    expect(asked).toBe(1);
+    const rejected = (await readFile(path, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l) as { line: number; reason: string });
+    expect(rejected.map((r) => [r.line, r.reason])).toEqual([
+      [10, 'store'],
+      [11, 'store'],
+      [13, 'store'],
+      [10, 'store'],
+      [11, 'store'],
+      [13, 'store'],
+    ]);
+  });
+});
