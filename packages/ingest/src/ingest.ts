@@ -129,7 +129,12 @@ async function run<T>(
   // Text columns need no field values at all: records stay bytes after the header.
   const reader: ItemReader =
     format === 'csv'
-      ? csvReader(o.delimiter, o.maxRowBytes, asLine !== undefined && !o.columns)
+      ? csvReader(
+          o.delimiter,
+          o.maxRowBytes,
+          asLine !== undefined && !o.columns,
+          asRun !== undefined && !o.columns,
+        )
       : ndjsonReader(o.maxRowBytes);
 
   // Count this run's records as the sink settles them; other writers may share the sink.
@@ -273,12 +278,16 @@ async function run<T>(
   const endRun = (): Promise<void> | undefined => {
     if (area === undefined) return undefined;
     const bytes = crs.length === 0 ? area.subarray(0, areaEnd) : withoutCrs(area, areaEnd, crs);
-    const rows = areaRows;
     area = undefined;
     crs.length = 0;
-    if (rows === 1) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(areaLine));
-    const r = new CsvRun(bytes, areaLine, rows, layout!, owner);
-    const meta = metaOf(areaLine, rows);
+    return acceptRun(bytes, areaLine, areaRows);
+  };
+
+  /** Rows that go as their lines, LF between them, as one record (one row: its line). */
+  const acceptRun = (bytes: Buffer, line: number, rows: number): Promise<void> | undefined => {
+    if (rows === 1) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(line));
+    const r = new CsvRun(bytes, line, rows, layout!, owner);
+    const meta = metaOf(line, rows);
     runMetas.set(r, meta);
     return accept(asRun!(r), meta);
   };
@@ -348,6 +357,13 @@ async function run<T>(
       header = headerMap(item.fields, o.columns);
       if (asLine) layout = lineLayout(header, o.delimiter);
       return undefined;
+    }
+    if (item.kind === 'run') {
+      // Plain rows of the header's width, found by the reader: valid as they are.
+      s.rowsRead += item.count;
+      const wait = endRun();
+      if (wait) return wait.then(() => acceptRun(item.raw, item.line, item.count));
+      return acceptRun(item.raw, item.line, item.count);
     }
     s.rowsRead++;
     if (item.kind === 'reject') {

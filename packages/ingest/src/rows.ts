@@ -9,6 +9,11 @@ export type Item =
   | { readonly kind: 'fields'; readonly line: number; readonly raw: Buffer; readonly fields: string[] }
   /** A well-formed UTF-8 CSV record left as its bytes (`csvReader` with `lines`). */
   | { readonly kind: 'line'; readonly line: number; readonly raw: Buffer }
+  /**
+   * Consecutive plain UTF-8 records of the header's width, as their bytes with LF between them
+   * (`csvReader` with `runs`; see `CsvFramer.runWidth`).
+   */
+  | { readonly kind: 'run'; readonly line: number; readonly raw: Buffer; readonly count: number }
   | { readonly kind: 'value'; readonly line: number; readonly raw: Buffer; readonly value: unknown }
   | { readonly kind: 'blank'; readonly line: number }
   | {
@@ -34,18 +39,39 @@ const LF = Buffer.from('\n');
 /**
  * CSV: the framer finds records and isolates malformed ones; the well-formed records of a chunk
  * are then decoded at once and split into fields in one call. With `lines`, every well-formed
- * record after the first (the header) is left as its bytes instead (kind `line`).
+ * record after the first (the header) is left as its bytes instead (kind `line`); with `runs` as
+ * well, consecutive plain records of the header's width come as one item (kind `run`).
  */
-export function csvReader(delimiter: number, maxRowBytes: number, lines = false): ItemReader {
+export function csvReader(delimiter: number, maxRowBytes: number, lines = false, runs = false): ItemReader {
   const framer = new CsvFramer(delimiter, maxRowBytes);
   let lastLine = 0;
   let first = true;
-  const items = (frames: CsvFrame[]): Item[] => {
+  /** The frames, with each run that is not all UTF-8 framed again record by record. */
+  const utf8Runs = (frames: CsvFrame[]): CsvFrame[] => {
+    let out: CsvFrame[] | undefined;
+    for (let i = 0; i < frames.length; i++) {
+      const f = frames[i]!;
+      if (f.rows && !isUtf8(f.bytes)) {
+        out ??= frames.slice(0, i);
+        const again = new CsvFramer(delimiter, maxRowBytes, f.line, false);
+        out.push(...again.push(f.bytes), ...again.end());
+      } else out?.push(f);
+    }
+    return out ?? frames;
+  };
+  const items = (framed: CsvFrame[]): Item[] => {
+    const frames = runs ? utf8Runs(framed) : framed;
     const out: Item[] = new Array(frames.length);
     const good: number[] = [];
+    let header = -1;
     for (let i = 0; i < frames.length; i++) {
       const f = frames[i]!;
       lastLine = f.line;
+      if (f.rows) {
+        lastLine = f.rows.lastLine;
+        out[i] = { kind: 'run', line: f.line, raw: f.bytes, count: f.rows.count };
+        continue;
+      }
       if (f.error) {
         out[i] = {
           kind: 'reject',
@@ -67,7 +93,10 @@ export function csvReader(delimiter: number, maxRowBytes: number, lines = false)
           truncated: false,
         };
       } else if (lines && !first) out[i] = { kind: 'line', line: f.line, raw: f.bytes };
-      else good.push(i);
+      else {
+        if (first) header = good.length;
+        good.push(i);
+      }
       first = false;
     }
     if (good.length === 0) return out;
@@ -81,6 +110,8 @@ export function csvReader(delimiter: number, maxRowBytes: number, lines = false)
       const f = frames[good[k]!]!;
       out[good[k]!] = { kind: 'fields', line: f.line, raw: f.bytes, fields: records[k]! };
     }
+    // Runs are of the header's width (the records of later chunks: this one is framed already).
+    if (runs && header >= 0) framer.runWidth = records[header]!.length;
     return out;
   };
   return {
