@@ -16,9 +16,10 @@
  * - The length of a record is measured without its line break (LF or CRLF).
  * - A UTF-8 byte order mark is skipped at the start of the input only; anywhere else it is data.
  *
- * With `runWidth` set, consecutive plain records are found in one pass and given as one frame
- * (`rows`): each well formed, of `runWidth` fields, none empty and unquoted, no CR outside quotes
- * but the one of a CRLF line break, not a lone `\.`, within the size limit, whole in the chunk.
+ * After `frameRuns(width, check)`, consecutive plain records are found in one pass and given as
+ * one frame (`rows`): each well formed, of `width` fields, none empty and unquoted, no CR outside
+ * quotes but the one of a CRLF line break, not a lone `\.`, within the size limit, whole in the
+ * chunk, and passing `check` (typed columns).
  * Their bytes are those of the input, with LF for each CRLF between two of them. Any other record
  * ends the run and is framed alone as before.
  */
@@ -28,6 +29,12 @@ const CR = 0x0d;
 const QUOTE = 0x22;
 const BACKSLASH = 0x5c;
 const DOT = 0x2e;
+
+/**
+ * A check of a plain record's fields in `chunk`: field k spans `fieldAt[k]` to `fieldAt[k + 1] - 1`
+ * (quotes included). False ends the run before the record.
+ */
+export type RecordCheck = (chunk: Buffer, fieldAt: Int32Array) => boolean;
 
 /** One record found in the input. `bytes` excludes the line break. */
 export interface CsvFrame {
@@ -79,7 +86,10 @@ export class CsvFramer {
   /** Blank lines seen (skipped; RFC 4180 has none, spreadsheets write them). */
   blankLines = 0;
   /** Fields of a plain record, when runs of them are wanted (0: every record framed alone). */
-  runWidth = 0;
+  private runWidth = 0;
+  private runCheck: RecordCheck | undefined;
+  /** Where each field of the record being scanned starts, and (last) where its line break is. */
+  private fieldAt = new Int32Array(1);
   /** Where the CRs of CRLF line breaks inside the run being scanned are, from its start. */
   private readonly runCrs: number[] = [];
 
@@ -96,6 +106,16 @@ export class CsvFramer {
     this.line = firstLine;
     this.startLine = firstLine;
     this.atStart = input;
+  }
+
+  /**
+   * From the next chunk on, frames runs of plain records of `width` fields that pass `check` too
+   * (see the class comment).
+   */
+  frameRuns(width: number, check?: RecordCheck): void {
+    this.runWidth = width;
+    this.runCheck = check;
+    this.fieldAt = new Int32Array(width + 1);
   }
 
   /** The physical line the reader is on (1-based). */
@@ -252,6 +272,8 @@ export class CsvFramer {
     const delim = this.delimiter;
     const width = this.runWidth;
     const max = this.maxRecordBytes;
+    const check = this.runCheck;
+    const fieldAt = this.fieldAt;
     const crs = this.runCrs;
     crs.length = 0;
     let p = from;
@@ -266,6 +288,7 @@ export class CsvFramer {
       let innerLines = 0;
       let crlf = false;
       let i = p;
+      fieldAt[0] = p;
       for (; i < n; i++) {
         const c = chunk[i]!;
         if (quoted) {
@@ -279,8 +302,8 @@ export class CsvFramer {
           continue;
         }
         if (c === delim) {
-          if (fieldStart) break records;
-          fields++;
+          if (fieldStart || fields === width) break records;
+          fieldAt[fields++] = i + 1;
           fieldStart = true;
           continue;
         }
@@ -306,6 +329,8 @@ export class CsvFramer {
       const recordEnd = crlf ? i - 1 : i;
       const length = recordEnd - p;
       if (length > max || (length === 2 && chunk[p] === BACKSLASH && chunk[p + 1] === DOT)) break;
+      fieldAt[width] = recordEnd + 1;
+      if (check !== undefined && !check(chunk, fieldAt)) break;
       if (count > 0 && chunk[end] === CR) crs.push(end - from);
       count++;
       lastLine = line;

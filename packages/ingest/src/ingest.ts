@@ -12,6 +12,7 @@ import {
   EMPTY_FIELD,
   type LineLayout,
   NOT_A_LINE,
+  plainCheck,
   quoteEmptyFields,
   scanLine,
 } from './csv-line.js';
@@ -129,12 +130,7 @@ async function run<T>(
   // Text columns need no field values at all: records stay bytes after the header.
   const reader: ItemReader =
     format === 'csv'
-      ? csvReader(
-          o.delimiter,
-          o.maxRowBytes,
-          asLine !== undefined && !o.columns,
-          asRun !== undefined && !o.columns,
-        )
+      ? csvReader(o.delimiter, o.maxRowBytes, asLine !== undefined && !o.columns)
       : ndjsonReader(o.maxRowBytes);
 
   // Count this run's records as the sink settles them; other writers may share the sink.
@@ -337,6 +333,16 @@ async function run<T>(
   let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
   const needHeader = format === 'csv' && o.header;
   let layout: LineLayout | undefined = header && asLine ? lineLayout(header, o.delimiter) : undefined;
+  /** Once the columns are known: runs of plain rows from the reader, where they can go as lines. */
+  const frameRuns = (h: HeaderMap) => {
+    if (!asRun || !reader.frameRuns) return;
+    if (!h.columns) reader.frameRuns(h.width);
+    else if (h.inOrder) {
+      const check = plainCheck(h.columns);
+      if (check) reader.frameRuns(h.width, check);
+    }
+  };
+  if (header) frameRuns(header);
 
   /** Handles one item; returns a promise only when it has to wait (a full sink, a reject target, an async schema). */
   const handle = (item: Item): Promise<void> | undefined => {
@@ -356,6 +362,7 @@ async function run<T>(
         );
       header = headerMap(item.fields, o.columns);
       if (asLine) layout = lineLayout(header, o.delimiter);
+      frameRuns(header);
       return undefined;
     }
     if (item.kind === 'run') {

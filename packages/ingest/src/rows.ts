@@ -1,6 +1,6 @@
 import { isUtf8 } from 'node:buffer';
 import { splitRecords } from './csv-fields.js';
-import { type CsvFrame, CsvFramer } from './csv-framer.js';
+import { type CsvFrame, CsvFramer, type RecordCheck } from './csv-framer.js';
 import { LineFramer } from './line-framer.js';
 import type { RejectReason } from './reject.js';
 
@@ -29,6 +29,8 @@ export type Item =
 /** Turns chunks of input into items; `end()` returns the last ones. */
 export interface ItemReader {
   push(chunk: Buffer): Item[];
+  /** CSV: from the next chunk on, give runs of plain records (`CsvFramer.frameRuns`). */
+  frameRuns?(width: number, check?: RecordCheck): void;
   end(): Item[];
   readonly blankLines: number;
   readonly lastLine: number;
@@ -39,10 +41,11 @@ const LF = Buffer.from('\n');
 /**
  * CSV: the framer finds records and isolates malformed ones; the well-formed records of a chunk
  * are then decoded at once and split into fields in one call. With `lines`, every well-formed
- * record after the first (the header) is left as its bytes instead (kind `line`); with `runs` as
- * well, consecutive plain records of the header's width come as one item (kind `run`).
+ * record after the first (the header) is left as its bytes instead (kind `line`). Once told
+ * (`frameRuns`), consecutive plain records come as one item (kind `run`).
  */
-export function csvReader(delimiter: number, maxRowBytes: number, lines = false, runs = false): ItemReader {
+export function csvReader(delimiter: number, maxRowBytes: number, lines = false): ItemReader {
+  let runs = false;
   const framer = new CsvFramer(delimiter, maxRowBytes);
   let lastLine = 0;
   let first = true;
@@ -63,7 +66,6 @@ export function csvReader(delimiter: number, maxRowBytes: number, lines = false,
     const frames = runs ? utf8Runs(framed) : framed;
     const out: Item[] = new Array(frames.length);
     const good: number[] = [];
-    let header = -1;
     for (let i = 0; i < frames.length; i++) {
       const f = frames[i]!;
       lastLine = f.line;
@@ -93,10 +95,7 @@ export function csvReader(delimiter: number, maxRowBytes: number, lines = false,
           truncated: false,
         };
       } else if (lines && !first) out[i] = { kind: 'line', line: f.line, raw: f.bytes };
-      else {
-        if (first) header = good.length;
-        good.push(i);
-      }
+      else good.push(i);
       first = false;
     }
     if (good.length === 0) return out;
@@ -110,13 +109,15 @@ export function csvReader(delimiter: number, maxRowBytes: number, lines = false,
       const f = frames[good[k]!]!;
       out[good[k]!] = { kind: 'fields', line: f.line, raw: f.bytes, fields: records[k]! };
     }
-    // Runs are of the header's width (the records of later chunks: this one is framed already).
-    if (runs && header >= 0) framer.runWidth = records[header]!.length;
     return out;
   };
   return {
     push: (chunk) => items(framer.push(chunk)),
     end: () => items(framer.end()),
+    frameRuns(width, check) {
+      runs = true;
+      framer.frameRuns(width, check);
+    },
     get blankLines() {
       return framer.blankLines;
     },

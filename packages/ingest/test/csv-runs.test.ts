@@ -7,7 +7,7 @@ import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { type DeadLetter, Sink } from '@spillway/core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { CsvLine, CsvRun, ingest, type Reject, RejectFile, type Row } from '../src/index.js';
+import { type ColumnSpec, CsvLine, CsvRun, ingest, type Reject, RejectFile, type Row } from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
 let dir: string;
@@ -43,7 +43,92 @@ function linesOf(records: readonly Record[]): string[] {
   return out;
 }
 
+/** mulberry32, a small seeded generator (public domain, from memory). */
+function random(seed: number): () => number {
+  let a = seed >>> 0;
+  return () => {
+    a = (a + 0x6d2b79f5) >>> 0;
+    let t = a;
+    t = Math.imul(t ^ (t >>> 15), t | 1);
+    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
+    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
+  };
+}
+
+/** Spellings per type: the first plain, the others not (quoted, other forms, invalid, missing). */
+const SPELLINGS = {
+  string: ['DK-1', 'é', '""', '"a, b"', '"two\nlines"', '"say ""hi"""', ''],
+  integer: ['5', '-12', '0', '-0', '007', '+5', '"5"', 'x', '9007199254740993', ''],
+  number: ['1.5', '0.1', '-3', '1.50', '1e3', '0.0000001', '"2"', 'abc', ''],
+  boolean: ['true', 'false', 'TRUE', 't', '"true"', 'maybe', ''],
+  timestamp: [
+    '2024-05-01T10:00:00Z',
+    '2024-05-01T10:00:00.123456+02:00',
+    '2024-05-01',
+    '2024-13-01T00:00:00Z',
+    '"2024-05-01T10:00:00Z"',
+    '',
+  ],
+} as const;
+
+/** What an ingest handed the sink, row by row: each row's line, and its text or its object. */
+async function typedIngest(text: string, runs: boolean, spec: ColumnSpec[]) {
+  const adapter = new MemoryAdapter<Record>();
+  const sink = new Sink(adapter);
+  const rejects: Reject[] = [];
+  const pieces: Buffer[] = [];
+  const bytes = Buffer.from(text);
+  for (let at = 0; at < bytes.length; at += 700) pieces.push(bytes.subarray(at, at + 700));
+  const summary = await ingest(Readable.from(pieces), sink, {
+    format: 'csv',
+    columns: spec,
+    rejects: { write: (r) => void rejects.push(r) },
+    asCsvLine: (line) => line,
+    ...(runs && { asCsvRun: (run: CsvRun) => run }),
+  });
+  await sink.close();
+  const rows: Array<[number, string]> = [];
+  adapter.stored.forEach((r, i) => {
+    if (r instanceof CsvRun) for (const { line, csv } of r.lines()) rows.push([line, csv.bytes.toString()]);
+    else if (r instanceof CsvLine) rows.push([adapter.lines[i]!, r.bytes.toString()]);
+    else rows.push([adapter.lines[i]!, JSON.stringify(r)]);
+  });
+  return {
+    rows,
+    records: adapter.stored.length,
+    rejects: rejects.map((r) => [r.line, r.reason, r.column]),
+    summary,
+  };
+}
+
 describe('runs of valid CSV rows', () => {
+  it('hand typed columns the same rows, lines and rejects as row by row, for random spellings', async () => {
+    const rnd = random(20261203);
+    const pick = <T>(xs: readonly T[]): T => xs[Math.floor(rnd() * xs.length)]!;
+    let fewer = 0;
+    for (let d = 0; d < 40; d++) {
+      const types = Array.from({ length: 1 + Math.floor(rnd() * 4) }, () =>
+        pick(['string', 'integer', 'number', 'boolean', 'timestamp'] as const),
+      );
+      const spec: ColumnSpec[] = types.map((type, i) => ({ name: `c${i}`, type, required: rnd() < 0.3 }));
+      const eol = pick(['\n', '\r\n']);
+      let text = `${spec.map((c) => c.name).join(',')}${eol}`;
+      for (let r = 0; r < 300; r++) {
+        // Mostly the plain first spellings, so that runs form between the others.
+        const fields = types.map((t) => (rnd() < 0.9 ? SPELLINGS[t][0] : pick(SPELLINGS[t])));
+        text += `${fields.join(',')}${eol}`;
+      }
+      const byRow = await typedIngest(text, false, spec);
+      const byRun = await typedIngest(text, true, spec);
+      expect(byRun.rows, `document ${d}: ${JSON.stringify(text.slice(0, 200))}`).toEqual(byRow.rows);
+      expect(byRun.rejects).toEqual(byRow.rejects);
+      expect(byRun.summary.rowsWritten).toBe(byRow.summary.rowsWritten);
+      if (byRun.records < byRow.records) fewer++;
+    }
+    // Runs formed in most documents.
+    expect(fewer).toBeGreaterThan(30);
+  });
+
   it('hands consecutive valid rows on as runs and counts rows, not records, in the summary', async () => {
     const { text, lineOf } = csv(5000, '\r\n', new Map([[2000, '2000,DK-0']])); // a ragged row ends a run
     const adapter = new MemoryAdapter<Record>();

@@ -4,7 +4,7 @@
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
 import { convert, resolveColumns } from '../src/columns.js';
-import { isPlainDecimal } from '../src/csv-line.js';
+import { isPlainDecimal, isPlainDecimalAt, isPlainInteger, isPlainIntegerAt } from '../src/csv-line.js';
 
 const [column] = resolveColumns([{ name: 'x', type: 'number' }]);
 
@@ -40,6 +40,24 @@ describe('plain decimals', () => {
     );
     // The property above held for a good share of accepted texts, not vacuously.
     expect(plains).toBeGreaterThan(10_000);
+  });
+
+  it('reads bytes as it reads text: the checks on the bytes of a record agree with those on its fields', () => {
+    const numberish = fc
+      .array(fc.constantFrom('0', '1', '5', '9', '.', '-', 'e', '+', ' '), { minLength: 0, maxLength: 20 })
+      .map((cs) => cs.join(''));
+    fc.assert(
+      fc.property(numberish, fc.nat(3), (text, pad) => {
+        // The text inside a larger buffer, as a field of a record is.
+        const b = Buffer.from(`${'x'.repeat(pad)}${text}${'y'.repeat(pad)}`, 'latin1');
+        const end = pad + text.length;
+        return (
+          isPlainDecimalAt(b, pad, end) === isPlainDecimal(text) &&
+          isPlainIntegerAt(b, pad, end) === isPlainInteger(text)
+        );
+      }),
+      { seed: 17, numRuns: 50_000 },
+    );
   });
 
   it('takes the common spellings and leaves the others to conversion', () => {
