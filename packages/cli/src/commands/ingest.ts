@@ -168,7 +168,7 @@ export function registerIngest(program: Command): void {
     // batching
     .option(
       '--batch-size <n>',
-      'rows per batch written to the store (default 5000 into PostgreSQL in copy mode, else 1000)',
+      'records per batch written to the store, at most 2 MiB (default 5000 into PostgreSQL in copy mode, where a record is a run of consecutive valid rows, up to 16 KiB; else 1000 rows)',
       int('--batch-size', 1),
     )
     .option(
