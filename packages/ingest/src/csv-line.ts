@@ -12,7 +12,7 @@
  * With declared columns, a row goes as its line only when each value is written as it is spelled
  * (`checkInOrder`); the rules are in the package README.
  */
-import { convert, isTimestamp, type ResolvedColumn } from './columns.js';
+import { convert, isTimestamp, isTimestampAt, type ResolvedColumn } from './columns.js';
 import type { RecordCheck } from './csv-framer.js';
 import type { Row } from './options.js';
 import type { RejectReason } from './reject.js';
@@ -174,7 +174,7 @@ export function plainCheck(columns: readonly ResolvedColumn[]): RecordCheck | un
         if (!isPlainIntegerAt(chunk, start, end)) return false;
       } else if (type === 'number') {
         if (!isPlainDecimalAt(chunk, start, end)) return false;
-      } else if (end - start <= 10 || !isTimestamp(chunk.toString('latin1', start, end))) return false;
+      } else if (end - start <= 10 || !isTimestampAt(chunk, start, end)) return false;
     }
     return true;
   };
