@@ -225,7 +225,8 @@ async function run<T>(
     ...(rows !== 1 && { rows }),
   });
   // Synchronous while the sink has room: a promise per record would cost more than the record.
-  const accept = (record: T, meta: IngestMeta): Promise<void> | undefined => {
+  // `again`: a row of a refused run, written again; read before any abort, it is not aborted.
+  const accept = (record: T, meta: IngestMeta, again = false): Promise<void> | undefined => {
     const rows = meta.rows ?? 1;
     let taken: boolean;
     try {
@@ -237,7 +238,7 @@ async function run<T>(
       s.accepted += rows;
       return undefined;
     }
-    return sink.write(record, meta, writeOptions).then(
+    return sink.write(record, meta, again ? undefined : writeOptions).then(
       () => {
         s.accepted += rows;
       },
@@ -320,13 +321,19 @@ async function run<T>(
     return accept(record, metaOf(line));
   };
 
+  /** Rows of `handedBack[0]` written again so far. */
+  let rewritten = 0;
   /** Writes the rows of refused runs again, one row per record. */
   const rewrite = async (): Promise<void> => {
-    for (let r = handedBack.shift(); r !== undefined; r = handedBack.shift()) {
-      for (const { line, csv } of r.lines()) {
-        const wait = accept(asLine!(csv), metaOf(line));
+    while (handedBack.length > 0) {
+      const lines = handedBack[0]!.lines();
+      for (; rewritten < lines.length; rewritten++) {
+        const { line, csv } = lines[rewritten]!;
+        const wait = accept(asLine!(csv), metaOf(line), true);
         if (wait) await wait;
       }
+      handedBack.shift();
+      rewritten = 0;
     }
   };
 
@@ -529,6 +536,28 @@ async function run<T>(
     }
   }
   ended = true;
+  // Rows of refused runs the sink could not take again (it failed, or the upload stopped with it):
+  // refused by the store, each with its own line.
+  try {
+    for (const r of handedBack.splice(0)) {
+      const left = r.lines().slice(rewritten);
+      rewritten = 0;
+      s.accepted += left.length;
+      settled.deadLettered += left.length;
+      for (const { line, csv } of left) {
+        await o.rejects?.write({
+          line,
+          column: undefined,
+          reason: 'store',
+          message: 'refused by the store with the rows around it, and not written again: the upload stopped',
+          raw: csv.bytes,
+          truncated: false,
+        });
+      }
+    }
+  } catch (error) {
+    stop ??= new Stop('rejects', `Could not write a reject: ${messageOf(error)}`, error);
+  }
   run.release();
   if (o.ownsRejects) {
     try {

@@ -7,7 +7,16 @@ import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { type DeadLetter, Sink } from '@spillway/core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { type ColumnSpec, CsvLine, CsvRun, ingest, type Reject, RejectFile, type Row } from '../src/index.js';
+import {
+  type ColumnSpec,
+  CsvLine,
+  CsvRun,
+  IngestError,
+  ingest,
+  type Reject,
+  RejectFile,
+  type Row,
+} from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
 let dir: string;
@@ -27,8 +36,9 @@ function csv(rows: number, eol: string, odd = new Map<number, string>()): { text
   let line = 2;
   for (let i = 1; i <= rows; i++) {
     lineOf[i] = line;
-    text += `${odd.get(i) ?? `${i},DK-${i % 10},${i % 4 === 0 ? `"tyre${eol}pumped"` : 'ok'}`}${eol}`;
-    line += i % 4 === 0 ? 2 : 1;
+    const record = odd.get(i) ?? `${i},DK-${i % 10},${i % 4 === 0 ? `"tyre${eol}pumped"` : 'ok'}`;
+    text += `${record}${eol}`;
+    line += record.split('\n').length;
   }
   return { text, lineOf };
 }
@@ -259,5 +269,49 @@ describe('runs of valid CSV rows', () => {
       [11, 'store'],
       [13, 'store'],
     ]);
+  });
+  it('puts the rows of a refused run in the reject target, each with its line, when the sink fails before they are written again', async () => {
+    const { text, lineOf } = csv(2000, '\n', new Map([[1500, '1500,BAD,ok']]));
+    const adapter = new MemoryAdapter<Record>();
+    adapter.refuse = (r) => r instanceof CsvRun && r.bytes.includes('BAD');
+    const path = join(dir, 'stopped.ndjson');
+    const file = new RejectFile(path);
+    const target = file.deadLetterTarget<Record>();
+    let handedBack = 0;
+    const sink = new Sink<Record>(adapter, {
+      deadLetter: {
+        // The run goes back to the ingest, then the dead-letter store fails: so does the sink.
+        write: async (letters) => {
+          await target.write(letters);
+          handedBack += letters.length;
+          throw new Error('the dead-letter store is gone');
+        },
+      },
+    });
+    const error = await ingest(Readable.from([text]), sink, {
+      format: 'csv',
+      rejects: file,
+      asCsvLine: (line) => line,
+      asCsvRun: (run) => run,
+    }).catch((e: unknown) => e);
+    await sink.close().catch(() => undefined);
+    await file.close();
+    expect(handedBack).toBe(1);
+    expect(error).toBeInstanceOf(IngestError);
+    const summary = (error as IngestError).summary;
+    const rejected = (await readFile(path, 'utf8'))
+      .trim()
+      .split('\n')
+      .map((l) => JSON.parse(l) as { line: number; reason: string; raw: string });
+    // Every row of the refused run is in the reject file with its own line, the bad one too.
+    expect(rejected.length).toBeGreaterThan(1);
+    expect(rejected.every((r) => r.reason === 'store')).toBe(true);
+    expect(rejected.map((r) => r.line)).toContain(lineOf[1500]);
+    for (const r of rejected) expect(lineOf.indexOf(r.line)).toBe(Number(r.raw.split(',')[0]));
+    // And every row of the file is accounted for: written, refused, or pending in the failed sink.
+    expect(summary.rowsRead).toBe(2000);
+    expect(summary.rowsDeadLettered).toBe(rejected.length);
+    expect(summary.rowsWritten + summary.rowsDeadLettered + summary.rowsPending).toBe(2000);
+    expect(linesOf(adapter.stored)).toHaveLength(summary.rowsWritten);
   });
 });
