@@ -415,8 +415,8 @@ export class CsvFramer {
   }
 }
 
-/** `chunk[from, end)` without the bytes at `from + crs[k]`. */
-function withoutCrs(chunk: Buffer, from: number, end: number, crs: readonly number[]): Buffer {
+/** `chunk[from, end)` without the bytes at `from + crs[k]` (ascending). */
+export function withoutCrs(chunk: Buffer, from: number, end: number, crs: readonly number[]): Buffer {
   const out = Buffer.allocUnsafe(end - from - crs.length);
   let o = 0;
   let at = from;

@@ -18,6 +18,7 @@ import {
 } from './csv-line.js';
 import { CsvRun } from './csv-run.js';
 import { IngestError, type IngestStopReason } from './errors.js';
+import { LineRun } from './line-run.js';
 import {
   type IngestFormat,
   type IngestOptions,
@@ -37,8 +38,6 @@ export type IngestInput = Readable | AsyncIterable<Uint8Array | string>;
 let runs = 0;
 
 const COMMA = 0x2c;
-const LF = 0x0a;
-const CR = 0x0d;
 /** Bytes of input parsed at a time (see the read loop). */
 const READ_SLICE = 16 * 1024;
 
@@ -248,13 +247,8 @@ async function run<T>(
     );
   };
 
-  // The run of rows being gathered (`asCsvRun`): their bytes are `area[0, areaEnd)` less the CR
-  // of each CRLF between two of them, at `crs` (COPY takes one kind of line break per statement).
-  let area: Buffer | undefined;
-  let areaEnd = 0;
-  const crs: number[] = [];
-  let areaLine = 0;
-  let areaRows = 0;
+  // The run of rows being gathered (`asCsvRun`).
+  const gathered = new LineRun();
   const runMetas = new WeakMap<CsvRun, IngestMeta>();
   /** Runs a store refused, whose rows are to be written again one by one. */
   const handedBack: CsvRun[] = [];
@@ -273,11 +267,8 @@ async function run<T>(
 
   /** Hands the run gathered so far to the sink. */
   const endRun = (): Promise<void> | undefined => {
-    if (area === undefined) return undefined;
-    const bytes = crs.length === 0 ? area.subarray(0, areaEnd) : withoutCrs(area, areaEnd, crs);
-    area = undefined;
-    crs.length = 0;
-    return acceptRun(bytes, areaLine, areaRows);
+    const g = gathered.take();
+    return g === undefined ? undefined : acceptRun(g.bytes, g.line, g.rows);
   };
 
   /** Rows that go as their lines, LF between them, as one record (one row: its line). */
@@ -292,25 +283,9 @@ async function run<T>(
   /** A row that goes as its line: into the current run when its bytes follow the run's after an LF. */
   const sendLine = (bytes: Buffer, line: number): Promise<void> | undefined => {
     if (!asRun) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(line));
-    if (area !== undefined && bytes.buffer === area.buffer) {
-      const gap = bytes.byteOffset - area.byteOffset - areaEnd;
-      if (gap === 1 && area[areaEnd] === LF) {
-        areaEnd += 1 + bytes.length;
-        areaRows++;
-        return undefined;
-      }
-      if (gap === 2 && area[areaEnd] === CR && area[areaEnd + 1] === LF) {
-        crs.push(areaEnd);
-        areaEnd += 2 + bytes.length;
-        areaRows++;
-        return undefined;
-      }
-    }
+    if (gathered.join(bytes)) return undefined;
     const wait = endRun();
-    area = Buffer.from(bytes.buffer, bytes.byteOffset, bytes.buffer.byteLength - bytes.byteOffset);
-    areaEnd = bytes.length;
-    areaLine = line;
-    areaRows = 1;
+    gathered.start(bytes, line);
     return wait;
   };
 
@@ -574,19 +549,6 @@ async function run<T>(
     throw new IngestError(stop.reason, stop.message, done, stop.origin);
   }
   return summary(undefined);
-}
-
-/** `area[0, end)` without the bytes at `crs` (ascending). */
-function withoutCrs(area: Buffer, end: number, crs: number[]): Buffer {
-  const out = Buffer.allocUnsafe(end - crs.length);
-  let o = 0;
-  let from = 0;
-  for (const cr of crs) {
-    o += area.copy(out, o, from, cr);
-    from = cr + 1;
-  }
-  area.copy(out, o, from, end);
-  return out;
 }
 
 /** Column positions of a CSV. */
