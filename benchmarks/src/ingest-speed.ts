@@ -7,6 +7,8 @@
 //
 //   npm run build && node benchmarks/dist/ingest-speed.js
 //   INGEST_MB=80 INGEST_RUNS=5 [INGEST_BATCH=10000] SPILLWAY_PG_URL=postgres://postgres@127.0.0.1:5432/test node benchmarks/dist/ingest-speed.js
+//   INGEST_BASELINE_CLI=/path/to/an/older/checkout/packages/cli/dist/bin.js …   (adds phases text0,
+//   typed0: that CLI on the same file, in the same rotation, for before/after ratios in one run)
 import { spawn, spawnSync } from 'node:child_process';
 import { once } from 'node:events';
 import { createReadStream, existsSync } from 'node:fs';
@@ -147,6 +149,7 @@ async function main(): Promise<void> {
   const batch = process.env.INGEST_BATCH;
   const url = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
   const cli = fileURLToPath(new URL('../../packages/cli/dist/bin.js', import.meta.url));
+  const baselineCli = process.env.INGEST_BASELINE_CLI;
   const self = fileURLToPath(import.meta.url);
   const path = join(tmpdir(), `spillway-ingest-speed-${megabytes}.csv`);
   const rssOut = join(tmpdir(), `spillway-ingest-speed-${process.pid}.rss`);
@@ -172,10 +175,10 @@ async function main(): Promise<void> {
   const timeOut = join(tmpdir(), `spillway-ingest-speed-${process.pid}.time`);
   if (!havePsql) console.log('psql not found: the psql ratios are left out');
 
-  const ingestArgs = (typed: boolean) => [
+  const ingestArgs = (typed: boolean, bin = cli) => [
     '--import',
     RSS_HOOK,
-    cli,
+    bin,
     'ingest',
     path,
     '--to',
@@ -212,6 +215,10 @@ async function main(): Promise<void> {
     }),
     text: () => timed(process.execPath, ingestArgs(false), rssOut, pool),
     typed: () => timed(process.execPath, ingestArgs(true), rssOut, pool),
+    ...(baselineCli && {
+      text0: () => timed(process.execPath, ingestArgs(false, baselineCli), rssOut, pool),
+      typed0: () => timed(process.execPath, ingestArgs(true, baselineCli), rssOut, pool),
+    }),
   };
   const names = Object.keys(phases);
   const samples: Record<string, Sample[]> = Object.fromEntries(names.map((n) => [n, []]));
@@ -271,6 +278,10 @@ async function main(): Promise<void> {
   ratio('text', 'read');
   ratio('typed', 'read');
   ratio('psql', 'read');
+  ratio('text', 'text0');
+  ratio('typed', 'typed0');
+  ratio('text0', 'psql');
+  ratio('typed0', 'psql');
   // Rows per CPU second, process and server together: what the phase costs the machine, less
   // disturbed by the other work on it than its wall-clock time.
   const cpuRatio = (a: string, b: string) => {
@@ -291,6 +302,10 @@ async function main(): Promise<void> {
   console.log('\nratios of rows per CPU second (process + server), within each run:');
   cpuRatio('text', 'psql');
   cpuRatio('typed', 'psql');
+  cpuRatio('text', 'text0');
+  cpuRatio('typed', 'typed0');
+  cpuRatio('text0', 'psql');
+  cpuRatio('typed0', 'psql');
   console.log(
     `load average at the end: ${loadavg()
       .map((l) => l.toFixed(1))

@@ -129,6 +129,57 @@ describe('spillway ingest', () => {
     ]);
   });
 
+  it('in copy mode sends rows in runs, and a row the store refuses inside a run is rejected alone with its line and SQLSTATE', async () => {
+    await db.pool.query(
+      'CREATE TABLE service_runs (id int PRIMARY KEY, dock text NOT NULL, km int NOT NULL CHECK (km < 1000), note text)',
+    );
+    const n = 4000;
+    let csv = 'id,dock,km,note\r\n';
+    for (let i = 1; i <= n; i++)
+      csv += `${i},DK-${i % 50},${i === 2345 ? 5000 : i % 900},${i % 9 === 0 ? '"chain\r\noiled"' : 'ok'}\r\n`;
+    // Row 2345 starts on line 2 + 2344 + floor(2344 / 9) (every 9th row spans two lines).
+    const line = 2 + 2344 + Math.floor(2344 / 9);
+    const file = join(dir, 'service-runs.csv');
+    await writeFile(file, csv);
+    for (const columns of [[], ['--columns', 'id:integer!,dock!,km:integer!,note']]) {
+      await db.pool.query('TRUNCATE service_runs');
+      const rejects = join(dir, 'service-runs.rejects.ndjson');
+      const summaryPath = join(dir, 'service-runs.summary.json');
+      const { code } = await spillway(
+        file,
+        '--to',
+        pgTarget(),
+        '--table',
+        'service_runs',
+        ...columns,
+        '--progress',
+        'none',
+        '--rejects',
+        rejects,
+        '--summary',
+        summaryPath,
+      );
+      expect(code).toBe(2);
+      const rejected = (await readFile(rejects, 'utf8'))
+        .trim()
+        .split('\n')
+        .map((l) => JSON.parse(l));
+      expect(rejected).toHaveLength(1);
+      expect(rejected[0]).toMatchObject({ line, reason: 'store' });
+      expect(rejected[0].message).toContain('SQLSTATE 23514');
+      const { rows } = await db.pool.query(
+        'SELECT count(*)::int AS n, count(DISTINCT id)::int AS ids, sum(id)::bigint AS sum FROM service_runs',
+      );
+      expect(rows[0]).toEqual({ n: n - 1, ids: n - 1, sum: String((n * (n + 1)) / 2 - 2345) });
+      expect(JSON.parse(await readFile(summaryPath, 'utf8'))).toMatchObject({
+        rowsRead: n,
+        rowsWritten: n - 1,
+        rowsDeadLettered: 1,
+        durable: true,
+      });
+    }
+  });
+
   it('exits 1 when more rows are rejected than --max-rejects allows', async () => {
     const { code, out } = await spillway(
       join(dir, 'service-records-with-errors.csv'),

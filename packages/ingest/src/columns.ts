@@ -205,6 +205,11 @@ const TIMESTAMP_ERRORS = {
   precision: 'more than 6 fractional digits (microseconds) cannot be stored exactly',
 } as const;
 
+/** What `readTimestamp` found, kept here so that checking a timestamp allocates nothing. */
+const stamp = { utcMin: 0, sec: 0, fracStart: 0, fracEnd: 0, dateOnly: false };
+/** The text of a timestamp as bytes, for `readTimestamp` (grown when a longer one comes). */
+let scratch = Buffer.alloc(64);
+
 /**
  * Validates an RFC 3339 timestamp without a JS `Date` (which keeps only milliseconds), and returns
  * the text to store: the text as sent (every digit kept), or for a date alone its UTC midnight
@@ -214,47 +219,84 @@ const TIMESTAMP_ERRORS = {
 export function timestamp(
   text: string,
 ): { text: string; ms: number; subMs: boolean } | keyof typeof TIMESTAMP_ERRORS {
+  const error = readText(text);
+  if (error !== undefined) return error;
+  const { utcMin, sec, fracStart, fracEnd, dateOnly } = stamp;
+  const digits = fracEnd - fracStart;
+  const ms =
+    utcMin * 60_000 +
+    sec * 1000 +
+    (digits === 0 ? 0 : Number(text.slice(fracStart, fracStart + 3).padEnd(3, '0')));
+  const subMs = digits > 3 && /[1-9]/.test(text.slice(fracStart + 3, fracEnd));
+  return { text: dateOnly ? `${text}T00:00:00Z` : text, ms, subMs };
+}
+
+/** True when `text` is a timestamp `timestamp()` accepts (without computing its instant). */
+export function isTimestamp(text: string): boolean {
+  return readText(text) === undefined;
+}
+
+/** `isTimestamp` of the text in `b[start, end)`, read as bytes (no string made). */
+export function isTimestampAt(b: Buffer, start: number, end: number): boolean {
+  return readTimestamp(b, start, end - start) === undefined;
+}
+
+/** `readTimestamp` of a string: RFC 3339 is ASCII, so a string with any other character is not one. */
+function readText(text: string): keyof typeof TIMESTAMP_ERRORS | undefined {
+  const n = text.length;
+  for (let i = 0; i < n; i++) if (text.charCodeAt(i) > 0x7f) return 'form';
+  if (n > scratch.length) scratch = Buffer.alloc(n);
+  scratch.write(text, 'latin1');
+  return readTimestamp(scratch, 0, n);
+}
+
+/**
+ * Checks the text in `b[o, o + n)` against RFC 3339 and what PostgreSQL can hold; fills `stamp`
+ * (fraction positions counted from `o`) when it passes. Reads nothing past `o + n`.
+ */
+function readTimestamp(b: Buffer, o: number, n: number): keyof typeof TIMESTAMP_ERRORS | undefined {
   // The grammar of RFC 3339 above, read by hand: a regular expression's match array costs more
   // than the rest of the check.
-  const n = text.length;
-  if (n < 10 || text.charCodeAt(4) !== DASH || text.charCodeAt(7) !== DASH) return 'form';
-  const y100 = twoDigits(text, 0);
-  const y = y100 < 0 ? -1 : y100 * 100 + twoDigits(text, 2);
-  const mo = twoDigits(text, 5);
-  const d = twoDigits(text, 8);
+  if (n < 10 || b[o + 4] !== DASH || b[o + 7] !== DASH) return 'form';
+  const y100 = twoDigits(b, o);
+  const y = y100 < 0 ? -1 : y100 * 100 + twoDigits(b, o + 2);
+  const mo = twoDigits(b, o + 5);
+  const d = twoDigits(b, o + 8);
   if (y100 < 0 || y < y100 * 100 || mo < 0 || d < 0) return 'form';
   let h = 0;
   let mi = 0;
   let sec = 0;
-  let fraction = '';
+  let fracStart = 0;
+  let fracEnd = 0;
   let sign = 1;
   let oh = 0;
   let om = 0;
   const dateOnly = n === 10;
   if (!dateOnly) {
-    const sep = text.charCodeAt(10);
+    const sep = b[o + 10];
     if (sep !== 0x54 && sep !== 0x74 && sep !== 0x20) return 'form'; // T, t, space
-    if (n < 20 || text.charCodeAt(13) !== COLON || text.charCodeAt(16) !== COLON) return 'form';
-    h = twoDigits(text, 11);
-    mi = twoDigits(text, 14);
-    sec = twoDigits(text, 17);
+    if (n < 20 || b[o + 13] !== COLON || b[o + 16] !== COLON) return 'form';
+    h = twoDigits(b, o + 11);
+    mi = twoDigits(b, o + 14);
+    sec = twoDigits(b, o + 17);
     if (h < 0 || mi < 0 || sec < 0) return 'form';
     let i = 19;
-    if (text.charCodeAt(i) === 0x2e) {
+    if (b[o + i] === 0x2e) {
       let j = i + 1;
-      while (j < n && isDigit(text.charCodeAt(j))) j++;
+      while (j < n && isDigit(b[o + j]!)) j++;
       if (j === i + 1) return 'form';
-      fraction = text.slice(i + 1, j);
+      fracStart = i + 1;
+      fracEnd = j;
       i = j;
     }
-    const z = text.charCodeAt(i);
+    const z = i < n ? b[o + i] : -1;
     if (z === 0x5a || z === 0x7a) {
       if (i + 1 !== n) return 'form';
     } else if (z === 0x2b || z === DASH) {
-      if (i + 6 !== n || text.charCodeAt(i + 3) !== COLON) return 'form';
+      if (i + 6 !== n || b[o + i + 3] !== COLON) return 'form';
       sign = z === DASH ? -1 : 1;
-      oh = twoDigits(text, i + 1);
-      om = twoDigits(text, i + 4);
+      oh = twoDigits(b, o + i + 1);
+      om = twoDigits(b, o + i + 4);
       if (oh < 0 || om < 0) return 'form';
     } else return 'form';
   }
@@ -267,7 +309,7 @@ export function timestamp(
   // on PostgreSQL 15).
   if (oh > 15) return 'offset';
   // PostgreSQL keeps microseconds and rounds the rest: refuse what would not land exactly.
-  if (fraction.length > 6 && !/^0+$/.test(fraction.slice(6))) return 'precision';
+  for (let k = fracStart + 6; k < fracEnd; k++) if (b[o + k] !== 0x30) return 'precision';
   const offsetMin = sign * (oh * 60 + om);
   // Minutes since the epoch of the instant, by calendar arithmetic (a Date costs more per row).
   const utcMin = (daysFromCivil(y, mo, d) * 24 + h) * 60 + mi - offsetMin;
@@ -276,10 +318,12 @@ export function timestamp(
     const at = new Date((utcMin + 1) * 60_000);
     if (at.getUTCDate() !== 1 || at.getUTCHours() !== 0 || at.getUTCMinutes() !== 0) return 'leap';
   }
-  const ms =
-    utcMin * 60_000 + sec * 1000 + (fraction.length === 0 ? 0 : Number(fraction.slice(0, 3).padEnd(3, '0')));
-  const subMs = fraction.length > 3 && /[1-9]/.test(fraction.slice(3));
-  return { text: dateOnly ? `${text}T00:00:00Z` : text, ms, subMs };
+  stamp.utcMin = utcMin;
+  stamp.sec = sec;
+  stamp.fracStart = fracStart;
+  stamp.fracEnd = fracEnd;
+  stamp.dateOnly = dateOnly;
+  return undefined;
 }
 
 /**
@@ -303,9 +347,9 @@ function isDigit(c: number): boolean {
 }
 
 /** The two decimal digits at `i`, or -1. */
-function twoDigits(text: string, i: number): number {
-  const a = text.charCodeAt(i) - 0x30;
-  const b = text.charCodeAt(i + 1) - 0x30;
+function twoDigits(bytes: Buffer, i: number): number {
+  const a = bytes[i]! - 0x30;
+  const b = bytes[i + 1]! - 0x30;
   return a >= 0 && a <= 9 && b >= 0 && b <= 9 ? a * 10 + b : -1;
 }
 

@@ -15,11 +15,26 @@
  *   guessing where the quote should have closed could land a partner's inner lines as rows.
  * - The length of a record is measured without its line break (LF or CRLF).
  * - A UTF-8 byte order mark is skipped at the start of the input only; anywhere else it is data.
+ *
+ * After `frameRuns(width, check)`, consecutive plain records are found in one pass and given as
+ * one frame (`rows`): each well formed, of `width` fields, none empty and unquoted, no CR outside
+ * quotes but the one of a CRLF line break, not a lone `\.`, within the size limit, whole in the
+ * chunk, and passing `check` (typed columns).
+ * Their bytes are those of the input, with LF for each CRLF between two of them. Any other record
+ * ends the run and is framed alone as before.
  */
 
 const LF = 0x0a;
 const CR = 0x0d;
 const QUOTE = 0x22;
+const BACKSLASH = 0x5c;
+const DOT = 0x2e;
+
+/**
+ * A check of a plain record's fields in `chunk`: field k spans `fieldAt[k]` to `fieldAt[k + 1] - 1`
+ * (quotes included). False ends the run before the record.
+ */
+export type RecordCheck = (chunk: Buffer, fieldAt: Int32Array) => boolean;
 
 /** One record found in the input. `bytes` excludes the line break. */
 export interface CsvFrame {
@@ -32,6 +47,8 @@ export interface CsvFrame {
     readonly field: number;
   };
   readonly truncated: boolean;
+  /** Set for a run of plain records (`runWidth`): how many, and the line the last one starts on. */
+  readonly rows?: { readonly count: number; readonly lastLine: number };
 }
 
 interface SyntaxError {
@@ -62,17 +79,44 @@ export class CsvFramer {
   /** The record is longer than what is kept. */
   private over = false;
   private field = 0;
-  private line = 1;
-  private startLine = 1;
+  private line: number;
+  private startLine: number;
   private error: SyntaxError | undefined;
-  private atStart = true;
+  private atStart: boolean;
   /** Blank lines seen (skipped; RFC 4180 has none, spreadsheets write them). */
   blankLines = 0;
+  /** Fields of a plain record, when runs of them are wanted (0: every record framed alone). */
+  private runWidth = 0;
+  private runCheck: RecordCheck | undefined;
+  /** Where each field of the record being scanned starts, and (last) where its line break is. */
+  private fieldAt = new Int32Array(1);
+  /** Where the CRs of CRLF line breaks inside the run being scanned are, from its start. */
+  private readonly runCrs: number[] = [];
 
+  /**
+   * `firstLine` and `input` serve framing part of an input again (`CsvRun.lines()`): the line the
+   * bytes start on, and whether they start the input (a byte order mark is skipped only there).
+   */
   constructor(
     private readonly delimiter: number,
     private readonly maxRecordBytes: number,
-  ) {}
+    firstLine = 1,
+    input = true,
+  ) {
+    this.line = firstLine;
+    this.startLine = firstLine;
+    this.atStart = input;
+  }
+
+  /**
+   * From the next chunk on, frames runs of plain records of `width` fields that pass `check` too
+   * (see the class comment).
+   */
+  frameRuns(width: number, check?: RecordCheck): void {
+    this.runWidth = width;
+    this.runCheck = check;
+    this.fieldAt = new Int32Array(width + 1);
+  }
 
   /** The physical line the reader is on (1-based). */
   get currentLine(): number {
@@ -104,6 +148,14 @@ export class CsvFramer {
     let nextLf = -1;
     let nextQuote = -1;
     for (; i < n; i++) {
+      if (i === segStart && this.runWidth > 0 && this.state === State.FieldStart && this.size === 0) {
+        const end = this.scanRun(out, chunk, i, n);
+        if (end > i) {
+          segStart = end;
+          i = end - 1;
+          continue;
+        }
+      }
       if (this.state === State.FieldStart || this.state === State.Unquoted) {
         // No quote is open: when none comes before the next line break, the rest of the record
         // is plain text and ends there, whatever it holds (most records of a file).
@@ -212,6 +264,92 @@ export class CsvFramer {
     return out;
   }
 
+  /**
+   * Frames the plain records from `from` on (see the class comment) as one run; returns where the
+   * first record that is not plain starts (`from` when there is none).
+   */
+  private scanRun(out: CsvFrame[], chunk: Buffer, from: number, n: number): number {
+    const delim = this.delimiter;
+    const width = this.runWidth;
+    const max = this.maxRecordBytes;
+    const check = this.runCheck;
+    const fieldAt = this.fieldAt;
+    const crs = this.runCrs;
+    crs.length = 0;
+    let p = from;
+    let end = from;
+    let count = 0;
+    let line = this.line;
+    let lastLine = line;
+    records: while (p < n) {
+      let fields = 1;
+      let quoted = false;
+      let fieldStart = true;
+      let innerLines = 0;
+      let crlf = false;
+      let i = p;
+      fieldAt[0] = p;
+      for (; i < n; i++) {
+        const c = chunk[i]!;
+        if (quoted) {
+          if (c === QUOTE) {
+            if (i + 1 >= n) break records;
+            const d = chunk[i + 1]!;
+            if (d === QUOTE) i++;
+            else if (d === delim || d === LF || d === CR) quoted = false;
+            else break records;
+          } else if (c === LF) innerLines++;
+          continue;
+        }
+        if (c === delim) {
+          if (fieldStart || fields === width) break records;
+          fieldAt[fields++] = i + 1;
+          fieldStart = true;
+          continue;
+        }
+        if (c === LF) break;
+        if (c === QUOTE) {
+          if (!fieldStart) break records;
+          quoted = true;
+          fieldStart = false;
+          continue;
+        }
+        if (c === CR) {
+          if (i + 1 < n && chunk[i + 1] === LF) {
+            crlf = true;
+            i++;
+            break;
+          }
+          break records;
+        }
+        fieldStart = false;
+      }
+      // Whole in the chunk, no empty last field (a blank line neither), the header's width.
+      if (i >= n || fieldStart || fields !== width) break;
+      const recordEnd = crlf ? i - 1 : i;
+      const length = recordEnd - p;
+      if (length > max || (length === 2 && chunk[p] === BACKSLASH && chunk[p + 1] === DOT)) break;
+      fieldAt[width] = recordEnd + 1;
+      if (check !== undefined && !check(chunk, fieldAt)) break;
+      if (count > 0 && chunk[end] === CR) crs.push(end - from);
+      count++;
+      lastLine = line;
+      line += 1 + innerLines;
+      end = recordEnd;
+      p = i + 1;
+    }
+    if (count === 0) return from;
+    out.push({
+      line: this.line,
+      bytes: crs.length === 0 ? chunk.subarray(from, end) : withoutCrs(chunk, from, end, crs),
+      truncated: false,
+      rows: { count, lastLine },
+    });
+    this.line = line;
+    this.startLine = line;
+    return p;
+  }
+
   /** Keeps bytes of the current record, up to `maxRecordBytes + 1`. */
   private keep(part: Buffer): void {
     if (part.length === 0 || this.over) return;
@@ -275,6 +413,19 @@ export class CsvFramer {
     if (!atEnd) this.line++;
     this.startLine = this.line;
   }
+}
+
+/** `chunk[from, end)` without the bytes at `from + crs[k]` (ascending). */
+export function withoutCrs(chunk: Buffer, from: number, end: number, crs: readonly number[]): Buffer {
+  const out = Buffer.allocUnsafe(end - from - crs.length);
+  let o = 0;
+  let at = from;
+  for (const cr of crs) {
+    o += chunk.copy(out, o, at, from + cr);
+    at = from + cr + 1;
+  }
+  chunk.copy(out, o, at, end);
+  return out;
 }
 
 /** The 0-based field that byte `pos` of a well-quoted record falls in. */

@@ -12,7 +12,8 @@
  * With declared columns, a row goes as its line only when each value is written as it is spelled
  * (`checkInOrder`); the rules are in the package README.
  */
-import { convert, type ResolvedColumn } from './columns.js';
+import { convert, isTimestamp, isTimestampAt, type ResolvedColumn } from './columns.js';
+import type { RecordCheck } from './csv-framer.js';
 import type { Row } from './options.js';
 import type { RejectReason } from './reject.js';
 
@@ -132,6 +133,8 @@ export function checkInOrder(
     if (c.bare && (c.type === 'string' || (c.type === 'boolean' && (text === 'true' || text === 'false'))))
       continue;
     if (c.bare && c.type === 'integer' && isPlainInteger(text)) continue;
+    if (c.bare && c.type === 'number' && isPlainDecimal(text)) continue;
+    if (c.bare && c.type === 'timestamp' && text.length > 10 && isTimestamp(text)) continue;
     const v = convert(c, text);
     if (!v.ok) return { reason: v.reason, message: v.message, column: c.name };
     if (asWritten && !writtenAsSpelled(c, text, v.value)) asWritten = false;
@@ -144,10 +147,53 @@ export function checkInOrder(
 }
 
 /**
+ * The check, on a plain record's bytes (`CsvFramer.frameRuns`), that declared columns reading its
+ * fields in order would pass it and write each value as spelled: what `checkInOrder` finds on
+ * decoded fields, for the columns whose rule reads the bytes directly: `string` (a quoted `""`
+ * is not: it is missing), `integer` and `number` spelled plainly, `boolean` `true` / `false`,
+ * `timestamp` with a time. A quoted value of another type, or any other spelling, ends the run:
+ * the record is then checked alone. Undefined when a column has rules (pattern, enum, min, max) or
+ * is `json`: such columns are checked on decoded fields only.
+ */
+export function plainCheck(columns: readonly ResolvedColumn[]): RecordCheck | undefined {
+  if (!columns.every((c) => c.bare && c.type !== 'json')) return undefined;
+  const types = columns.map((c) => c.type);
+  return (chunk, fieldAt) => {
+    for (let k = 0; k < types.length; k++) {
+      const start = fieldAt[k]!;
+      const end = fieldAt[k + 1]! - 1;
+      const type = types[k];
+      if (chunk[start] === QUOTE) {
+        if (type !== 'string' || end - start === 2) return false;
+        continue;
+      }
+      if (type === 'string') continue;
+      if (type === 'boolean') {
+        if (!isWord(chunk, start, end, TRUE) && !isWord(chunk, start, end, FALSE)) return false;
+      } else if (type === 'integer') {
+        if (!isPlainIntegerAt(chunk, start, end)) return false;
+      } else if (type === 'number') {
+        if (!isPlainDecimalAt(chunk, start, end)) return false;
+      } else if (end - start <= 10 || !isTimestampAt(chunk, start, end)) return false;
+    }
+    return true;
+  };
+}
+
+const TRUE = Buffer.from('true');
+const FALSE = Buffer.from('false');
+
+function isWord(chunk: Buffer, start: number, end: number, word: Buffer): boolean {
+  if (end - start !== word.length) return false;
+  for (let i = 0; i < word.length; i++) if (chunk[start + i] !== word[i]) return false;
+  return true;
+}
+
+/**
  * True for an integer written as JavaScript writes it, and safe: an optional minus, no leading
  * zero, at most 15 digits (so below 2^53), not "-0".
  */
-function isPlainInteger(text: string): boolean {
+export function isPlainInteger(text: string): boolean {
   const n = text.length;
   let i = text.charCodeAt(0) === 0x2d ? 1 : 0;
   if (n === i || n - i > 15) return false;
@@ -157,6 +203,64 @@ function isPlainInteger(text: string): boolean {
     if (c < 0x30 || c > 0x39) return false;
   }
   return true;
+}
+
+/**
+ * True for a decimal that JavaScript writes back as the same text, so valid and written as
+ * spelled without converting it: an optional minus, an integer part without leading zeros, an
+ * optional fraction without trailing zeros, at most 15 significant digits (a double keeps 15
+ * decimal digits exactly, so the shortest text of the number is these digits), no exponent, and
+ * not below 10^-6 (JavaScript writes smaller numbers with an exponent). Not "-0".
+ */
+export function isPlainDecimal(text: string): boolean {
+  const n = text.length;
+  let i = text.charCodeAt(0) === 0x2d ? 1 : 0;
+  const intStart = i;
+  while (i < n && isDigitCode(text.charCodeAt(i))) i++;
+  const intDigits = i - intStart;
+  if (intDigits === 0 || (intDigits > 1 && text.charCodeAt(intStart) === 0x30)) return false;
+  if (i === n) return intDigits <= 15 && text !== '-0';
+  if (text.charCodeAt(i) !== 0x2e) return false;
+  const fracStart = ++i;
+  while (i < n && isDigitCode(text.charCodeAt(i))) i++;
+  if (i !== n || i === fracStart || text.charCodeAt(n - 1) === 0x30) return false;
+  const zeroInt = intDigits === 1 && text.charCodeAt(intStart) === 0x30;
+  if (!zeroInt) return intDigits + (n - fracStart) <= 15;
+  // 0.000…: the significant digits start after the zeros; at most 5 zeros (10^-6 and above).
+  let z = fracStart;
+  while (text.charCodeAt(z) === 0x30) z++;
+  return z - fracStart <= 5 && n - z <= 15;
+}
+
+function isDigitCode(c: number): boolean {
+  return c >= 0x30 && c <= 0x39;
+}
+
+/** `isPlainInteger` of the text in `b[start, end)`, read as bytes (no string made). */
+export function isPlainIntegerAt(b: Buffer, start: number, end: number): boolean {
+  let i = b[start] === 0x2d ? start + 1 : start;
+  if (end === i || end - i > 15) return false;
+  if (b[i] === 0x30) return end - start === 1;
+  for (; i < end; i++) if (!isDigitCode(b[i]!)) return false;
+  return true;
+}
+
+/** `isPlainDecimal` of the text in `b[start, end)`, read as bytes (no string made). */
+export function isPlainDecimalAt(b: Buffer, start: number, end: number): boolean {
+  let i = b[start] === 0x2d ? start + 1 : start;
+  const intStart = i;
+  while (i < end && isDigitCode(b[i]!)) i++;
+  const intDigits = i - intStart;
+  if (intDigits === 0 || (intDigits > 1 && b[intStart] === 0x30)) return false;
+  if (i === end) return intDigits <= 15 && !(intStart > start && b[intStart] === 0x30);
+  if (b[i] !== 0x2e) return false;
+  const fracStart = ++i;
+  while (i < end && isDigitCode(b[i]!)) i++;
+  if (i !== end || i === fracStart || b[end - 1] === 0x30) return false;
+  if (!(intDigits === 1 && b[intStart] === 0x30)) return intDigits + (end - fracStart) <= 15;
+  let z = fracStart;
+  while (b[z] === 0x30) z++;
+  return z - fracStart <= 5 && end - z <= 15;
 }
 
 /** True when a converted value goes to the store as the same text it came as. */

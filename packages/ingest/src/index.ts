@@ -1,6 +1,8 @@
 export type { ColumnSpec, ColumnType } from './columns.js';
 export { COLUMN_TYPES } from './columns.js';
 export { CsvLine } from './csv-line.js';
+export type { RunLine } from './csv-run.js';
+export { CsvRun } from './csv-run.js';
 export type { IngestStopReason } from './errors.js';
 export { IngestError } from './errors.js';
 export { formatFromContentType } from './http.js';

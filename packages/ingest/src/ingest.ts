@@ -2,7 +2,7 @@ import { createReadStream } from 'node:fs';
 import { stat } from 'node:fs/promises';
 import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
-import { messageOf, type RecordMeta, type Sink, SpillwayError } from '@spillway/core';
+import { messageOf, type Sink, SpillwayError } from '@spillway/core';
 import { invalidOption } from '@spillway/core/kit';
 import { convert, isMissing, type ResolvedColumn } from './columns.js';
 import { splitRecords } from './csv-fields.js';
@@ -12,10 +12,13 @@ import {
   EMPTY_FIELD,
   type LineLayout,
   NOT_A_LINE,
+  plainCheck,
   quoteEmptyFields,
   scanLine,
 } from './csv-line.js';
+import { CsvRun } from './csv-run.js';
 import { IngestError, type IngestStopReason } from './errors.js';
+import { LineRun } from './line-run.js';
 import {
   type IngestFormat,
   type IngestOptions,
@@ -25,7 +28,7 @@ import {
 } from './options.js';
 import type { Reject, RejectReason } from './reject.js';
 import { csvReader, type Item, type ItemReader, ndjsonReader } from './rows.js';
-import { trackRun } from './run-counts.js';
+import { type IngestMeta, trackRun } from './run-counts.js';
 import { issuePath, type StandardResult } from './standard-schema.js';
 import { FIRST_REJECTS, type IngestSummary, type RejectNote } from './summary.js';
 
@@ -122,6 +125,7 @@ async function run<T>(
   const started = performance.now();
   // Valid rows go on as their CSV text only where COPY reads the same text: comma-delimited.
   const asLine = format === 'csv' && o.delimiter === COMMA ? o.asCsvLine : undefined;
+  const asRun = asLine ? o.asCsvRun : undefined;
   // Text columns need no field values at all: records stay bytes after the header.
   const reader: ItemReader =
     format === 'csv'
@@ -189,6 +193,8 @@ async function run<T>(
     column: string | undefined,
     truncated = false,
   ) => {
+    const wait = endRun();
+    if (wait) await wait;
     s.rejected++;
     s.byReason[reason] = (s.byReason[reason] ?? 0) + 1;
     if (s.first.length < FIRST_REJECTS) s.first.push({ line, column, reason, message });
@@ -209,10 +215,18 @@ async function run<T>(
     o.signal?.aborted
       ? new Stop('read', 'The ingest was aborted', o.signal.reason)
       : new Stop('sink', `The sink refused a row: ${messageOf(error)}`, error);
-  // Synchronous while the sink has room: a promise per row would cost more than the row.
-  const accept = (record: T, line: number): Promise<void> | undefined => {
-    // The summary counts settlements itself: the sink's progress tracker need not follow them.
-    const meta: RecordMeta = { topic: source, partition: runId, offset: line, externalProgress: true };
+  // The summary counts settlements itself: the sink's progress tracker need not follow them.
+  const metaOf = (line: number, rows = 1): IngestMeta => ({
+    topic: source,
+    partition: runId,
+    offset: line,
+    externalProgress: true,
+    ...(rows !== 1 && { rows }),
+  });
+  // Synchronous while the sink has room: a promise per record would cost more than the record.
+  // `again`: a row of a refused run, written again; read before any abort, it is not aborted.
+  const accept = (record: T, meta: IngestMeta, again = false): Promise<void> | undefined => {
+    const rows = meta.rows ?? 1;
     let taken: boolean;
     try {
       taken = sink.tryWrite(record, meta);
@@ -220,12 +234,12 @@ async function run<T>(
       throw sinkFailed(error);
     }
     if (taken) {
-      s.accepted++;
+      s.accepted += rows;
       return undefined;
     }
-    return sink.write(record, meta, writeOptions).then(
+    return sink.write(record, meta, again ? undefined : writeOptions).then(
       () => {
-        s.accepted++;
+        s.accepted += rows;
       },
       (error: unknown) => {
         throw sinkFailed(error);
@@ -233,9 +247,84 @@ async function run<T>(
     );
   };
 
+  // The run of rows being gathered (`asCsvRun`).
+  const gathered = new LineRun();
+  const runMetas = new WeakMap<CsvRun, IngestMeta>();
+  /** Runs a store refused, whose rows are to be written again one by one. */
+  const handedBack: CsvRun[] = [];
+  let ended = false;
+  const owner = {
+    resubmit(r: CsvRun): boolean {
+      const meta = runMetas.get(r);
+      if (ended || meta === undefined || meta.isolated) return false;
+      // Its settlement is not counted; its rows are, when they settle one by one.
+      meta.isolated = true;
+      s.accepted -= r.count;
+      handedBack.push(r);
+      return true;
+    },
+  };
+
+  /** Hands the run gathered so far to the sink. */
+  const endRun = (): Promise<void> | undefined => {
+    const g = gathered.take();
+    return g === undefined ? undefined : acceptRun(g.bytes, g.line, g.rows);
+  };
+
+  /** Rows that go as their lines, LF between them, as one record (one row: its line). */
+  const acceptRun = (bytes: Buffer, line: number, rows: number): Promise<void> | undefined => {
+    if (rows === 1) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(line));
+    const r = new CsvRun(bytes, line, rows, layout!, owner);
+    const meta = metaOf(line, rows);
+    runMetas.set(r, meta);
+    return accept(asRun!(r), meta);
+  };
+
+  /** A row that goes as its line: into the current run when its bytes follow the run's after an LF. */
+  const sendLine = (bytes: Buffer, line: number): Promise<void> | undefined => {
+    if (!asRun) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(line));
+    if (gathered.join(bytes)) return undefined;
+    const wait = endRun();
+    gathered.start(bytes, line);
+    return wait;
+  };
+
+  /** A row object, or a row refused: after the run gathered so far, which holds earlier rows. */
+  const acceptRow = (record: T, line: number): Promise<void> | undefined => {
+    const wait = endRun();
+    if (wait) return wait.then(() => accept(record, metaOf(line)));
+    return accept(record, metaOf(line));
+  };
+
+  /** Rows of `handedBack[0]` written again so far. */
+  let rewritten = 0;
+  /** Writes the rows of refused runs again, one row per record. */
+  const rewrite = async (): Promise<void> => {
+    while (handedBack.length > 0) {
+      const lines = handedBack[0]!.lines();
+      for (; rewritten < lines.length; rewritten++) {
+        const { line, csv } = lines[rewritten]!;
+        const wait = accept(asLine!(csv), metaOf(line), true);
+        if (wait) await wait;
+      }
+      handedBack.shift();
+      rewritten = 0;
+    }
+  };
+
   let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
   const needHeader = format === 'csv' && o.header;
   let layout: LineLayout | undefined = header && asLine ? lineLayout(header, o.delimiter) : undefined;
+  /** Once the columns are known: runs of plain rows from the reader, where they can go as lines. */
+  const frameRuns = (h: HeaderMap) => {
+    if (!asRun || !reader.frameRuns) return;
+    if (!h.columns) reader.frameRuns(h.width);
+    else if (h.inOrder) {
+      const check = plainCheck(h.columns);
+      if (check) reader.frameRuns(h.width, check);
+    }
+  };
+  if (header) frameRuns(header);
 
   /** Handles one item; returns a promise only when it has to wait (a full sink, a reject target, an async schema). */
   const handle = (item: Item): Promise<void> | undefined => {
@@ -255,7 +344,15 @@ async function run<T>(
         );
       header = headerMap(item.fields, o.columns);
       if (asLine) layout = lineLayout(header, o.delimiter);
+      frameRuns(header);
       return undefined;
+    }
+    if (item.kind === 'run') {
+      // Plain rows of the header's width, found by the reader: valid as they are.
+      s.rowsRead += item.count;
+      const wait = endRun();
+      if (wait) return wait.then(() => acceptRun(item.raw, item.line, item.count));
+      return acceptRun(item.raw, item.line, item.count);
     }
     s.rowsRead++;
     if (item.kind === 'reject') {
@@ -279,7 +376,7 @@ async function run<T>(
         );
       if ((scan & NOT_A_LINE) === 0) {
         const bytes = scan & EMPTY_FIELD ? quoteEmptyFields(item.raw, o.delimiter, width) : item.raw;
-        return accept(asLine!(new CsvLine(bytes, layout!)), item.line);
+        return sendLine(bytes, item.line);
       }
       row = fromHeader(h.names, splitOne(item.raw, o.delimiter)).row;
     } else if (item.kind === 'fields') {
@@ -295,7 +392,7 @@ async function run<T>(
       }
       if (asLine && h.inOrder) {
         const verdict = checkInOrder(h.columns!, item.fields, item.raw, o.delimiter);
-        if (verdict === undefined) return accept(asLine(new CsvLine(item.raw, layout!)), item.line);
+        if (verdict === undefined) return sendLine(item.raw, item.line);
         if (verdict !== 'convert')
           return reject(item.line, item.raw, verdict.reason, verdict.message, verdict.column);
       }
@@ -360,7 +457,7 @@ async function run<T>(
         return reject(item.line, item.raw, 'map', messageOf(error), undefined);
       }
     } else record = row as T;
-    return accept(record, item.line);
+    return acceptRow(record, item.line);
   };
 
   let stop: Stop | undefined;
@@ -378,6 +475,9 @@ async function run<T>(
           const wait = handle(item);
           if (wait) await wait;
         }
+        const wait = endRun();
+        if (wait) await wait;
+        if (handedBack.length > 0) await rewrite();
       }
       progress(false);
     }
@@ -385,6 +485,8 @@ async function run<T>(
       const wait = handle(item);
       if (wait) await wait;
     }
+    const wait = endRun();
+    if (wait) await wait;
   } catch (error) {
     stop =
       error instanceof Stop
@@ -394,13 +496,42 @@ async function run<T>(
 
   // The last partial batch leaves now, not when more data would have come; and the summary
   // waits until every row handed over is terminal.
+  // The rows of a run the store refused come back while it settles: written again, and waited for.
   let sinkError: unknown;
   if (!(stop?.reason === 'sink')) {
     try {
       await sink.flush();
+      while (handedBack.length > 0) {
+        await rewrite();
+        await sink.flush();
+      }
     } catch (error) {
-      sinkError = error;
+      if (error instanceof Stop) stop ??= error;
+      else sinkError = error;
     }
+  }
+  ended = true;
+  // Rows of refused runs the sink could not take again (it failed, or the upload stopped with it):
+  // refused by the store, each with its own line.
+  try {
+    for (const r of handedBack.splice(0)) {
+      const left = r.lines().slice(rewritten);
+      rewritten = 0;
+      s.accepted += left.length;
+      settled.deadLettered += left.length;
+      for (const { line, csv } of left) {
+        await o.rejects?.write({
+          line,
+          column: undefined,
+          reason: 'store',
+          message: 'refused by the store with the rows around it, and not written again: the upload stopped',
+          raw: csv.bytes,
+          truncated: false,
+        });
+      }
+    }
+  } catch (error) {
+    stop ??= new Stop('rejects', `Could not write a reject: ${messageOf(error)}`, error);
   }
   run.release();
   if (o.ownsRejects) {

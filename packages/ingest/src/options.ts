@@ -9,6 +9,7 @@ import {
 } from '@spillway/core/kit';
 import { type ColumnSpec, type ResolvedColumn, resolveColumns } from './columns.js';
 import type { CsvLine } from './csv-line.js';
+import type { CsvRun } from './csv-run.js';
 import type { RejectTarget } from './reject.js';
 import { RejectFile, type RejectFormat } from './reject-file.js';
 import { isStandardSchema, type StandardSchemaV1 } from './standard-schema.js';
@@ -89,6 +90,19 @@ export interface IngestOptions<T = Row> {
    */
   asCsvLine?: (line: CsvLine) => T;
   /**
+   * With `asCsvLine`: consecutive rows that would each go as their line, and lie next to each
+   * other in the input separated by a bare LF, go to the sink as one record, `asCsvRun(run)`:
+   * several COPY lines in one buffer, so the sink's per-record work is done once per run. A run
+   * ends at a row that does not go as its line, a CRLF or blank line, and every 16 KiB of input.
+   * The sink's dead-letter target must give a `CsvRun` it receives back with `run.isolate()`
+   * (`RejectFile.deadLetterTarget()` does): the rows are then written again one row per record,
+   * so a row the store refuses is isolated with its own line and the others land. Sink metrics
+   * count records (runs); the summary and progress count rows.
+   * @default undefined (every row is its own record)
+   * @example (run) => run
+   */
+  asCsvRun?: (run: CsvRun) => T;
+  /**
    * Where rejected rows go: a path (a `RejectFile`, created 0600, format from the extension:
    * `.csv` → CSV, anything else → NDJSON) or any `RejectTarget`. Without one, rejects are only
    * counted (and the first 20 listed in the summary).
@@ -156,6 +170,7 @@ export interface ResolvedIngestOptions<T> {
   schema: StandardSchemaV1 | undefined;
   map: ((row: Row, context: RowContext) => T) | undefined;
   asCsvLine: ((line: CsvLine) => T) | undefined;
+  asCsvRun: ((run: CsvRun) => T) | undefined;
   rejects: RejectTarget | undefined;
   /** True when the ingest opened the reject target and so closes it. */
   ownsRejects: boolean;
@@ -177,6 +192,7 @@ const KNOWN = new Set([
   'schema',
   'map',
   'asCsvLine',
+  'asCsvRun',
   'rejects',
   'rejectFormat',
   'maxRejects',
@@ -223,6 +239,13 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
       'undefined when `map` or `schema` is given (they need row objects)',
       o.asCsvLine,
     );
+  const asCsvRun = functionOption<(run: CsvRun) => T>('asCsvRun', o.asCsvRun);
+  if (asCsvRun !== undefined && asCsvLine === undefined)
+    throw invalidOption(
+      'asCsvRun',
+      'undefined unless `asCsvLine` is given (the rows of a refused run go as lines)',
+      o.asCsvRun,
+    );
   if (!header && columns === undefined)
     throw invalidOption(
       'columns',
@@ -265,6 +288,7 @@ export function resolveIngestOptions<T>(options: IngestOptions<T> | undefined): 
     schema: o.schema as StandardSchemaV1 | undefined,
     map,
     asCsvLine,
+    asCsvRun,
     rejects,
     ownsRejects,
     maxRejects: countOption('maxRejects', o.maxRejects, Number.POSITIVE_INFINITY, {

@@ -8,6 +8,7 @@ import {
   type RecordMeta,
   SpillwayError,
 } from '@spillway/core';
+import { CsvRun } from './csv-run.js';
 import type { Reject, RejectTarget } from './reject.js';
 
 export type RejectFormat = 'ndjson' | 'csv';
@@ -63,19 +64,31 @@ export class RejectFile implements RejectTarget {
   /**
    * A dead-letter target for the sink that puts rows the store refused into this same file
    * (reason `store`, line from the record's `meta.offset`), so a partner gets one file to fix.
+   * A run of rows (`CsvRun`) the store refused goes back to its ingest to be written row by row
+   * (`run.isolate()`), so only the row at fault comes here; a run that cannot go back (its
+   * ingest has ended, or the store was not reached) comes here row by row, each with its line.
    */
   deadLetterTarget<T>(serialize: (record: T) => unknown = (r) => r): DeadLetterTarget<T> {
+    const note = (line: number, error: unknown, row: unknown) =>
+      this.write({
+        line,
+        column: undefined,
+        reason: 'store',
+        message: messageOf(error),
+        raw: Buffer.from(JSON.stringify(row) ?? 'null', 'utf8'),
+        truncated: false,
+      });
     return {
       write: async (letters: readonly DeadLetter<T>[]) => {
         for (const l of letters) {
-          await this.write({
-            line: lineOf(l.meta),
-            column: undefined,
-            reason: 'store',
-            message: messageOf(l.error),
-            raw: Buffer.from(JSON.stringify(serialize(l.record)) ?? 'null', 'utf8'),
-            truncated: false,
-          });
+          const record: unknown = l.record;
+          if (!(record instanceof CsvRun)) {
+            await note(lineOf(l.meta), l.error, serialize(l.record));
+            continue;
+          }
+          // Refused as bad data: one of its rows is; written again one by one, the others land.
+          if (l.reason === 'rejected' && record.isolate()) continue;
+          for (const { line, csv } of record.lines()) await note(line, l.error, csv.row());
         }
       },
     };

@@ -1,6 +1,6 @@
 import { isUtf8 } from 'node:buffer';
 import { splitRecords } from './csv-fields.js';
-import { type CsvFrame, CsvFramer } from './csv-framer.js';
+import { type CsvFrame, CsvFramer, type RecordCheck } from './csv-framer.js';
 import { LineFramer } from './line-framer.js';
 import type { RejectReason } from './reject.js';
 
@@ -9,6 +9,11 @@ export type Item =
   | { readonly kind: 'fields'; readonly line: number; readonly raw: Buffer; readonly fields: string[] }
   /** A well-formed UTF-8 CSV record left as its bytes (`csvReader` with `lines`). */
   | { readonly kind: 'line'; readonly line: number; readonly raw: Buffer }
+  /**
+   * Consecutive plain UTF-8 records of the header's width, as their bytes with LF between them
+   * (`csvReader` with `runs`; see `CsvFramer.runWidth`).
+   */
+  | { readonly kind: 'run'; readonly line: number; readonly raw: Buffer; readonly count: number }
   | { readonly kind: 'value'; readonly line: number; readonly raw: Buffer; readonly value: unknown }
   | { readonly kind: 'blank'; readonly line: number }
   | {
@@ -24,6 +29,8 @@ export type Item =
 /** Turns chunks of input into items; `end()` returns the last ones. */
 export interface ItemReader {
   push(chunk: Buffer): Item[];
+  /** CSV: from the next chunk on, give runs of plain records (`CsvFramer.frameRuns`). */
+  frameRuns?(width: number, check?: RecordCheck): void;
   end(): Item[];
   readonly blankLines: number;
   readonly lastLine: number;
@@ -34,18 +41,39 @@ const LF = Buffer.from('\n');
 /**
  * CSV: the framer finds records and isolates malformed ones; the well-formed records of a chunk
  * are then decoded at once and split into fields in one call. With `lines`, every well-formed
- * record after the first (the header) is left as its bytes instead (kind `line`).
+ * record after the first (the header) is left as its bytes instead (kind `line`). Once told
+ * (`frameRuns`), consecutive plain records come as one item (kind `run`).
  */
 export function csvReader(delimiter: number, maxRowBytes: number, lines = false): ItemReader {
+  let runs = false;
   const framer = new CsvFramer(delimiter, maxRowBytes);
   let lastLine = 0;
   let first = true;
-  const items = (frames: CsvFrame[]): Item[] => {
+  /** The frames, with each run that is not all UTF-8 framed again record by record. */
+  const utf8Runs = (frames: CsvFrame[]): CsvFrame[] => {
+    let out: CsvFrame[] | undefined;
+    for (let i = 0; i < frames.length; i++) {
+      const f = frames[i]!;
+      if (f.rows && !isUtf8(f.bytes)) {
+        out ??= frames.slice(0, i);
+        const again = new CsvFramer(delimiter, maxRowBytes, f.line, false);
+        out.push(...again.push(f.bytes), ...again.end());
+      } else out?.push(f);
+    }
+    return out ?? frames;
+  };
+  const items = (framed: CsvFrame[]): Item[] => {
+    const frames = runs ? utf8Runs(framed) : framed;
     const out: Item[] = new Array(frames.length);
     const good: number[] = [];
     for (let i = 0; i < frames.length; i++) {
       const f = frames[i]!;
       lastLine = f.line;
+      if (f.rows) {
+        lastLine = f.rows.lastLine;
+        out[i] = { kind: 'run', line: f.line, raw: f.bytes, count: f.rows.count };
+        continue;
+      }
       if (f.error) {
         out[i] = {
           kind: 'reject',
@@ -86,6 +114,10 @@ export function csvReader(delimiter: number, maxRowBytes: number, lines = false)
   return {
     push: (chunk) => items(framer.push(chunk)),
     end: () => items(framer.end()),
+    frameRuns(width, check) {
+      runs = true;
+      framer.frameRuns(width, check);
+    },
     get blankLines() {
       return framer.blankLines;
     },

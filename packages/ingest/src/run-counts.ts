@@ -1,9 +1,18 @@
-import type { Sink, SinkEvents } from '@spillway/core';
+import type { RecordMeta, Sink, SinkEvents } from '@spillway/core';
 
 /** What one ingest run counts as the sink settles its rows. */
 export interface RunCounts {
   written: number;
   deadLettered: number;
+}
+
+/**
+ * The metadata of an ingest record: a record may stand for several rows (a `CsvRun`), and a run
+ * handed back to be written row by row (`isolated`) is counted by its rows instead.
+ */
+export interface IngestMeta extends RecordMeta {
+  readonly rows?: number;
+  isolated?: boolean;
 }
 
 interface Dispatch {
@@ -18,7 +27,8 @@ const dispatchers = new WeakMap<Sink<never>, Dispatch>();
 
 /**
  * Counts the rows of run `runId` (their `meta.partition`, with `meta.topic === source`) as `sink`
- * settles them, until `release()`.
+ * settles them, until `release()`: `meta.rows` rows per record (1 when unset), none for a record
+ * whose rows were handed back (`meta.isolated`).
  */
 export function trackRun<T>(
   sink: Sink<T>,
@@ -31,12 +41,14 @@ export function trackRun<T>(
     const runs: Dispatch['runs'] = new Map();
     const listener = (e: SinkEvents['settled']) => {
       const durable = e.outcome === 'durable';
-      for (const m of e.metas) {
-        if (m === undefined || typeof m.partition !== 'string') continue;
+      for (const meta of e.metas) {
+        const m = meta as IngestMeta | undefined;
+        if (m === undefined || typeof m.partition !== 'string' || m.isolated) continue;
         const run = runs.get(m.partition);
         if (run === undefined || m.topic !== run.source) continue;
-        if (durable) run.counts.written++;
-        else run.counts.deadLettered++;
+        const rows = m.rows ?? 1;
+        if (durable) run.counts.written += rows;
+        else run.counts.deadLettered += rows;
       }
     };
     d = { runs, listener };

@@ -5,6 +5,7 @@
 // field at a time, no state carried between chunks.
 import { isUtf8 } from 'node:buffer';
 import { describe, expect, it } from 'vitest';
+import { CsvFramer } from '../src/csv-framer.js';
 import { csvReader, type Item, ndjsonReader } from '../src/rows.js';
 
 const LF = 0x0a;
@@ -192,7 +193,77 @@ function streamed(reader: ReturnType<typeof csvReader>, input: Buffer, rnd: () =
   return { items, blank: reader.blankLines };
 }
 
+/**
+ * A reader's items with each run (`csvReader` with `runs`) framed again into its records, and
+ * lines as their bytes: what a run stands for, in a form both readers produce.
+ */
+function asLines(withRuns: boolean, input: Buffer, rnd: () => number, delim: number, max: number) {
+  const reader = csvReader(delim, max, true);
+  const all: Item[] = [];
+  for (let i = 0; i < input.length; ) {
+    const size = rnd() < 0.1 ? 1 : 1 + Math.floor(rnd() * 300);
+    const got = reader.push(input.subarray(i, i + size));
+    // Runs of the header's width once the header is read, as the ingest asks for them.
+    const header = got.find((it) => it.kind === 'fields');
+    if (withRuns && header?.kind === 'fields' && all.every((it) => it.kind !== 'fields'))
+      reader.frameRuns!(header.fields.length);
+    all.push(...got);
+    i += size;
+  }
+  all.push(...reader.end());
+  const items: Array<Out | { line: number; bytes: string }> = [];
+  let runs = 0;
+  for (const it of all) {
+    if (it.kind === 'fields') items.push({ line: it.line, fields: it.fields });
+    else if (it.kind === 'line') items.push({ line: it.line, bytes: it.raw.toString('hex') });
+    else if (it.kind === 'run') {
+      runs++;
+      const framer = new CsvFramer(delim, max, it.line, false);
+      const frames = [...framer.push(it.raw), ...framer.end()];
+      expect(frames).toHaveLength(it.count);
+      for (const f of frames) items.push({ line: f.line, bytes: f.bytes.toString('hex') });
+    } else if (it.kind === 'reject')
+      items.push(rejectOut(it.line, it.reason, Buffer.from(it.raw), it.truncated));
+  }
+  return { items, blank: reader.blankLines, lastLine: reader.lastLine, runs };
+}
+
 // ---- random documents ---------------------------------------------------------------------------
+
+/** A header of `width` fields, then records of mostly that width, mostly plain. */
+function runDocument(rnd: () => number, delim: string): Buffer {
+  const parts: Buffer[] = [];
+  const text = (s: string) => parts.push(Buffer.from(s, 'utf8'));
+  if (rnd() < 0.1) parts.push(BOM);
+  const width = 1 + Math.floor(rnd() * 4);
+  const eol = () => (rnd() < 0.5 ? '\r\n' : pick(rnd, ['\n', '\r\n']));
+  text(`${Array.from({ length: width }, (_, i) => `c${i}`).join(delim)}${eol()}`);
+  const records = Math.floor(rnd() * 60);
+  for (let r = 0; r < records; r++) {
+    if (rnd() < 0.03) {
+      text(eol());
+      continue;
+    }
+    const fields = rnd() < 0.9 ? width : 1 + Math.floor(rnd() * 4);
+    for (let f = 0; f < fields; f++) {
+      if (f > 0) text(delim);
+      const kind = rnd();
+      if (kind < 0.7) text(pick(rnd, ['a', 'bc', 'é', '😀', ' x ', '0', 'xxxxxxxxxx', '\\.']));
+      else if (kind < 0.9) {
+        text('"');
+        for (let k = Math.floor(rnd() * 3); k > 0; k--)
+          text(pick(rnd, ['a', '""', delim, '\n', '\r\n', '\r']));
+        text('"');
+      } else if (kind < 0.94)
+        text(''); // an empty field
+      else if (kind < 0.96) parts.push(Buffer.from([0xff]));
+      else if (kind < 0.98) text('\r');
+      else text(pick(rnd, ['a"b', '"a"b', '"a"\rb']));
+    }
+    if (!(r === records - 1 && rnd() < 0.3)) text(eol());
+  }
+  return Buffer.concat(parts);
+}
 
 function pick<T>(rnd: () => number, xs: readonly T[]): T {
   return xs[Math.floor(rnd() * xs.length)]!;
@@ -269,6 +340,26 @@ describe('the streaming readers against a whole-input reference reader (seeded, 
         `document ${d} (${input.toString('hex')}), delimiter ${JSON.stringify(delim)}, max ${max}`,
       ).toEqual(expected);
     }
+  });
+
+  it('gives, with runs of plain records, the same records, lines, rejects and blank lines as without', () => {
+    const rnd = random(4180_17);
+    let runs = 0;
+    for (let d = 0; d < 2000; d++) {
+      const delim = pick(rnd, [',', ';']);
+      const max = pick(rnd, [8, 24, 1 << 20]);
+      const input = runDocument(rnd, delim);
+      const code = delim.charCodeAt(0);
+      const expected = asLines(false, input, rnd, code, max);
+      const actual = asLines(true, input, rnd, code, max);
+      runs += actual.runs;
+      expect(
+        { ...actual, runs: undefined },
+        `document ${d} (${input.toString('hex')}), delimiter ${JSON.stringify(delim)}, max ${max}`,
+      ).toEqual({ ...expected, runs: undefined });
+    }
+    // Runs did form (the comparison is not between two readers that frame record by record).
+    expect(runs).toBeGreaterThan(1000);
   });
 
   it('gives the same values, rejects and blank lines for 2,000 NDJSON documents', () => {

@@ -2,7 +2,7 @@
 import { Readable } from 'node:stream';
 import { Sink } from '@spillway/core';
 import { describe, expect, it } from 'vitest';
-import { timestamp } from '../src/columns.js';
+import { isTimestamp, isTimestampAt, timestamp } from '../src/columns.js';
 import { ingest, type Reject, type Row } from '../src/index.js';
 import { MemoryAdapter } from './memory-adapter.js';
 
@@ -139,8 +139,14 @@ describe('timestamp columns', () => {
               ? s.slice(0, at) + c + s.slice(at)
               : s.slice(0, at) + s.slice(at + 1);
       }
-      const form = timestamp(s) !== 'form';
+      const read = timestamp(s);
+      const form = read !== 'form';
       expect([s, form]).toEqual([s, grammar.test(s)]);
+      // The check without the instant (columns without min/max) agrees with the full read.
+      expect([s, isTimestamp(s)]).toEqual([s, typeof read !== 'string']);
+      // And on bytes inside a record, with digits around it that a read past its end would take.
+      const inRecord = Buffer.from(`12${s}00:00`, 'latin1');
+      expect([s, isTimestampAt(inRecord, 2, 2 + s.length)]).toEqual([s, typeof read !== 'string']);
       checked++;
     }
     expect(checked).toBe(20_000);

@@ -133,8 +133,10 @@ export interface PostgresAdapterOptions<T> {
    * sent as it is instead of going through `map` and the encoder. The bytes must be one CSV record
    * as COPY reads it (PostgreSQL documentation, COPY, "CSV Format"): UTF-8, the fields of
    * `columns` in order separated by commas, no line break outside quotes, NULL as an unquoted
-   * empty field, and not a lone `\.`. Return `undefined` for a record that must be mapped. For
-   * producers that hold valid CSV already, such as an upload read by `@spillway/ingest`.
+   * empty field, and not a lone `\.` — or several such records separated by LF (a record that
+   * stands for several rows; one failing row fails the record). Return `undefined` for a record
+   * that must be mapped. For producers that hold valid CSV already, such as an upload read by
+   * `@spillway/ingest`.
    * @default undefined
    * @example (r) => (r instanceof Uint8Array ? r : undefined)
    */

@@ -3,6 +3,7 @@ import { messageOf } from '@spillway/core';
 import {
   type ColumnSpec,
   type CsvLine,
+  type CsvRun,
   formatFromPath,
   IngestError,
   type IngestFormat,
@@ -167,7 +168,7 @@ export function registerIngest(program: Command): void {
     // batching
     .option(
       '--batch-size <n>',
-      'rows per batch written to the store (default 5000 into PostgreSQL in copy mode, else 1000)',
+      'records per batch written to the store, at most 2 MiB (default 5000 into PostgreSQL in copy mode, where a record is a run of consecutive valid rows, up to 16 KiB; else 1000 rows)',
       int('--batch-size', 1),
     )
     .option(
@@ -261,7 +262,8 @@ async function runIngest(file: string, flags: Flags): Promise<number> {
       ...(delimiter !== undefined && { delimiter }),
       ...(columns && { columns }),
       // Valid CSV rows go to a COPY as their own text.
-      ...(target.takesCsvLines && { asCsvLine: (line: CsvLine) => line }),
+      // Valid rows go to a COPY as their own text, consecutive ones as one record.
+      ...(target.takesCsvLines && { asCsvLine: (line: CsvLine) => line, asCsvRun: (run: CsvRun) => run }),
       rejects,
       ...(flags.maxRejects !== undefined && { maxRejects: flags.maxRejects }),
       ...(flags.maxRowBytes !== undefined && { maxRowBytes: flags.maxRowBytes }),

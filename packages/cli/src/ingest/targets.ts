@@ -1,5 +1,5 @@
 import { type DeadLetterTarget, Sink, type SinkOptions } from '@spillway/core';
-import { CsvLine, type Row } from '@spillway/ingest';
+import { CsvLine, CsvRun, type Row } from '@spillway/ingest';
 import { UsageError } from './usage-error.js';
 
 // Each store's driver and adapter are loaded only when a URL names that store: loading all three
@@ -8,11 +8,15 @@ import { UsageError } from './usage-error.js';
 /** Default batch size of a PostgreSQL copy (`--batch-size` overrides it). */
 export const COPY_BATCH_ROWS = 5000;
 
-/** What the ingest hands the sink: a row object, or a valid CSV row as its text. */
-export type IngestRecord = Row | CsvLine;
+/**
+ * What the ingest hands the sink: a row object, a valid CSV row as its text, or a run of valid
+ * CSV rows as their text (only to a PostgreSQL copy, which takes them as they are).
+ */
+export type IngestRecord = Row | CsvLine | CsvRun;
 
-/** The row an ingest record stands for. */
+/** The row an ingest record stands for (a run is never mapped: it goes to COPY as its text). */
 export function rowOf(r: IngestRecord): Row {
+  if (r instanceof CsvRun) throw new TypeError('a run of CSV rows has no single row');
   return r instanceof CsvLine ? r.row() : r;
 }
 
@@ -30,7 +34,7 @@ export interface TargetFlags {
 
 export interface Target {
   sink: Sink<IngestRecord>;
-  /** The sink takes valid CSV rows as their text (`CsvLine`): PostgreSQL `copy` mode. */
+  /** The sink takes valid CSV rows as their text (`CsvLine`, `CsvRun`): PostgreSQL `copy` mode. */
   takesCsvLines: boolean;
   /** What the summary prints as the destination (no credentials). */
   label: string;
@@ -89,7 +93,9 @@ export async function openTarget(
         mode,
         ...(keys && { conflict: { key: keys } }),
         // COPY (FORMAT csv) takes a valid row's text as it is: no row object, no re-encoding.
-        ...(mode === 'copy' && { csvLine: (r) => (r instanceof CsvLine ? r.bytes : undefined) }),
+        ...(mode === 'copy' && {
+          csvLine: (r) => (r instanceof CsvLine || r instanceof CsvRun ? r.bytes : undefined),
+        }),
       });
       const sink = new Sink(adapter, {
         name: `postgres:${flags.table}`,
