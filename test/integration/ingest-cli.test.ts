@@ -5,8 +5,7 @@ import { copyFile, mkdtemp, readFile, rm, stat, writeFile } from 'node:fs/promis
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { Command } from 'commander';
-import { afterAll, beforeAll, describe, expect, it, vi } from 'vitest';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { registerIngest } from '../../packages/cli/src/commands/ingest.js';
 import {
   services,
@@ -17,6 +16,7 @@ import {
   withRedis,
   withSchema,
 } from '../harness/index.js';
+import { runSubcommand } from './cli-in-process.js';
 
 const SAMPLES = new URL('../../examples/data/', import.meta.url);
 const SPEC =
@@ -39,27 +39,8 @@ afterAll(async () => {
   await rm(dir, { recursive: true, force: true });
 });
 
-/** Runs `spillway ingest …args` and returns its exit code and what it printed. */
-async function spillway(...args: string[]): Promise<{ code: number; out: string }> {
-  const program = new Command().name('spillway');
-  registerIngest(program);
-  let out = '';
-  const write = vi.spyOn(process.stdout, 'write').mockImplementation((chunk: string | Uint8Array) => {
-    out += String(chunk);
-    return true;
-  });
-  const errWrite = vi.spyOn(process.stderr, 'write').mockImplementation(() => true);
-  process.exitCode = undefined;
-  try {
-    await program.parseAsync(['node', 'spillway', 'ingest', ...args]);
-  } finally {
-    write.mockRestore();
-    errWrite.mockRestore();
-  }
-  const code = Number(process.exitCode ?? 0);
-  process.exitCode = undefined;
-  return { code, out };
-}
+/** Runs `spillway ingest …args` in this process; returns its exit code, stdout and stderr. */
+const spillway = (...args: string[]) => runSubcommand(registerIngest, 'ingest', args);
 
 const pgTarget = () => {
   const url = new URL(services().pgUrl);
