@@ -275,7 +275,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       steps = [{ kind: 'copy', fill }];
     } else if (mode === 'insert') {
       // Each row's values go straight into its statement's parameters.
-      const params = new StatementParameters(this.width, this.options.rowsPerStatement);
+      const params = new StatementParameters(this.width, this.options.rowsPerStatement, batch.records.length);
       for (let i = 0; i < batch.records.length; i++) {
         if (skip(i)) continue;
         try {
@@ -354,7 +354,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
 
   /** A values step over rows of wire values. */
   private tuples(rows: readonly RowValue[][]): Step {
-    const params = new StatementParameters(this.width, this.options.rowsPerStatement);
+    const params = new StatementParameters(this.width, this.options.rowsPerStatement, rows.length);
     for (const row of rows) params.add(row);
     return { kind: 'values', statements: params.statements(), rows: params.total };
   }

@@ -13,7 +13,9 @@ export interface Tuples {
 
 export class StatementParameters {
   private readonly done: Tuples[] = [];
-  private values: RowValue[] = [];
+  private values: RowValue[] | undefined;
+  /** Parameters written into `values`. */
+  private at = 0;
   private rows = 0;
   /** Rows added so far, over every statement. */
   total = 0;
@@ -22,6 +24,12 @@ export class StatementParameters {
     private readonly width: number,
     /** Rows per statement, the 65,535-parameter bound already applied. */
     private readonly perStatement: number,
+    /**
+     * Rows the batch may add at most. Each statement's array is made at its final size: grown by
+     * `push`, an array of tens of thousands of parameters is copied a dozen times on the way, and
+     * the large copies are garbage of the old generation.
+     */
+    private expected: number,
   ) {}
 
   /**
@@ -29,27 +37,35 @@ export class StatementParameters {
    * meaning throws, and the row leaves nothing behind.
    */
   add(mapped: readonly unknown[]): void {
+    this.values ??= this.fresh();
     const values = this.values;
-    const start = values.length;
-    try {
-      for (let c = 0; c < this.width; c++) values.push(toRowValue(mapped[c]));
-    } catch (error) {
-      values.length = start;
-      throw error;
-    }
+    const width = this.width;
+    let k = this.at;
+    // More rows than expected (never, when `expected` is the batch's length): room for one more.
+    if (k + width > values.length) values.length = k + width;
+    for (let c = 0; c < width; c++) values[k++] = toRowValue(mapped[c]);
+    this.at = k;
     this.total++;
-    if (++this.rows === this.perStatement) this.cut();
+    this.expected--;
+    if (++this.rows === this.perStatement) this.cut(this.values);
   }
 
   /** The statements, in row order. */
   statements(): Tuples[] {
-    if (this.rows > 0) this.cut();
+    if (this.values !== undefined && this.rows > 0) this.cut(this.values);
     return this.done;
   }
 
-  private cut(): void {
-    this.done.push({ rows: this.rows, values: this.values });
-    this.values = [];
+  private fresh(): RowValue[] {
+    return new Array<RowValue>(Math.min(this.perStatement, Math.max(this.expected, 1)) * this.width);
+  }
+
+  private cut(values: RowValue[]): void {
+    // Rows refused on the way leave the array longer than what was written.
+    if (this.at < values.length) values.length = this.at;
+    this.done.push({ rows: this.rows, values });
+    this.values = undefined;
+    this.at = 0;
     this.rows = 0;
   }
 }
