@@ -1,9 +1,9 @@
 /**
  * Memory against the configured bound: a producer writes Tandem Bikes trip records as fast as it
- * can into a PostgreSQL sink (insert mode, so every pending record also holds its prepared row)
- * whose store is held to about 1/100 of the producer's rate, so the sink sits at its
+ * can into a PostgreSQL sink (insert mode; each record is sized by the adapter's estimate at
+ * accept and mapped when its batch is written) whose store is held to about 1/100 of the producer's rate, so the sink sits at its
  * `maxPendingBytes` bound for the whole window. Beside it, a plain bounded queue does the same
- * work: the same records, the same prepared rows, the same byte bound and the same slow store.
+ * work: the same records, the same size estimates, the same byte bound and the same slow store.
  *
  * Reported per bound (4, 64, 256 MiB by default), each run in a fresh process:
  * - live heap ÷ bound: heapUsed after a forced collection, taken once a second (`--seconds`
@@ -18,8 +18,8 @@
  * (`--overhead` sets it; its default otherwise), and "the bound is reached" is read the same way;
  * the plain queue counts estimated bytes only.
  *
- * Why PostgreSQL and not a slow fake store: the prepared rows the real adapter keeps per pending
- * record are part of what the bound has to cover. The store is slowed by a wait before each
+ * Why PostgreSQL and not a slow fake store: whatever the real adapter keeps per pending record
+ * (a prepared row, when it had a `prepare()`) is part of what the bound has to cover. The store is slowed by a wait before each
  * batch's real INSERT (calibrated from the producer's rate into a no-op sink); once the window
  * closes the wait is lifted and the sink drains at the server's own speed.
  *
@@ -31,7 +31,7 @@ import { execFileSync } from 'node:child_process';
 import { cpus, totalmem } from 'node:os';
 import { fileURLToPath } from 'node:url';
 import { getHeapStatistics } from 'node:v8';
-import { type Batch, type Prepared, Sink, type SinkAdapter } from '@spillway/core';
+import { type Batch, Sink, type SinkAdapter } from '@spillway/core';
 import { postgresAdapter } from '@spillway/postgres';
 import pg from 'pg';
 import { summary } from './numbers.js';
@@ -120,7 +120,6 @@ function slowStore(pool: pg.Pool, table: string, delay: () => number) {
   const state = { slow: true };
   const adapter: SinkAdapter<Trip> = {
     kind: 'postgres',
-    prepare: (r) => inner.prepare!(r),
     estimateBytes: (r) => inner.estimateBytes(r),
     classify: (e) => inner.classify(e),
     write: async (b) => {
@@ -132,12 +131,11 @@ function slowStore(pool: pg.Pool, table: string, delay: () => number) {
 }
 
 /**
- * The plain bounded queue: records and their prepared rows in two arrays, a byte count against
+ * The plain bounded queue: records and their estimated sizes in two arrays, a byte count against
  * the bound, one consumer writing batches of BATCH in order. What anyone would write by hand.
  */
 class PlainQueue {
   private records: Trip[] = [];
-  private prepared: unknown[] = [];
   private sizes: number[] = [];
   private bytes = 0;
   get pendingBytes(): number {
@@ -156,13 +154,12 @@ class PlainQueue {
   }
 
   async push(r: Trip): Promise<void> {
-    const p: Prepared = this.adapter.prepare!(r);
-    while (this.bytes > 0 && this.bytes + p.bytes > this.bound)
+    const size = this.adapter.estimateBytes!(r);
+    while (this.bytes > 0 && this.bytes + size > this.bound)
       await new Promise<void>((resolve) => (this.room = resolve));
     this.records.push(r);
-    this.prepared.push(p.value);
-    this.sizes.push(p.bytes);
-    this.bytes += p.bytes;
+    this.sizes.push(size);
+    this.bytes += size;
     if (this.wake) {
       const w = this.wake;
       this.wake = undefined;
@@ -183,11 +180,10 @@ class PlainQueue {
         continue;
       }
       const records = this.records.splice(0, BATCH);
-      const prepared = this.prepared.splice(0, BATCH);
       const sizes = this.sizes.splice(0, BATCH);
       let bytes = 0;
       for (const s of sizes) bytes += s;
-      const batch: Batch<Trip> = { id: 0, reason: 'size', attempt: 1, records, metas: [], bytes, prepared };
+      const batch: Batch<Trip> = { id: 0, reason: 'size', attempt: 1, records, metas: [], bytes };
       await this.adapter.write(batch);
       this.bytes -= bytes;
       if (this.room) {
@@ -231,7 +227,7 @@ async function child(kind: 'sink' | 'plain', boundMiB: number): Promise<Sample> 
   let delayMs = 0;
   const { adapter, state } = slowStore(pool, table, () => delayMs);
 
-  // Calibration: the producer's rate into a no-op sink with the same adapter's prepare().
+  // Calibration: the producer's rate into a no-op sink with the same adapter's size estimate.
   const calSink = new Sink<Trip>(
     { ...adapter, write: async () => {} },
     { maxRecords: BATCH, maxAgeMs: 1000, idleMs: 0 },

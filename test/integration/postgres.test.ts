@@ -586,6 +586,35 @@ describe('errors from a real server are classified as the README says', () => {
   });
 });
 
+describe('when map runs', () => {
+  // README, "PostgreSQL": every mode maps a record when its batch is written (at accept only to size
+  // it), so a record changed before its batch leaves lands as it is then.
+  it.each(MODES)(
+    '%s: a record changed after write() and before its batch leaves lands changed',
+    async (mode) => {
+      const table = `changed_late_${mode}`;
+      await createStatusTable(table);
+      const adapter = postgresAdapter<DockStatus>({
+        pool: schema.pool,
+        table,
+        columns,
+        map,
+        ...modeOptions(mode),
+      });
+      const sink = new Sink(adapter, { maxRecords: 100, maxAgeMs: 60_000, idleMs: 0 });
+      const records = Array.from({ length: 10 }, (_, i) => status(i + 1));
+      for (const r of records) await sink.write(r);
+      expect(adapter.stats().writes).toBe(0);
+      for (const r of records) r.bikes = 99;
+      await sink.close();
+      expect(adapter.stats().writes).toBe(1);
+      expect(await tableChecksum(schema.pool, table)).toEqual({ count: 10, md5: expectedChecksum(records) });
+      const { rows } = await schema.pool.query(`SELECT DISTINCT bikes FROM ${table}`);
+      expect(rows).toEqual([{ bikes: 99 }]);
+    },
+  );
+});
+
 describe('the size estimator', () => {
   it.each([
     ['insert', {}],

@@ -6,6 +6,9 @@
 //      [--repeats 5] [--sizes 100,1000,10000] [--per-record 1000] [--partitions 4].
 // Broker: SPILLWAY_KAFKA_BROKERS (comma-separated), else a private broker started through the test
 // harness (startKafka). Nothing here asserts a time: it prints samples, medians, spreads, ratios.
+// Client CPU per record (user + system of this process, over the same window as the rate) is
+// printed for both sides, with the ratio sink/raw of each pair of runs (median and range): the
+// broker runs on the same machine, so the rate also moves with its share of the cores.
 
 import { randomBytes } from 'node:crypto';
 import { parseArgs } from 'node:util';
@@ -53,7 +56,20 @@ const producerConfig = {
   createPartitioner: Partitioners.DefaultPartitioner,
 };
 
-async function raw(producer: Producer, topic: string, batch: number): Promise<number> {
+/** Records per second, and client CPU µs per record (user + system of this process), over one pass. */
+interface Pass {
+  rate: number;
+  cpu: number;
+}
+
+function passSince(t0: number, cpu0: NodeJS.CpuUsage): Pass {
+  const rate = records.length / ((performance.now() - t0) / 1000);
+  const cpu = process.cpuUsage(cpu0);
+  return { rate, cpu: (cpu.user + cpu.system) / records.length };
+}
+
+async function raw(producer: Producer, topic: string, batch: number): Promise<Pass> {
+  const cpu0 = process.cpuUsage();
   const t0 = performance.now();
   for (let i = 0; i < records.length; i += batch) {
     await producer.sendBatch({
@@ -62,10 +78,10 @@ async function raw(producer: Producer, topic: string, batch: number): Promise<nu
       timeout: 30_000,
     });
   }
-  return records.length / ((performance.now() - t0) / 1000);
+  return passSince(t0, cpu0);
 }
 
-async function viaSink(kafka: Kafka, topic: string, batch: number): Promise<number> {
+async function viaSink(kafka: Kafka, topic: string, batch: number): Promise<Pass> {
   const adapter = kafkaProducerAdapter<DockEvent>({
     kafka,
     topic,
@@ -82,14 +98,16 @@ async function viaSink(kafka: Kafka, topic: string, batch: number): Promise<numb
     metas: [undefined],
     bytes: 0,
   });
+  const cpu0 = process.cpuUsage();
   const t0 = performance.now();
   for (const r of records) if (!sink.tryWrite(r)) await sink.write(r);
   await sink.flush();
-  const rate = records.length / ((performance.now() - t0) / 1000);
+  // Measured up to the last record durable, like the raw side; the close and checks are not.
+  const pass = passSince(t0, cpu0);
   await sink.close();
   if (sink.snapshot().written !== records.length)
     throw new Error(`sink wrote ${sink.snapshot().written} of ${records.length}`);
-  return rate;
+  return pass;
 }
 
 async function perRecord(producer: Producer, topic: string): Promise<number> {
@@ -134,12 +152,12 @@ async function main(): Promise<void> {
     for (let rep = 0; rep < REPEATS; rep++) {
       push('per-record', await perRecord(producer, topic));
       for (const size of SIZES) {
-        if (rep % 2 === 0) {
-          push(`raw@${size}`, await raw(producer, topic, size));
-          push(`sink@${size}`, await viaSink(kafka, topic, size));
-        } else {
-          push(`sink@${size}`, await viaSink(kafka, topic, size));
-          push(`raw@${size}`, await raw(producer, topic, size));
+        // Alternate which side goes first, so that drift on a shared machine favours neither.
+        const order = rep % 2 === 0 ? (['raw', 'sink'] as const) : (['sink', 'raw'] as const);
+        for (const side of order) {
+          const pass = side === 'raw' ? await raw(producer, topic, size) : await viaSink(kafka, topic, size);
+          push(`${side}@${size}`, pass.rate);
+          push(`cpu:${side}@${size}`, pass.cpu);
         }
       }
     }
@@ -147,12 +165,15 @@ async function main(): Promise<void> {
     console.log(`\nrecords/s (median of ${REPEATS}; ± = half of (max-min)/median)`);
     console.log(`per-record send: ${fmt(one.median)} (${fmt(one.min)}–${fmt(one.max)})`);
     console.log(
-      'batch  | raw sendBatch          | sink                   | sink/raw: ratio of medians, paired median [range] | sink/per-record',
+      'batch  | raw sendBatch          | sink                   | sink/raw: ratio of medians, paired median [range] | sink/per-record | client CPU µs/record raw → sink | CPU sink/raw [pairs]',
     );
     for (const size of SIZES) {
       const r = summary(samples.get(`raw@${size}`)!);
       const s = summary(samples.get(`sink@${size}`)!);
       const pairs = summary(samples.get(`sink@${size}`)!.map((v, i) => v / samples.get(`raw@${size}`)![i]!));
+      const cpuRaw = samples.get(`cpu:raw@${size}`)!;
+      const cpuSink = samples.get(`cpu:sink@${size}`)!;
+      const cpuPairs = summary(cpuSink.map((v, i) => v / cpuRaw[i]!));
       console.log(
         `${String(size).padEnd(6)} | ${fmt(r.median).padStart(9)} (±${(r.spreadPct / 2).toFixed(0)}%)`.padEnd(
           33,
@@ -161,7 +182,9 @@ async function main(): Promise<void> {
           ` | ${(s.median / r.median).toFixed(2)}, paired ${pairs.median.toFixed(2)} [${pairs.min.toFixed(2)}–${pairs.max.toFixed(2)}]`.padEnd(
             40,
           ) +
-          ` | ${(s.median / one.median).toFixed(1)}×`,
+          ` | ${`${(s.median / one.median).toFixed(1)}×`.padEnd(15)}` +
+          ` | ${`${summary(cpuRaw).median.toFixed(2)} → ${summary(cpuSink).median.toFixed(2)}`.padEnd(31)}` +
+          ` | ${cpuPairs.median.toFixed(2)} [${cpuPairs.min.toFixed(2)}–${cpuPairs.max.toFixed(2)}]`,
       );
     }
     console.log(JSON.stringify({ samples: Object.fromEntries(samples) }));

@@ -51,20 +51,26 @@ const RESET_PRODUCER: ReadonlySet<string> = new Set([
  */
 const RECORD_OVERHEAD = 24;
 
+/**
+ * The partition the partitioner placed a message on, kept on the message itself: kafkajs hands
+ * the partitioner the very object given to `sendBatch`, on each of its retries too, and encodes
+ * only the fields it knows. (A WeakMap from message to placement cost a hash insert and two
+ * look-ups per message.)
+ */
+const PLACED: unique symbol = Symbol('spillway.placed');
+
+/** A message as this adapter sends it: kafkajs' fields, and where it was placed once it was. */
+interface PlacedMessage extends Message {
+  [PLACED]?: number | undefined;
+}
+
 interface Chunk {
   /** Batch indexes of the chunk's records, and beside each the topic and message it went out as. */
   indexes: number[];
   topics: string[];
-  messages: Message[];
+  messages: PlacedMessage[];
   bytes: number;
   byTopic: Map<string, Message[]>;
-}
-
-/** Where a message of a sendBatch was placed, as the partitioner saw it. */
-interface Placement {
-  partition: number;
-  /** False for an explicit partition the topic's metadata does not list. */
-  exists: boolean;
 }
 
 function byteLength(v: Buffer | string | null | undefined): number {
@@ -90,10 +96,10 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
   private connecting: Promise<Producer> | undefined;
   private closed = false;
   /**
-   * The partition each message of a send was placed on. The check after `sendBatch` reads it, so
-   * that every record is known to be in the produce response of its own partition.
+   * Messages the partitioner placed on an explicit partition the topic's metadata does not list
+   * (rare: a WeakSet costs nothing on the common path). The placement itself is on the message.
    */
-  private readonly placed = new WeakMap<Message, Placement>();
+  private readonly absent = new WeakSet<Message>();
   /** Producers created so far; more than one means a producer was replaced after a failure. */
   producersCreated = 0;
 
@@ -132,17 +138,20 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
    * looks for it under the last one.
    */
   private placing(create: ICustomPartitioner): ICustomPartitioner {
-    const placed = this.placed;
+    const absent = this.absent;
     return () => {
       const choose = create();
       return (args: PartitionerArgs): number => {
-        const before = placed.get(args.message);
-        if (before !== undefined) return before.partition;
+        const message = args.message as PlacedMessage;
+        const before = message[PLACED];
+        if (before !== undefined) return before;
         const partition = choose(args);
-        const exists =
-          args.message.partition === undefined ||
-          args.partitionMetadata.some((p) => p.partitionId === partition);
-        placed.set(args.message, { partition, exists });
+        if (
+          message.partition !== undefined &&
+          !args.partitionMetadata.some((p) => p.partitionId === partition)
+        )
+          absent.add(message);
+        message[PLACED] = partition;
         return partition;
       };
     };
@@ -203,7 +212,7 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
         });
         continue;
       }
-      const message: Message = { value: out.value };
+      const message: PlacedMessage = { value: out.value };
       if (out.key !== undefined) message.key = out.key;
       if (out.headers !== undefined) message.headers = out.headers;
       if (out.partition !== undefined) message.partition = out.partition;
@@ -288,38 +297,47 @@ export class KafkaProducerAdapter<T> implements SinkAdapter<T> {
     }
     // `topic\u0000partition` → the indexes of records placed there and not acknowledged.
     let missing:
-      | Map<string, { topic: string; placement: Placement | undefined; indexes: number[] }>
+      | Map<string, { topic: string; partition: number | undefined; exists: boolean; indexes: number[] }>
       | undefined;
+    // The topic's set of the last record: a batch's records mostly share one topic.
+    let lastTopic: string | undefined;
+    let lastSet: Set<number> | undefined;
     for (let j = 0; j < chunk.indexes.length; j++) {
       const topic = chunk.topics[j]!;
-      const placement = this.placed.get(chunk.messages[j]!);
-      if (placement !== undefined && landed.get(topic)?.has(placement.partition)) continue;
-      const where = `${topic}\u0000${placement?.partition ?? ''}`;
+      const message = chunk.messages[j]!;
+      const partition = message[PLACED];
+      if (topic !== lastTopic) {
+        lastTopic = topic;
+        lastSet = landed.get(topic);
+      }
+      if (partition !== undefined && lastSet?.has(partition)) continue;
+      const where = `${topic}\u0000${partition ?? ''}`;
       missing ??= new Map();
       let entry = missing.get(where);
-      if (!entry) missing.set(where, (entry = { topic, placement, indexes: [] }));
+      if (!entry)
+        missing.set(where, (entry = { topic, partition, exists: !this.absent.has(message), indexes: [] }));
       entry.indexes.push(chunk.indexes[j]!);
     }
     if (missing === undefined) return;
-    for (const { topic, placement, indexes } of missing.values()) {
+    for (const { topic, partition, exists, indexes } of missing.values()) {
       const error =
-        placement !== undefined && !placement.exists
+        partition !== undefined && !exists
           ? new StoreError(
-              `Kafka topic "${topic}" has no partition ${placement.partition}: ${indexes.length} record(s) not written`,
+              `Kafka topic "${topic}" has no partition ${partition}: ${indexes.length} record(s) not written`,
               {
                 driverCode: 'UNKNOWN_TOPIC_OR_PARTITION',
-                details: { topic, partition: placement.partition, records: indexes.length },
+                details: { topic, partition, records: indexes.length },
               },
             )
           : new StoreError(
               `Kafka produce response has no acknowledgement for topic "${topic}"` +
-                `${placement === undefined ? '' : ` partition ${placement.partition}`} (its leader changed during the send): ` +
+                `${partition === undefined ? '' : ` partition ${partition}`} (its leader changed during the send): ` +
                 `${indexes.length} record(s) not known to be written; sending them again`,
               {
                 details: {
                   stage: 'unacknowledged',
                   topic,
-                  ...(placement === undefined ? {} : { partition: placement.partition }),
+                  ...(partition === undefined ? {} : { partition }),
                   records: indexes.length,
                 },
               },

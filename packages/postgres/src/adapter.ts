@@ -3,7 +3,6 @@ import {
   type ErrorClass,
   messageOf,
   type PartialWrite,
-  type Prepared,
   Sink,
   type SinkAdapter,
   type SinkOptions,
@@ -22,7 +21,8 @@ import {
   type ResolvedPostgresOptions,
   resolvePostgresOptions,
 } from './options.js';
-import { copyRowBytes, insertRowBytes, makeEstimator } from './size.js';
+import { StatementParameters, type Tuples } from './parameters.js';
+import { makeEstimator } from './size.js';
 import { buildStatements, type Statements } from './statements.js';
 import { columnArrayLiteral, type RowValue, toRowValue } from './values.js';
 
@@ -75,8 +75,8 @@ const MAX_OFFSET_ROUNDS = 5;
 
 /** The parts of one batch, as the adapter will send them. */
 type Step =
-  /** INSERT statements over these rows. */
-  | { readonly kind: 'values'; readonly rows: readonly (readonly RowValue[])[] }
+  /** INSERT statements: their parameters, and the rows they hold in all. */
+  | { readonly kind: 'values'; readonly statements: readonly Tuples[]; readonly rows: number }
   /** COPY into the target (`copy` mode): `fill` encodes the batch while its data goes out. */
   | { readonly kind: 'copy'; readonly fill: (data: CopyChunks) => number }
   /** COPY into a staging table, then a merge into the target (large upserts). */
@@ -126,7 +126,6 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     this.estimator = makeEstimator(this.options);
     const so = this.options.storeOffsets;
     this.ledger = so === undefined ? undefined : new OffsetLedger(so, this.sql.target, this.options.pool);
-    this.prepare = this.options.mode === 'copy' ? undefined : (record) => this.prepareRow(record);
     // Without a listener, an idle client's 'error' (57P01 on a server restart) crashes the process.
     this.options.pool.on('error', this.onPoolError);
   }
@@ -144,22 +143,9 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     return this.estimator(record);
   }
 
-  /**
-   * `insert` and `upsert` map a record when the sink accepts it (the row of wire values), so that
-   * a batch's statement is only joined up when it is written: the INSERT then leaves as soon as its
-   * batch starts, with the next batch's rows prepared while it runs. `copy` mode has none: a COPY
-   * line per buffered record weighs more on the garbage collector than encoding a batch in one go
-   * costs, and its chunks already leave while the batch is being encoded.
-   */
-  readonly prepare: ((record: T) => Prepared) | undefined;
-
-  private prepareRow(record: T): Prepared {
-    const row = this.wireRow(this.mapped(this.options.map(record)));
-    return {
-      value: row,
-      bytes: this.options.insertForm === 'unnest' ? copyRowBytes(row, 'csv') : insertRowBytes(row),
-    };
-  }
+  // No `prepare()`: every mode maps a record when its batch is written (and at accept only to
+  // size it). A row held per buffered record until its batch leaves cost the garbage collector
+  // more than mapping the record a second time costs (benchmarks/README.md, issue 19).
 
   private wireRow(values: readonly unknown[]): RowValue[] {
     const row = new Array<RowValue>(this.width);
@@ -278,26 +264,36 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
         return count;
       };
       steps = [{ kind: 'copy', fill }];
+    } else if (mode === 'insert') {
+      // Each row's values go straight into its statement's parameters.
+      const params = new StatementParameters(this.width, this.options.rowsPerStatement, batch.records.length);
+      for (let i = 0; i < batch.records.length; i++) {
+        if (skip(i)) continue;
+        try {
+          params.add(this.mapped(map(batch.records[i] as T)));
+        } catch (error) {
+          rejected.push({ index: i, error: this.unmappable(error) });
+          continue;
+        }
+        sent.push(i);
+      }
+      if (params.total === 0) return { rejected, conflict: undefined };
+      steps = [{ kind: 'values', statements: params.statements(), rows: params.total }];
     } else {
-      // What prepare() made of each record when it was accepted; redone here where it is missing.
-      const prepared = batch.prepared;
+      // An upsert's rows are cut into rounds by key first, so each is a row of wire values.
       const rows: RowValue[][] = [];
       for (let i = 0; i < batch.records.length; i++) {
         if (skip(i)) continue;
-        const ready = prepared?.[i];
-        if (Array.isArray(ready)) rows.push(ready as RowValue[]);
-        else {
-          try {
-            rows.push(this.wireRow(this.mapped(map(batch.records[i] as T))));
-          } catch (error) {
-            rejected.push({ index: i, error: this.unmappable(error) });
-            continue;
-          }
+        try {
+          rows.push(this.wireRow(this.mapped(map(batch.records[i] as T))));
+        } catch (error) {
+          rejected.push({ index: i, error: this.unmappable(error) });
+          continue;
         }
         sent.push(i);
       }
       if (rows.length === 0) return { rejected, conflict: undefined };
-      steps = mode === 'insert' ? [{ kind: 'values', rows }] : this.plan(rows);
+      steps = this.plan(rows);
     }
     try {
       return { rejected, conflict: await this.transact(steps, offsets) };
@@ -343,13 +339,24 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     // one key are applied in rounds, in batch order, which is what writing them one by one would do.
     const rounds = conflict?.action === 'update' ? this.rounds(rows) : [rows];
     return rounds.map(
-      (r): Step => (r.length > upsertViaCopyAbove ? { kind: 'stage', rows: r } : { kind: 'values', rows: r }),
+      (r): Step => (r.length > upsertViaCopyAbove ? { kind: 'stage', rows: r } : this.tuples(r)),
     );
   }
 
+  /** A values step over rows of wire values. */
+  private tuples(rows: readonly RowValue[][]): Step {
+    const params = new StatementParameters(this.width, this.options.rowsPerStatement, rows.length);
+    for (const row of rows) params.add(row);
+    return { kind: 'values', statements: params.statements(), rows: params.total };
+  }
+
   private rounds(rows: RowValue[][]): RowValue[][][] {
-    const seen = new Map<string | number, number>();
-    const out: RowValue[][][] = [];
+    // Keys seen once go in a Set (one hash operation per row, the common case); only a key seen
+    // again gets a count of its rounds.
+    const seen = new Set<string | number>();
+    let again: Map<string | number, number> | undefined;
+    const first: RowValue[][] = [];
+    const out: RowValue[][][] = [first];
     const keys = this.keyIndexes;
     const one = keys.length === 1 ? keys[0]! : -1;
     for (const row of rows) {
@@ -363,8 +370,16 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
           : one >= 0
             ? keyPart(v as RowValue)
             : JSON.stringify(keys.map((i) => keyPart(row[i] as RowValue)));
-      const n = seen.get(k) ?? 0;
-      seen.set(k, n + 1);
+      const size = seen.size;
+      seen.add(k);
+      if (seen.size !== size) {
+        first.push(row);
+        continue;
+      }
+      again ??= new Map();
+      // Rounds this key is in so far: the first, and one per earlier repeat.
+      const n = again.get(k) ?? 1;
+      again.set(k, n + 1);
       const round = out[n];
       if (round === undefined) out[n] = [row];
       else round.push(row);
@@ -376,7 +391,7 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     let n = 0;
     for (const s of steps) {
       if (s.kind === 'copy') n += 1;
-      else if (s.kind === 'values') n += Math.ceil(s.rows.length / this.options.rowsPerStatement);
+      else if (s.kind === 'values') n += s.statements.length;
       else n += 3;
     }
     return n;
@@ -433,8 +448,8 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
       for (const s of steps) {
         if (s.kind === 'values') {
           step = 'insert';
-          await this.insertValues(client, s.rows);
-          rows += s.rows.length;
+          for (const t of s.statements) await this.sendInsert(client, t.rows, t.values);
+          rows += s.rows;
         } else if (s.kind === 'copy') {
           step = 'copy';
           this.counters.dataStatements++;
@@ -499,32 +514,18 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
     await client.query(text);
   }
 
-  private async insertValues(client: PoolClient, rows: readonly (readonly RowValue[])[]): Promise<void> {
-    const per = this.options.rowsPerStatement;
-    const width = this.width;
-    for (let start = 0; start < rows.length; start += per) {
-      const n = Math.min(per, rows.length - start);
-      const values = new Array<RowValue>(n * width);
-      let k = 0;
-      for (let r = start; r < start + n; r++) {
-        const row = rows[r]!;
-        for (let c = 0; c < width; c++) values[k++] = row[c] as RowValue;
-      }
-      await this.sendInsert(client, n, values);
-    }
-  }
-
   /** One INSERT of `rows` rows whose parameters are `flat` (row-major). */
-  private async sendInsert(client: PoolClient, rows: number, flat: RowValue[]): Promise<void> {
-    let values: RowValue[] = flat;
+  private async sendInsert(client: PoolClient, rows: number, flat: readonly RowValue[]): Promise<void> {
+    let values = flat;
     if (this.options.insertForm === 'unnest') {
-      values = new Array<RowValue>(this.width);
-      for (let c = 0; c < this.width; c++) values[c] = columnArrayLiteral(flat, c, this.width);
+      const columns = new Array<RowValue>(this.width);
+      for (let c = 0; c < this.width; c++) columns[c] = columnArrayLiteral(flat, c, this.width);
+      values = columns;
     }
     if (values.length > this.counters.maxParameters) this.counters.maxParameters = values.length;
     this.counters.statements++;
     this.counters.dataStatements++;
-    await client.query({ text: this.sql.values(rows), values });
+    await client.query({ text: this.sql.values(rows), values: values as RowValue[] });
   }
 
   /** Encodes rows of wire values as COPY data (the staging table of an upsert). */

@@ -59,9 +59,18 @@ function utf8Bytes(s: string): number {
   return n;
 }
 
+/** Characters of a safe integer as text, its minus sign included: comparisons, no division. */
 function integerDigits(v: number): number {
-  let a = v < 0 ? -v : v;
-  let n = v < 0 ? 2 : 1;
+  let a = v;
+  let n = 1;
+  if (a < 0) {
+    a = -a;
+    n = 2;
+  }
+  if (a < 1e8) {
+    if (a < 1e4) return n + (a < 10 ? 0 : a < 100 ? 1 : a < 1e3 ? 2 : 3);
+    return n + (a < 1e5 ? 4 : a < 1e6 ? 5 : a < 1e7 ? 6 : 7);
+  }
   while (a >= 10) {
     a = Math.floor(a / 10);
     n++;
@@ -117,6 +126,11 @@ export function makeEstimator<T>(o: ResolvedPostgresOptions<T>): (record: T) => 
       let n = rowOverhead;
       for (let i = 0; i < values.length; i++) {
         const v = values[i];
+        // The common types first: text, then numbers, then NULL.
+        if (typeof v === 'string') {
+          n += utf8Bytes(v) + fieldOverhead;
+          continue;
+        }
         if (v === null || v === undefined) {
           n += nullBytes;
           continue;

@@ -27,6 +27,31 @@ export interface Statements {
 
 let stageCounter = 0;
 
+/**
+ * The placeholder text of every row count, one per width: `($1,$2),($3,$4),…` and where each
+ * row's tuple ends. It depends on nothing but the width, so adapters of that many columns share
+ * it for the life of the process, and it grows when a larger statement is asked for.
+ */
+const placeholderTexts = new Map<number, { text: string; ends: number[] }>();
+
+/** `($1,…,$width),(…)` for `rows` rows: a slice of the shared text, built once. */
+function placeholders(width: number, rows: number): string {
+  let t = placeholderTexts.get(width);
+  if (t === undefined) placeholderTexts.set(width, (t = { text: '', ends: [0] }));
+  if (t.ends.length <= rows) {
+    let text = t.text;
+    let n = (t.ends.length - 1) * width + 1;
+    for (let r = t.ends.length - 1; r < rows; r++) {
+      let tuple = r === 0 ? `($${n++}` : `,($${n++}`;
+      for (let c = 1; c < width; c++) tuple += `,$${n++}`;
+      text += `${tuple})`;
+      t.ends.push(text.length);
+    }
+    t.text = text;
+  }
+  return t.text.slice(0, t.ends[rows]);
+}
+
 export function buildStatements(o: ResolvedPostgresOptions<unknown>): Statements {
   const target = qualifiedName(o.table, o.schema);
   const cols = o.columns.map((c) => quoteIdentifier(c.name));
@@ -43,22 +68,15 @@ export function buildStatements(o: ResolvedPostgresOptions<unknown>): Statements
   }
   const head = `INSERT INTO ${target} ${colList} VALUES `;
 
-  // Most batches are full-size: keep the text of the last few row counts instead of rebuilding
-  // a string of up to 65,535 placeholders for every statement.
+  // Most batches are full-size: keep the text of the last few row counts, so that pg sends the
+  // same flat string again instead of joining up a new one of up to 65,535 placeholders.
   const cache = new Map<number, string>();
   const unnestSql = `INSERT INTO ${target} ${colList} SELECT * FROM unnest(${o.columns.map((c, i) => `$${i + 1}::${c.type}[]`).join(', ')})${onConflict}`;
   const values = (rows: number): string => {
     if (o.insertForm === 'unnest') return unnestSql;
     let sql = cache.get(rows);
     if (sql !== undefined) return sql;
-    const tuples = new Array<string>(rows);
-    let n = 1;
-    for (let r = 0; r < rows; r++) {
-      const ph = new Array<string>(width);
-      for (let c = 0; c < width; c++) ph[c] = `$${n++}`;
-      tuples[r] = `(${ph.join(',')})`;
-    }
-    sql = head + tuples.join(',') + onConflict;
+    sql = head + placeholders(width, rows) + onConflict;
     if (cache.size >= 4) cache.delete(cache.keys().next().value as number);
     cache.set(rows, sql);
     return sql;

@@ -8,9 +8,9 @@
 export type WireValue = string | Buffer | null;
 
 /**
- * A value of a prepared row (insert and upsert): a wire value, or a number kept as it is. pg sends
- * a number parameter as `String(n)`, the very text `toWire` makes, so the row holds no string per
- * number while it waits in the buffer.
+ * An INSERT parameter (and a value of an upsert's row): a wire value, or a number kept as it is.
+ * pg sends a number parameter as `String(n)`, the very text `toWire` makes, so no string is made
+ * per number before pg makes its own.
  */
 export type RowValue = WireValue | number;
 

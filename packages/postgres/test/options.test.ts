@@ -146,4 +146,29 @@ describe('SQL text', () => {
     expect(sql.endsWith('$65535)')).toBe(true);
     expect(sql.includes('$65536')).toBe(false);
   });
+
+  it('gives every row count its own numbering, whatever was asked before and by which adapter', () => {
+    const expected = (width: number, rows: number) =>
+      Array.from(
+        { length: rows },
+        (_, r) => `(${Array.from({ length: width }, (_, c) => `$${r * width + c + 1}`).join(',')})`,
+      ).join(',');
+    for (const width of [3, 7]) {
+      const columns = Array.from({ length: width }, (_, c) => `c${c}`);
+      const one = buildStatements(resolvePostgresOptions({ ...base, columns }) as never);
+      const other = buildStatements(resolvePostgresOptions({ ...base, table: 'other', columns }) as never);
+      for (const [sql, rows] of [
+        [one, 5],
+        [one, 1],
+        [other, 40],
+        [one, 17],
+        [other, 3],
+        [one, 40],
+      ] as const) {
+        expect(sql.values(rows)).toBe(
+          `INSERT INTO ${sql.target} (${columns.map((c) => `"${c}"`).join(', ')}) VALUES ${expected(width, rows)}`,
+        );
+      }
+    }
+  });
 });

@@ -30,6 +30,16 @@ describe('the size estimator', () => {
     },
   );
 
+  it('counts the digits and sign of integers of every width, as COPY writes them', () => {
+    const adapter = postgresAdapter<Row>({ pool, table: 't', columns, map, mode: 'copy' });
+    for (let digits = 1; digits <= 16; digits++) {
+      for (const v of [10 ** (digits - 1), 10 ** digits - 1, -(10 ** (digits - 1)), -(10 ** digits - 1)]) {
+        const r: Row = [v, 0, -v, null, v];
+        expect(adapter.estimateBytes(r)).toBe(Buffer.byteLength(copyLine(r, 'csv'), 'utf8'));
+      }
+    }
+  });
+
   it('counts the parameter bytes and placeholder text of an INSERT row', () => {
     const adapter = postgresAdapter<Row>({ pool, table: 't', columns, map });
     for (const r of rows) expect(adapter.estimateBytes(r)).toBe(insertRowBytes(r.map(toWire)));
