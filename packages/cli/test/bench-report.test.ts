@@ -1,10 +1,16 @@
-import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
+import { mkdtempSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { aggregate, type CellResult, type CellSpec, machineInfo, runCell } from '@spillway/tuner';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { cellsOf, type Plan } from '../src/bench/plan.js';
-import { REPORT_VERSION, type Report, reportProblems, writeReport } from '../src/bench/report.js';
+import {
+  HAND_WRITTEN_MARK,
+  REPORT_VERSION,
+  type Report,
+  reportProblems,
+  writeReport,
+} from '../src/bench/report.js';
 
 // A tiny plan on the engine-only stores: every variant on two shapes, 300–600 ms each.
 const plan: Plan = {
@@ -101,5 +107,20 @@ describe('a benchmark report', () => {
       expect(svg).toContain('maxAgeMs 20');
       expect(svg).toContain('size-only');
     }
+  });
+
+  it('keeps the hand-written end of the page it replaces, from the mark on, and nothing of the rest', async () => {
+    const markdownPath = join(dir, 'RESULTS-kept.md');
+    const kept = `${HAND_WRITTEN_MARK}\n\n## Engine core (separate scripts)\n\n| write() | 0.44 |\n`;
+    writeFileSync(markdownPath, `# an old generated page\n\n## Headline\n\n- old figure\n\n${kept}`);
+    await writeReport(report, { outDir: dir, markdownPath, command: 'test' });
+    const md = readFileSync(markdownPath, 'utf8');
+    expect(md.endsWith(kept)).toBe(true);
+    expect(md).not.toContain('old figure');
+    expect(md.match(/^## Headline/gm)).toHaveLength(1);
+    // A page without the mark keeps nothing of its own.
+    writeFileSync(markdownPath, '# no mark here\n\nhand-made text\n');
+    await writeReport(report, { outDir: dir, markdownPath, command: 'test' });
+    expect(readFileSync(markdownPath, 'utf8')).not.toContain('hand-made text');
   });
 });

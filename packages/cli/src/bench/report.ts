@@ -1,4 +1,4 @@
-import { mkdirSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { join, relative } from 'node:path';
 import { FLUSH_REASONS } from '@spillway/core';
 import {
@@ -184,13 +184,31 @@ export function headlines(cells: CellAggregate[]): string[] {
   return lines;
 }
 
+/**
+ * The line after which a results page is written by hand (figures of the separate benchmark
+ * scripts): a new report keeps that part of the page it replaces, from this line on.
+ */
+export const HAND_WRITTEN_MARK =
+  '<!-- Written by hand from here on (separate scripts, not the grid): `spillway bench` keeps it. -->';
+
+/** The hand-written end of an existing results page, from its mark on; '' when there is none. */
+function handWritten(markdownPath: string): string {
+  if (!existsSync(markdownPath)) return '';
+  const text = readFileSync(markdownPath, 'utf8');
+  const at = text.indexOf(HAND_WRITTEN_MARK);
+  return at < 0 ? '' : `\n${text.slice(at)}`;
+}
+
 export interface WrittenReport {
   jsonPath: string;
   markdownPath: string;
   charts: string[];
 }
 
-/** Writes results.json, one SVG chart per store and shape, and the Markdown results page. */
+/**
+ * Writes results.json, one SVG chart per store and shape, and the Markdown results page (keeping
+ * the hand-written end of the page it replaces, from `HAND_WRITTEN_MARK` on).
+ */
 export async function writeReport(
   report: Report,
   options: { outDir: string; markdownPath: string; command: string },
@@ -274,7 +292,7 @@ or a bigger grid: \`spillway bench --max-records 10,50,100,500,1000,5000 --max-a
 Store addresses: \`SPILLWAY_PG_URL\`, \`SPILLWAY_REDIS_URL\`, \`SPILLWAY_KAFKA_BROKERS\` (unset: the Kafka cells are skipped).
 Raw figures of every run: [\`results/results.json\`](${relative(join(options.markdownPath, '..'), jsonPath)}).
 `;
-  writeFileSync(options.markdownPath, md);
+  writeFileSync(options.markdownPath, md + handWritten(options.markdownPath));
   return { jsonPath, markdownPath: options.markdownPath, charts };
 }
 
