@@ -2,19 +2,15 @@
 // made with the user's topic's partition count, replication factor and topic configs as read from
 // the broker, receives the trials' messages, and is deleted afterwards, also on Ctrl-C; the user's
 // topic is never written (its offsets and configs are the same before and after).
-import { spawn } from 'node:child_process';
 import { mkdtemp, rm, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { fileURLToPath } from 'node:url';
 import { byCost, type KafkaTuneOutcome, tuneKafka } from '@spillway/tuner';
 import type { Admin } from 'kafkajs';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { services, sleep, type TestKafka, uniqueTopic, waitFor, withKafka } from '../harness/index.js';
+import { interruptTune } from './tune-interrupt.js';
 
-const BIN = fileURLToPath(new URL('../../packages/cli/src/bin.ts', import.meta.url));
-// The same source-resolving tsconfig the ingest command's process tests use.
-const TSCONFIG = fileURLToPath(new URL('./ingest-cli.tsconfig.json', import.meta.url));
 const PARTITIONS = 3;
 const CONFIGS = [
   { name: 'max.message.bytes', value: '262144' },
@@ -187,13 +183,8 @@ describe('tuning a Kafka producer sink on a scratch topic made like the user’s
 
   it('`spillway tune --topic` deletes the scratch topic when interrupted by Ctrl-C (SIGINT), and exits 130', async () => {
     const before = await observe(k.admin, topic);
-    const child = spawn(
-      process.execPath,
+    const r = await interruptTune(
       [
-        '--import',
-        'tsx',
-        BIN,
-        'tune',
         '--to',
         `kafka://${services().kafkaBrokers.join(',')}`,
         '--topic',
@@ -202,32 +193,14 @@ describe('tuning a Kafka producer sink on a scratch topic made like the user’s
         'dock_id',
         '--sample',
         sample,
-        '--rate',
-        '300',
-        '--p99',
-        '300',
-        '--budget',
-        '60',
-        '--duration',
-        '1000',
-        '--chart',
-        join(dir, 'int.svg'),
       ],
-      { env: { ...process.env, TSX_TSCONFIG_PATH: TSCONFIG }, stdio: ['ignore', 'pipe', 'pipe'] },
+      join(dir, 'int.svg'),
+      /Scratch topic: (spillway-tune-[0-9a-f]{8})/,
+      async (scratch) => expect((await k.admin.listTopics()).includes(scratch)).toBe(true),
     );
-    let err = '';
-    child.stderr.on('data', (d: Buffer) => (err += d));
-    const exited = new Promise<number | null>((resolve) => child.on('exit', (code) => resolve(code)));
-    const scratch = await waitFor(
-      'the first trial',
-      () => (/\[1\/\d+/.test(err) ? /Scratch topic: (spillway-tune-[0-9a-f]{8})/.exec(err)?.[1] : undefined),
-      { timeoutMs: 60_000 },
-    );
-    expect((await k.admin.listTopics()).includes(scratch)).toBe(true);
-    child.kill('SIGINT');
-    expect(await exited).toBe(130);
-    expect(err).toContain('interrupted by SIGINT; the scratch topic was deleted');
-    expect((await k.admin.listTopics()).includes(scratch)).toBe(false);
+    expect(r.code).toBe(130);
+    expect(r.stderr).toContain('interrupted by SIGINT; the scratch topic was deleted');
+    expect((await k.admin.listTopics()).includes(r.scratch)).toBe(false);
     expect(await observe(k.admin, topic)).toEqual(before);
   });
 

@@ -1,18 +1,13 @@
 // `spillway tune --table` against the real PostgreSQL: the command in-process for its outputs and
 // its refusals, and as a child process for Ctrl-C, which must drop the scratch copy before exiting.
-import { spawn } from 'node:child_process';
 import { mkdtemp, readFile, rm, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { fileURLToPath } from 'node:url';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { registerTune } from '../../packages/cli/src/commands/tune.js';
-import { services, type TestSchema, waitFor, withSchema } from '../harness/index.js';
+import { services, type TestSchema, withSchema } from '../harness/index.js';
 import { runSubcommand } from './cli-in-process.js';
-
-const BIN = fileURLToPath(new URL('../../packages/cli/src/bin.ts', import.meta.url));
-// The same source-resolving tsconfig the ingest command's process tests use.
-const TSCONFIG = fileURLToPath(new URL('./ingest-cli.tsconfig.json', import.meta.url));
+import { interruptTune } from './tune-interrupt.js';
 
 let db: TestSchema;
 let dir: string;
@@ -176,45 +171,15 @@ describe('spillway tune --table', () => {
   });
 
   it('drops the scratch copy when interrupted by Ctrl-C (SIGINT) in the middle of the search, and exits 130', async () => {
-    const child = spawn(
-      process.execPath,
-      [
-        '--import',
-        'tsx',
-        BIN,
-        'tune',
-        '--to',
-        url,
-        '--table',
-        `${db.schema}.docks`,
-        '--sample',
-        join(dir, 'docks.csv'),
-        '--rate',
-        '300',
-        '--p99',
-        '300',
-        '--budget',
-        '60',
-        '--duration',
-        '1000',
-        '--chart',
-        join(dir, 'int.svg'),
-      ],
-      { env: { ...process.env, TSX_TSCONFIG_PATH: TSCONFIG }, stdio: ['ignore', 'pipe', 'pipe'] },
+    const r = await interruptTune(
+      ['--to', url, '--table', `${db.schema}.docks`, '--sample', join(dir, 'docks.csv')],
+      join(dir, 'int.svg'),
+      /Scratch copy: ([a-z0-9_]+)\./,
+      async (scratch) => expect(await schemaExists(scratch)).toBe(true),
     );
-    let err = '';
-    child.stderr.on('data', (d: Buffer) => (err += d));
-    const exited = new Promise<number | null>((resolve) => child.on('exit', (code) => resolve(code)));
-    const scratch = await waitFor(
-      'the first trial',
-      () => (/\[1\/\d+/.test(err) ? /Scratch copy: ([a-z0-9_]+)\./.exec(err)?.[1] : undefined),
-      { timeoutMs: 60_000 },
-    );
-    expect(await schemaExists(scratch)).toBe(true);
-    child.kill('SIGINT');
-    expect(await exited).toBe(130);
-    expect(err).toContain('interrupted by SIGINT; the scratch copy was dropped');
-    expect(await schemaExists(scratch)).toBe(false);
+    expect(r.code).toBe(130);
+    expect(r.stderr).toContain('interrupted by SIGINT; the scratch copy was dropped');
+    expect(await schemaExists(r.scratch)).toBe(false);
     expect(await userRows()).toBe(1);
   });
 
