@@ -119,7 +119,7 @@ async function partitionToKill(name: string): Promise<{ partition: number; alsoC
   return { partition: 0, alsoCoordinator: false };
 }
 
-const consumerConfig: KafkaBridgeOptions<DockRow>['consumerConfig'] = {
+const consumerConfig: NonNullable<KafkaBridgeOptions<DockRow>['consumerConfig']> = {
   sessionTimeout: 10_000,
   rebalanceTimeout: 20_000,
   heartbeatInterval: 500,
@@ -133,6 +133,36 @@ const patientRetry = {
   maxDelayMs: 2000,
   maxElapsedMs: 150_000,
 };
+
+/**
+ * A bridge from `topic` into `sink` that skips what `store` holds and reports its errors into
+ * `errors`: short group timers, commits every 200 ms, undecodable messages into `deadLetterFile`.
+ */
+function eosBridge(
+  groupId: string,
+  topic: string,
+  sink: Sink<DockRow>,
+  store: NonNullable<KafkaBridgeOptions<DockRow>['offsetStores']>[number]['store'],
+  deadLetterFile: string,
+  errors: string[],
+): KafkaBridge<DockRow> {
+  const bridge = new KafkaBridge<DockRow>({
+    kafka,
+    groupId,
+    consumerConfig,
+    topics: [topic],
+    fromBeginning: true,
+    decode: decodeDockEvent,
+    route: () => sink,
+    deadLetter: fileDeadLetter(join(dir, deadLetterFile)),
+    commitIntervalMs: 200,
+    offsetStores: [{ sink, store }],
+  });
+  bridge.on('error', ({ error, fatal }) =>
+    errors.push(`${fatal ? 'fatal' : 'non-fatal'}: ${(error as Error).message}`),
+  );
+  return bridge;
+}
 
 describe('exactly-once on a three-broker cluster when a leader is killed with -9', () => {
   it('the bridge into PostgreSQL with stored offsets loses nothing, writes no row twice, and resumes by itself when the leader of a source partition dies', async () => {
@@ -148,20 +178,13 @@ describe('exactly-once on a three-broker cluster when a leader is killed with -9
       retry: patientRetry,
     });
     const errors: string[] = [];
-    const bridge = new KafkaBridge<DockRow>({
-      kafka,
+    const bridge = eosBridge(
       groupId,
-      consumerConfig,
-      topics: [name],
-      fromBeginning: true,
-      decode: decodeDockEvent,
-      route: () => rows,
-      deadLetter: fileDeadLetter(join(dir, 'pg-undecodable.ndjson')),
-      commitIntervalMs: 200,
-      offsetStores: [{ sink: rows, store: { storedOffsets: adapter.storedOffsets!.bind(adapter) } }],
-    });
-    bridge.on('error', ({ error, fatal }) =>
-      errors.push(`${fatal ? 'fatal' : 'non-fatal'}: ${(error as Error).message}`),
+      name,
+      rows,
+      { storedOffsets: adapter.storedOffsets!.bind(adapter) },
+      'pg-undecodable.ndjson',
+      errors,
     );
     const producer = kafka.producer({ idempotent: true, allowAutoTopicCreation: false });
     await producer.connect();
@@ -265,21 +288,7 @@ describe('exactly-once on a three-broker cluster when a leader is killed with -9
       retry: patientRetry,
     });
     const errors: string[] = [];
-    const bridge = new KafkaBridge<DockRow>({
-      kafka,
-      groupId,
-      consumerConfig,
-      topics: [input],
-      fromBeginning: true,
-      decode: decodeDockEvent,
-      route: () => sink,
-      deadLetter: fileDeadLetter(join(dir, 'k2k-undecodable.ndjson')),
-      commitIntervalMs: 200,
-      offsetStores: [{ sink, store: adapter }],
-    });
-    bridge.on('error', ({ error, fatal }) =>
-      errors.push(`${fatal ? 'fatal' : 'non-fatal'}: ${(error as Error).message}`),
-    );
+    const bridge = eosBridge(groupId, input, sink, adapter, 'k2k-undecodable.ndjson', errors);
     const producer = kafka.producer({ idempotent: true, allowAutoTopicCreation: false });
     await producer.connect();
     const offsetsGroup = `${prefix}-${groupId}`;
