@@ -30,6 +30,7 @@ const NOTES: Array<string | null> = [
   '"worn, replaced" front',
   '\\.',
   'café stop: saddle\r\n',
+  '🚲 dock 東 5',
   '',
   null,
 ];
