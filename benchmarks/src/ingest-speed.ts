@@ -1,14 +1,18 @@
 // Ingest speed: `spillway ingest` of a generated CSV of Tandem Bikes service records into a logged
 // PostgreSQL table (copy mode), with the header's columns as text and with a typed --columns spec,
 // against `psql \copy … CSV HEADER` of the same file into the same table and against a raw read of
-// the file (read + count line breaks). Every sample is its own process, the four phases of a run
+// the file (read + count line breaks). The same rows as NDJSON go through `spillway ingest` too
+// (`jtext`: every value a JSON string, the columns named only; `jtyped`: JSON numbers and booleans,
+// the typed spec), against the same psql baseline (the CSV of the same rows). Every sample is its own process, the four phases of a run
 // back to back with a rotating order; ratios are taken within a run, then their median and spread.
 // Prints rows/s, MB/s and each process's peak RSS. Nothing here asserts a time.
 //
 //   npm run build && node benchmarks/dist/ingest-speed.js
 //   INGEST_MB=80 INGEST_RUNS=5 [INGEST_BATCH=10000] SPILLWAY_PG_URL=postgres://postgres@127.0.0.1:5432/test node benchmarks/dist/ingest-speed.js
 //   INGEST_BASELINE_CLI=/path/to/an/older/checkout/packages/cli/dist/bin.js …   (adds phases text0,
-//   typed0: that CLI on the same file, in the same rotation, for before/after ratios in one run)
+//   typed0, jtext0, jtyped0: that CLI on the same files, in the same rotation, for before/after
+//   ratios in one run)
+//   INGEST_PHASES=psql,jtext,jtyped …   (only these phases; default: all)
 import { spawn, spawnSync } from 'node:child_process';
 import { once } from 'node:events';
 import { createReadStream, existsSync } from 'node:fs';
@@ -23,6 +27,8 @@ import { writeServiceRecords } from './service-records.js';
 const TABLE = 'spillway_bench.ingest_speed';
 const TYPED =
   'record_id!,dock_id!,bike_id:integer!,serviced_at:timestamp!,odometer_km:number,passed:boolean,kind,note';
+/** The columns named, every one text: what a CSV header gives. */
+const TEXT = 'record_id,dock_id,bike_id,serviced_at,odometer_km,passed,kind,note';
 /** Child mode `read`: the baseline, the same file through a 256 KiB read stream, no parsing. */
 async function readChild(path: string): Promise<void> {
   let lines = 0;
@@ -161,6 +167,19 @@ async function main(): Promise<void> {
   console.log(
     `generated ${path}: ${fmt(rows)} rows, ${(bytes / 1048576).toFixed(1)} MiB in ${((performance.now() - t0) / 1000).toFixed(1)} s`,
   );
+  // The same rows as NDJSON, stopped at the CSV's row count: typed values, and every value text.
+  const jsonPath = join(tmpdir(), `spillway-ingest-speed-${megabytes}.ndjson`);
+  const jsonTextPath = join(tmpdir(), `spillway-ingest-speed-${megabytes}-text.ndjson`);
+  await writeServiceRecords(jsonPath, 0, { microseconds: true, format: 'ndjson', rows });
+  await writeServiceRecords(jsonTextPath, 0, { microseconds: true, format: 'ndjson-text', rows });
+  const fileBytes: Record<string, number> = {};
+  for (const [name, p] of [
+    ['jtext', jsonTextPath],
+    ['jtyped', jsonPath],
+  ] as const) {
+    fileBytes[name] = fileBytes[`${name}0`] = (await stat(p)).size;
+    console.log(`generated ${p}: ${((await stat(p)).size / 1048576).toFixed(1)} MiB`);
+  }
   console.log(
     `machine: ${cpus().length} × ${cpus()[0]?.model.trim()}, ${(totalmem() / 1048576).toFixed(0)} MiB, node ${process.version}; load average ${load0.map((l) => l.toFixed(1)).join(' ')}`,
   );
@@ -175,12 +194,12 @@ async function main(): Promise<void> {
   const timeOut = join(tmpdir(), `spillway-ingest-speed-${process.pid}.time`);
   if (!havePsql) console.log('psql not found: the psql ratios are left out');
 
-  const ingestArgs = (typed: boolean, bin = cli) => [
+  const ingestArgs = (typed: boolean, bin = cli, file = path, columns: string | undefined = undefined) => [
     '--import',
     RSS_HOOK,
     bin,
     'ingest',
-    path,
+    file,
     '--to',
     url,
     '--pg-schema',
@@ -190,7 +209,7 @@ async function main(): Promise<void> {
     '--quiet',
     '--rejects',
     `${path}.rejects.ndjson`,
-    ...(typed ? ['--columns', TYPED] : []),
+    ...(typed ? ['--columns', TYPED] : columns ? ['--columns', columns] : []),
     ...(batch ? ['--batch-size', batch] : []),
   ];
   const phases: Record<string, () => Promise<Sample>> = {
@@ -215,12 +234,17 @@ async function main(): Promise<void> {
     }),
     text: () => timed(process.execPath, ingestArgs(false), rssOut, pool),
     typed: () => timed(process.execPath, ingestArgs(true), rssOut, pool),
+    jtext: () => timed(process.execPath, ingestArgs(false, cli, jsonTextPath, TEXT), rssOut, pool),
+    jtyped: () => timed(process.execPath, ingestArgs(true, cli, jsonPath), rssOut, pool),
     ...(baselineCli && {
       text0: () => timed(process.execPath, ingestArgs(false, baselineCli), rssOut, pool),
       typed0: () => timed(process.execPath, ingestArgs(true, baselineCli), rssOut, pool),
+      jtext0: () => timed(process.execPath, ingestArgs(false, baselineCli, jsonTextPath, TEXT), rssOut, pool),
+      jtyped0: () => timed(process.execPath, ingestArgs(true, baselineCli, jsonPath), rssOut, pool),
     }),
   };
-  const names = Object.keys(phases);
+  const only = process.env.INGEST_PHASES?.split(',');
+  const names = Object.keys(phases).filter((n) => !only || only.includes(n));
   const samples: Record<string, Sample[]> = Object.fromEntries(names.map((n) => [n, []]));
   console.log(
     `runs: ${runs}, each phase once per run in a rotating order; table ${TABLE} (logged), copy mode`,
@@ -260,7 +284,7 @@ async function main(): Promise<void> {
     const cpu = `${range(samples[name]!.map((s) => perRow(s.cpuMs)))} + ${range(samples[name]!.map((s) => perRow(s.serverMs)))}`;
     console.log(
       `${name.padEnd(7)} ${fmt(m.median).padStart(10)} (${fmt(m.min)}–${fmt(m.max)})`.padEnd(41) +
-        `${((bytes / 1e6) * (m.median / rows)).toFixed(1).padStart(6)}  ${m.spreadPct.toFixed(0).padStart(5)} %   ${(rss.length > 0 ? `${Math.max(...rss).toFixed(0)} MiB` : '—').padEnd(16)} ${cpu}`,
+        `${(((fileBytes[name] ?? bytes) / 1e6) * (m.median / rows)).toFixed(1).padStart(6)}  ${m.spreadPct.toFixed(0).padStart(5)} %   ${(rss.length > 0 ? `${Math.max(...rss).toFixed(0)} MiB` : '—').padEnd(16)} ${cpu}`,
     );
   }
   const ratio = (a: string, b: string) => {
@@ -282,6 +306,12 @@ async function main(): Promise<void> {
   ratio('typed', 'typed0');
   ratio('text0', 'psql');
   ratio('typed0', 'psql');
+  ratio('jtext', 'psql');
+  ratio('jtyped', 'psql');
+  ratio('jtext', 'jtext0');
+  ratio('jtyped', 'jtyped0');
+  ratio('jtext0', 'psql');
+  ratio('jtyped0', 'psql');
   // Rows per CPU second, process and server together: what the phase costs the machine, less
   // disturbed by the other work on it than its wall-clock time.
   const cpuRatio = (a: string, b: string) => {
@@ -306,13 +336,18 @@ async function main(): Promise<void> {
   cpuRatio('typed', 'typed0');
   cpuRatio('text0', 'psql');
   cpuRatio('typed0', 'psql');
+  cpuRatio('jtext', 'psql');
+  cpuRatio('jtyped', 'psql');
+  cpuRatio('jtext', 'jtext0');
+  cpuRatio('jtyped', 'jtyped0');
+  cpuRatio('jtext0', 'psql');
+  cpuRatio('jtyped0', 'psql');
   console.log(
     `load average at the end: ${loadavg()
       .map((l) => l.toFixed(1))
       .join(' ')}`,
   );
-  if (!existsSync(`${path}.rejects.ndjson`)) return;
-  await rm(`${path}.rejects.ndjson`, { force: true });
+  for (const p of [path, jsonPath, jsonTextPath]) await rm(`${p}.rejects.ndjson`, { force: true });
 }
 
 if (process.argv[2] === '--child-read') await readChild(process.argv[3]!);

@@ -18,6 +18,7 @@ import {
 } from './csv-line.js';
 import { CsvRun } from './csv-run.js';
 import { IngestError, type IngestStopReason } from './errors.js';
+import { JsonRun, JsonRunBuilder, linesFit } from './json-run.js';
 import { LineRun } from './line-run.js';
 import {
   type IngestFormat,
@@ -123,8 +124,10 @@ async function run<T>(
   const source = o.sourceName ?? 'stream';
   const runId = `ingest-${process.pid}-${++runs}`;
   const started = performance.now();
-  // Valid rows go on as their CSV text only where COPY reads the same text: comma-delimited.
-  const asLine = format === 'csv' && o.delimiter === COMMA ? o.asCsvLine : undefined;
+  // Valid rows go on as their CSV text only where COPY reads the same text: comma-delimited CSV,
+  // or NDJSON rows built from declared columns, written as CSV lines (json-run.ts).
+  const jsonLines = format === 'ndjson' && o.columns !== undefined && linesFit(o.columns);
+  const asLine = (format === 'csv' && o.delimiter === COMMA) || jsonLines ? o.asCsvLine : undefined;
   const asRun = asLine ? o.asCsvRun : undefined;
   // Text columns need no field values at all: records stay bytes after the header.
   const reader: ItemReader =
@@ -265,16 +268,30 @@ async function run<T>(
     },
   };
 
+  // NDJSON rows encoded as CSV lines (`jsonLines`), gathered the same way.
+  const encoded = jsonLines && asLine ? new JsonRunBuilder(o.columns!) : undefined;
+
   /** Hands the run gathered so far to the sink. */
   const endRun = (): Promise<void> | undefined => {
+    if (encoded) {
+      const e = encoded.take();
+      return e === undefined ? undefined : acceptRun(e.bytes, e.lines[0]!, e.lines.length, e.lines);
+    }
     const g = gathered.take();
     return g === undefined ? undefined : acceptRun(g.bytes, g.line, g.rows);
   };
 
   /** Rows that go as their lines, LF between them, as one record (one row: its line). */
-  const acceptRun = (bytes: Buffer, line: number, rows: number): Promise<void> | undefined => {
+  const acceptRun = (
+    bytes: Buffer,
+    line: number,
+    rows: number,
+    rowLines?: number[],
+  ): Promise<void> | undefined => {
     if (rows === 1) return accept(asLine!(new CsvLine(bytes, layout!)), metaOf(line));
-    const r = new CsvRun(bytes, line, rows, layout!, owner);
+    const r = rowLines
+      ? new JsonRun(bytes, rowLines, layout!, owner)
+      : new CsvRun(bytes, line, rows, layout!, owner);
     const meta = metaOf(line, rows);
     runMetas.set(r, meta);
     return accept(asRun!(r), meta);
@@ -314,7 +331,12 @@ async function run<T>(
 
   let header: HeaderMap | undefined = format === 'csv' && !o.header ? positional(o.columns!) : undefined;
   const needHeader = format === 'csv' && o.header;
-  let layout: LineLayout | undefined = header && asLine ? lineLayout(header, o.delimiter) : undefined;
+  let layout: LineLayout | undefined =
+    header && asLine
+      ? lineLayout(header, o.delimiter)
+      : encoded
+        ? lineLayout(positional(o.columns!), COMMA)
+        : undefined;
   /** Once the columns are known: runs of plain rows from the reader, where they can go as lines. */
   const frameRuns = (h: HeaderMap) => {
     if (!asRun || !reader.frameRuns) return;
@@ -417,6 +439,10 @@ async function run<T>(
         // Own properties only: a missing `constructor` must not read Object's.
         const built = fromColumns(o.columns, (c) => (Object.hasOwn(obj, c.from) ? obj[c.from] : undefined));
         if ('reason' in built) return reject(item.line, item.raw, built.reason, built.message, built.column);
+        if (encoded?.add(built.row, item.line)) {
+          // Without runs, the row goes at once, as its line.
+          return asRun ? undefined : endRun();
+        }
         row = built.row;
       } else row = obj;
     }

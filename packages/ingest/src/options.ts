@@ -82,16 +82,18 @@ export interface IngestOptions<T = Row> {
    * CSV with the `,` delimiter: a row that passes every check, and whose values would be written
    * exactly as the file spells them, goes to the sink as `asCsvLine(line)` instead of as a row
    * object: its bytes as a COPY (FORMAT csv) line, for a sink that reads CSV itself (a PostgreSQL
-   * sink in `copy` mode with its `csvLine` option). Other rows are row objects as usual, so the
-   * sink takes both. `line.row()` gives the row a line stands for. Not with `map` or `schema`,
-   * which need row objects.
+   * sink in `copy` mode with its `csvLine` option). NDJSON with `columns` (none of type `json`):
+   * each valid row, once built, is written as such a line. Other rows are row objects as usual,
+   * so the sink takes both. `line.row()` gives the row a line stands for. Not with `map` or
+   * `schema`, which need row objects.
    * @default undefined (every row is a row object)
    * @example (line) => line
    */
   asCsvLine?: (line: CsvLine) => T;
   /**
    * With `asCsvLine`: consecutive rows that would each go as their line, and lie next to each
-   * other in the input separated by a bare LF, go to the sink as one record, `asCsvRun(run)`:
+   * other in the input separated by a bare LF (NDJSON: any consecutive such rows, blank lines
+   * between them too), go to the sink as one record, `asCsvRun(run)`:
    * several COPY lines in one buffer, so the sink's per-record work is done once per run. A run
    * ends at a row that does not go as its line, a CRLF or blank line, and every 16 KiB of input.
    * The sink's dead-letter target must give a `CsvRun` it receives back with `run.isolate()`
