@@ -15,7 +15,8 @@ export const COLUMN_TYPES: readonly ColumnType[] = [
 
 /**
  * One column of a declared row. In CSV an empty field counts as missing; in NDJSON a missing
- * property or `null` does. Missing optional columns become `null`.
+ * property or `null` does (an empty string is a value, checked and converted like any other).
+ * Missing optional columns become `null`.
  */
 export interface ColumnSpec {
   /** Name in the output row, and the header name (CSV) or property (NDJSON) read unless `from` is set. */
@@ -113,9 +114,14 @@ export function resolveColumns(columns: unknown): ResolvedColumn[] {
   });
 }
 
-/** True when a value counts as missing: absent, null, or (text) empty. */
+/** True when a CSV field counts as missing: absent or empty. */
 export function isMissing(value: unknown): boolean {
   return value === undefined || value === null || value === '';
+}
+
+/** True when an NDJSON property counts as missing: absent or `null` (an empty string is a value). */
+export function isAbsent(value: unknown): boolean {
+  return value === undefined || value === null;
 }
 
 /**

@@ -4,7 +4,7 @@ import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
 import { messageOf, type Sink, SpillwayError } from '@spillway/core';
 import { invalidOption } from '@spillway/core/kit';
-import { convert, isMissing, type ResolvedColumn } from './columns.js';
+import { convert, isAbsent, isMissing, type ResolvedColumn } from './columns.js';
 import { splitRecords } from './csv-fields.js';
 import {
   CsvLine,
@@ -437,7 +437,11 @@ async function run<T>(
       const obj = v as Record<string, unknown>;
       if (o.columns) {
         // Own properties only: a missing `constructor` must not read Object's.
-        const built = fromColumns(o.columns, (c) => (Object.hasOwn(obj, c.from) ? obj[c.from] : undefined));
+        const built = fromColumns(
+          o.columns,
+          (c) => (Object.hasOwn(obj, c.from) ? obj[c.from] : undefined),
+          isAbsent,
+        );
         if ('reason' in built) return reject(item.line, item.raw, built.reason, built.message, built.column);
         if (encoded?.add(built.row, item.line)) {
           // Without runs, the row goes at once, as its line.
@@ -645,11 +649,16 @@ function splitOne(bytes: Buffer, delimiter: number): string[] {
 
 type Built = { row: Row } | { reason: RejectReason; message: string; column: string };
 
-function fromColumns(columns: ResolvedColumn[], read: (c: ResolvedColumn) => unknown): Built {
+/** A row of the declared columns; `missing` says which values count as missing (CSV or NDJSON rules). */
+function fromColumns(
+  columns: ResolvedColumn[],
+  read: (c: ResolvedColumn) => unknown,
+  missing: (value: unknown) => boolean = isMissing,
+): Built {
   const row: Row = {};
   for (const c of columns) {
     const raw = read(c);
-    if (isMissing(raw)) {
+    if (missing(raw)) {
       if (c.required) return { reason: 'required', message: 'a required value is missing', column: c.name };
       setField(row, c.name, null);
       continue;

@@ -181,6 +181,45 @@ describe('validation against declared columns', () => {
   });
 });
 
+describe('missing values', () => {
+  it('NDJSON: an empty string is a value (lands as "" in a text column, refused by a number column); only an absent property or null is missing', async () => {
+    const adapter = new MemoryAdapter<Row>();
+    const sink = new Sink(adapter);
+    const input = [
+      '{"dock":"DK-1","note":"","bikes":1}',
+      '{"dock":"","note":null,"bikes":2}',
+      '{"dock":"DK-3","bikes":""}',
+      '{"note":"x","bikes":4}',
+      '',
+    ].join('\n');
+    const summary = await ingest(Readable.from([input]), sink, {
+      format: 'ndjson',
+      columns: [{ name: 'dock', required: true }, { name: 'note' }, { name: 'bikes', type: 'integer' }],
+    });
+    expect(adapter.stored).toEqual([
+      { dock: 'DK-1', note: '', bikes: 1 },
+      { dock: '', note: null, bikes: 2 },
+    ]);
+    expect(summary.firstRejects.map((r) => [r.line, r.column, r.reason])).toEqual([
+      [3, 'bikes', 'type'],
+      [4, 'dock', 'required'],
+    ]);
+    await sink.close();
+  });
+
+  it('CSV: an empty field is missing (null, or refused when required)', async () => {
+    const adapter = new MemoryAdapter<Row>();
+    const sink = new Sink(adapter);
+    const summary = await ingest(Readable.from(['dock,note\nDK-1,\n,x\n']), sink, {
+      format: 'csv',
+      columns: [{ name: 'dock', required: true }, { name: 'note' }],
+    });
+    expect(adapter.stored).toEqual([{ dock: 'DK-1', note: null }]);
+    expect(summary.firstRejects.map((r) => [r.line, r.column, r.reason])).toEqual([[3, 'dock', 'required']]);
+    await sink.close();
+  });
+});
+
 describe('reject files', () => {
   it('writes NDJSON rejects 0600 with line, column, reason and the raw row (base64 when not UTF-8)', async () => {
     const path = join(dir, 'rejects.ndjson');
