@@ -120,6 +120,29 @@ describe('the transactional Kafka sink', () => {
     expect(new Set(values).size).toBe(3000);
   });
 
+  it('writes a source message once when a batch holds it twice (a bridge fetched it again after a rebalance while the first copy still waited in the sink)', async () => {
+    const o = await setup('txn_twice');
+    const adapter = kafkaTransactionalAdapter<DockReport>({
+      kafka: k.kafka,
+      group: o.group,
+      topic: o.output,
+      mapper: (r) => ({ key: r.dock, value: JSON.stringify(r) }),
+    });
+    // One batch of both copies: no flush by size or age before close().
+    const sink = new Sink<DockReport>(adapter, { maxRecords: 10_000, maxAgeMs: 60_000, idleMs: 0 });
+    await feed(sink, o.source, 300);
+    await feed(sink, o.source, 300, 150);
+    await sink.close();
+    expect(sink.snapshot()).toMatchObject({ written: 450, deadLettered: 0 });
+    const hundred = { '0': 100, '1': 100, '2': 100 };
+    expect(await storedOnceSettled(o.offsetsGroup, o.source, hundred)).toEqual(hundred);
+    const values = (await readTopicJava(services().kafkaBrokers, o.output)).map(
+      (v) => (JSON.parse(v) as DockReport).seq,
+    );
+    expect(values.length).toBe(300);
+    expect(new Set(values).size).toBe(300);
+  });
+
   it('dead-letters a record its mapper refuses, writes the rest of its source partition once, and stores the offset past it', async () => {
     const o = await setup('txn_mapper');
     const dead = new CollectedDeadLetters<DockReport>();

@@ -150,6 +150,21 @@ describe('PostgreSQL offsets stored with the data', () => {
       expect(await stored(name)).toEqual({ '0': '20', '1': '12' });
     });
 
+    it(`${label}: a batch that holds a source message twice (fetched again after a rebalance while the first copy waited) writes it once`, async () => {
+      const name = await table(mode === 'upsert');
+      const a = adapter(name, mode, extra);
+      const first = batch(0, 40);
+      const again = batch(20, 40);
+      const both: Batch<DockEvent> = {
+        ...first,
+        records: [...first.records, ...again.records],
+        metas: [...first.metas, ...again.metas],
+      };
+      expect(await a.write(both)).toBeUndefined();
+      expect(await rows(name)).toEqual({ rows: 40, distinct: 40 });
+      expect(await stored(name)).toEqual({ '0': '20', '1': '20' });
+    });
+
     it(`${label}: a writer whose records are stored already writes none of them again, and writes the rest`, async () => {
       const name = await table(mode === 'upsert');
       const owner = adapter(name, mode, extra);

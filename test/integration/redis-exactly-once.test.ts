@@ -122,6 +122,21 @@ describe('Redis storeOffsets', () => {
     expect(sink.snapshot().written).toBe(3000 + 3000 + 3000);
   });
 
+  it('a batch that holds a source message twice (fetched again after a rebalance while the first copy waited) adds it to a list once', async () => {
+    const k = keys();
+    const { sink, adapter } = sinkFor(rpush(k.data), k.offsets, {
+      maxRecords: 10_000,
+      maxAgeMs: 60_000,
+      idleMs: 0,
+    });
+    for (let seq = 0; seq < 300; seq++) await sink.write({ seq, dock: `dock-${seq % 97}` }, meta(seq));
+    for (let seq = 150; seq < 300; seq++) await sink.write({ seq, dock: `dock-${seq % 97}` }, meta(seq));
+    await sink.close();
+    expect(sink.snapshot()).toMatchObject({ written: 450, deadLettered: 0 });
+    expect(await listSeqs(k.data)).toEqual({ count: 300, distinct: 300, sum: sumTo(300) });
+    expect(adapter.stats().alreadyStored).toBe(150);
+  });
+
   it('a stream with server-made ids and a plain counter take each record once across a replay', async () => {
     const k = keys();
     const stream = sinkFor(

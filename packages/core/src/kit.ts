@@ -32,5 +32,5 @@ export {
 export { estimateJsonBytes } from './size.js';
 export { isSocketError, SOCKET_ERROR_CODES } from './socket-codes.js';
 export type { PartitionRange, StoredOffsets } from './source-offsets.js';
-export { kafkaCoordinates } from './source-offsets.js';
+export { kafkaCoordinates, repeatedSourceMessages } from './source-offsets.js';
 export { TypedEmitter } from './typed-emitter.js';

@@ -39,7 +39,11 @@ import {
 } from './transactional-partition.js';
 
 export interface KafkaTransactionalAdapterStats extends TransactionCounters {
-  /** Records not sent because the stored offset showed them written already (a replay). */
+  /**
+   * Records not sent because the stored offset showed them written already (a replay), or because
+   * the same batch holds their source message once more (a bridge fetched it again after a
+   * rebalance while the first copy still waited in the sink): each source message goes out once.
+   */
   skippedStored: number;
   /** Readings of a stored offset the broker called unstable (a transaction's offsets not yet applied). */
   unstableReads: number;
@@ -222,8 +226,8 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
 
   /**
    * The records of one source partition (in offset order): those below the stored offset are
-   * written already and land as they are; the rest go out in one transaction with the offset after
-   * them. A record that cannot be mapped keeps the whole partition back this time, so that the
+   * written already and land as they are, a second copy of a message in the batch lands with its
+   * first; the rest go out in one transaction with the offset after them. A record that cannot be mapped keeps the whole partition back this time, so that the
    * stored offset never passes a record before it is dead-lettered.
    */
   private async writeSource(
@@ -233,7 +237,8 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
   ): Promise<Rejection[]> {
     if (!source.owned) await source.own();
     const floor = source.stored;
-    const todo = floor === undefined ? items : items.filter((it) => it.offset >= floor);
+    const fresh = floor === undefined ? items : items.filter((it) => it.offset >= floor);
+    const { todo, copies } = onceEach(fresh);
     this.counters.skippedStored += items.length - todo.length;
     if (todo.length === 0) return [];
     const outgoing: Array<{ topic: string; message: Message }> = [];
@@ -255,6 +260,7 @@ export class KafkaTransactionalAdapter<T> implements SinkAdapter<T> {
         { details: { stage: 'held', topic: source.topic, partition: source.partition } },
       );
       for (const { index } of todo) if (!badSet.has(index)) bad.push({ index, error: held });
+      for (const index of copies) bad.push({ index, error: held });
       return bad;
     }
     await source.commit(outputs, next);
@@ -456,4 +462,29 @@ export function kafkaTransactionalAdapter<T>(
   options: KafkaTransactionalAdapterOptions<T>,
 ): KafkaTransactionalAdapter<T> {
   return new KafkaTransactionalAdapter(options);
+}
+
+/**
+ * The items with each source offset once (the first copy), and the batch indexes of the other
+ * copies: a message a bridge fetched again while its first copy still waited in the sink is the
+ * same message, and one transaction must not write it twice. Items usually come in offset order,
+ * which needs no set.
+ */
+function onceEach<I extends { index: number; offset: bigint }>(
+  items: readonly I[],
+): { todo: readonly I[]; copies: number[] } {
+  let ascending = true;
+  for (let k = 1; k < items.length && ascending; k++) ascending = items[k]!.offset > items[k - 1]!.offset;
+  if (ascending) return { todo: items, copies: [] };
+  const seen = new Set<bigint>();
+  const todo: I[] = [];
+  const copies: number[] = [];
+  for (const it of items) {
+    if (seen.has(it.offset)) copies.push(it.index);
+    else {
+      seen.add(it.offset);
+      todo.push(it);
+    }
+  }
+  return { todo, copies };
 }

@@ -9,7 +9,13 @@ import {
   SpillwayError,
   StoreError,
 } from '@spillway/core';
-import { invalidOption, kafkaCoordinates, partitionKey, type StoredOffsets } from '@spillway/core/kit';
+import {
+  invalidOption,
+  kafkaCoordinates,
+  partitionKey,
+  repeatedSourceMessages,
+  type StoredOffsets,
+} from '@spillway/core/kit';
 import type { PoolClient } from 'pg';
 import { classifyPostgresError, isConnectionError, sqlstateOf } from './classify.js';
 import { CopyChunks } from './copy-format.js';
@@ -214,13 +220,17 @@ export class PostgresAdapter<T> implements SinkAdapter<T> {
 
   /**
    * One transaction for the batch's records, leaving out those below `stored` (already in the
-   * table). With `storeOffsets` its offsets commit with it, or it reports what is stored ahead.
+   * table) and, with `storeOffsets`, second copies of a source message in the batch. With
+   * `storeOffsets` its offsets commit with it, or it reports what is stored ahead.
    */
   private async attempt(batch: Batch<T>, stored: StoredOffsets | undefined): Promise<Attempt> {
     const rejected: Array<{ index: number; error: unknown }> = [];
     const { map, mode, csvLine } = this.options;
     const metas = batch.metas;
+    // A second copy of a source message in this batch lands with its first, never twice.
+    const repeated = this.ledger === undefined ? undefined : repeatedSourceMessages(metas);
     const skip = (i: number): boolean => {
+      if (repeated?.has(i)) return true;
       if (stored === undefined) return false;
       const c = kafkaCoordinates(metas[i]);
       if (c === undefined) return false;

@@ -30,7 +30,7 @@ export interface RedisAdapterStats {
    * the batch was then sent again without the stored records.
    */
   offsetConflicts: number;
-  /** Records left out of a batch because the stored offset of their partition was past them. */
+  /** Records left out of a batch because the stored offset of their partition was past them, or because the batch holds their source message once more. */
   alreadyStored: number;
 }
 

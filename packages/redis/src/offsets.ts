@@ -11,7 +11,13 @@
  * is stored instead.
  */
 import type { RecordMeta } from '@spillway/core';
-import { kafkaCoordinates, type PartitionRange, partitionKey, type StoredOffsets } from '@spillway/core/kit';
+import {
+  kafkaCoordinates,
+  type PartitionRange,
+  partitionKey,
+  repeatedSourceMessages,
+  type StoredOffsets,
+} from '@spillway/core/kit';
 import type { Cluster, Redis } from 'ioredis';
 import type { RedisArg, RedisCommand } from './commands.js';
 
@@ -139,6 +145,8 @@ export class OffsetHash {
     let records = 0;
     let skipped = 0;
     let guarded = true;
+    // A second copy of a source message in this batch lands with its first, never twice.
+    const repeated = repeatedSourceMessages(metas);
     for (let i = 0; i < lists.length; i++) {
       const list = lists[i];
       const c = kafkaCoordinates(metas[i]);
@@ -148,7 +156,7 @@ export class OffsetHash {
       else {
         const key = partitionKey(c.topic, c.partition);
         const s = stored?.get(key);
-        if (s !== undefined && c.offset < s) {
+        if ((s !== undefined && c.offset < s) || repeated?.has(i)) {
           skipped++;
           continue;
         }
