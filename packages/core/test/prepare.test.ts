@@ -112,3 +112,22 @@ describe('accept stamps with the system clock', () => {
     await sink.close();
   });
 });
+
+describe("the 'settled' event's latencies", () => {
+  it('are those at the settlement, whenever a listener reads them, and one array however often read', async () => {
+    const clock = new ManualClock();
+    const sink = new Sink(new FakeAdapter<number>(), { maxRecords: 10, maxAgeMs: 1000, idleMs: 0, clock });
+    const events: Array<{ readonly latenciesMs: readonly number[] }> = [];
+    sink.on('settled', (e) => events.push(e));
+    sink.tryWrite(1);
+    await clock.advance(30);
+    sink.tryWrite(2);
+    await clock.advance(20);
+    await sink.flush();
+    await clock.advance(500); // read long after the settlement: the figures must not grow
+    expect(events).toHaveLength(1);
+    const first = events[0]!.latenciesMs;
+    expect(first).toEqual([50, 20]);
+    expect(events[0]!.latenciesMs).toBe(first);
+  });
+});

@@ -65,7 +65,6 @@ export class Settlement<T> {
     const now = this.clock.now();
     const n = partLength(batch, part);
     const wantEvent = this.events.listenerCount('settled') > 0;
-    const latencies: number[] = wantEvent ? new Array(n) : [];
     const { times, metas, barriers } = batch;
     const h = this.stats;
     const durable = outcome === 'durable';
@@ -73,7 +72,6 @@ export class Settlement<T> {
     // run, which keeps the per-record cost of the latency distribution near zero. Records
     // stamped with one clock reading (see Admission.acceptNow()) need not even be rounded.
     const at = part === undefined ? times : pick(times, part);
-    if (wantEvent) for (let k = 0; k < n; k++) latencies[k] = now - at[k]!;
     if (durable) {
       let lastAt = Number.NaN;
       let runValue = Number.NaN;
@@ -117,12 +115,10 @@ export class Settlement<T> {
     this.hooks.retire(n, partBytes(batch, part));
     if (this.hooks.pendingRecords() === 0) this.hooks.idle();
     if (wantEvent) {
-      this.events.emit('settled', {
-        sink: this.name,
-        outcome,
-        metas: metas === undefined ? noMetasColumn(n) : pick(metas, part),
-        latenciesMs: latencies,
-      });
+      this.events.emit(
+        'settled',
+        settledEvent(this.name, outcome, metas === undefined ? noMetasColumn(n) : pick(metas, part), at, now),
+      );
     }
     if (part !== undefined) this.release(batch, part);
     // The last records of a batch: the scheduler lets writers in once the next batch has started.
@@ -193,4 +189,30 @@ export class Settlement<T> {
     for (const b of this.barriers) b.reject(error);
     this.barriers.clear();
   }
+}
+
+/**
+ * The `settled` event. Its latencies are worked out when a listener first reads them: the source
+ * bridge, which listens to every settlement, reads only the metas.
+ */
+function settledEvent(
+  sink: string,
+  outcome: Outcome,
+  metas: readonly (RecordMeta | undefined)[],
+  acceptedAt: readonly number[],
+  now: number,
+): SinkEvents['settled'] {
+  let latencies: number[] | undefined;
+  return {
+    sink,
+    outcome,
+    metas,
+    get latenciesMs(): readonly number[] {
+      if (latencies === undefined) {
+        latencies = new Array<number>(metas.length);
+        for (let k = 0; k < latencies.length; k++) latencies[k] = now - acceptedAt[k]!;
+      }
+      return latencies;
+    },
+  };
 }
