@@ -26,7 +26,8 @@
 // phase's decoder (JSON.parse) and discarding it. With it the run also prints a second figure,
 // labelled as such: (source-decode + store CPU) / (bridge CPU), which counts the application's
 // decoding on both sides instead of against the bridge alone.
-// --profile DIR writes a CPU profile (.cpuprofile) of each phase into DIR (the phase's set-up included).
+// --profile DIR writes a CPU profile (.cpuprofile) of each phase into DIR (the phase's set-up included;
+// its `measured` field holds the measured stretch, { startTime, endTime } in the profile's µs).
 // bridge-eos (not in the default run; `--phases bridge,bridge-eos`): the bridge phase with
 // exactly-once on (the adapter's storeOffsets, the bridge's offsetStores); with both phases the run
 // prints the ratio bridge-eos / bridge.
@@ -34,6 +35,7 @@ import { randomBytes } from 'node:crypto';
 import { mkdirSync, readdirSync, readFileSync, readlinkSync, writeFileSync } from 'node:fs';
 import { Session } from 'node:inspector';
 import { join } from 'node:path';
+import { PerformanceObserver } from 'node:perf_hooks';
 import { parseArgs } from 'node:util';
 import { type RecordMeta, Sink, type SinkOptions } from '@spillway/core';
 import { DecodeError, KafkaBridge } from '@spillway/kafka';
@@ -248,6 +250,8 @@ interface CpuBudget {
   broker: number;
   /** Wall-clock µs per message: total CPU / wall is how many cores were busy. */
   wall: number;
+  /** µs per message this process spent paused for garbage collection (part of `node`). */
+  gc: number;
 }
 
 /**
@@ -266,10 +270,19 @@ class CpuMeter {
   private nodeUs = 0;
   private pg1 = new Map<number, number>();
   private broker1 = Number.NaN;
+  /** GC pauses of this process while measuring, ms. */
+  private gcMs = 0;
+  /** The measured stretch on the monotonic clock, µs (the clock of a V8 CPU profile). */
+  window = { startTime: 0, endTime: 0 };
 
   constructor(pgPort: number, brokerPort: number | undefined) {
     this.postmaster = pidListeningOn(pgPort);
     this.broker = brokerPort === undefined ? undefined : pidListeningOn(brokerPort);
+    // GC entries arrive after their pause (asynchronously): one that began inside the stretch counts.
+    new PerformanceObserver((list) => {
+      for (const e of list.getEntries())
+        if (e.startTime >= this.t0 && e.startTime <= this.t1) this.gcMs += e.duration;
+    }).observe({ entryTypes: ['gc'] });
   }
 
   get found(): { postgres: boolean; broker: boolean } {
@@ -290,11 +303,15 @@ class CpuMeter {
     this.pg0 = this.postgresCpu();
     this.broker0 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
     this.node0 = process.cpuUsage();
+    this.gcMs = 0;
+    this.t1 = Number.POSITIVE_INFINITY;
+    this.window.startTime = Number(process.hrtime.bigint() / 1000n);
     this.t0 = performance.now();
   }
 
   stop(): void {
     this.t1 = performance.now();
+    this.window.endTime = Number(process.hrtime.bigint() / 1000n);
     const u = process.cpuUsage(this.node0);
     this.nodeUs = u.user + u.system;
     this.broker1 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
@@ -318,6 +335,7 @@ class CpuMeter {
       postgresServer: this.postmaster === undefined ? Number.NaN : per(server),
       broker: per(this.broker1 - this.broker0),
       wall: ((this.t1 - this.t0) * 1000) / messages,
+      gc: (this.gcMs * 1000) / messages,
     };
   }
 }
@@ -364,12 +382,13 @@ class Profiler {
     await this.post('Profiler.start');
   }
 
-  async stop(dir: string, name: string): Promise<string> {
-    const { profile } = (await this.post('Profiler.stop')) as { profile: unknown };
+  /** `measured`: the phase's measured stretch, µs on the profile's clock, kept in the file. */
+  async stop(dir: string, name: string, measured: { startTime: number; endTime: number }): Promise<string> {
+    const { profile } = (await this.post('Profiler.stop')) as { profile: object };
     this.session.disconnect();
     mkdirSync(dir, { recursive: true });
     const file = join(dir, `${name}.cpuprofile`);
-    writeFileSync(file, JSON.stringify(profile));
+    writeFileSync(file, JSON.stringify({ ...profile, measured }));
     return file;
   }
 }
@@ -587,7 +606,7 @@ async function main(): Promise<void> {
         await profiler?.start();
         const run = await runPhase(which);
         if (profiler && PROFILE_DIR !== undefined) {
-          const file = await profiler.stop(PROFILE_DIR, `${which}-${tag}-${rep + 1}`);
+          const file = await profiler.stop(PROFILE_DIR, `${which}-${tag}-${rep + 1}`, meter.window);
           console.log(`CPU profile of ${which} phase ${rep + 1}: ${file}`);
         }
         if (which === 'bridge' || which === 'bridge-eos') {
@@ -602,7 +621,7 @@ async function main(): Promise<void> {
         budgets[which].push(b);
         parts.push(
           `${which} ${Math.round(run.rate)}/s${run.pauses === undefined ? '' : ` (${run.pauses} partition pauses)`} ` +
-            `[CPU µs/msg node ${b.node.toFixed(2)}, pg ${b.postgres.toFixed(2)}, pg-server ${b.postgresServer.toFixed(2)}, broker ${b.broker.toFixed(2)}; wall ${b.wall.toFixed(2)}]`,
+            `[CPU µs/msg node ${b.node.toFixed(2)} (GC pauses ${b.gc.toFixed(2)}), pg ${b.postgres.toFixed(2)}, pg-server ${b.postgresServer.toFixed(2)}, broker ${b.broker.toFixed(2)}; wall ${b.wall.toFixed(2)}]`,
         );
       }
       const { source, store, bridge } = round;
@@ -640,7 +659,8 @@ async function main(): Promise<void> {
     }
     console.log(
       '\nCPU budget, µs per message, median (range) — node = this process; pg = its PostgreSQL backends;\n' +
-        'pg-server = PostgreSQL auxiliary processes (machine-wide); broker = the Kafka JVM; busy = CPU / wall, in cores',
+        'pg-server = PostgreSQL auxiliary processes (machine-wide); broker = the Kafka JVM; busy = CPU / wall, in cores;\n' +
+        'node GC = this process paused for garbage collection (wall µs per message, part of node)',
     );
     const cores = machineInfo().cores;
     const med = (xs: number[]) => summary(xs).median;
@@ -649,13 +669,13 @@ async function main(): Promise<void> {
       return `${s.median.toFixed(2)} (${s.min.toFixed(2)}–${s.max.toFixed(2)})`.padEnd(20);
     };
     console.log(
-      `${'phase'.padEnd(10)} ${['node', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
+      `${'phase'.padEnd(10)} ${['node', 'node GC', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
     );
     for (const k of PHASES) {
       const bs = budgets[k];
       const total = bs.map(totalCpu);
       console.log(
-        `${k.padEnd(10)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
+        `${k.padEnd(10)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.gc))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
           `${cell(bs.map((b) => b.broker))}${cell(total)}${cell(bs.map((b) => b.wall))}${med(bs.map((b, i) => total[i]! / b.wall)).toFixed(2)}`,
       );
     }
