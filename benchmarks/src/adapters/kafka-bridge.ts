@@ -125,13 +125,32 @@ const event = (seq: number): DockStatus => ({
   bikes: seq % 13,
   emptySlots: 12 - (seq % 13),
 });
+/**
+ * The decoder of both the bridge and the source-decode phases, as an application would write it:
+ * the value as UTF-8 text (`toString()` with no argument is UTF-8), parsed as JSON, and each field
+ * checked before the record is trusted.
+ */
 const decode = (m: KafkaMessage): DockStatus | DecodeError => {
+  if (m.value === null) return new DecodeError('dock status without a value');
+  let value: unknown;
   try {
-    return JSON.parse(m.value!.toString('utf8')) as DockStatus;
+    value = JSON.parse(m.value.toString());
   } catch (error) {
-    return new DecodeError('not JSON', { cause: error });
+    return new DecodeError('dock status is not JSON', { cause: error });
   }
+  return isDockStatus(value) ? value : new DecodeError('dock status lacks seq, dock, bikes or emptySlots');
 };
+
+function isDockStatus(v: unknown): v is DockStatus {
+  if (typeof v !== 'object' || v === null) return false;
+  const o = v as Partial<Record<keyof DockStatus, unknown>>;
+  return (
+    Number.isSafeInteger(o.seq) &&
+    typeof o.dock === 'string' &&
+    Number.isSafeInteger(o.bikes) &&
+    Number.isSafeInteger(o.emptySlots)
+  );
+}
 
 function adapter(storeOffsetsFor?: string) {
   return postgresAdapter<DockStatus>({
