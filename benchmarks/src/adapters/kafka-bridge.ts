@@ -31,6 +31,11 @@
 // bridge-eos (not in the default run; `--phases bridge,bridge-eos`): the bridge phase with
 // exactly-once on (the adapter's storeOffsets, the bridge's offsetStores); with both phases the run
 // prints the ratio bridge-eos / bridge.
+// bridge-nodecode (not in the default run; `--phases source,store,bridge,bridge-nodecode`): the bridge
+// phase with a decoder that parses nothing (it looks the message's row up in memory by partition and
+// offset, as the store phase has its rows): what the bridge costs beyond the source and the store,
+// the application's decoding aside. With source and store the run prints that third figure,
+// (source + store CPU) / (bridge-nodecode CPU), labelled as such.
 import { randomBytes } from 'node:crypto';
 import { mkdirSync, readdirSync, readFileSync, readlinkSync, writeFileSync } from 'node:fs';
 import { Session } from 'node:inspector';
@@ -38,7 +43,7 @@ import { join } from 'node:path';
 import { PerformanceObserver } from 'node:perf_hooks';
 import { parseArgs } from 'node:util';
 import { type RecordMeta, Sink, type SinkOptions } from '@spillway/core';
-import { DecodeError, KafkaBridge } from '@spillway/kafka';
+import { DecodeError, KafkaBridge, type KafkaSource } from '@spillway/kafka';
 import { postgresAdapter } from '@spillway/postgres';
 import { machineInfo } from '@spillway/tuner';
 import { Kafka, type KafkaMessage, logLevel } from 'kafkajs';
@@ -72,7 +77,14 @@ const PHASES = flags.phases.split(',').map((p) => p.trim()) as Phase[];
 // store-meta (not in the default run): the store phase with a Kafka-like meta per row (topic,
 // partition, bigint offset, ordering key, event time), which the sink tracks as it does the
 // bridge's: what the sink's own per-record bookkeeping of metas costs.
-type Phase = 'source' | 'source-decode' | 'store' | 'store-meta' | 'bridge' | 'bridge-eos';
+type Phase =
+  | 'source'
+  | 'source-decode'
+  | 'store'
+  | 'store-meta'
+  | 'bridge'
+  | 'bridge-eos'
+  | 'bridge-nodecode';
 const ALL_PHASES: readonly Phase[] = [
   'source',
   'source-decode',
@@ -80,6 +92,7 @@ const ALL_PHASES: readonly Phase[] = [
   'store-meta',
   'bridge',
   'bridge-eos',
+  'bridge-nodecode',
 ];
 for (const p of PHASES)
   if (!ALL_PHASES.includes(p))
@@ -471,7 +484,11 @@ async function runStore(rows: DockStatus[], meter: CpuMeter, metas?: RecordMeta[
   return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
-async function runBridge(meter: CpuMeter, exactlyOnce = false): Promise<Run> {
+async function runBridge(
+  meter: CpuMeter,
+  exactlyOnce = false,
+  decoder: (m: KafkaMessage, source: KafkaSource) => DockStatus | DecodeError = decode,
+): Promise<Run> {
   const groupId = `bench-bridge-${tag}-${randomBytes(3).toString('hex')}`;
   const a = adapter(exactlyOnce ? groupId : undefined);
   const s = sink(a);
@@ -483,12 +500,12 @@ async function runBridge(meter: CpuMeter, exactlyOnce = false): Promise<Run> {
     consumerConfig,
     topics: [TOPIC],
     fromBeginning: true,
-    decode: (m) => {
+    decode: (m, source) => {
       if (t0 === 0) {
         meter.start();
         t0 = performance.now();
       }
-      return decode(m);
+      return decoder(m, source);
     },
     route: () => s,
     deadLetter: { write: async () => undefined },
@@ -571,6 +588,7 @@ async function main(): Promise<void> {
       'store-meta': [],
       bridge: [],
       'bridge-eos': [],
+      'bridge-nodecode': [],
       ratio: [],
     };
     const budgets: Record<Phase, CpuBudget[]> = {
@@ -580,12 +598,23 @@ async function main(): Promise<void> {
       'store-meta': [],
       bridge: [],
       'bridge-eos': [],
+      'bridge-nodecode': [],
     };
     const eosRatios: number[] = [];
     // (source + store CPU per message) / (bridge CPU per message), all processes, per repeat.
     const efficiency: number[] = [];
     // The second figure: (source-decode + store CPU per message) / (bridge CPU per message).
     const efficiencyDecoded: number[] = [];
+    // The third figure: (source + store CPU per message) / (bridge-nodecode CPU per message).
+    const efficiencyNoDecode: number[] = [];
+    // bridge-nodecode's decoder: the row produced at this partition and offset (each partition of the
+    // fresh topic holds the rows with seq % PARTITIONS === partition, in seq order).
+    const lookUp = (m: KafkaMessage, source: KafkaSource): DockStatus | DecodeError => {
+      const row = rows[Number(m.offset) * PARTITIONS + source.partition];
+      return row !== undefined && row.seq % PARTITIONS === source.partition
+        ? row
+        : new DecodeError(`no row produced at partition ${source.partition}, offset ${m.offset}`);
+    };
     // Metas as the bridge makes them, built before the phase like the rows (offsets per partition).
     const metas: RecordMeta[] = PHASES.includes('store-meta')
       ? rows.map((r) => {
@@ -606,7 +635,9 @@ async function main(): Promise<void> {
           ? runStore(rows, meter)
           : which === 'store-meta'
             ? runStore(rows, meter, metas)
-            : runBridge(meter, which === 'bridge-eos');
+            : which === 'bridge-nodecode'
+              ? runBridge(meter, false, lookUp)
+              : runBridge(meter, which === 'bridge-eos');
     // Unmeasured rounds first: JIT, connections, and the kafkajs protocol modules a phase loads on
     // first use (the bridge's first commit loads the commit request's) are paid once, by nobody.
     for (let w = 0; w < WARMUP; w++) {
@@ -628,7 +659,7 @@ async function main(): Promise<void> {
           const file = await profiler.stop(PROFILE_DIR, `${which}-${tag}-${rep + 1}`, meter.window);
           console.log(`CPU profile of ${which} phase ${rep + 1}: ${file}`);
         }
-        if (which === 'bridge' || which === 'bridge-eos') {
+        if (which === 'bridge' || which === 'bridge-eos' || which === 'bridge-nodecode') {
           const n = Number(
             (await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n,
           );
@@ -666,6 +697,14 @@ async function main(): Promise<void> {
         const e = (bd! + bt!) / bb!;
         efficiencyDecoded.push(e);
         ratio += ` (decoding counted in the source phase: ${e.toFixed(2)})`;
+      }
+      if (source && store && round['bridge-nodecode']) {
+        const [bs, bt, bn] = [budgets.source, budgets.store, budgets['bridge-nodecode']].map((b) =>
+          totalCpu(b.at(-1)!),
+        );
+        const e = (bs! + bt!) / bn!;
+        efficiencyNoDecode.push(e);
+        ratio += `; without decoding: ${e.toFixed(2)}`;
       }
       console.log(`repeat ${rep + 1}: ${parts.join(', ')}${ratio}`);
     }
@@ -745,11 +784,19 @@ async function main(): Promise<void> {
           `median ${e.median.toFixed(2)} (range ${e.min.toFixed(2)}–${e.max.toFixed(2)}, ${efficiencyDecoded.length} repeats); the decoder alone: ${decodeUs.toFixed(2)} µs/msg (source-decode less source, this process, medians)`,
       );
     }
+    if (efficiencyNoDecode.length > 0) {
+      const e = summary(efficiencyNoDecode);
+      console.log(
+        `third figure, not the issue's metric — the bridge without decoding: (source + store CPU µs/msg) / (bridge-nodecode CPU µs/msg), all processes, per repeat: ` +
+          `median ${e.median.toFixed(2)} (range ${e.min.toFixed(2)}–${e.max.toFixed(2)}, ${efficiencyNoDecode.length} repeats)`,
+      );
+    }
     console.log(
       JSON.stringify({
         samples,
         cpuEfficiency: efficiency,
         cpuEfficiencyDecodingInSource: efficiencyDecoded,
+        cpuEfficiencyWithoutDecoding: efficiencyNoDecode,
         cpuBudgetUsPerMessage: budgets,
       }),
     );
