@@ -608,7 +608,8 @@ async function main(): Promise<void> {
     // The third figure: (source + store CPU per message) / (bridge-nodecode CPU per message).
     const efficiencyNoDecode: number[] = [];
     // bridge-nodecode's decoder: the row produced at this partition and offset (each partition of the
-    // fresh topic holds the rows with seq % PARTITIONS === partition, in seq order).
+    // fresh topic holds the rows with seq % PARTITIONS === partition, in seq order). The look-up is
+    // not free (the offset string made a number, a row read from memory): the bridge is charged it.
     const lookUp = (m: KafkaMessage, source: KafkaSource): DockStatus | DecodeError => {
       const row = rows[Number(m.offset) * PARTITIONS + source.partition];
       return row !== undefined && row.seq % PARTITIONS === source.partition
@@ -712,7 +713,7 @@ async function main(): Promise<void> {
     for (const k of PHASES) {
       const s = summary(samples[k]);
       console.log(
-        `${k.padEnd(10)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
+        `${k.padEnd(15)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
       );
     }
     console.log(
@@ -727,13 +728,13 @@ async function main(): Promise<void> {
       return `${s.median.toFixed(2)} (${s.min.toFixed(2)}–${s.max.toFixed(2)})`.padEnd(20);
     };
     console.log(
-      `${'phase'.padEnd(10)} ${['node', 'node GC', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
+      `${'phase'.padEnd(15)} ${['node', 'node GC', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
     );
     for (const k of PHASES) {
       const bs = budgets[k];
       const total = bs.map(totalCpu);
       console.log(
-        `${k.padEnd(10)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.gc))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
+        `${k.padEnd(15)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.gc))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
           `${cell(bs.map((b) => b.broker))}${cell(total)}${cell(bs.map((b) => b.wall))}${med(bs.map((b, i) => total[i]! / b.wall)).toFixed(2)}`,
       );
     }
