@@ -26,17 +26,24 @@
 // phase's decoder (JSON.parse) and discarding it. With it the run also prints a second figure,
 // labelled as such: (source-decode + store CPU) / (bridge CPU), which counts the application's
 // decoding on both sides instead of against the bridge alone.
-// --profile DIR writes a CPU profile (.cpuprofile) of each phase into DIR (the phase's set-up included).
+// --profile DIR writes a CPU profile (.cpuprofile) of each phase into DIR (the phase's set-up included;
+// its `measured` field holds the measured stretch, { startTime, endTime } in the profile's µs).
 // bridge-eos (not in the default run; `--phases bridge,bridge-eos`): the bridge phase with
 // exactly-once on (the adapter's storeOffsets, the bridge's offsetStores); with both phases the run
 // prints the ratio bridge-eos / bridge.
+// bridge-nodecode (not in the default run; `--phases source,store,bridge,bridge-nodecode`): the bridge
+// phase with a decoder that parses nothing (it looks the message's row up in memory by partition and
+// offset, as the store phase has its rows): what the bridge costs beyond the source and the store,
+// the application's decoding aside. With source and store the run prints that third figure,
+// (source + store CPU) / (bridge-nodecode CPU), labelled as such.
 import { randomBytes } from 'node:crypto';
 import { mkdirSync, readdirSync, readFileSync, readlinkSync, writeFileSync } from 'node:fs';
 import { Session } from 'node:inspector';
 import { join } from 'node:path';
+import { PerformanceObserver } from 'node:perf_hooks';
 import { parseArgs } from 'node:util';
 import { type RecordMeta, Sink, type SinkOptions } from '@spillway/core';
-import { DecodeError, KafkaBridge } from '@spillway/kafka';
+import { DecodeError, KafkaBridge, type KafkaSource } from '@spillway/kafka';
 import { postgresAdapter } from '@spillway/postgres';
 import { machineInfo } from '@spillway/tuner';
 import { Kafka, type KafkaMessage, logLevel } from 'kafkajs';
@@ -70,7 +77,14 @@ const PHASES = flags.phases.split(',').map((p) => p.trim()) as Phase[];
 // store-meta (not in the default run): the store phase with a Kafka-like meta per row (topic,
 // partition, bigint offset, ordering key, event time), which the sink tracks as it does the
 // bridge's: what the sink's own per-record bookkeeping of metas costs.
-type Phase = 'source' | 'source-decode' | 'store' | 'store-meta' | 'bridge' | 'bridge-eos';
+type Phase =
+  | 'source'
+  | 'source-decode'
+  | 'store'
+  | 'store-meta'
+  | 'bridge'
+  | 'bridge-eos'
+  | 'bridge-nodecode';
 const ALL_PHASES: readonly Phase[] = [
   'source',
   'source-decode',
@@ -78,6 +92,7 @@ const ALL_PHASES: readonly Phase[] = [
   'store-meta',
   'bridge',
   'bridge-eos',
+  'bridge-nodecode',
 ];
 for (const p of PHASES)
   if (!ALL_PHASES.includes(p))
@@ -123,13 +138,32 @@ const event = (seq: number): DockStatus => ({
   bikes: seq % 13,
   emptySlots: 12 - (seq % 13),
 });
+/**
+ * The decoder of both the bridge and the source-decode phases, as an application would write it:
+ * the value as UTF-8 text (`toString()` with no argument is UTF-8), parsed as JSON, and each field
+ * checked before the record is trusted.
+ */
 const decode = (m: KafkaMessage): DockStatus | DecodeError => {
+  if (m.value === null) return new DecodeError('dock status without a value');
+  let value: unknown;
   try {
-    return JSON.parse(m.value!.toString('utf8')) as DockStatus;
+    value = JSON.parse(m.value.toString());
   } catch (error) {
-    return new DecodeError('not JSON', { cause: error });
+    return new DecodeError('dock status is not JSON', { cause: error });
   }
+  return isDockStatus(value) ? value : new DecodeError('dock status lacks seq, dock, bikes or emptySlots');
 };
+
+function isDockStatus(v: unknown): v is DockStatus {
+  if (typeof v !== 'object' || v === null) return false;
+  const o = v as Partial<Record<keyof DockStatus, unknown>>;
+  return (
+    Number.isSafeInteger(o.seq) &&
+    typeof o.dock === 'string' &&
+    Number.isSafeInteger(o.bikes) &&
+    Number.isSafeInteger(o.emptySlots)
+  );
+}
 
 function adapter(storeOffsetsFor?: string) {
   return postgresAdapter<DockStatus>({
@@ -248,6 +282,8 @@ interface CpuBudget {
   broker: number;
   /** Wall-clock µs per message: total CPU / wall is how many cores were busy. */
   wall: number;
+  /** µs per message this process spent paused for garbage collection (part of `node`). */
+  gc: number;
 }
 
 /**
@@ -266,10 +302,19 @@ class CpuMeter {
   private nodeUs = 0;
   private pg1 = new Map<number, number>();
   private broker1 = Number.NaN;
+  /** GC pauses of this process while measuring, ms. */
+  private gcMs = 0;
+  /** The measured stretch on the monotonic clock, µs (the clock of a V8 CPU profile). */
+  window = { startTime: 0, endTime: 0 };
 
   constructor(pgPort: number, brokerPort: number | undefined) {
     this.postmaster = pidListeningOn(pgPort);
     this.broker = brokerPort === undefined ? undefined : pidListeningOn(brokerPort);
+    // GC entries arrive after their pause (asynchronously): one that began inside the stretch counts.
+    new PerformanceObserver((list) => {
+      for (const e of list.getEntries())
+        if (e.startTime >= this.t0 && e.startTime <= this.t1) this.gcMs += e.duration;
+    }).observe({ entryTypes: ['gc'] });
   }
 
   get found(): { postgres: boolean; broker: boolean } {
@@ -290,11 +335,15 @@ class CpuMeter {
     this.pg0 = this.postgresCpu();
     this.broker0 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
     this.node0 = process.cpuUsage();
+    this.gcMs = 0;
+    this.t1 = Number.POSITIVE_INFINITY;
+    this.window.startTime = Number(process.hrtime.bigint() / 1000n);
     this.t0 = performance.now();
   }
 
   stop(): void {
     this.t1 = performance.now();
+    this.window.endTime = Number(process.hrtime.bigint() / 1000n);
     const u = process.cpuUsage(this.node0);
     this.nodeUs = u.user + u.system;
     this.broker1 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
@@ -318,6 +367,7 @@ class CpuMeter {
       postgresServer: this.postmaster === undefined ? Number.NaN : per(server),
       broker: per(this.broker1 - this.broker0),
       wall: ((this.t1 - this.t0) * 1000) / messages,
+      gc: (this.gcMs * 1000) / messages,
     };
   }
 }
@@ -364,12 +414,13 @@ class Profiler {
     await this.post('Profiler.start');
   }
 
-  async stop(dir: string, name: string): Promise<string> {
-    const { profile } = (await this.post('Profiler.stop')) as { profile: unknown };
+  /** `measured`: the phase's measured stretch, µs on the profile's clock, kept in the file. */
+  async stop(dir: string, name: string, measured: { startTime: number; endTime: number }): Promise<string> {
+    const { profile } = (await this.post('Profiler.stop')) as { profile: object };
     this.session.disconnect();
     mkdirSync(dir, { recursive: true });
     const file = join(dir, `${name}.cpuprofile`);
-    writeFileSync(file, JSON.stringify(profile));
+    writeFileSync(file, JSON.stringify({ ...profile, measured }));
     return file;
   }
 }
@@ -433,7 +484,11 @@ async function runStore(rows: DockStatus[], meter: CpuMeter, metas?: RecordMeta[
   return { rate: MESSAGES / ((t1 - t0) / 1000) };
 }
 
-async function runBridge(meter: CpuMeter, exactlyOnce = false): Promise<Run> {
+async function runBridge(
+  meter: CpuMeter,
+  exactlyOnce = false,
+  decoder: (m: KafkaMessage, source: KafkaSource) => DockStatus | DecodeError = decode,
+): Promise<Run> {
   const groupId = `bench-bridge-${tag}-${randomBytes(3).toString('hex')}`;
   const a = adapter(exactlyOnce ? groupId : undefined);
   const s = sink(a);
@@ -445,12 +500,12 @@ async function runBridge(meter: CpuMeter, exactlyOnce = false): Promise<Run> {
     consumerConfig,
     topics: [TOPIC],
     fromBeginning: true,
-    decode: (m) => {
+    decode: (m, source) => {
       if (t0 === 0) {
         meter.start();
         t0 = performance.now();
       }
-      return decode(m);
+      return decoder(m, source);
     },
     route: () => s,
     deadLetter: { write: async () => undefined },
@@ -533,6 +588,7 @@ async function main(): Promise<void> {
       'store-meta': [],
       bridge: [],
       'bridge-eos': [],
+      'bridge-nodecode': [],
       ratio: [],
     };
     const budgets: Record<Phase, CpuBudget[]> = {
@@ -542,12 +598,24 @@ async function main(): Promise<void> {
       'store-meta': [],
       bridge: [],
       'bridge-eos': [],
+      'bridge-nodecode': [],
     };
     const eosRatios: number[] = [];
     // (source + store CPU per message) / (bridge CPU per message), all processes, per repeat.
     const efficiency: number[] = [];
     // The second figure: (source-decode + store CPU per message) / (bridge CPU per message).
     const efficiencyDecoded: number[] = [];
+    // The third figure: (source + store CPU per message) / (bridge-nodecode CPU per message).
+    const efficiencyNoDecode: number[] = [];
+    // bridge-nodecode's decoder: the row produced at this partition and offset (each partition of the
+    // fresh topic holds the rows with seq % PARTITIONS === partition, in seq order). The look-up is
+    // not free (the offset string made a number, a row read from memory): the bridge is charged it.
+    const lookUp = (m: KafkaMessage, source: KafkaSource): DockStatus | DecodeError => {
+      const row = rows[Number(m.offset) * PARTITIONS + source.partition];
+      return row !== undefined && row.seq % PARTITIONS === source.partition
+        ? row
+        : new DecodeError(`no row produced at partition ${source.partition}, offset ${m.offset}`);
+    };
     // Metas as the bridge makes them, built before the phase like the rows (offsets per partition).
     const metas: RecordMeta[] = PHASES.includes('store-meta')
       ? rows.map((r) => {
@@ -568,7 +636,9 @@ async function main(): Promise<void> {
           ? runStore(rows, meter)
           : which === 'store-meta'
             ? runStore(rows, meter, metas)
-            : runBridge(meter, which === 'bridge-eos');
+            : which === 'bridge-nodecode'
+              ? runBridge(meter, false, lookUp)
+              : runBridge(meter, which === 'bridge-eos');
     // Unmeasured rounds first: JIT, connections, and the kafkajs protocol modules a phase loads on
     // first use (the bridge's first commit loads the commit request's) are paid once, by nobody.
     for (let w = 0; w < WARMUP; w++) {
@@ -587,10 +657,10 @@ async function main(): Promise<void> {
         await profiler?.start();
         const run = await runPhase(which);
         if (profiler && PROFILE_DIR !== undefined) {
-          const file = await profiler.stop(PROFILE_DIR, `${which}-${tag}-${rep + 1}`);
+          const file = await profiler.stop(PROFILE_DIR, `${which}-${tag}-${rep + 1}`, meter.window);
           console.log(`CPU profile of ${which} phase ${rep + 1}: ${file}`);
         }
-        if (which === 'bridge' || which === 'bridge-eos') {
+        if (which === 'bridge' || which === 'bridge-eos' || which === 'bridge-nodecode') {
           const n = Number(
             (await setup.query<{ n: string }>(`SELECT count(*) AS n FROM ${SCHEMA}.${TABLE}`)).rows[0]!.n,
           );
@@ -602,7 +672,7 @@ async function main(): Promise<void> {
         budgets[which].push(b);
         parts.push(
           `${which} ${Math.round(run.rate)}/s${run.pauses === undefined ? '' : ` (${run.pauses} partition pauses)`} ` +
-            `[CPU µs/msg node ${b.node.toFixed(2)}, pg ${b.postgres.toFixed(2)}, pg-server ${b.postgresServer.toFixed(2)}, broker ${b.broker.toFixed(2)}; wall ${b.wall.toFixed(2)}]`,
+            `[CPU µs/msg node ${b.node.toFixed(2)} (GC pauses ${b.gc.toFixed(2)}), pg ${b.postgres.toFixed(2)}, pg-server ${b.postgresServer.toFixed(2)}, broker ${b.broker.toFixed(2)}; wall ${b.wall.toFixed(2)}]`,
         );
       }
       const { source, store, bridge } = round;
@@ -629,18 +699,27 @@ async function main(): Promise<void> {
         efficiencyDecoded.push(e);
         ratio += ` (decoding counted in the source phase: ${e.toFixed(2)})`;
       }
+      if (source && store && round['bridge-nodecode']) {
+        const [bs, bt, bn] = [budgets.source, budgets.store, budgets['bridge-nodecode']].map((b) =>
+          totalCpu(b.at(-1)!),
+        );
+        const e = (bs! + bt!) / bn!;
+        efficiencyNoDecode.push(e);
+        ratio += `; without decoding: ${e.toFixed(2)}`;
+      }
       console.log(`repeat ${rep + 1}: ${parts.join(', ')}${ratio}`);
     }
     console.log(`\nmessages/s, median of ${REPEATS} (range; spread = (max-min)/median)`);
     for (const k of PHASES) {
       const s = summary(samples[k]);
       console.log(
-        `${k.padEnd(10)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
+        `${k.padEnd(15)} ${fmt(s.median).padStart(9)}  (${fmt(s.min)}–${fmt(s.max)}, spread ${s.spreadPct.toFixed(0)}%)`,
       );
     }
     console.log(
       '\nCPU budget, µs per message, median (range) — node = this process; pg = its PostgreSQL backends;\n' +
-        'pg-server = PostgreSQL auxiliary processes (machine-wide); broker = the Kafka JVM; busy = CPU / wall, in cores',
+        'pg-server = PostgreSQL auxiliary processes (machine-wide); broker = the Kafka JVM; busy = CPU / wall, in cores;\n' +
+        'node GC = this process paused for garbage collection (wall µs per message, part of node)',
     );
     const cores = machineInfo().cores;
     const med = (xs: number[]) => summary(xs).median;
@@ -649,13 +728,13 @@ async function main(): Promise<void> {
       return `${s.median.toFixed(2)} (${s.min.toFixed(2)}–${s.max.toFixed(2)})`.padEnd(20);
     };
     console.log(
-      `${'phase'.padEnd(10)} ${['node', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
+      `${'phase'.padEnd(15)} ${['node', 'node GC', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
     );
     for (const k of PHASES) {
       const bs = budgets[k];
       const total = bs.map(totalCpu);
       console.log(
-        `${k.padEnd(10)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
+        `${k.padEnd(15)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.gc))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
           `${cell(bs.map((b) => b.broker))}${cell(total)}${cell(bs.map((b) => b.wall))}${med(bs.map((b, i) => total[i]! / b.wall)).toFixed(2)}`,
       );
     }
@@ -706,11 +785,19 @@ async function main(): Promise<void> {
           `median ${e.median.toFixed(2)} (range ${e.min.toFixed(2)}–${e.max.toFixed(2)}, ${efficiencyDecoded.length} repeats); the decoder alone: ${decodeUs.toFixed(2)} µs/msg (source-decode less source, this process, medians)`,
       );
     }
+    if (efficiencyNoDecode.length > 0) {
+      const e = summary(efficiencyNoDecode);
+      console.log(
+        `third figure, not the issue's metric — the bridge without decoding: (source + store CPU µs/msg) / (bridge-nodecode CPU µs/msg), all processes, per repeat: ` +
+          `median ${e.median.toFixed(2)} (range ${e.min.toFixed(2)}–${e.max.toFixed(2)}, ${efficiencyNoDecode.length} repeats)`,
+      );
+    }
     console.log(
       JSON.stringify({
         samples,
         cpuEfficiency: efficiency,
         cpuEfficiencyDecodingInSource: efficiencyDecoded,
+        cpuEfficiencyWithoutDecoding: efficiencyNoDecode,
         cpuBudgetUsPerMessage: budgets,
       }),
     );
