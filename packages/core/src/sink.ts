@@ -108,7 +108,7 @@ export class Sink<T> implements ExitFlushable {
         this.buffer.holdBarrier(match, barrier) + this.scheduler.holdBarrier(match, barrier),
       retire: (records, bytes) => {
         this.scheduler.retire(records, bytes);
-        this.admission.released(records, bytes);
+        this.admission.released(records);
       },
       roomFreed: () => this.admission.wake(),
       idle: () => this.exitHold.release(),
