@@ -12,10 +12,9 @@
  * CSV reader takes for a missing value) stays a row object, and `json` columns never go as lines.
  */
 import { quotedCsvBound, writeQuotedCsv } from '@spillway/core/kit';
-import type { ResolvedColumn } from './columns.js';
+import type { ResolvedColumn, Row } from './columns.js';
 import type { LineLayout } from './csv-line.js';
 import { CsvRun, type RunOwner } from './csv-run.js';
-import type { Row } from './options.js';
 
 const COMMA = 0x2c;
 const LF = 0x0a;
