@@ -2,15 +2,9 @@
 // inside a run must cost only the row at fault. The run goes back to the ingest through the reject
 // file's dead-letter target, its rows are written again one per record, and the adapter's
 // isolation finds the bad one. Checked on what the table holds and what the reject file says.
-import { readFile, rm } from 'node:fs/promises';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
-import { Readable } from 'node:stream';
-import { Sink } from '@spillway/core';
-import { CsvLine, CsvRun, ingest, RejectFile, type Row } from '@spillway/ingest';
-import { postgresAdapter } from '@spillway/postgres';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { type TestSchema, uniqueName, withSchema } from '../harness/index.js';
+import { type TestSchema, withSchema } from '../harness/index.js';
+import { loadAsRuns } from './ingest-runs.js';
 
 let db: TestSchema;
 beforeAll(async () => {
@@ -19,8 +13,6 @@ beforeAll(async () => {
 afterAll(async () => {
   await db?.drop();
 });
-
-type Record = Row | CsvLine | CsvRun;
 
 interface Upload {
   csv: Buffer;
@@ -52,67 +44,15 @@ function upload(
   return { csv: Buffer.from(parts.join('')), lineOf } satisfies Upload;
 }
 
+/** The upload loaded as runs, and what the table holds: rows, distinct ids, their sum, multi-line notes. */
 async function load(csv: Buffer, chunk: number, multiLine: string) {
-  const table = uniqueName('runs');
-  await db.pool.query(
-    `CREATE TABLE ${table} (id int PRIMARY KEY, dock text NOT NULL, km int NOT NULL CHECK (km < 1000), note text)`,
-  );
-  const path = join(tmpdir(), `${uniqueName('runs')}.rejects.ndjson`);
-  const rejects = new RejectFile(path);
-  const columns = ['id', 'dock', 'km', 'note'];
-  let runs = 0;
-  let runRows = 0;
-  const sink = new Sink<Record>(
-    postgresAdapter<Record>({
-      pool: db.pool,
-      table,
-      columns,
-      map: (r) => {
-        const row = r instanceof CsvLine ? r.row() : (r as Row);
-        return columns.map((c) => row[c]);
-      },
-      mode: 'copy',
-      csvLine: (r) => (r instanceof CsvLine || r instanceof CsvRun ? r.bytes : undefined),
-    }),
-    {
-      // Several runs per batch, so a refused batch is first split down to the run at fault.
-      maxRecords: 8,
-      retry: { maxAttempts: 2, baseDelayMs: 1 },
-      deadLetter: rejects.deadLetterTarget<Record>((r) => (r instanceof CsvLine ? r.row() : r)),
-    },
-  );
-  const pieces: Buffer[] = [];
-  for (let at = 0; at < csv.length; at += chunk) pieces.push(csv.subarray(at, at + chunk));
-  const summary = await ingest(Readable.from(pieces), sink, {
-    format: 'csv',
-    rejects,
-    asCsvLine: (line: CsvLine) => line,
-    asCsvRun: (run: CsvRun) => {
-      runs++;
-      runRows += run.count;
-      return run;
-    },
-  });
-  await sink.close();
-  await rejects.close();
-  const text = await readFile(path, 'utf8');
-  await rm(path, { force: true });
-  const rejected = text
-    .split('\n')
-    .filter(Boolean)
-    .map((l) => JSON.parse(l) as { line: number; reason: string; message: string });
+  const out = await loadAsRuns(db, csv, chunk, { format: 'csv' });
   const { rows } = await db.pool.query(
     `SELECT count(*)::int AS n, count(DISTINCT id)::int AS ids, coalesce(sum(id), 0)::bigint AS sum,
-       count(*) FILTER (WHERE note = $1)::int AS multi FROM ${table}`,
+       count(*) FILTER (WHERE note = $1)::int AS multi FROM ${out.table}`,
     [multiLine],
   );
-  return {
-    summary,
-    rejected,
-    runs,
-    runRows,
-    table: rows[0] as { n: number; ids: number; sum: string; multi: number },
-  };
+  return { ...out, table: rows[0] as { n: number; ids: number; sum: string; multi: number } };
 }
 
 const sum = (ids: Iterable<number>) => [...ids].reduce((a, b) => a + b, 0);

@@ -3,15 +3,9 @@
 // a run must cost only the row at fault, reported with its own physical line of the NDJSON file;
 // and what lands must be what was sent, whatever the text holds (quotes, commas, line breaks,
 // `\.`, which COPY (FORMAT csv) reads specially: PostgreSQL documentation, COPY, "CSV Format").
-import { readFile, rm } from 'node:fs/promises';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
-import { Readable } from 'node:stream';
-import { Sink } from '@spillway/core';
-import { CsvLine, CsvRun, ingest, RejectFile, type Row } from '@spillway/ingest';
-import { postgresAdapter } from '@spillway/postgres';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { type TestSchema, uniqueName, withSchema } from '../harness/index.js';
+import { type TestSchema, withSchema } from '../harness/index.js';
+import { loadAsRuns } from './ingest-runs.js';
 
 let db: TestSchema;
 beforeAll(async () => {
@@ -20,8 +14,6 @@ beforeAll(async () => {
 afterAll(async () => {
   await db?.drop();
 });
-
-type Record = Row | CsvLine | CsvRun;
 
 /** Notes of Tandem Bikes service records, each a case COPY reads specially, or none. */
 const NOTES: Array<string | null> = [
@@ -63,37 +55,9 @@ function upload(rows: number, bad: Map<number, string>, duplicateOf: Map<number,
   return { ndjson: Buffer.from(parts.join('')), lineOf };
 }
 
+/** The upload loaded as runs (every column declared), and the rows the table holds. */
 async function load(ndjson: Buffer, chunk: number) {
-  const table = uniqueName('jruns');
-  await db.pool.query(
-    `CREATE TABLE ${table} (id int PRIMARY KEY, dock text NOT NULL, km int NOT NULL CHECK (km < 1000), note text)`,
-  );
-  const path = join(tmpdir(), `${uniqueName('jruns')}.rejects.ndjson`);
-  const rejects = new RejectFile(path);
-  const columns = ['id', 'dock', 'km', 'note'];
-  let runs = 0;
-  let runRows = 0;
-  const sink = new Sink<Record>(
-    postgresAdapter<Record>({
-      pool: db.pool,
-      table,
-      columns,
-      map: (r) => {
-        const row = r instanceof CsvLine ? r.row() : (r as Row);
-        return columns.map((c) => row[c]);
-      },
-      mode: 'copy',
-      csvLine: (r) => (r instanceof CsvLine || r instanceof CsvRun ? r.bytes : undefined),
-    }),
-    {
-      maxRecords: 8,
-      retry: { maxAttempts: 2, baseDelayMs: 1 },
-      deadLetter: rejects.deadLetterTarget<Record>((r) => (r instanceof CsvLine ? r.row() : r)),
-    },
-  );
-  const pieces: Buffer[] = [];
-  for (let at = 0; at < ndjson.length; at += chunk) pieces.push(ndjson.subarray(at, at + chunk));
-  const summary = await ingest(Readable.from(pieces), sink, {
+  const out = await loadAsRuns(db, ndjson, chunk, {
     format: 'ndjson',
     columns: [
       { name: 'id', type: 'integer', required: true },
@@ -101,24 +65,9 @@ async function load(ndjson: Buffer, chunk: number) {
       { name: 'km' },
       { name: 'note' },
     ],
-    rejects,
-    asCsvLine: (line: CsvLine) => line,
-    asCsvRun: (run: CsvRun) => {
-      runs++;
-      runRows += run.count;
-      return run;
-    },
   });
-  await sink.close();
-  await rejects.close();
-  const text = await readFile(path, 'utf8');
-  await rm(path, { force: true });
-  const rejected = text
-    .split('\n')
-    .filter(Boolean)
-    .map((l) => JSON.parse(l) as { line: number; reason: string; message: string });
-  const { rows } = await db.pool.query(`SELECT id, dock, km, note FROM ${table} ORDER BY id`);
-  return { summary, rejected, runs, runRows, rows: rows as Array<{ id: number; note: string | null }> };
+  const { rows } = await db.pool.query(`SELECT id, dock, km, note FROM ${out.table} ORDER BY id`);
+  return { ...out, rows: rows as Array<{ id: number; note: string | null }> };
 }
 
 const sum = (ids: Iterable<number>) => [...ids].reduce((a, b) => a + b, 0);

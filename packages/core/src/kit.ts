@@ -20,6 +20,7 @@ export {
   positiveOption,
 } from './option-checks.js';
 export { partitionKey, toOffset } from './progress.js';
+export { quotedCsvBound, writeQuotedCsv } from './quoted-csv.js';
 export type { BucketOptions, CounterReading, GaugeReading } from './readings.js';
 export {
   BUCKET_OPTION_NAMES,

@@ -1,6 +1,9 @@
 import { booleanOption, invalidOption } from '@spillway/core/kit';
 import type { RejectReason } from './reject.js';
 
+/** A row after parsing and validation, before `map`: column name → value. */
+export type Row = Record<string, unknown>;
+
 /** The value types of a declared column. */
 export type ColumnType = 'string' | 'integer' | 'number' | 'boolean' | 'timestamp' | 'json';
 

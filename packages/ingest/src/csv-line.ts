@@ -12,9 +12,8 @@
  * With declared columns, a row goes as its line only when each value is written as it is spelled
  * (`checkInOrder`); the rules are in the package README.
  */
-import { convert, isTimestamp, isTimestampAt, type ResolvedColumn } from './columns.js';
+import { convert, isTimestamp, isTimestampAt, type ResolvedColumn, type Row } from './columns.js';
 import type { RecordCheck } from './csv-framer.js';
-import type { Row } from './options.js';
 import type { RejectReason } from './reject.js';
 
 const QUOTE = 0x22;

@@ -1,4 +1,4 @@
-export type { ColumnSpec, ColumnType } from './columns.js';
+export type { ColumnSpec, ColumnType, Row } from './columns.js';
 export { COLUMN_TYPES } from './columns.js';
 export { CsvLine } from './csv-line.js';
 export type { RunLine } from './csv-run.js';
@@ -8,7 +8,7 @@ export { IngestError } from './errors.js';
 export { formatFromContentType } from './http.js';
 export type { IngestInput } from './ingest.js';
 export { formatFromPath, ingest, ingestFile, readCsvHeader } from './ingest.js';
-export type { IngestFormat, IngestOptions, IngestProgress, Row, RowContext } from './options.js';
+export type { IngestFormat, IngestOptions, IngestProgress, RowContext } from './options.js';
 export { INGEST_DEFAULTS, resolveIngestOptions } from './options.js';
 export type { Reject, RejectReason, RejectTarget } from './reject.js';
 export type { RejectFormat } from './reject-file.js';

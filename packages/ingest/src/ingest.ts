@@ -4,7 +4,7 @@ import { basename, extname } from 'node:path';
 import type { Readable } from 'node:stream';
 import { messageOf, type Sink, SpillwayError } from '@spillway/core';
 import { invalidOption } from '@spillway/core/kit';
-import { convert, isAbsent, isMissing, type ResolvedColumn } from './columns.js';
+import { convert, isAbsent, isMissing, type ResolvedColumn, type Row } from './columns.js';
 import { splitRecords } from './csv-fields.js';
 import {
   CsvLine,
@@ -24,7 +24,6 @@ import {
   type IngestFormat,
   type IngestOptions,
   type IngestProgress,
-  type Row,
   resolveIngestOptions,
 } from './options.js';
 import type { Reject, RejectReason } from './reject.js';

@@ -11,12 +11,11 @@
  * sink), read by the declared columns as a CSV record is: so a row with an empty string (which a
  * CSV reader takes for a missing value) stays a row object, and `json` columns never go as lines.
  */
-import type { ResolvedColumn } from './columns.js';
+import { quotedCsvBound, writeQuotedCsv } from '@spillway/core/kit';
+import type { ResolvedColumn, Row } from './columns.js';
 import type { LineLayout } from './csv-line.js';
 import { CsvRun, type RunOwner } from './csv-run.js';
-import type { Row } from './options.js';
 
-const QUOTE = 0x22;
 const COMMA = 0x2c;
 const LF = 0x0a;
 /** First buffer of a run; one row longer than this gets a buffer of its own size. */
@@ -78,7 +77,8 @@ export class JsonRunBuilder {
           this.at = start;
           return false;
         }
-        this.string(v);
+        this.room(quotedCsvBound(v.length));
+        this.at = writeQuotedCsv(this.buf, this.at, v);
       } else if (typeof v === 'number' || typeof v === 'boolean') {
         this.ascii(String(v));
       } else {
@@ -107,47 +107,6 @@ export class JsonRunBuilder {
     const buf = this.buf;
     let at = this.at;
     for (let i = 0; i < s.length; i++) buf[at++] = s.charCodeAt(i);
-    this.at = at;
-  }
-
-  /**
-   * A string, quoted with its quotes doubled, as UTF-8 (a lone surrogate as U+FFFD, as
-   * `Buffer.from` writes it). Byte by byte: cheaper than a native call for short values.
-   */
-  private string(s: string): void {
-    // At most 3 bytes per UTF-16 unit (a doubled quote is 2), and the two quotes.
-    this.room(3 * s.length + 2);
-    const buf = this.buf;
-    let at = this.at;
-    buf[at++] = QUOTE;
-    for (let i = 0; i < s.length; i++) {
-      let c = s.charCodeAt(i);
-      if (c < 0x80) {
-        if (c === QUOTE) buf[at++] = QUOTE;
-        buf[at++] = c;
-      } else if (c < 0x800) {
-        buf[at++] = 0xc0 | (c >> 6);
-        buf[at++] = 0x80 | (c & 0x3f);
-      } else {
-        if (c >= 0xd800 && c <= 0xdfff) {
-          const d = i + 1 < s.length ? s.charCodeAt(i + 1) : 0;
-          if (c <= 0xdbff && d >= 0xdc00 && d <= 0xdfff) {
-            const cp = 0x10000 + ((c - 0xd800) << 10) + (d - 0xdc00);
-            buf[at++] = 0xf0 | (cp >> 18);
-            buf[at++] = 0x80 | ((cp >> 12) & 0x3f);
-            buf[at++] = 0x80 | ((cp >> 6) & 0x3f);
-            buf[at++] = 0x80 | (cp & 0x3f);
-            i++;
-            continue;
-          }
-          c = 0xfffd;
-        }
-        buf[at++] = 0xe0 | (c >> 12);
-        buf[at++] = 0x80 | ((c >> 6) & 0x3f);
-        buf[at++] = 0x80 | (c & 0x3f);
-      }
-    }
-    buf[at++] = QUOTE;
     this.at = at;
   }
 

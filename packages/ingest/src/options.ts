@@ -7,7 +7,7 @@ import {
   knownOptions,
   nonNegativeOption,
 } from '@spillway/core/kit';
-import { type ColumnSpec, type ResolvedColumn, resolveColumns } from './columns.js';
+import { type ColumnSpec, type ResolvedColumn, type Row, resolveColumns } from './columns.js';
 import type { CsvLine } from './csv-line.js';
 import type { CsvRun } from './csv-run.js';
 import type { RejectTarget } from './reject.js';
@@ -15,9 +15,6 @@ import { RejectFile, type RejectFormat } from './reject-file.js';
 import { isStandardSchema, type StandardSchemaV1 } from './standard-schema.js';
 
 export type IngestFormat = 'csv' | 'ndjson';
-
-/** A row after parsing and validation, before `map`: column name → value. */
-export type Row = Record<string, unknown>;
 
 /** Where a row came from, passed to `map`. */
 export interface RowContext {

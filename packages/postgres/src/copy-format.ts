@@ -10,6 +10,7 @@
  * field, so `""` is the empty string. Quoting everything also keeps newlines, commas and `\.`
  * inside a value literal.
  */
+import { quotedCsvBound, writeQuotedCsv } from '@spillway/core/kit';
 import type { CopyFormat } from './options.js';
 import { toWire, type WireValue } from './values.js';
 
@@ -57,11 +58,11 @@ export function copyLine(values: readonly unknown[], format: CopyFormat): string
 // Chunks of COPY data are about this many bytes: large enough to keep the per-chunk cost low,
 // small enough that the server gets the first rows of a big batch while the rest is encoded.
 const CHUNK_BYTES = 1 << 16;
-// Longer strings are escaped as strings and written by the native UTF-8 encoder; shorter ones
-// byte by byte here, which is cheaper than a native call for the short values most rows hold.
+// Longer text-format strings are escaped as strings and written by the native UTF-8 encoder;
+// shorter ones byte by byte here, which is cheaper than a native call for the short values most
+// rows hold. (CSV strings go through `writeQuotedCsv`, which does the same.)
 const NATIVE_ABOVE = 256;
 
-const QUOTE = 0x22;
 const BACKSLASH = 0x5c;
 const NEWLINE = 0x0a;
 
@@ -173,26 +174,31 @@ export class CopyChunks {
     for (let i = 0; i < s.length; i++) buf[this.at++] = s.charCodeAt(i);
   }
 
-  /** A string, quoted (csv) or escaped (text), as UTF-8 (a lone surrogate as U+FFFD, as Buffer.from does). */
+  /** A string, quoted (csv, `writeQuotedCsv`) or escaped (text), as UTF-8. */
   private string(s: string): void {
-    const csv = this.csv;
+    if (this.csv) {
+      this.room(quotedCsvBound(s.length));
+      this.at = writeQuotedCsv(this.buf, this.at, s);
+    } else this.textString(s);
+  }
+
+  /** A string escaped for the text format, as UTF-8 (a lone surrogate as U+FFFD, as Buffer.from does). */
+  private textString(s: string): void {
     if (s.length > NATIVE_ABOVE) {
-      const field = csv ? csvField(s) : textField(s);
+      const field = textField(s);
       this.room(3 * field.length);
       this.at += this.buf.write(field, this.at, 'utf8');
       return;
     }
-    // At most 3 bytes per UTF-16 unit (an escape or doubled quote is 2), and the two quotes.
-    this.room(3 * s.length + 2);
+    // At most 3 bytes per UTF-16 unit (an escape is 2). The UTF-8 encoder is written out as in
+    // `writeQuotedCsv`, for the reason given there; only the escapes differ.
+    this.room(3 * s.length);
     const buf = this.buf;
     let at = this.at;
-    if (csv) buf[at++] = QUOTE;
     for (let i = 0; i < s.length; i++) {
       let c = s.charCodeAt(i);
       if (c < 0x80) {
-        if (csv) {
-          if (c === QUOTE) buf[at++] = QUOTE;
-        } else if (c === BACKSLASH || c === NEWLINE || c === 0x0d || c === 0x09) {
+        if (c === BACKSLASH || c === NEWLINE || c === 0x0d || c === 0x09) {
           buf[at++] = BACKSLASH;
           c = c === NEWLINE ? 0x6e : c === 0x0d ? 0x72 : c === 0x09 ? 0x74 : BACKSLASH;
         }
@@ -219,7 +225,6 @@ export class CopyChunks {
         buf[at++] = 0x80 | (c & 0x3f);
       }
     }
-    if (csv) buf[at++] = QUOTE;
     this.at = at;
   }
 
