@@ -43,6 +43,45 @@ describe('the buffer', () => {
     await sink.close();
   });
 
+  // A burst taken in parts (the buffer holds more than a batch while the slot is busy), with a
+  // ring small enough to renew its columns per batch, and with one larger than that (cleared in
+  // place, see RecordBuffer.cut()): both write every record once, in order, and hold none after.
+  for (const maxRecords of [100, 10_000]) {
+    it(`writes a burst taken in parts in order and lets go of it (batches of ${maxRecords})`, async () => {
+      const seen: number[] = [];
+      const adapter: SinkAdapter<{ dockId: number }> = {
+        kind: 'keeps-ids',
+        write: async (batch) => {
+          await new Promise((resolve) => setImmediate(resolve));
+          for (const r of batch.records) seen.push(r.dockId);
+        },
+        classify: () => 'fatal',
+      };
+      const sink = new Sink(adapter, { maxRecords, maxAgeMs: 60_000, idleMs: 0 });
+      const total = maxRecords * 5 + 7;
+      const refs: WeakRef<object>[] = [];
+      // Made outside this async function, whose suspended frame could hold the last one.
+      const writeOne = (i: number): Promise<void> | undefined => {
+        const record = { dockId: i };
+        refs.push(new WeakRef(record));
+        return sink.tryWrite(record) ? undefined : sink.write(record);
+      };
+      let tookInParts = false;
+      for (let i = 0; i < total; i++) {
+        if (sink.counters().bufferedRecords > maxRecords) tookInParts = true;
+        const waiting = writeOne(i);
+        if (waiting) await waiting;
+      }
+      await sink.flush();
+      expect(tookInParts).toBe(true);
+      expect(seen).toEqual(Array.from({ length: total }, (_, i) => i));
+      await new Promise((resolve) => setImmediate(resolve));
+      collectGarbage();
+      expect(refs.filter((r) => r.deref() !== undefined)).toHaveLength(0);
+      await sink.close();
+    });
+  }
+
   it('lets go of the records a partial write landed while the rest of the batch waits out a retry', async () => {
     const retryHeld = deferred();
     let calls = 0;
