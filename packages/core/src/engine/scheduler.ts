@@ -36,9 +36,6 @@ export class Scheduler<T> {
   private timer: unknown;
   private timerAt = Number.POSITIVE_INFINITY;
   private readonly clock: Clock;
-  /** The batch limits, read on every accept. */
-  private readonly maxRecords: number;
-  private readonly maxBytes: number;
   private readonly fire = () => {
     this.timer = undefined;
     this.timerAt = Number.POSITIVE_INFINITY;
@@ -54,8 +51,6 @@ export class Scheduler<T> {
     private readonly hooks: SchedulerHooks<T>,
   ) {
     this.clock = o.clock;
-    this.maxRecords = o.maxRecords;
-    this.maxBytes = o.maxBytes;
   }
 
   get timerArmed(): boolean {
@@ -64,8 +59,7 @@ export class Scheduler<T> {
 
   /** A record was accepted: a full buffer leaves now; otherwise its deadline needs a timer. */
   accepted(): void {
-    const buffer = this.buffer;
-    if (buffer.count >= this.maxRecords || buffer.bytes >= this.maxBytes) {
+    if (this.buffer.count >= this.o.maxRecords || this.buffer.bytes >= this.o.maxBytes) {
       // While every slot is busy and the wait for one is already being timed, a pump would only
       // find that again: the slot's release pumps.
       if (this.slotWaitSince === undefined || this.inflight.size < this.o.concurrency) this.pump();
