@@ -1,8 +1,9 @@
 /**
  * `@spillway/core/kit`: the toolkit for adapter and exporter authors. Option checks that throw the
  * one invalid-option error, the readings and bucket options every metrics exporter shares, the
- * histogram, the typed event emitter, the socket error codes a classifier retries on, and the one
- * way to name a source partition. Applications need only `@spillway/core`.
+ * histogram, the typed event emitter, the socket error codes a classifier retries on, the one
+ * way to name a source partition, and the one writer of a string as a quoted UTF-8 CSV field.
+ * Applications need only `@spillway/core`.
  */
 
 export { Histogram } from './metrics.js';
