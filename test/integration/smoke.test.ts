@@ -197,7 +197,9 @@ describe(`kafkajs 2.2.4 against the Kafka ${KAFKA_VERSION} test broker`, () => {
           const c = await committed();
           return [0, 1, 2, 3].every((p) => c[p] === 10) ? c : undefined;
         },
-        { timeoutMs: 15_000 },
+        // Generous: on a loaded 2-core machine a commit answered during a group rejoin came later
+        // than 15 s once (a fresh-clone CI run); the condition itself is unchanged.
+        { timeoutMs: 60_000 },
       );
       const joinsBefore = a.joins;
 
@@ -243,7 +245,7 @@ describe(`kafkajs 2.2.4 against the Kafka ${KAFKA_VERSION} test broker`, () => {
             const c = await committed();
             return [0, 1, 2, 3].every((p) => c[p] === 50) ? c : undefined;
           },
-          { timeoutMs: 15_000 },
+          { timeoutMs: 60_000 },
         ),
       };
       console.log(`[smoke] consumer group: ${JSON.stringify(summary)}`);
@@ -261,7 +263,7 @@ describe(`kafkajs 2.2.4 against the Kafka ${KAFKA_VERSION} test broker`, () => {
       await Promise.all(members.map((m) => m.consumer.disconnect()));
       await producer.disconnect();
     }
-  });
+  }, 300_000);
 });
 
 describe('fault helpers stage outages on private servers', () => {
