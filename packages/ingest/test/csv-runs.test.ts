@@ -7,6 +7,8 @@ import { join } from 'node:path';
 import { Readable } from 'node:stream';
 import { type DeadLetter, Sink } from '@spillway/core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+// The engine's seeded generator (mulberry32): the same sequences as the copy this file had.
+import { seeded as random } from '../../core/test/fakes.js';
 import {
   type ColumnSpec,
   CsvLine,
@@ -51,18 +53,6 @@ function linesOf(records: readonly Record[]): string[] {
     else out.push(JSON.stringify(r));
   }
   return out;
-}
-
-/** mulberry32, a small seeded generator (public domain, from memory). */
-function random(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
 }
 
 /** Spellings per type: the first plain, the others not (quoted, other forms, invalid, missing). */

@@ -5,6 +5,8 @@
 // field at a time, no state carried between chunks.
 import { isUtf8 } from 'node:buffer';
 import { describe, expect, it } from 'vitest';
+// The engine's seeded generator (mulberry32): the same sequences as the copy this file had.
+import { seeded as random } from '../../core/test/fakes.js';
 import { CsvFramer } from '../src/csv-framer.js';
 import { csvReader, type Item, ndjsonReader } from '../src/rows.js';
 
@@ -22,18 +24,6 @@ type Out =
 interface Result {
   items: Out[];
   blank: number;
-}
-
-/** mulberry32, a small seeded generator (public domain, from memory). */
-function random(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
 }
 
 function rejectOut(line: number, reason: string, raw: Buffer, truncated: boolean): Out {
