@@ -10,7 +10,7 @@
  * Instructions are not time: a cache miss or a stall costs cycles that no instruction count
  * shows, so CPU-time ratios (core-throughput.js) stay the figures the goals are read from.
  *
- *   node benchmarks/dist/core-instructions.js [--records 200000,600000] [--variants write,tryWrite]
+ *   node benchmarks/dist/core-instructions.js [--records 200000,600000] [--warmup 2000000] [--variants write,tryWrite]
  */
 import { execFile } from 'node:child_process';
 import { fileURLToPath } from 'node:url';
@@ -21,6 +21,8 @@ const { values: flags } = parseArgs({
     records: { type: 'string', default: '200000,600000' },
     variants: { type: 'string', default: 'array,write,tryWrite,tryWriteMany,tryWriteManyMetas' },
     batch: { type: 'string', default: '1000' },
+    // Records through the same sink before the counted ones (core-throughput.js's own default).
+    warmup: { type: 'string', default: '2000000' },
   },
 });
 const [small, large] = String(flags.records).split(',').map(Number) as [number, number];
@@ -44,6 +46,8 @@ function instructions(variant: string, records: number): Promise<number> {
     String(records),
     '--batch',
     String(flags.batch),
+    '--warmup',
+    String(flags.warmup),
   ];
   return new Promise((resolve, reject) => {
     execFile('valgrind', args, { maxBuffer: 1 << 24 }, (error, _stdout, stderr) => {
