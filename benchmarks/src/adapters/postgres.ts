@@ -260,12 +260,15 @@ async function main(): Promise<void> {
     }),
   );
   try {
-    // Warm-up: JIT, connections, plan caches; not measured.
+    // Warm-up: JIT, connections, plan caches; not measured. Every mode and batch size once on each
+    // side, so that each size's sink has run before its first timed pass.
     for (const mode of MODES) {
-      await truncate();
-      await raw(pool, mode, 1000);
-      await truncate();
-      await viaSink(pool, mode, 1000);
+      for (const size of SIZES) {
+        await truncate();
+        await raw(pool, mode, size);
+        await truncate();
+        await viaSink(pool, mode, size);
+      }
     }
     const samples = new Map<string, number[]>();
     const push = (k: string, v: number) => (samples.get(k) ?? samples.set(k, []).get(k)!).push(v);
