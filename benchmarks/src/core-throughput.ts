@@ -10,6 +10,7 @@
  * warm-up records: V8 compiled and re-optimised ~40 engine functions inside that window).
  *
  *   node benchmarks/dist/core-throughput.js [--records 2000000] [--warmup 2000000] [--batch 1000] [--repeats 5]
+ *   node --expose-gc benchmarks/dist/core-throughput.js --variant estimating3   # one sample of one variant
  */
 import { execFileSync } from 'node:child_process';
 import { cpus, totalmem } from 'node:os';
@@ -198,6 +199,49 @@ function sinkTryWriteManyMetas(batch: number): Runner {
   });
 }
 
+/** A no-op adapter with its own size estimator, as the store adapters have one. */
+class EstimatingNoop implements SinkAdapter<Dock> {
+  readonly kind = 'noop';
+  constructor(private readonly overhead: number) {}
+  async write(): Promise<void> {}
+  classify(): 'fatal' {
+    return 'fatal';
+  }
+  estimateBytes(r: Dock): number {
+    return this.overhead + (r.at > 0xffff ? 40 : 36);
+  }
+}
+
+/**
+ * `tryWrite()` into `count` sinks in one process, each over its own estimating adapter, in turns
+ * of one batch each: a service writing to several tables. Not in the default rounds; name it with
+ * `--variant` (or `core-instructions.js --variants estimating1,estimating3`) to compare one sink
+ * with three.
+ */
+function estimatingSinks(count: number): (batch: number) => Runner {
+  return (batch) => {
+    const sinks = Array.from(
+      { length: count },
+      (_, k) => new Sink(new EstimatingNoop(k), { maxRecords: batch, maxAgeMs: 500, idleMs: 0 }),
+    );
+    return {
+      async feed(from, n) {
+        for (let i = from; i < from + n; i++) {
+          const sink = sinks[Math.floor(i / batch) % count]!;
+          const r = record(i);
+          if (!sink.tryWrite(r)) await sink.write(r);
+        }
+      },
+      flush: async () => {
+        for (const sink of sinks) await sink.flush();
+      },
+      close: async () => {
+        for (const sink of sinks) await sink.close();
+      },
+    };
+  };
+}
+
 /** Heap bytes each buffered record costs: the sink's entry on top of the record itself. */
 function heapPerRecord(kind: 'sink' | 'array', n: number): number {
   const gc = (globalThis as { gc?: () => void }).gc;
@@ -250,7 +294,10 @@ async function child(variant: string): Promise<void> {
     tryWrite: sinkTryWrite,
     tryWriteMany: sinkTryWriteMany,
     tryWriteManyMetas: sinkTryWriteManyMetas,
+    estimating1: estimatingSinks(1),
+    estimating3: estimatingSinks(3),
   }[variant as 'array'];
+  if (make === undefined) throw new TypeError(`Unknown --variant \`${variant}\``);
   const runner = make(batch);
   // The warm-up goes through the same instance as the measured records, long enough for the
   // engine's per-batch code (called once per batch) to be optimised before the window opens.
