@@ -43,6 +43,9 @@ const { values: flags } = parseArgs({
     sizes: { type: 'string', default: '100,1000,10000' },
     'per-row': { type: 'string', default: '3000' },
     modes: { type: 'string', default: 'insert,copy,upsert,unnest' },
+    // One side only (`raw` or `sink`), for a process of its own: `postgres-isolated.js` runs the two
+    // sides in separate processes, so that neither is billed for the other's garbage.
+    side: { type: 'string', default: 'both' },
   },
 });
 const ROWS = Number(flags.rows);
@@ -51,6 +54,10 @@ const SIZES = String(flags.sizes).split(',').map(Number);
 const PER_ROW = Number(flags['per-row']);
 type Variant = PostgresMode | 'unnest';
 const MODES = String(flags.modes).split(',') as Variant[];
+type Side = 'raw' | 'sink';
+if (!['both', 'raw', 'sink'].includes(flags.side))
+  throw new TypeError(`Expected \`--side\` to be both, raw or sink, got \`${flags.side}\``);
+const SIDES: readonly Side[] = flags.side === 'both' ? ['raw', 'sink'] : [flags.side as Side];
 const URL = process.env.SPILLWAY_PG_URL ?? 'postgres://postgres@127.0.0.1:5432/test';
 const SCHEMA = `spillway_bench_${randomBytes(4).toString('hex')}`;
 const TABLE = 'dock_status';
@@ -215,6 +222,10 @@ async function viaSink(pool: pg.Pool, variant: Variant, size: number): Promise<P
   return pass;
 }
 
+function pass(pool: pg.Pool, side: Side, mode: Variant, size: number): Promise<Pass> {
+  return side === 'raw' ? raw(pool, mode, size) : viaSink(pool, mode, size);
+}
+
 async function perRow(pool: pg.Pool): Promise<number> {
   const sql = `INSERT INTO ${TABLE} ${colList} VALUES ($1, $2, $3, $4, $5)`;
   const client = await pool.connect();
@@ -255,6 +266,7 @@ async function main(): Promise<void> {
       repeats: REPEATS,
       sizes: SIZES,
       modes: MODES,
+      sides: SIDES,
       perRow: PER_ROW,
       upsertViaCopyAbove: UPSERT_VIA_COPY_ABOVE,
     }),
@@ -264,35 +276,51 @@ async function main(): Promise<void> {
     // side, so that each size's sink has run before its first timed pass.
     for (const mode of MODES) {
       for (const size of SIZES) {
-        await truncate();
-        await raw(pool, mode, size);
-        await truncate();
-        await viaSink(pool, mode, size);
+        for (const side of SIDES) {
+          await truncate();
+          await pass(pool, side, mode, size);
+        }
       }
     }
     const samples = new Map<string, number[]>();
     const push = (k: string, v: number) => (samples.get(k) ?? samples.set(k, []).get(k)!).push(v);
     for (let rep = 0; rep < REPEATS; rep++) {
       await truncate();
-      push('per-row', await perRow(pool));
+      if (PER_ROW > 0) push('per-row', await perRow(pool));
       for (const mode of MODES) {
         for (const size of SIZES) {
           // Every run starts from an empty table; alternate which side goes first so that drift
           // on a shared machine does not favour one of them.
-          const order = rep % 2 === 0 ? (['raw', 'sink'] as const) : (['sink', 'raw'] as const);
+          const order = rep % 2 === 0 ? SIDES : [...SIDES].reverse();
           for (const side of order) {
             await truncate();
-            const pass = side === 'raw' ? await raw(pool, mode, size) : await viaSink(pool, mode, size);
-            push(`${side}:${mode}@${size}`, pass.rate);
+            const p = await pass(pool, side, mode, size);
+            push(`${side}:${mode}@${size}`, p.rate);
             // Client CPU per row: less exposed to the shared machine's noise than wall time.
-            push(`cpu:${side}:${mode}@${size}`, pass.cpu);
+            push(`cpu:${side}:${mode}@${size}`, p.cpu);
           }
         }
       }
       process.stderr.write(`repeat ${rep + 1}/${REPEATS} done\n`);
     }
 
-    const one = summary(samples.get('per-row')!);
+    if (SIDES.length === 1) {
+      // One side: its own figures; the ratio is formed by whoever ran the other side.
+      console.log(`\n${SIDES[0]} side alone: rows/s and client CPU µs/row, median of ${REPEATS} (range)`);
+      for (const mode of MODES) {
+        for (const size of SIZES) {
+          const r = summary(samples.get(`${SIDES[0]}:${mode}@${size}`)!);
+          const c = summary(samples.get(`cpu:${SIDES[0]}:${mode}@${size}`)!);
+          console.log(
+            `${mode.padEnd(6)} | ${String(size).padEnd(6)} | ${fmt(r.median).padStart(9)} (${fmt(r.min)}–${fmt(r.max)}) | ` +
+              `${c.median.toFixed(2)} (${c.min.toFixed(2)}–${c.max.toFixed(2)})`,
+          );
+        }
+      }
+      console.log(JSON.stringify({ samples: Object.fromEntries(samples) }));
+      return;
+    }
+    const one = summary(samples.get('per-row') ?? [0]);
     console.log(
       `\nrows/s (median of ${REPEATS}; ± = half the (max-min)/median spread; [a–b] = range of the sink/raw ratios of runs measured back to back)`,
     );
