@@ -17,7 +17,8 @@
 // CPU budget: each phase also reports the CPU time per message of this Node process, of this run's
 // PostgreSQL backends, of the PostgreSQL server's background processes and of the Kafka broker
 // (read from /proc when the servers run on this machine), since all of them share the machine's
-// cores: the budget shows what the cores allow, whatever the bridge does.
+// cores: the budget shows what the cores allow, whatever the bridge does. This process's share is
+// also split into its main thread and the rest (V8's collector and compiler threads, libuv's pool).
 // CPU efficiency (printed per repeat, then as median, range and spread): (source + store CPU µs per
 // message) / (bridge CPU µs per message), all processes of the budget counted. The bridge does the
 // source's and the store's work plus decoding and its own bookkeeping, so 1.0 would be a bridge
@@ -210,8 +211,20 @@ const CLOCK_TICKS = 100;
 
 /** User + system CPU seconds of a whole process (all its threads, dead ones included), or NaN. */
 function processCpuSeconds(pid: number): number {
+  return statCpuSeconds(`/proc/${pid}/stat`);
+}
+
+/**
+ * This process's main thread alone (its task whose id is the pid): what is left of `node` is its
+ * other threads, V8's collector and compiler helpers and libuv's pool.
+ */
+function mainThreadCpuSeconds(): number {
+  return statCpuSeconds(`/proc/self/task/${process.pid}/stat`);
+}
+
+function statCpuSeconds(path: string): number {
   try {
-    const stat = readFileSync(`/proc/${pid}/stat`, 'utf8');
+    const stat = readFileSync(path, 'utf8');
     // Fields after "(comm) ": state ppid … utime (14th field overall) stime (15th).
     const f = stat.slice(stat.lastIndexOf(')') + 2).split(' ');
     return (Number(f[11]) + Number(f[12])) / CLOCK_TICKS;
@@ -277,6 +290,8 @@ function pidListeningOn(port: number): number | undefined {
 interface CpuBudget {
   /** This Node process (the kafkajs consumer, the bridge, the sink and the pg client). */
   node: number;
+  /** Its main thread (part of `node`; clock ticks of /proc, 10 ms each). */
+  nodeMain: number;
   /** This run's PostgreSQL backends (found by application name). */
   postgres: number;
   /** The PostgreSQL server's own processes (WAL writer, checkpointer, background writer, …). */
@@ -303,6 +318,8 @@ class CpuMeter {
   private broker0 = Number.NaN;
   private t1 = 0;
   private nodeUs = 0;
+  private main0 = 0;
+  private mainUs = 0;
   private pg1 = new Map<number, number>();
   private broker1 = Number.NaN;
   /** GC pauses of this process while measuring, ms. */
@@ -337,6 +354,7 @@ class CpuMeter {
   start(): void {
     this.pg0 = this.postgresCpu();
     this.broker0 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
+    this.main0 = mainThreadCpuSeconds();
     this.node0 = process.cpuUsage();
     this.gcMs = 0;
     this.t1 = Number.POSITIVE_INFINITY;
@@ -349,6 +367,7 @@ class CpuMeter {
     this.window.endTime = Number(process.hrtime.bigint() / 1000n);
     const u = process.cpuUsage(this.node0);
     this.nodeUs = u.user + u.system;
+    this.mainUs = (mainThreadCpuSeconds() - this.main0) * 1e6;
     this.broker1 = this.broker === undefined ? Number.NaN : processCpuSeconds(this.broker);
     this.pg1 = this.postgresCpu();
   }
@@ -366,6 +385,7 @@ class CpuMeter {
     const per = (seconds: number) => (seconds * 1e6) / messages;
     return {
       node: this.nodeUs / messages,
+      nodeMain: this.mainUs / messages,
       postgres: this.postmaster === undefined ? Number.NaN : per(mine),
       postgresServer: this.postmaster === undefined ? Number.NaN : per(server),
       broker: per(this.broker1 - this.broker0),
@@ -730,6 +750,7 @@ async function main(): Promise<void> {
     console.log(
       '\nCPU budget, µs per message, median (range) — node = this process; pg = its PostgreSQL backends;\n' +
         'pg-server = PostgreSQL auxiliary processes (machine-wide); broker = the Kafka JVM; busy = CPU / wall, in cores;\n' +
+        'node main = its main thread (part of node; the rest is its helper threads: the collector, the compiler, libuv);\n' +
         'node GC = this process paused for garbage collection (wall µs per message, part of node)',
     );
     const cores = machineInfo().cores;
@@ -739,13 +760,13 @@ async function main(): Promise<void> {
       return `${s.median.toFixed(2)} (${s.min.toFixed(2)}–${s.max.toFixed(2)})`.padEnd(20);
     };
     console.log(
-      `${'phase'.padEnd(15)} ${['node', 'node GC', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
+      `${'phase'.padEnd(15)} ${['node', 'node main', 'node GC', 'pg', 'pg-server', 'broker', 'total', 'wall'].map((h) => h.padEnd(20)).join('')}busy`,
     );
     for (const k of PHASES) {
       const bs = budgets[k];
       const total = bs.map(totalCpu);
       console.log(
-        `${k.padEnd(15)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.gc))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
+        `${k.padEnd(15)} ${cell(bs.map((b) => b.node))}${cell(bs.map((b) => b.nodeMain))}${cell(bs.map((b) => b.gc))}${cell(bs.map((b) => b.postgres))}${cell(bs.map((b) => b.postgresServer))}` +
           `${cell(bs.map((b) => b.broker))}${cell(total)}${cell(bs.map((b) => b.wall))}${med(bs.map((b, i) => total[i]! / b.wall)).toFixed(2)}`,
       );
     }
